@@ -1,0 +1,49 @@
+"""Atomic file writes: a temporary file in the target's folder, then a rename.
+
+A reader never sees a half-written output, and an interrupted run leaves no
+partial file behind: the temporary file is removed on any exception,
+``KeyboardInterrupt`` included.
+"""
+
+import os
+import tempfile
+from pathlib import Path
+
+__all__ = ["write_bytes_atomic", "write_text_atomic"]
+
+
+def write_bytes_atomic(path, data):
+    """Write ``data`` to ``path`` so that the file appears whole or not at all.
+
+    Parameters
+    ----------
+    path : str or Path
+        Destination file; its folder must exist.
+    data : bytes
+        The full content.
+
+    Returns
+    -------
+    Path
+        The destination path.
+    """
+    path = Path(path)
+    handle, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(handle, "wb") as tmp:
+            tmp.write(data)
+            tmp.flush()
+            os.fsync(tmp.fileno())
+        os.replace(tmp_name, path)
+    except BaseException:
+        try:
+            os.unlink(tmp_name)
+        except FileNotFoundError:
+            pass
+        raise
+    return path
+
+
+def write_text_atomic(path, text):
+    """Write UTF-8 ``text`` to ``path`` atomically; see `write_bytes_atomic`."""
+    return write_bytes_atomic(path, text.encode("utf-8"))
