@@ -1,0 +1,338 @@
+"""Colour maths shared by the transforms and the nuisance-factor measurements.
+
+Dtype policy: images are ``(H, W, 3)`` uint8, RGB, sRGB encoded. Float work
+is done in float32 unless the caller passes float64. Functions that map one
+8-bit code to another go through 256-entry lookup tables.
+
+References
+----------
+.. [1] IEC 61966-2-1:1999, Multimedia systems and equipment -- Colour
+   measurement and management -- Part 2-1: Default RGB colour space -- sRGB.
+.. [2] ITU-R Recommendation BT.709-6 (2015), Parameter values for the HDTV
+   standards for production and international programme exchange, item 3.2
+   (derivation of luminance signal).
+.. [3] A. R. Smith, "Color gamut transform pairs", SIGGRAPH '78, Computer
+   Graphics 12(3), pp. 12-19, 1978 (the hexcone HSV model).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = [
+    "BT709_COEFFICIENTS",
+    "SRGB_TO_LINEAR_LUT",
+    "check_rgb_image",
+    "srgb_to_linear",
+    "linear_to_srgb",
+    "encode_linear_to_uint8",
+    "linear_tone_lut",
+    "relative_luminance",
+    "mean_relative_luminance",
+    "rgb_to_hsv",
+    "hsv_to_rgb",
+]
+
+# ITU-R BT.709-6 item 3.2: Y = 0.2126 R + 0.7152 G + 0.0722 B on linear light [2]_.
+BT709_COEFFICIENTS = np.array([0.2126, 0.7152, 0.0722], dtype=np.float32)
+
+# IEC 61966-2-1 constants [1]_: the decode breakpoint on encoded values and the
+# encode breakpoint on linear values.
+_DECODE_BREAK = 0.04045
+_ENCODE_BREAK = 0.0031308
+
+
+def check_rgb_image(image, *, name="image"):
+    """Return ``image`` if it is an ``(H, W, 3)`` uint8 array; raise otherwise.
+
+    Parameters
+    ----------
+    image : numpy.ndarray
+        Candidate image.
+    name : str, optional
+        What to call the argument in the error message.
+
+    Returns
+    -------
+    numpy.ndarray
+        The same object, unchanged.
+
+    Raises
+    ------
+    ValueError
+        If ``image`` is not a numpy array of shape ``(H, W, 3)`` and dtype uint8.
+    """
+    if not isinstance(image, np.ndarray):
+        raise ValueError(
+            f"{name} must be a numpy array of shape (H, W, 3) and dtype uint8; "
+            f"got {type(image).__name__}"
+        )
+    if image.ndim != 3 or image.shape[2] != 3 or image.dtype != np.uint8:
+        raise ValueError(
+            f"{name} must have shape (H, W, 3) and dtype uint8 (RGB, sRGB encoded); "
+            f"got shape {image.shape} and dtype {image.dtype}"
+        )
+    if image.shape[0] == 0 or image.shape[1] == 0:
+        raise ValueError(f"{name} must have at least one pixel; got shape {image.shape}")
+    return image
+
+
+def _float_array(values):
+    array = np.asarray(values)
+    if array.dtype.kind != "f":
+        array = array.astype(np.float32)
+    return array
+
+
+def srgb_to_linear(values):
+    """Decode sRGB-encoded values to linear light (IEC 61966-2-1).
+
+    Parameters
+    ----------
+    values : array_like of float
+        Encoded values in [0, 1]; values outside are clipped to [0, 1] first.
+
+    Returns
+    -------
+    numpy.ndarray
+        Linear-light values in [0, 1], float32 unless float64 came in.
+
+    Notes
+    -----
+    ``v / 12.92`` for ``v <= 0.04045``, else ``((v + 0.055) / 1.055) ** 2.4`` [1]_.
+
+    References
+    ----------
+    .. [1] IEC 61966-2-1:1999, section 5.2, equations (5)-(7).
+    """
+    v = np.clip(_float_array(values), 0.0, 1.0)
+    return np.where(v <= _DECODE_BREAK, v / 12.92, ((v + 0.055) / 1.055) ** 2.4).astype(
+        v.dtype, copy=False
+    )
+
+
+def linear_to_srgb(values):
+    """Encode linear-light values with the sRGB transfer function (IEC 61966-2-1).
+
+    Parameters
+    ----------
+    values : array_like of float
+        Linear-light values; values outside [0, 1] are clipped (out-of-gamut
+        light saturates, as a camera's output would).
+
+    Returns
+    -------
+    numpy.ndarray
+        Encoded values in [0, 1], float32 unless float64 came in.
+
+    Notes
+    -----
+    ``12.92 L`` for ``L <= 0.0031308``, else ``1.055 L ** (1 / 2.4) - 0.055`` [1]_.
+
+    References
+    ----------
+    .. [1] IEC 61966-2-1:1999, section 5.3, equations (8)-(10).
+    """
+    lin = np.clip(_float_array(values), 0.0, 1.0)
+    return np.where(
+        lin <= _ENCODE_BREAK, lin * 12.92, 1.055 * lin ** (1.0 / 2.4) - 0.055
+    ).astype(lin.dtype, copy=False)
+
+
+SRGB_TO_LINEAR_LUT = srgb_to_linear(np.arange(256, dtype=np.float64) / 255.0).astype(np.float32)
+SRGB_TO_LINEAR_LUT.setflags(write=False)
+
+# Each channel's decoded value pre-multiplied by its BT.709 weight, so that
+# luminance is three table gathers and two additions.
+_WEIGHTED_LUTS = tuple(
+    (SRGB_TO_LINEAR_LUT.astype(np.float64) * float(w)).astype(np.float32)
+    for w in (0.2126, 0.7152, 0.0722)
+)
+
+
+def encode_linear_to_uint8(linear):
+    """Encode linear light to 8-bit sRGB codes, rounding to the nearest code.
+
+    Parameters
+    ----------
+    linear : array_like of float
+        Linear-light values; clipped to [0, 1].
+
+    Returns
+    -------
+    numpy.ndarray of uint8
+        ``round(255 * linear_to_srgb(linear))``.
+    """
+    encoded = linear_to_srgb(linear)
+    encoded *= 255.0
+    encoded += 0.5
+    return encoded.astype(np.uint8)
+
+
+def linear_tone_lut(gain, offset=0.0):
+    """A 256-entry uint8 table applying ``gain * L + offset`` in linear light.
+
+    Each 8-bit code is decoded, mapped, clipped and re-encoded, so applying
+    the table (``lut[image]``) is an affine map of linear light done exactly
+    per code.
+
+    Parameters
+    ----------
+    gain : float
+        Multiplier on linear light (an exposure change when ``offset`` is 0).
+    offset : float, optional
+        Added to linear light after the gain.
+
+    Returns
+    -------
+    numpy.ndarray of uint8, shape (256,)
+    """
+    mapped = SRGB_TO_LINEAR_LUT.astype(np.float64) * float(gain) + float(offset)
+    return encode_linear_to_uint8(mapped)
+
+
+def relative_luminance(image):
+    """Per-pixel relative luminance of an sRGB uint8 image (ITU-R BT.709).
+
+    Parameters
+    ----------
+    image : numpy.ndarray of uint8, shape (..., 3)
+        sRGB-encoded RGB: one image ``(H, W, 3)`` or a batch ``(N, H, W, 3)``.
+
+    Returns
+    -------
+    numpy.ndarray of float32, shape (...)
+        ``0.2126 R + 0.7152 G + 0.0722 B`` on decoded (linear) values, in [0, 1].
+
+    Raises
+    ------
+    ValueError
+        If ``image`` is not uint8 with a last axis of length 3.
+
+    References
+    ----------
+    .. [1] ITU-R BT.709-6, item 3.2; IEC 61966-2-1:1999 for the decoding.
+    """
+    image = np.asarray(image)
+    if image.dtype != np.uint8 or image.ndim < 1 or image.shape[-1] != 3:
+        raise ValueError(
+            "image must be uint8 with a last axis of 3 (RGB); "
+            f"got shape {image.shape} and dtype {image.dtype}"
+        )
+    red, green, blue = _WEIGHTED_LUTS
+    luminance = red[image[..., 0]]
+    luminance += green[image[..., 1]]
+    luminance += blue[image[..., 2]]
+    # Sums of rounded float32 weights can exceed 1 by an ulp for white.
+    np.minimum(luminance, 1.0, out=luminance)
+    return luminance
+
+
+def mean_relative_luminance(image):
+    """Mean BT.709 relative luminance of an image (a float in [0, 1]).
+
+    Parameters
+    ----------
+    image : numpy.ndarray of uint8, shape (H, W, 3)
+
+    Returns
+    -------
+    float
+    """
+    # The mean over pixels equals the weighted sum of per-channel decoded
+    # means, and per-channel means come cheaply from 256-bin histograms.
+    image = np.asarray(image)
+    if image.dtype != np.uint8 or image.ndim < 1 or image.shape[-1] != 3:
+        raise ValueError(
+            "image must be uint8 with a last axis of 3 (RGB); "
+            f"got shape {image.shape} and dtype {image.dtype}"
+        )
+    pixels = image.reshape(-1, 3)
+    if pixels.shape[0] == 0:
+        raise ValueError("image must have at least one pixel")
+    total = 0.0
+    for channel, weighted in enumerate(_WEIGHTED_LUTS):
+        counts = np.bincount(pixels[:, channel], minlength=256)
+        total += float(counts @ weighted.astype(np.float64))
+    return min(total / pixels.shape[0], 1.0)
+
+
+def _check_last_axis(array, name):
+    if array.ndim < 1 or array.shape[-1] != 3:
+        raise ValueError(f"{name} must have a last axis of length 3; got shape {array.shape}")
+
+
+def rgb_to_hsv(rgb):
+    """Convert RGB to HSV (hexcone model), vectorised over any leading shape.
+
+    Parameters
+    ----------
+    rgb : array_like of float, shape (..., 3)
+        Values in [0, 1].
+
+    Returns
+    -------
+    numpy.ndarray, shape (..., 3)
+        Hue in [0, 1) (a fraction of a turn; red is 0, green 1/3, blue 2/3),
+        saturation and value in [0, 1]. Grey pixels get hue 0 and saturation 0.
+        float32 unless float64 came in.
+
+    References
+    ----------
+    .. [1] A. R. Smith, "Color gamut transform pairs", SIGGRAPH '78, 1978.
+    """
+    rgb = _float_array(rgb)
+    _check_last_axis(rgb, "rgb")
+    red, green, blue = rgb[..., 0], rgb[..., 1], rgb[..., 2]
+    value = rgb.max(axis=-1)
+    chroma = value - rgb.min(axis=-1)
+    grey = chroma == 0
+    safe_chroma = np.where(grey, 1.0, chroma).astype(rgb.dtype, copy=False)
+    safe_value = np.where(value == 0, 1.0, value).astype(rgb.dtype, copy=False)
+    saturation = np.where(grey, 0.0, chroma / safe_value)
+    # Which sextant the hue lies in depends on which channel is the maximum;
+    # ties resolve red first, then green, like colorsys.
+    hue = np.where(
+        value == red,
+        (green - blue) / safe_chroma,
+        np.where(value == green, 2.0 + (blue - red) / safe_chroma, 4.0 + (red - green) / safe_chroma),
+    )
+    hue = (hue / 6.0) % 1.0
+    hue = np.where(grey, 0.0, hue)
+    # A tiny negative hue can wrap to exactly 1.0 in floating point.
+    hue = np.where(hue >= 1.0, 0.0, hue)
+    out = np.stack([hue, saturation, value], axis=-1)
+    return out.astype(rgb.dtype, copy=False)
+
+
+def hsv_to_rgb(hsv):
+    """Convert HSV (hexcone model) back to RGB, vectorised.
+
+    Parameters
+    ----------
+    hsv : array_like of float, shape (..., 3)
+        Hue as a fraction of a turn (any real value; taken modulo 1),
+        saturation and value in [0, 1].
+
+    Returns
+    -------
+    numpy.ndarray, shape (..., 3)
+        RGB in [0, 1]; float32 unless float64 came in.
+
+    References
+    ----------
+    .. [1] A. R. Smith, "Color gamut transform pairs", SIGGRAPH '78, 1978.
+    """
+    hsv = _float_array(hsv)
+    _check_last_axis(hsv, "hsv")
+    hue = (hsv[..., 0] % 1.0) * 6.0
+    saturation, value = hsv[..., 1], hsv[..., 2]
+    # Smith's closed form: channel k = V - V S clip(min(n, 4 - n), 0, 1)
+    # with n = (k_offset + H) mod 6, offsets 5, 3, 1 for R, G, B.
+    chroma = value * saturation
+    channels = []
+    for offset in (5.0, 3.0, 1.0):
+        n = (offset + hue) % 6.0
+        ramp = np.clip(np.minimum(n, 4.0 - n), 0.0, 1.0)
+        channels.append(value - chroma * ramp)
+    return np.stack(channels, axis=-1).astype(hsv.dtype, copy=False)
