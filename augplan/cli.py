@@ -1,0 +1,400 @@
+"""The command line: parse arguments, call the library, print, return an exit code.
+
+Nothing here computes anything the library cannot compute on its own.
+"""
+
+import argparse
+import json
+import os
+import sys
+import traceback
+from enum import IntEnum
+from pathlib import Path
+
+from . import __version__
+from .errors import BadInputError
+
+__all__ = ["ExitCode", "main"]
+
+
+class ExitCode(IntEnum):
+    """Exit codes of every command (see DESIGN.md)."""
+
+    OK = 0          # done, everything passed
+    FLAGGED = 1     # done, something was flagged
+    BAD_INPUT = 2   # bad input or usage
+    INTERNAL = 3    # a bug in augplan: please report it
+    INTERRUPTED = 130
+
+
+class _Parser(argparse.ArgumentParser):
+    """An argument parser that raises instead of exiting, so main() returns codes."""
+
+    def error(self, message):
+        raise BadInputError(f"{self.prog}: {message} (see '{self.prog} --help')")
+
+
+def _common(parser, *, data=True, json_flag=True):
+    if data:
+        parser.add_argument("data", metavar="DATA",
+                            help="data folder (train/<class>/..., val/<class>/...) or a CSV manifest")
+        parser.add_argument("--strict", action="store_true",
+                            help="stop on the first file that is not a readable image instead of skipping it")
+    parser.add_argument("--seed", type=int, default=0, help="seed of the analysis (default 0)")
+    parser.add_argument("--quiet", action="store_true", help="no progress bars, no warnings on stderr")
+    if json_flag:
+        parser.add_argument("--json", action="store_true",
+                            help="print one JSON document on stdout; human text goes to stderr")
+    parser.add_argument("--traceback", action="store_true", help="show the traceback of an unexpected error")
+
+
+def _workers(parser):
+    parser.add_argument("--workers", type=int, default=1,
+                        help="parallel worker processes (default 1; -1 uses every core)")
+
+
+def _build_parser():
+    parser = _Parser(prog="augplan", description=(
+        "Plan and vet an image augmentation recipe before a long training run: label safety, "
+        "nuisance coverage, shortcut audit and honest validation scores."))
+    parser.add_argument("--version", action="version", version=f"augplan {__version__}")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    p = commands.add_parser("preview", help="contact sheet of originals and augmented draws per class")
+    _common(p, json_flag=False)
+    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
+    p.add_argument("-o", "--output", required=True, type=Path, help="PNG file to write")
+    p.add_argument("--per-class", type=int, default=3, help="images per class (default 3)")
+    p.add_argument("--draws", type=int, default=5, help="augmented draws per image (default 5)")
+
+    p = commands.add_parser("check", help="label safety of each transform")
+    _common(p)
+    _workers(p)
+    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
+    p.add_argument("--sample", type=int, default=None, help="at most N training images per class")
+    p.add_argument("--evidence", type=Path, default=None,
+                   help="folder for contact sheets of the images that moved")
+
+    p = commands.add_parser("coverage", help="nuisance widening, field coverage, shortcut audit")
+    _common(p)
+    _workers(p)
+    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
+    p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
+    p.add_argument("--plots", type=Path, default=None, help="folder for one histogram PNG per factor")
+    p.add_argument("--draws", type=int, default=4, help="augmented draws per training image (default 4)")
+
+    p = commands.add_parser("evaluate", help="score recipes against a no-augmentation baseline")
+    _common(p)
+    _workers(p)
+    p.add_argument("--recipe", required=True, type=Path, action="append", help="recipe YAML (repeatable)")
+    p.add_argument("--repeats", type=int, default=5, help="independent draws and model seeds (default 5)")
+    p.add_argument("--confirm-fraction", type=float, default=None,
+                   help="carve this share of val out as a confirmation split scored once")
+    p.add_argument("--ledger", type=Path, default=None,
+                   help="results ledger (default .augplan/ledger.sqlite beside DATA)")
+    p.add_argument("--field", type=Path, default=None, help="labelled field sample folder (default DATA/field)")
+
+    p = commands.add_parser("draft", help="propose a candidate recipe from the data")
+    _common(p, json_flag=False)
+    p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
+    p.add_argument("-o", "--output", required=True, type=Path, help="recipe YAML to write")
+    p.add_argument("--name", default="draft", help="name of the drafted recipe (default 'draft')")
+
+    p = commands.add_parser("vet", help="the whole job: check, coverage, evaluate, report, vetted export")
+    _common(p)
+    _workers(p)
+    p.add_argument("--recipe", required=True, type=Path, action="append", help="recipe YAML (repeatable)")
+    p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
+    p.add_argument("-o", "--output", required=True, type=Path, help="output folder")
+    p.add_argument("--force", action="store_true", help="write into an existing non-empty output folder")
+    p.add_argument("--approve", default="", help="indices of unverified transforms to keep, e.g. 3,5")
+    p.add_argument("--repeats", type=int, default=5, help="evaluation repeats (default 5)")
+    p.add_argument("--sample", type=int, default=None, help="at most N training images per class for check")
+    p.add_argument("--ledger", type=Path, default=None, help="results ledger path")
+
+    p = commands.add_parser("verify", help="check a vetted recipe's checksum and validity")
+    _common(p, data=False)
+    p.add_argument("vetted", type=Path, metavar="VETTED", help="vetted recipe YAML")
+    p.add_argument("--data", type=Path, default=None, help="data set whose fingerprint to compare")
+
+    p = commands.add_parser("history", help="past comparisons stored in the results ledger")
+    _common(p, data=False)
+    p.add_argument("data", metavar="DATA", nargs="?", type=Path, default=None,
+                   help="only comparisons on this data set")
+    p.add_argument("--ledger", type=Path, default=None, help="results ledger path")
+
+    p = commands.add_parser("demo", help="vet the bundled demo scenario")
+    _common(p, data=False)
+    _workers(p)
+    p.add_argument("-o", "--output", type=Path, default=Path("augplan-demo-output"),
+                   help="output folder (default ./augplan-demo-output, replaced)")
+    return parser
+
+
+class _Console:
+    """Where human text goes: stdout normally, stderr under --json."""
+
+    def __init__(self, as_json, quiet):
+        self.as_json = as_json
+        self.quiet = quiet
+
+    def say(self, text=""):
+        print(text, file=sys.stderr if self.as_json else sys.stdout)
+
+    def warn(self, text):
+        if not self.quiet:
+            print(f"warning: {text}", file=sys.stderr)
+
+    def emit_json(self, document):
+        sys.stdout.write(json.dumps(document, indent=2, sort_keys=False, allow_nan=False) + "\n")
+
+
+def _open_data(args, *, field=None):
+    from .data import open_dataset
+
+    data = Path(args.data)
+    manifest = None
+    if data.is_file() and data.suffix.lower() == ".csv":
+        manifest, data = data, data.parent
+    return open_dataset(data, strict=args.strict, manifest=manifest, seed=args.seed, field=field)
+
+
+def _read_recipes(paths):
+    from .recipe import read_recipe
+
+    recipes = [read_recipe(path) for path in paths]
+    names = [recipe.name for recipe in recipes]
+    repeated = sorted({name for name in names if names.count(name) > 1})
+    if repeated:
+        raise BadInputError(f"recipes must have distinct names; {', '.join(repeated)} appears more than once")
+    return recipes
+
+
+def _report_dataset(console, dataset):
+    for relpath, reason in dataset.skipped:
+        console.warn(f"skipped {relpath}: {reason}")
+    if dataset.val_from_train:
+        console.warn(f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) "
+                     "stands in for validation")
+
+
+def _report_leaks(console, dataset):
+    from .data import find_duplicates
+
+    leaks = find_duplicates(dataset)
+    for leak in leaks[:20]:
+        console.warn(f"{leak['kind']} duplicate across splits: {leak['a']} and {leak['b']} "
+                     "(it inflates validation scores)")
+    if len(leaks) > 20:
+        console.warn(f"... and {len(leaks) - 20} more duplicate pairs")
+    return leaks
+
+
+def _default_ledger(data):
+    return Path(data).resolve().parent / ".augplan" / "ledger.sqlite"
+
+
+def _default_cache(data):
+    return Path(data).resolve().parent / ".augplan" / "features"
+
+
+def _run_preview(args, console):
+    from .sheets import preview_sheet, save_png
+    from .recipe import read_recipe
+    import numpy as np
+
+    dataset = _open_data(args)
+    _report_dataset(console, dataset)
+    recipe = read_recipe(args.recipe)
+    sheet = preview_sheet(dataset, recipe, per_class=args.per_class, draws=args.draws,
+                          rng=np.random.default_rng(args.seed))
+    _ensure_parent(args.output)
+    save_png(sheet, args.output)
+    console.say(f"wrote {args.output}")
+    return ExitCode.OK
+
+
+def _ensure_parent(path):
+    parent = Path(path).resolve().parent
+    if not parent.is_dir():
+        raise BadInputError(f"{path}: the folder {parent} does not exist")
+
+
+def _run_check(args, console):
+    from .invariance import check_recipe
+    from . import tables
+
+    dataset = _open_data(args)
+    _report_dataset(console, dataset)
+    leaks = _report_leaks(console, dataset)
+    recipe = _read_recipes([args.recipe])[0]
+    result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=args.workers,
+                          quiet=args.quiet, evidence_dir=args.evidence)
+    result["leaks"] = leaks
+    for warning in result.get("warnings", []):
+        console.warn(warning)
+    if args.json:
+        console.emit_json(result)
+    else:
+        console.say(tables.check_table(result))
+    flagged = any(t["verdict"] != "safe" for t in result["transforms"])
+    return ExitCode.FLAGGED if flagged else ExitCode.OK
+
+
+def _run_coverage(args, console):
+    from .coverage import analyse_coverage
+    from . import tables
+
+    dataset = _open_data(args, field=args.field)
+    _report_dataset(console, dataset)
+    recipe = _read_recipes([args.recipe])[0]
+    result = analyse_coverage(dataset, recipe, draws=args.draws, seed=args.seed, workers=args.workers,
+                              quiet=args.quiet, plots_dir=args.plots)
+    if args.json:
+        console.emit_json(result)
+    else:
+        console.say(tables.coverage_table(result))
+    persists = any(s.get("flagged") and s.get("persists") for s in result["shortcuts"])
+    return ExitCode.FLAGGED if persists else ExitCode.OK
+
+
+def _run_evaluate(args, console):
+    from .evaluate import evaluate_recipes
+    from . import tables
+
+    dataset = _open_data(args, field=args.field)
+    _report_dataset(console, dataset)
+    leaks = _report_leaks(console, dataset)
+    recipes = _read_recipes(args.recipe)
+    result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=args.workers,
+                              quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
+                              cache_dir=_default_cache(args.data), confirm_fraction=args.confirm_fraction)
+    result["leaks"] = leaks
+    for warning in result.get("warnings", []):
+        console.warn(warning)
+    if args.json:
+        console.emit_json(result)
+    else:
+        console.say(tables.leaderboard_table(result))
+    return ExitCode.FLAGGED if any(r["flagged"] for r in result["recipes"]) else ExitCode.OK
+
+
+def _run_draft(args, console):
+    from .draft import draft_recipe_text
+    from .atomic import write_text_atomic
+
+    dataset = _open_data(args, field=args.field)
+    _report_dataset(console, dataset)
+    text = draft_recipe_text(dataset, name=args.name, seed=args.seed, quiet=args.quiet)
+    _ensure_parent(args.output)
+    write_text_atomic(args.output, text)
+    console.say(f"wrote {args.output}; run 'augplan check' on it before use")
+    return ExitCode.OK
+
+
+def _parse_approve(text):
+    if not text.strip():
+        return ()
+    try:
+        return tuple(sorted({int(part) for part in text.split(",") if part.strip()}))
+    except ValueError:
+        raise BadInputError(f"--approve takes transform indices separated by commas, e.g. 3,5; got {text!r}")
+
+
+def _run_vet(args, console):
+    from .vet import vet_recipes
+
+    dataset = _open_data(args, field=args.field)
+    _report_dataset(console, dataset)
+    recipes = _read_recipes(args.recipe)
+    summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
+                          repeats=args.repeats, sample=args.sample, seed=args.seed, workers=args.workers,
+                          quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
+                          cache_dir=_default_cache(args.data))
+    if args.json:
+        console.emit_json(summary)
+    console.say(summary["verdict"])
+    console.say(f"report: {summary['report']}")
+    console.say(f"vetted recipe: {summary['vetted_recipe']}")
+    return ExitCode.OK if summary["unchanged"] else ExitCode.FLAGGED
+
+
+def _run_verify(args, console):
+    from .export import verify_vetted
+
+    result = verify_vetted(args.vetted, data=args.data)
+    if args.json:
+        console.emit_json(result)
+    for line in result["messages"]:
+        console.say(line)
+    return ExitCode.OK if result["ok"] else ExitCode.FLAGGED
+
+
+def _run_history(args, console):
+    from .ledger import list_history
+    from .data import fingerprint, open_dataset
+    from . import tables
+
+    ledger = args.ledger or (_default_ledger(args.data) if args.data else Path(".augplan/ledger.sqlite"))
+    data_fingerprint = fingerprint(open_dataset(args.data)) if args.data else None
+    rows = list_history(ledger, fingerprint=data_fingerprint)
+    if args.json:
+        console.emit_json({"ledger": str(ledger), "evaluations": rows})
+    else:
+        console.say(tables.history_table(rows))
+    return ExitCode.OK
+
+
+def _run_demo(args, console):
+    from .demo import run_demo
+
+    summary = run_demo(args.output, seed=args.seed, workers=args.workers, quiet=args.quiet)
+    if args.json:
+        console.emit_json(summary)
+    console.say(summary["verdict"])
+    console.say(f"report: {summary['report']}")
+    console.say(f"vetted recipe: {summary['vetted_recipe']}")
+    return ExitCode.OK
+
+
+_COMMANDS = {
+    "preview": _run_preview, "check": _run_check, "coverage": _run_coverage, "evaluate": _run_evaluate,
+    "draft": _run_draft, "vet": _run_vet, "verify": _run_verify, "history": _run_history, "demo": _run_demo,
+}
+
+
+def main(argv=None):
+    """Run augplan with ``argv`` (default ``sys.argv[1:]``) and return the exit code."""
+    argv = sys.argv[1:] if argv is None else list(argv)
+    show_traceback = "--traceback" in argv
+    try:
+        args = _build_parser().parse_args(argv)
+        if args.command is None:
+            _build_parser().print_help(sys.stderr)
+            return ExitCode.BAD_INPUT
+        if getattr(args, "workers", 1) == 0 or getattr(args, "workers", 1) < -1:
+            raise BadInputError(f"--workers must be a positive number or -1 (every core); got {args.workers}")
+        console = _Console(getattr(args, "json", False), args.quiet)
+        return _COMMANDS[args.command](args, console)
+    except SystemExit as stop:  # --help and --version
+        return ExitCode.OK if stop.code in (0, None) else ExitCode.BAD_INPUT
+    except BadInputError as error:
+        print(f"augplan: error: {error}", file=sys.stderr)
+        return ExitCode.BAD_INPUT
+    except OSError as error:  # the user's files or folders: permissions, disk full, missing paths
+        where = error.filename or "a file"
+        print(f"augplan: error: {where}: {error.strerror or error}", file=sys.stderr)
+        return ExitCode.BAD_INPUT
+    except KeyboardInterrupt:
+        print("augplan: interrupted; no partial output was kept", file=sys.stderr)
+        return ExitCode.INTERRUPTED
+    except Exception as error:  # a bug: say so plainly, traceback on request
+        if show_traceback:
+            traceback.print_exc()
+        print(f"augplan: internal error: {type(error).__name__}: {error}. "
+              "This is a bug in augplan; rerun with --traceback and report it.", file=sys.stderr)
+        return ExitCode.INTERNAL
+
+
+if __name__ == "__main__":
+    sys.exit(main())

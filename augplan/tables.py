@@ -1,0 +1,123 @@
+"""Plain-text tables of the command outputs, sized for an 80-column terminal."""
+
+__all__ = ["format_table", "check_table", "coverage_table", "leaderboard_table", "history_table",
+           "format_range", "format_interval"]
+
+
+def format_table(header, rows, *, width=80):
+    """Lay out ``rows`` under ``header`` in left-aligned columns.
+
+    The last column is cut with an ellipsis so no line is longer than ``width``.
+    """
+    rows = [[str(cell) for cell in row] for row in rows]
+    widths = [max(len(str(h)), *(len(row[i]) for row in rows)) if rows else len(str(h))
+              for i, h in enumerate(header)]
+    lines = []
+    for row in [list(map(str, header)), ["-" * w for w in widths], *rows]:
+        line = "  ".join(cell.ljust(w) for cell, w in zip(row, widths)).rstrip()
+        if len(line) > width:
+            line = line[:width - 1] + "\u2026"
+        lines.append(line)
+    return "\n".join(lines)
+
+
+def format_interval(low, high, digits=2):
+    """``[0.12, 0.30]`` for an interval."""
+    return f"[{low:.{digits}f}, {high:.{digits}f}]"
+
+
+def format_range(value, digits=3):
+    """A magnitude range as text: ``-15..15`` or a single value."""
+    if value is None:
+        return "-"
+    if isinstance(value, (list, tuple)):
+        low, high = value
+        if low == high:
+            return f"{low:g}"
+        return f"{round(low, digits):g}..{round(high, digits):g}"
+    return str(value)
+
+
+def _params_text(params):
+    parts = []
+    for key, value in params.items():
+        parts.append(f"{key} {format_range(value)}")
+    return ", ".join(parts)
+
+
+def check_table(result):
+    """The label-safety table of a ``check`` result."""
+    rows = []
+    for t in result["transforms"]:
+        swap = t["swaps"][0] if t["swaps"] else None
+        swap_text = f"{swap['from']}->{swap['to']} {swap['rate']:.0%}" if swap else "-"
+        rows.append([t["index"], f"{t['op']} {_params_text(t['params'])}", t["verdict"],
+                     f"{t['change_rate']:.2f} {format_interval(*t['change_rate_ci'])}",
+                     format_range(t.get("safe_limit")), swap_text])
+    model = result["model"]
+    head = (f"recipe {result['recipe']}: proxy model cross-validated accuracy "
+            f"{model['cv_accuracy']:.2f} (chance {model.get('chance', float('nan')):.2f})")
+    table = format_table(["#", "transform", "verdict", "change [95% CI]", "safe limit", "main swap"], rows)
+    notes = []
+    for t in result["transforms"]:
+        if t.get("suggestion"):
+            notes.append(f"transform {t['index']} ({t['op']}): suggestion {t['suggestion']}")
+    return "\n".join([head, table, *notes])
+
+
+def coverage_table(result):
+    """Factor widening and the shortcut audit of a ``coverage`` result."""
+    rows = []
+    for name, factor in result["factors"].items():
+        original, augmented = factor["original"], factor["augmented"]
+        field = factor.get("field")
+        rows.append([name, f"{original['std']:.3g}", f"{augmented['std']:.3g}",
+                     f"{original['p05']:.3g}..{original['p95']:.3g}",
+                     f"{augmented['p05']:.3g}..{augmented['p95']:.3g}",
+                     f"{field['coverage']:.0%}" if field else "-"])
+    widening = format_table(["factor", "std orig", "std aug", "5-95% orig", "5-95% aug", "field in"], rows)
+    rows = []
+    for s in result["shortcuts"]:
+        flag = "FLAGGED" if s["flagged"] and s.get("persists") else ("cleared" if s["flagged"] else "")
+        val = "-" if s.get("val") is None else f"{s['val']:.2f}"
+        field = "-" if s.get("field") is None else f"{s['field']:.2f}"
+        rows.append([s["factor"], f"{s['original']:.2f}", f"{s['augmented']:.2f}", val, field,
+                     f"{s['chance']:.2f}", flag])
+    audit = format_table(["shortcut factor", "train", "augmented", "val", "field", "chance", ""], rows)
+    parts = [f"recipe {result['recipe']}: nuisance factors", widening, "", "shortcut audit "
+             "(cross-validated balanced accuracy of the class from the factor alone)", audit]
+    coverage = result.get("field_coverage")
+    if coverage:
+        parts.append(f"field coverage (Naeem et al. 2020, k={coverage['k']}): "
+                     f"{coverage['coverage_before']:.2f} before, {coverage['coverage_after']:.2f} after augmentation")
+    parts.extend(result.get("messages", []))
+    for s in result.get("suggestions", []):
+        parts.append(f"suggestion: {s['op']} {format_range(s['range'])} ({s['reason']})")
+    return "\n".join(parts)
+
+
+def leaderboard_table(result):
+    """The leaderboard of an ``evaluate`` result, baseline first."""
+    base = result["baseline"]
+    rows = [["baseline", f"{base['accuracy']:.3f} {format_interval(*base['accuracy_ci'], digits=3)}",
+             "-", "-", "-", ""]]
+    for r in sorted(result["recipes"], key=lambda r: -r["gain"]):
+        flags = "LOSES" if r["flagged"] else ""
+        rows.append([r["name"], f"{r['accuracy']:.3f} {format_interval(*r['accuracy_ci'], digits=3)}",
+                     f"{r['gain']:+.3f} {format_interval(*r['gain_ci'], digits=3)}",
+                     f"{r['p_value']:.3g}", f"{r['p_holm']:.3g}", flags])
+    head = f"scored on {result['scored_on']}: original images, {result['repeats']} repeats per recipe"
+    parts = [head, format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]", "p", "Holm p", ""], rows)]
+    for source in ("confirm", "field"):
+        block = result.get(source)
+        if block:
+            parts.append(f"{source}: {block.get('summary', block)}")
+    return "\n".join(parts)
+
+
+def history_table(rows):
+    """Past comparisons from the results ledger."""
+    if not rows:
+        return "no evaluations in the ledger yet"
+    header = list(rows[0].keys())
+    return format_table(header, [[row[key] for key in header] for row in rows])
