@@ -1,0 +1,675 @@
+"""The recipe format: parse, validate, serialise and hash augmentation recipes.
+
+A recipe is a small YAML file (see DESIGN.md, "Recipe format (YAML)")::
+
+    name: tiles-draft
+    seed: 7
+    copies: 4
+    fill: reflect
+    transforms:
+      - op: rotate
+        degrees: [-15, 15]
+        probability: 0.5
+
+Validation is strict because a typo in a recipe would otherwise cost a long
+training run: unknown keys, misspelled op names, booleans where numbers are
+expected, NaN, inverted ranges, duplicate keys, tabs and YAML aliases are all
+refused with a message that names the file, the line, the field, what is
+allowed and what came. Transforms are numbered from 1 in messages, as a person
+counts them in the file.
+
+The op catalogue itself (the image functions) lives in `augplan.transforms`;
+this module keeps the table of which fields each op takes and which values
+they allow, since checking a recipe is the recipe's job.
+"""
+
+import difflib
+import hashlib
+import json
+import math
+import numbers
+import re
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import yaml
+
+from augplan.atomic import write_text_atomic
+from augplan.errors import BadInputError
+
+__all__ = [
+    "FILLS",
+    "MAX_RECIPE_BYTES",
+    "OP_FIELDS",
+    "RECIPE_SCHEMA_PATH",
+    "FrozenMap",
+    "Recipe",
+    "RecipeError",
+    "Transform",
+    "dump_recipe",
+    "parse_recipe",
+    "read_recipe",
+    "recipe_hash",
+    "recipe_to_dict",
+    "write_recipe",
+]
+
+RECIPE_SCHEMA_PATH = Path(__file__).with_name("recipe.schema.json")
+
+#: A recipe is a page of text; anything larger is refused before parsing so a
+#: stray data file passed as ``--recipe`` cannot stall the YAML parser.
+MAX_RECIPE_BYTES = 1_000_000
+
+FILLS = ("reflect", "constant", "edge")
+AXES = ("horizontal", "vertical")
+TOP_LEVEL_FIELDS = ("name", "seed", "copies", "fill", "transforms")
+COMMON_FIELDS = ("probability", "only", "except", "relabel")
+
+
+class RecipeError(BadInputError):
+    """A recipe file or text is unusable; the message names file, line and field."""
+
+
+# --------------------------------------------------------------------------
+# The op table: which magnitude field each op takes and what values it allows.
+# --------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class _Bound:
+    """Allowed values for each end of a magnitude range."""
+
+    minimum: float | None = None
+    maximum: float | None = None
+    exclusive_minimum: bool = False
+
+    def admits(self, value):
+        if self.minimum is not None:
+            if self.exclusive_minimum and not value > self.minimum:
+                return False
+            if not self.exclusive_minimum and not value >= self.minimum:
+                return False
+        if self.maximum is not None and not value <= self.maximum:
+            return False
+        return True
+
+    def describe(self):
+        if self.minimum is not None and self.maximum is not None:
+            return f"between {_number_text(self.minimum)} and {_number_text(self.maximum)}"
+        if self.minimum is not None:
+            return f"{'>' if self.exclusive_minimum else '>='} {_number_text(self.minimum)}"
+        return ""
+
+
+_ANY = _Bound()
+_POSITIVE = _Bound(minimum=0.0, exclusive_minimum=True)
+_NON_NEGATIVE = _Bound(minimum=0.0)
+_UNIT = _Bound(minimum=-1.0, maximum=1.0)
+
+#: op name -> (magnitude field or None, bound on each end of its range)
+_OP_RULES = {
+    "flip": (None, None),
+    "rotate": ("degrees", _ANY),
+    "zoom": ("factor", _POSITIVE),
+    "shift": ("fraction", _UNIT),
+    "brightness": ("factor", _POSITIVE),
+    "contrast": ("factor", _POSITIVE),
+    "saturation": ("factor", _NON_NEGATIVE),
+    "hue": ("degrees", _ANY),
+    "blur": ("sigma", _NON_NEGATIVE),
+    "noise": ("sigma", _NON_NEGATIVE),
+}
+
+#: op name -> the op's own fields (besides ``op`` and the common fields).
+OP_FIELDS = {op: (("axis",) if magnitude is None else (magnitude,))
+             for op, (magnitude, _) in _OP_RULES.items()}
+
+
+def _number_text(value):
+    return str(int(value)) if float(value).is_integer() else repr(float(value))
+
+
+# --------------------------------------------------------------------------
+# Data classes
+# --------------------------------------------------------------------------
+
+class FrozenMap(Mapping):
+    """A read-only, hashable, picklable mapping (for transform params and relabel)."""
+
+    __slots__ = ("_data",)
+
+    def __init__(self, data=()):
+        self._data = dict(data)
+
+    def __getitem__(self, key):
+        return self._data[key]
+
+    def __iter__(self):
+        return iter(self._data)
+
+    def __len__(self):
+        return len(self._data)
+
+    def __hash__(self):
+        return hash(frozenset(self._data.items()))
+
+    def __eq__(self, other):
+        if isinstance(other, Mapping):
+            return dict(self._data) == dict(other.items())
+        return NotImplemented
+
+    def __repr__(self):
+        return f"FrozenMap({self._data!r})"
+
+
+def _as_range(value):
+    """A number or a 2-sequence of numbers as a (low, high) float tuple; else unchanged."""
+    if isinstance(value, numbers.Real) and not isinstance(value, bool):
+        return (float(value), float(value))
+    if (isinstance(value, (list, tuple)) and len(value) == 2
+            and all(isinstance(v, numbers.Real) and not isinstance(v, bool) for v in value)):
+        return (float(value[0]), float(value[1]))
+    return value
+
+
+@dataclass(frozen=True)
+class Transform:
+    """One step of a recipe.
+
+    Parameters
+    ----------
+    op : str
+        One of the ops in `OP_FIELDS` (the image functions are in
+        ``augplan.transforms.OPS``).
+    params : Mapping
+        The op's own fields. Magnitude ranges are ``(low, high)`` float tuples
+        (a scalar ``v`` becomes ``(v, v)``); flip has ``{"axis": "horizontal"}``
+        or ``{"axis": "vertical"}``. Stored read-only.
+    probability : float
+        Chance that the step is applied to a given draw, in [0, 1].
+    only, exclude : tuple of str or None
+        Class scope: apply only to these classes, or to every class except
+        these (YAML key ``except``). At most one is set.
+    relabel : Mapping or None
+        ``{class: new_class}``: the label follows the image when the step runs.
+    line : int or None
+        Line of the step in its source file; not part of equality.
+    """
+
+    op: str
+    params: Mapping = field(default_factory=FrozenMap)
+    probability: float = 1.0
+    only: tuple | None = None
+    exclude: tuple | None = None
+    relabel: Mapping | None = None
+    line: int | None = field(default=None, compare=False)
+
+    def __post_init__(self):
+        # Normalise programmatic construction (dicts, lists, scalar ranges) to
+        # the same frozen form the parser produces, so equality and hashing
+        # do not depend on how a Transform was built.
+        magnitude = _OP_RULES.get(self.op, (None, None))[0]
+        params = {key: (_as_range(value) if key == magnitude else value)
+                  for key, value in dict(self.params).items()}
+        object.__setattr__(self, "params", FrozenMap(params))
+        object.__setattr__(self, "probability", float(self.probability))
+        for name in ("only", "exclude"):
+            value = getattr(self, name)
+            if value is not None:
+                object.__setattr__(self, name, tuple(value))
+        if self.relabel is not None:
+            object.__setattr__(self, "relabel", FrozenMap(self.relabel))
+
+    def applies_to(self, label):
+        """Whether the step's class scope includes ``label``.
+
+        An unscoped step applies to every label, ``None`` included; a scoped
+        step (``only`` or ``except``) never applies to an unknown label.
+        """
+        if self.only is None and self.exclude is None:
+            return True
+        if label is None:
+            return False
+        if self.only is not None:
+            return label in self.only
+        return label not in self.exclude
+
+
+@dataclass(frozen=True)
+class Recipe:
+    """A parsed, validated augmentation recipe (see DESIGN.md for the format).
+
+    ``source`` (the file it came from) is not part of equality.
+    """
+
+    name: str
+    seed: int = 0
+    copies: int = 4
+    fill: str = "reflect"
+    transforms: tuple = ()
+    source: str | None = field(default=None, compare=False)
+
+    def __post_init__(self):
+        object.__setattr__(self, "transforms", tuple(self.transforms))
+
+
+# --------------------------------------------------------------------------
+# YAML loading with line numbers, duplicate keys and aliases refused
+# --------------------------------------------------------------------------
+
+class _RuleBroken(yaml.MarkedYAMLError):
+    """Valid YAML that a recipe still refuses (duplicate keys, aliases)."""
+
+
+class _RecipeLoader(yaml.SafeLoader):
+    """SafeLoader that refuses duplicate keys and aliases, and reads 1e-3 as a number."""
+
+    def compose_node(self, parent, index):
+        # Refusing aliases outright rules out "billion laughs" expansion; a
+        # recipe is short enough to write every value out.
+        if self.check_event(yaml.AliasEvent):
+            event = self.peek_event()
+            raise _RuleBroken(
+                None, None,
+                f"found the alias '*{event.anchor}'; recipes may not use YAML "
+                "anchors and aliases, write each value out",
+                event.start_mark)
+        return super().compose_node(parent, index)
+
+    def construct_mapping(self, node, deep=False):
+        if isinstance(node, yaml.MappingNode):
+            self.flatten_mapping(node)
+            seen = {}
+            for key_node, _ in node.value:
+                key = self.construct_object(key_node, deep=True)
+                try:
+                    first = seen.get(key)
+                except TypeError:  # unhashable key: the base class reports it
+                    continue
+                if first is not None:
+                    raise _RuleBroken(
+                        None, None,
+                        f"the key {key!r} appears twice (first on line {first})",
+                        key_node.start_mark)
+                seen[key] = key_node.start_mark.line + 1
+        return super().construct_mapping(node, deep=deep)
+
+
+# YAML 1.1 reads "1e-3" (no dot) as text; people write it as a number.
+_RecipeLoader.add_implicit_resolver(
+    "tag:yaml.org,2002:float",
+    re.compile(r"^[-+]?(?:[0-9][0-9_]*)(?:\.[0-9_]*)?[eE][-+]?[0-9]+$"),
+    list("-+0123456789"))
+
+
+def _load_yaml(text, source):
+    """Return (data, root node) or raise RecipeError with the YAML fault's line."""
+    loader = None
+    try:
+        loader = _RecipeLoader(text)
+        node = loader.get_single_node()
+        data = loader.construct_document(node) if node is not None else None
+    except _RuleBroken as error:
+        raise RecipeError(f"{source} line {error.problem_mark.line + 1}: {error.problem}.") from None
+    except yaml.MarkedYAMLError as error:
+        mark = error.problem_mark or error.context_mark
+        problem = error.problem or error.context or "unreadable YAML"
+        if "'\\t'" in problem:
+            problem = "a tab character; YAML indentation must use spaces"
+            raise RecipeError(f"{source} line {mark.line + 1}: found {problem}.") from None
+        if "another document" in problem:
+            problem = "a recipe file holds one YAML document, found a second ('---')"
+        where = f" line {mark.line + 1}" if mark is not None else ""
+        raise RecipeError(f"{source}{where}: not valid YAML: {problem}.") from None
+    except yaml.reader.ReaderError as error:
+        line = text[:error.position].count("\n") + 1
+        raise RecipeError(
+            f"{source} line {line}: the character {chr(error.character)!r} "
+            f"(code {error.character:#x}) is not allowed in a YAML file.") from None
+    except yaml.YAMLError as error:
+        raise RecipeError(f"{source}: not valid YAML: {error}.") from None
+    except RecursionError:
+        raise RecipeError(f"{source}: the YAML is nested too deeply to be a recipe.") from None
+    finally:
+        if loader is not None:
+            loader.dispose()
+    return data, node
+
+
+def _key_lines(node):
+    """Map each key of a YAML mapping node to its 1-based line."""
+    lines = {}
+    if isinstance(node, yaml.MappingNode):
+        for key_node, _ in node.value:
+            if isinstance(key_node, yaml.ScalarNode):
+                lines[key_node.value] = key_node.start_mark.line + 1
+    return lines
+
+
+def _value_node(node, key):
+    if isinstance(node, yaml.MappingNode):
+        for key_node, value_node in node.value:
+            if isinstance(key_node, yaml.ScalarNode) and key_node.value == key:
+                return value_node
+    return None
+
+
+# --------------------------------------------------------------------------
+# Validation
+# --------------------------------------------------------------------------
+
+def _describe(value):
+    """Short text for a value that came, for 'got ...' in messages."""
+    if isinstance(value, bool):
+        return f"{str(value).lower()} (a yes/no value; quote it if you meant text)"
+    if value is None:
+        return "an empty value"
+    if isinstance(value, float) and not math.isfinite(value):
+        return f"{value} (not a finite number)"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    text = repr(value)
+    if len(text) > 60:
+        text = text[:57] + "..."
+    if isinstance(value, list):
+        return f"the list {text}"
+    if isinstance(value, dict):
+        return f"the mapping {text}"
+    return text
+
+
+def _is_number(value):
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
+
+
+def _suggest(word, choices):
+    close = difflib.get_close_matches(str(word), choices, n=1, cutoff=0.6)
+    return f"did you mean '{close[0]}'? " if close else ""
+
+
+class _Checker:
+    """Validates the loaded YAML data against the format, with line numbers."""
+
+    def __init__(self, source, root_node):
+        self.source = source
+        self.root = root_node
+        self.top_lines = _key_lines(root_node)
+        self.first_line = root_node.start_mark.line + 1 if root_node is not None else 1
+
+    def fail(self, line, text):
+        raise RecipeError(f"{self.source} line {line}: {text}")
+
+    # -- top level --------------------------------------------------------
+    def recipe(self, data):
+        if data is None:
+            raise RecipeError(f"{self.source}: the recipe is empty; it needs at least "
+                              "'name' (and usually 'transforms').")
+        if not isinstance(data, dict):
+            self.fail(self.first_line, "a recipe must be a mapping of fields "
+                      f"({', '.join(TOP_LEVEL_FIELDS)}); got {_describe(data)}.")
+        for key in data:
+            if key not in TOP_LEVEL_FIELDS:
+                self.fail(self.top_lines.get(str(key), self.first_line),
+                          f"unknown field {str(key)!r} at the top level; "
+                          f"{_suggest(key, TOP_LEVEL_FIELDS)}"
+                          f"Allowed: {', '.join(TOP_LEVEL_FIELDS)}.")
+        if "name" not in data:
+            self.fail(self.first_line, "the recipe has no 'name' field; add one, "
+                      "for example 'name: my-recipe' (it is used in reports).")
+        name = data["name"]
+        if not isinstance(name, str) or not name.strip():
+            self.top_field_fail("name", "must be a non-empty text", name)
+        seed = self.integer("seed", data.get("seed", 0), minimum=0)
+        copies = self.integer("copies", data.get("copies", 4), minimum=1)
+        fill = data.get("fill", "reflect")
+        if fill not in FILLS:
+            self.top_field_fail("fill", f"must be one of {', '.join(FILLS)}", fill)
+        raw_transforms = data.get("transforms", [])
+        if not isinstance(raw_transforms, list):
+            self.top_field_fail("transforms", "must be a list of transforms "
+                                "(write [] for none)", raw_transforms)
+        seq_node = _value_node(self.root, "transforms")
+        item_nodes = seq_node.value if isinstance(seq_node, yaml.SequenceNode) else []
+        transforms = []
+        for index, item in enumerate(raw_transforms):
+            item_node = item_nodes[index] if index < len(item_nodes) else None
+            transforms.append(self.transform(index + 1, item, item_node))
+        return Recipe(name=name, seed=seed, copies=copies, fill=fill,
+                      transforms=tuple(transforms), source=self.source)
+
+    def top_field_fail(self, key, allowed, value):
+        self.fail(self.top_lines.get(key, self.first_line),
+                  f"the '{key}' field {allowed}; got {_describe(value)}.")
+
+    def integer(self, key, value, minimum):
+        # Integral floats (7.0) pass, as in JSON Schema's "integer" type.
+        if not _is_number(value) or not math.isfinite(value) or value != int(value) \
+                or value < minimum:
+            self.top_field_fail(key, f"must be a whole number >= {minimum}", value)
+        return int(value)
+
+    # -- one transform ----------------------------------------------------
+    def transform(self, number, item, node):
+        line = node.start_mark.line + 1 if node is not None else self.first_line
+        lines = _key_lines(node)
+        if not isinstance(item, dict):
+            self.fail(line, f"transform {number} must be a mapping with an 'op' field "
+                      f"(for example '- op: rotate'); got {_describe(item)}.")
+        if "op" not in item:
+            self.fail(line, f"transform {number} has no 'op' field; "
+                      f"allowed ops: {', '.join(_OP_RULES)}.")
+        op = item["op"]
+        if not isinstance(op, str) or op not in _OP_RULES:
+            shown = repr(op) if isinstance(op, str) else _describe(op)
+            self.fail(lines.get("op", line),
+                      f"unknown op {shown} in transform {number}; "
+                      f"{_suggest(op, list(_OP_RULES))}Allowed: {', '.join(_OP_RULES)}.")
+        magnitude, bound = _OP_RULES[op]
+        allowed = ("op",) + OP_FIELDS[op] + COMMON_FIELDS
+        label = f"transform {number} ({op})"
+        for key in item:
+            if key not in allowed:
+                self.fail(lines.get(str(key), line),
+                          f"unknown field {str(key)!r} in {label}; "
+                          f"{_suggest(key, allowed[1:])}Allowed: {', '.join(allowed[1:])}.")
+
+        def field_fail(key, text, value):
+            self.fail(lines.get(key, line),
+                      f"the '{key}' field of {label} {text}; got {_describe(value)}.")
+
+        if magnitude is None:
+            axis = item.get("axis", "horizontal")
+            if axis not in AXES:
+                field_fail("axis", f"must be one of {', '.join(AXES)}", axis)
+            params = {"axis": axis}
+        else:
+            if magnitude not in item:
+                self.fail(line, f"{label} has no '{magnitude}' field; give a number "
+                          f"or a [low, high] pair, for example '{magnitude}: "
+                          f"{_EXAMPLES[op]}'.")
+            params = {magnitude: self.magnitude(item[magnitude], bound, magnitude, field_fail)}
+
+        probability = item.get("probability", 1.0)
+        if not _is_number(probability) or not 0.0 <= probability <= 1.0:
+            field_fail("probability", "must be a number between 0 and 1", probability)
+
+        if "only" in item and "except" in item:
+            self.fail(lines.get("except", line),
+                      f"{label} has both 'only' and 'except'; use one of them.")
+        only = self.classes(item["only"], "only", field_fail) if "only" in item else None
+        exclude = self.classes(item["except"], "except", field_fail) if "except" in item else None
+        relabel = self.relabel(item["relabel"], field_fail) if "relabel" in item else None
+        return Transform(op=op, params=params, probability=float(probability), only=only,
+                         exclude=exclude, relabel=relabel, line=line)
+
+    @staticmethod
+    def magnitude(value, bound, key, field_fail):
+        extra = bound.describe()
+        wanted = ("must be a number or a [low, high] pair"
+                  + (f" of numbers {extra}" if extra else ""))
+        if _is_number(value):
+            pair = (value, value)
+        elif isinstance(value, list) and len(value) == 2 and all(map(_is_number, value)):
+            pair = tuple(value)
+        else:
+            field_fail(key, wanted, value)
+        if not all(math.isfinite(v) for v in pair) or not all(map(bound.admits, pair)):
+            field_fail(key, wanted, value)
+        if pair[0] > pair[1]:
+            field_fail(key, "must be a [low, high] pair with low <= high", value)
+        return (float(pair[0]), float(pair[1]))
+
+    @staticmethod
+    def _class_name(value):
+        # Folder names such as "0" come back from YAML as integers.
+        if isinstance(value, int) and not isinstance(value, bool):
+            return str(value)
+        if isinstance(value, str) and value.strip():
+            return value
+        return None
+
+    def classes(self, value, key, field_fail):
+        wanted = "must be a non-empty list of class names, for example [cat, dog]"
+        if not isinstance(value, list) or not value:
+            field_fail(key, wanted, value)
+        names = [self._class_name(v) for v in value]
+        if any(name is None for name in names):
+            field_fail(key, wanted, value)
+        return tuple(names)
+
+    def relabel(self, value, field_fail):
+        wanted = "must be a mapping of class names, for example {left: right, right: left}"
+        if not isinstance(value, dict) or not value:
+            field_fail("relabel", wanted, value)
+        pairs = [(self._class_name(k), self._class_name(v)) for k, v in value.items()]
+        if any(k is None or v is None for k, v in pairs):
+            field_fail("relabel", wanted, value)
+        return dict(pairs)
+
+
+_EXAMPLES = {"rotate": "[-15, 15]", "zoom": "[0.9, 1.2]", "shift": "[-0.1, 0.1]",
+             "brightness": "[0.6, 1.4]", "contrast": "[0.8, 1.2]",
+             "saturation": "[0.7, 1.3]", "hue": "[-10, 10]", "blur": "[0, 1.5]",
+             "noise": "[0, 0.03]"}
+
+
+# --------------------------------------------------------------------------
+# Public functions
+# --------------------------------------------------------------------------
+
+def parse_recipe(text, source="<string>"):
+    """Parse and validate recipe text.
+
+    Parameters
+    ----------
+    text : str or bytes
+        The YAML document (bytes must be UTF-8).
+    source : str
+        Name used in error messages and stored as ``Recipe.source``.
+
+    Returns
+    -------
+    Recipe
+
+    Raises
+    ------
+    RecipeError
+        For any fault, with the file, line, field, what is allowed and what came.
+    """
+    if isinstance(text, (bytes, bytearray)):
+        text = _decode(bytes(text), source)
+    if not isinstance(text, str):
+        raise RecipeError(f"{source}: recipe text must be a string; got {type(text).__name__}.")
+    size = len(text.encode("utf-8", errors="surrogatepass"))
+    if size > MAX_RECIPE_BYTES:
+        raise RecipeError(f"{source}: {size} bytes is too large for a recipe "
+                          f"(at most {MAX_RECIPE_BYTES} bytes).")
+    data, node = _load_yaml(text, source)
+    return _Checker(source, node).recipe(data)
+
+
+def _decode(raw, source):
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as error:
+        line = raw[:error.start].count(b"\n") + 1
+        raise RecipeError(f"{source} line {line}: the file is not UTF-8 text "
+                          f"(byte {raw[error.start]:#04x} at offset {error.start}); "
+                          "save it as UTF-8.") from None
+
+
+def read_recipe(path):
+    """Read and validate a recipe file; see `parse_recipe`.
+
+    Files larger than `MAX_RECIPE_BYTES` are refused before they are read.
+    """
+    path = Path(path)
+    source = str(path)
+    try:
+        size = path.stat().st_size
+    except FileNotFoundError:
+        raise RecipeError(f"{source}: recipe file not found.") from None
+    except OSError as error:
+        raise RecipeError(f"{source}: cannot read the recipe ({error.strerror}).") from None
+    if path.is_dir():
+        raise RecipeError(f"{source}: is a folder; expected a recipe YAML file.")
+    if size > MAX_RECIPE_BYTES:
+        raise RecipeError(f"{source}: {size} bytes is too large for a recipe "
+                          f"(at most {MAX_RECIPE_BYTES} bytes); is this the right file?")
+    try:
+        raw = path.read_bytes()
+    except OSError as error:
+        raise RecipeError(f"{source}: cannot read the recipe ({error.strerror}).") from None
+    return parse_recipe(_decode(raw, source), source=source)
+
+
+def _range_out(pair):
+    low, high = pair
+    return low if low == high else [low, high]
+
+
+def recipe_to_dict(recipe):
+    """The recipe as plain YAML/JSON-able data, in the file format's layout.
+
+    A fixed range ``(v, v)`` is written as the scalar ``v``; ``probability`` is
+    always written; ``only``/``except``/``relabel`` only when set.
+    """
+    steps = []
+    for step in recipe.transforms:
+        magnitude = _OP_RULES.get(step.op, (None, None))[0]
+        entry = {"op": step.op}
+        for key, value in step.params.items():
+            entry[key] = _range_out(value) if key == magnitude else value
+        entry["probability"] = float(step.probability)
+        if step.only is not None:
+            entry["only"] = list(step.only)
+        if step.exclude is not None:
+            entry["except"] = list(step.exclude)
+        if step.relabel is not None:
+            entry["relabel"] = dict(step.relabel)
+        steps.append(entry)
+    return {"name": recipe.name, "seed": int(recipe.seed), "copies": int(recipe.copies),
+            "fill": recipe.fill, "transforms": steps}
+
+
+def dump_recipe(recipe):
+    """The recipe as YAML text that `parse_recipe` reads back to an equal Recipe."""
+    return yaml.safe_dump(recipe_to_dict(recipe), sort_keys=False,
+                          default_flow_style=None, allow_unicode=True, width=100)
+
+
+def write_recipe(recipe, path):
+    """Write the recipe as YAML to ``path`` atomically; return the path."""
+    return write_text_atomic(path, dump_recipe(recipe))
+
+
+def recipe_hash(recipe):
+    """sha256 hex digest of the canonical JSON of `recipe_to_dict`.
+
+    Canonical: keys sorted, no whitespace, ASCII only. The hash ignores where
+    the recipe came from and how it was spelled (scalar or range, defaults
+    written or left out).
+    """
+    text = json.dumps(recipe_to_dict(recipe), sort_keys=True, separators=(",", ":"),
+                      ensure_ascii=True, allow_nan=False)
+    return hashlib.sha256(text.encode("ascii")).hexdigest()
