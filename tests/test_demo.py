@@ -1,0 +1,167 @@
+"""Tests of the invented demo scenario (augplan.demo).
+
+Luminance is BT.709 relative luminance of linear light (ITU-R BT.709-6 item
+3.2, IEC 61966-2-1 decoding), computed with augplan.colour; the colour test
+of the glaze classes uses Python's colorsys as the independent HSV reference.
+"""
+
+import colorsys
+import hashlib
+
+import numpy as np
+import pytest
+from PIL import Image
+
+from augplan import demo
+from augplan.colour import mean_relative_luminance
+
+SMALL = {"n_train": 8, "n_val": 4, "n_field": 10}
+
+
+def _hashes(root):
+    return {
+        path.relative_to(root).as_posix(): hashlib.sha256(path.read_bytes()).hexdigest()
+        for path in sorted(root.rglob("*")) if path.is_file()
+    }
+
+
+def _load(root, split, label):
+    paths = sorted((root / split / label).glob("*.png"))
+    return np.stack([np.asarray(Image.open(p).convert("RGB")) for p in paths])
+
+
+@pytest.fixture(scope="module")
+def small_demo(tmp_path_factory):
+    root = tmp_path_factory.mktemp("demo")
+    demo.make_demo_dataset(root, **SMALL)
+    return root
+
+
+def test_same_seed_gives_byte_identical_files(small_demo, tmp_path):
+    demo.make_demo_dataset(tmp_path, **SMALL)
+    first, second = _hashes(small_demo), _hashes(tmp_path)
+    assert len(first) == 5 * sum(SMALL.values())
+    assert first == second
+
+
+def test_other_seed_gives_other_images(small_demo, tmp_path):
+    demo.make_demo_dataset(tmp_path, seed=demo.DEMO_SEED + 1, **SMALL)
+    first, second = _hashes(small_demo), _hashes(tmp_path)
+    assert first.keys() == second.keys()
+    assert all(first[k] != second[k] for k in first)
+
+
+def test_smaller_rerun_removes_stale_images(tmp_path):
+    demo.make_demo_dataset(tmp_path, n_train=3, n_val=2, n_field=2)
+    demo.make_demo_dataset(tmp_path, n_train=2, n_val=1, n_field=1)
+    assert len(list((tmp_path / "train" / "glaze-teal").glob("*.png"))) == 2
+    assert len(list((tmp_path / "val" / "glaze-teal").glob("*.png"))) == 1
+
+
+@pytest.mark.parametrize("split", ["train", "val", "field"])
+def test_splits_and_class_folders_exist(small_demo, split):
+    folders = sorted(p.name for p in (small_demo / split).iterdir() if p.is_dir())
+    assert folders == sorted(demo.CLASSES)
+    for label in demo.CLASSES:
+        images = _load(small_demo, split, label)
+        assert images.shape == (SMALL[f"n_{split}"], 64, 64, 3)
+        assert images.dtype == np.uint8
+
+
+def _class_luminance(root, split):
+    return {label: np.mean([mean_relative_luminance(im) for im in _load(root, split, label)])
+            for label in demo.CLASSES}
+
+
+@pytest.mark.parametrize("split", ["train", "val"])
+def test_lighting_shortcut_holds_in_train_and_val(small_demo, split):
+    lum = _class_luminance(small_demo, split)
+    others = [lum[c] for c in demo.CLASSES if c != "hairline-crack"]
+    # Exposure 0.35-0.5 against 0.9-1.1 in linear light: the cracked class
+    # must come out at well under two thirds of the darkest other class.
+    assert lum["hairline-crack"] < 0.6 * min(others)
+
+
+def test_lighting_shortcut_absent_in_field(small_demo):
+    lum = _class_luminance(small_demo, "field")
+    others = [lum[c] for c in demo.CLASSES if c != "hairline-crack"]
+    ratio = lum["hairline-crack"] / np.mean(others)
+    assert 0.8 < ratio < 1.25
+
+
+def test_field_lighting_spans_dim_and_bright_for_every_class(small_demo):
+    # Dim intact tiles and bright cracked tiles must both appear in the field.
+    train_lum = {c: [mean_relative_luminance(im) for im in _load(small_demo, "train", c)]
+                 for c in demo.CLASSES}
+    crack_train_max = max(train_lum["hairline-crack"])
+    intact_train_min = min(min(v) for c, v in train_lum.items() if c != "hairline-crack")
+    for label in demo.CLASSES:
+        field = [mean_relative_luminance(im) for im in _load(small_demo, "field", label)]
+        assert min(field) < crack_train_max
+        assert max(field) > intact_train_min
+
+
+def test_chevrons_are_mirror_images(small_demo):
+    left = _load(small_demo, "train", "chevron-left").astype(np.float64).mean(axis=0)
+    right = _load(small_demo, "train", "chevron-right").astype(np.float64).mean(axis=0)
+    flipped_left = left[:, ::-1]
+    assert np.abs(flipped_left - right).mean() < 0.8 * np.abs(flipped_left - left).mean()
+    # A vertical flip keeps a chevron's direction: the flipped mean stays
+    # closer to its own class than to the mirrored class.
+    vflipped_left = left[::-1]
+    assert np.abs(vflipped_left - left).mean() < np.abs(vflipped_left - right).mean()
+
+
+def test_glaze_classes_differ_in_hue_only(small_demo):
+    def spot_hsv(label):
+        images = _load(small_demo, "train", label)
+        centre = images[:, 28:36, 28:36].reshape(-1, 3).mean(axis=0) / 255.0
+        return colorsys.rgb_to_hsv(*centre)  # independent HSV reference
+
+    amber, teal = spot_hsv("glaze-amber"), spot_hsv("glaze-teal")
+    assert 20 / 360 < amber[0] < 50 / 360  # amber: orange-yellow hue
+    assert 160 / 360 < teal[0] < 200 / 360  # teal: blue-green hue
+    assert abs(amber[1] - teal[1]) < 0.12
+    assert abs(amber[2] - teal[2]) < 0.12
+
+
+def test_render_tile_exposure_scales_linear_light():
+    bright = demo.render_tile("glaze-teal", np.random.default_rng(3), exposure=1.0, rotation=0.0)
+    dim = demo.render_tile("glaze-teal", np.random.default_rng(3), exposure=0.5, rotation=0.0)
+    # Same draws, half the linear light: mean luminance halves up to noise
+    # and 8-bit rounding (luminance is linear in linear-light RGB, BT.709).
+    ratio = mean_relative_luminance(dim) / mean_relative_luminance(bright)
+    assert ratio == pytest.approx(0.5, abs=0.03)
+
+
+@pytest.mark.parametrize("bad", [0, -1, 2.5, True], ids=["zero", "negative", "float", "bool"])
+def test_bad_counts_are_refused(tmp_path, bad):
+    with pytest.raises(ValueError, match="n_train"):
+        demo.make_demo_dataset(tmp_path, n_train=bad)
+
+
+def test_unknown_label_is_refused():
+    with pytest.raises(ValueError, match="label must be one of"):
+        demo.render_tile("glaze-purple", np.random.default_rng(0), exposure=1.0, rotation=0.0)
+
+
+def test_main_writes_to_given_folder(tmp_path, monkeypatch):
+    calls = []
+    monkeypatch.setattr(demo, "make_demo_dataset", lambda root: calls.append(root) or [])
+    assert demo.main([str(tmp_path)]) == 0
+    assert calls == [tmp_path]
+    assert demo.main(["--bogus"]) == 2
+
+
+def test_committed_demo_images_match_the_generator(tmp_path):
+    # Image i of a class does not depend on the counts (the generator is
+    # spawned per split, class and image), so the first train and val images
+    # regenerated here must equal the committed ones byte for byte.
+    shipped = demo.DEFAULT_DEMO_DIR
+    if not (shipped / "train").is_dir():
+        pytest.skip("demo_images/ is not part of this installation")
+    demo.make_demo_dataset(tmp_path, n_train=2, n_val=2, n_field=1)
+    for split in ("train", "val"):
+        for label in demo.CLASSES:
+            for path in sorted((tmp_path / split / label).glob("*.png")):
+                assert path.read_bytes() == (shipped / split / label / path.name).read_bytes()
