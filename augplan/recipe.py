@@ -49,7 +49,9 @@ __all__ = [
     "Transform",
     "dump_recipe",
     "parse_recipe",
+    "parse_recipe_document",
     "read_recipe",
+    "read_recipe_document",
     "recipe_hash",
     "recipe_to_dict",
     "write_recipe",
@@ -390,9 +392,10 @@ def _suggest(word, choices):
 class _Checker:
     """Validates the loaded YAML data against the format, with line numbers."""
 
-    def __init__(self, source, root_node):
+    def __init__(self, source, root_node, extra_fields=()):
         self.source = source
         self.root = root_node
+        self.extra_fields = tuple(extra_fields)
         self.top_lines = _key_lines(root_node)
         self.first_line = root_node.start_mark.line + 1 if root_node is not None else 1
 
@@ -408,7 +411,7 @@ class _Checker:
             self.fail(self.first_line, "a recipe must be a mapping of fields "
                       f"({', '.join(TOP_LEVEL_FIELDS)}); got {_describe(data)}.")
         for key in data:
-            if key not in TOP_LEVEL_FIELDS:
+            if key not in TOP_LEVEL_FIELDS and key not in self.extra_fields:
                 self.fail(self.top_lines.get(str(key), self.first_line),
                           f"unknown field {str(key)!r} at the top level; "
                           f"{_suggest(key, TOP_LEVEL_FIELDS)}"
@@ -576,6 +579,21 @@ def parse_recipe(text, source="<string>"):
     RecipeError
         For any fault, with the file, line, field, what is allowed and what came.
     """
+    return parse_recipe_document(text, source)[0]
+
+
+def parse_recipe_document(text, source="<string>", *, extra_fields=()):
+    """Parse recipe text that may carry extra top-level fields.
+
+    A vetted recipe adds ``evidence`` and ``checksum`` beside the recipe
+    body; they are validated only for being present once.
+
+    Returns
+    -------
+    recipe : Recipe
+    extras : dict
+        The values of the ``extra_fields`` found in the document.
+    """
     if isinstance(text, (bytes, bytearray)):
         text = _decode(bytes(text), source)
     if not isinstance(text, str):
@@ -585,7 +603,9 @@ def parse_recipe(text, source="<string>"):
         raise RecipeError(f"{source}: {size} bytes is too large for a recipe "
                           f"(at most {MAX_RECIPE_BYTES} bytes).")
     data, node = _load_yaml(text, source)
-    return _Checker(source, node).recipe(data)
+    recipe = _Checker(source, node, extra_fields).recipe(data)
+    extras = {key: data[key] for key in extra_fields if isinstance(data, dict) and key in data}
+    return recipe, extras
 
 
 def _decode(raw, source):
@@ -598,8 +618,8 @@ def _decode(raw, source):
                           "save it as UTF-8.") from None
 
 
-def read_recipe(path):
-    """Read and validate a recipe file; see `parse_recipe`.
+def read_recipe_document(path, *, extra_fields=()):
+    """Read and validate a recipe file; see `parse_recipe_document`.
 
     Files larger than `MAX_RECIPE_BYTES` are refused before they are read.
     """
@@ -620,7 +640,15 @@ def read_recipe(path):
         raw = path.read_bytes()
     except OSError as error:
         raise RecipeError(f"{source}: cannot read the recipe ({error.strerror}).") from None
-    return parse_recipe(_decode(raw, source), source=source)
+    return parse_recipe_document(_decode(raw, source), source=source, extra_fields=extra_fields)
+
+
+def read_recipe(path):
+    """Read and validate a recipe file; see `parse_recipe`.
+
+    Files larger than `MAX_RECIPE_BYTES` are refused before they are read.
+    """
+    return read_recipe_document(path)[0]
 
 
 def _range_out(pair):

@@ -1,0 +1,209 @@
+"""The vetted recipe: what is safe to use, with its evidence and a checksum.
+
+A vetted recipe file is an ordinary recipe (any loader of the format reads
+it) with two more top-level keys: ``evidence`` (what the vetting measured)
+and ``checksum`` (sha256 of the canonical JSON of the recipe body and the
+evidence), so a training team can tell an untouched vetted recipe from an
+edited one.
+"""
+
+import dataclasses
+import hashlib
+import json
+import os
+import time
+
+import yaml
+
+from . import __version__
+from .atomic import write_text_atomic
+from .recipe import RecipeError, read_recipe_document, recipe_to_dict
+
+__all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
+           "verify_vetted", "creation_date"]
+
+
+def creation_date():
+    """Today's UTC date, or the one fixed by ``SOURCE_DATE_EPOCH`` for reproducible output."""
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    seconds = int(epoch) if epoch and epoch.isdigit() else time.time()
+    return time.strftime("%Y-%m-%d", time.gmtime(seconds))
+
+
+def _intersect(range_pair, limit):
+    low, high = range_pair
+    return (max(low, limit[0]), min(high, limit[1]))
+
+
+def _clip_to_limit(step, check_entry):
+    """The step with its magnitude range clipped to the measured safe limit, or None."""
+    from .transforms import OPS
+
+    magnitude = OPS[step.op].magnitude
+    limit = check_entry.get("safe_limit")
+    if magnitude is None or limit is None:
+        return None
+    clipped = _intersect(step.params[magnitude], limit)
+    if clipped[0] > clipped[1]:
+        return None
+    return dataclasses.replace(step, params={**step.params, magnitude: clipped})
+
+
+def vet_transforms(recipe, check_result, *, approve=()):
+    """Apply the checker's verdicts to a recipe.
+
+    Rules, in order, for transform ``i`` with verdict ``v``:
+
+    - ``breaks``: rewritten with the checker's suggested ``relabel`` (when
+      the step has none) or ``only`` scope when there is one; otherwise
+      clipped to its safe limit when it has one; otherwise removed.
+    - ``unverified``: kept as it is when ``i`` is in ``approve``; otherwise
+      clipped to its safe limit when it has one; otherwise removed.
+    - ``safe``: clipped to its safe limit when the limit is narrower than the
+      range (a pooled verdict can be safe while the ends of the range are not).
+
+    Parameters
+    ----------
+    recipe : augplan.recipe.Recipe
+    check_result : dict
+        The document of ``augplan.invariance.check_recipe`` for this recipe.
+    approve : iterable of int
+        Indices of unverified transforms a person has looked at and approved.
+
+    Returns
+    -------
+    vetted : augplan.recipe.Recipe
+        Same name, seed, copies and fill; the vetted transforms.
+    changes : list of dict
+        ``{"index", "op", "verdict", "action", "detail"}`` for every transform,
+        ``action`` one of keep, relabel, scope, clip, remove.
+    """
+    approve = set(approve)
+    entries = {entry["index"]: entry for entry in check_result["transforms"]}
+    kept, changes = [], []
+    for index, step in enumerate(recipe.transforms):
+        entry = entries[index]
+        verdict = entry["verdict"]
+        suggestion = entry.get("suggestion") or {}
+        action, new_step, detail = "keep", step, ""
+        if verdict == "breaks" and "relabel" in suggestion and step.relabel is None:
+            relabel = suggestion["relabel"]
+            action, detail = "relabel", f"label follows the image: {relabel}"
+            new_step = dataclasses.replace(step, relabel=relabel)
+        elif verdict == "breaks" and "only" in suggestion and suggestion["only"]:
+            only = tuple(suggestion["only"])
+            action, detail = "scope", f"applied only to {', '.join(only)}"
+            new_step = dataclasses.replace(step, only=only, exclude=None)
+        elif verdict == "unverified" and index in approve:
+            detail = "unverified, kept: approved by a person (--approve)"
+        elif verdict in ("breaks", "unverified"):
+            clipped = _clip_to_limit(step, entry)
+            if clipped is not None and clipped != step:
+                action, new_step = "clip", clipped
+                detail = f"clipped to the safe limit {entry['safe_limit']}"
+            else:
+                action, new_step, detail = "remove", None, f"removed: {verdict}"
+        else:
+            clipped = _clip_to_limit(step, entry)
+            if clipped is not None and clipped != step:
+                action, new_step = "clip", clipped
+                detail = f"clipped to the safe limit {entry['safe_limit']}"
+        if new_step is not None:
+            kept.append(new_step)
+        changes.append({"index": index, "op": step.op, "verdict": verdict, "action": action,
+                        "detail": detail})
+    vetted = dataclasses.replace(recipe, transforms=tuple(kept), source=None)
+    return vetted, changes
+
+
+def _canonical(document):
+    return json.dumps(document, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
+                      allow_nan=False)
+
+
+def vetted_checksum(recipe, evidence):
+    """sha256 hex of the canonical JSON of ``{"recipe": body, "evidence": evidence}``."""
+    document = {"recipe": recipe_to_dict(recipe), "evidence": evidence}
+    return hashlib.sha256(_canonical(document).encode("ascii")).hexdigest()
+
+
+def vetted_text(recipe, evidence):
+    """The vetted recipe file's YAML text: recipe body, evidence, checksum."""
+    evidence = json.loads(_canonical(evidence))  # plain types only, so the YAML round-trips
+    body = recipe_to_dict(recipe)
+    header = ("# Vetted by augplan. Transforms that broke labels were removed or rewritten;\n"
+              "# see the evidence block. Editing any value invalidates the checksum\n"
+              "# ('augplan verify' tells).\n")
+    text = yaml.safe_dump(body, sort_keys=False, default_flow_style=None, allow_unicode=True, width=100)
+    text += yaml.safe_dump({"evidence": evidence}, sort_keys=True, default_flow_style=False,
+                           allow_unicode=True, width=100)
+    text += yaml.safe_dump({"checksum": vetted_checksum(recipe, evidence)})
+    return header + text
+
+
+def write_vetted(recipe, evidence, path):
+    """Write the vetted recipe atomically; return the path."""
+    return write_text_atomic(path, vetted_text(recipe, evidence))
+
+
+def read_vetted(path):
+    """Read a vetted recipe file.
+
+    Returns
+    -------
+    recipe : augplan.recipe.Recipe
+    evidence : dict or None
+    checksum : str or None
+    """
+    recipe, extras = read_recipe_document(path, extra_fields=("evidence", "checksum"))
+    return recipe, extras.get("evidence"), extras.get("checksum")
+
+
+def verify_vetted(path, *, data=None):
+    """Check a vetted recipe's format, checksum and (optionally) data fingerprint.
+
+    Parameters
+    ----------
+    path : str or Path
+        The vetted recipe file.
+    data : str or Path, optional
+        A data folder; its fingerprint is compared with the evidence's.
+
+    Returns
+    -------
+    dict
+        ``{"ok", "format_ok", "checksum_ok", "fingerprint_match", "messages"}``;
+        ``fingerprint_match`` is None without ``data``.
+    """
+    messages = []
+    result = {"path": str(path), "ok": False, "format_ok": False, "checksum_ok": False,
+              "fingerprint_match": None, "messages": messages}
+    try:
+        recipe, evidence, checksum = read_vetted(path)
+    except RecipeError as error:
+        messages.append(f"not a valid recipe: {error}")
+        return result
+    result["format_ok"] = True
+    if evidence is None or checksum is None:
+        messages.append(f"{path}: a valid recipe, but not a vetted one (no evidence or checksum).")
+        return result
+    expected = vetted_checksum(recipe, evidence)
+    result["checksum_ok"] = checksum == expected
+    if result["checksum_ok"]:
+        messages.append(f"{path}: checksum matches; recipe '{recipe.name}' is as vetted.")
+    else:
+        messages.append(f"{path}: checksum does NOT match: the recipe or its evidence was edited "
+                        "after vetting. Vet it again.")
+    if data is not None:
+        from .data import fingerprint, open_dataset
+
+        current = fingerprint(open_dataset(data))
+        vetted_on = evidence.get("data_fingerprint")
+        result["fingerprint_match"] = current == vetted_on
+        if result["fingerprint_match"]:
+            messages.append(f"{data}: same data as at vetting (fingerprint {current[:12]}).")
+        else:
+            messages.append(f"{data}: the data changed since vetting (fingerprint {current[:12]}, "
+                            f"vetted on {str(vetted_on)[:12]}). Vet again on the current data.")
+    result["ok"] = result["checksum_ok"] and result["fingerprint_match"] is not False
+    return result
