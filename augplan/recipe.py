@@ -680,10 +680,37 @@ def recipe_to_dict(recipe):
             "fill": recipe.fill, "transforms": steps}
 
 
+class _FlowList(list):
+    """A list written on one line ([low, high], class lists)."""
+
+
+class _FlowDict(dict):
+    """A mapping written on one line (relabel)."""
+
+
+class _RecipeDumper(yaml.SafeDumper):
+    """Block style for the recipe and its steps, one-line style for their values."""
+
+
+_RecipeDumper.add_representer(
+    _FlowList, lambda dumper, data: dumper.represent_sequence(
+        "tag:yaml.org,2002:seq", data, flow_style=True))
+_RecipeDumper.add_representer(
+    _FlowDict, lambda dumper, data: dumper.represent_mapping(
+        "tag:yaml.org,2002:map", data, flow_style=True))
+
+
 def dump_recipe(recipe):
     """The recipe as YAML text that `parse_recipe` reads back to an equal Recipe."""
-    return yaml.safe_dump(recipe_to_dict(recipe), sort_keys=False,
-                          default_flow_style=None, allow_unicode=True, width=100)
+    data = recipe_to_dict(recipe)
+    for step in data["transforms"]:
+        for key, value in step.items():
+            if isinstance(value, list):
+                step[key] = _FlowList(value)
+            elif isinstance(value, dict):
+                step[key] = _FlowDict(value)
+    return yaml.dump(data, Dumper=_RecipeDumper, sort_keys=False, default_flow_style=False,
+                     allow_unicode=True, width=100)
 
 
 def write_recipe(recipe, path):
