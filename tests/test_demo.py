@@ -165,3 +165,28 @@ def test_committed_demo_images_match_the_generator(tmp_path):
         for label in demo.CLASSES:
             for path in sorted((tmp_path / split / label).glob("*.png")):
                 assert path.read_bytes() == (shipped / split / label / path.name).read_bytes()
+
+
+RECIPES = demo.DEFAULT_DEMO_DIR.parent / "recipes"
+
+
+@pytest.mark.parametrize("name", ["naive-draft", "cautious", "light-and-pose"])
+def test_demo_recipes_parse(name):
+    from augplan.recipe import read_recipe
+
+    path = RECIPES / f"{name}.yaml"
+    if not path.is_file():
+        pytest.skip("recipes/ is not part of this installation")
+    recipe = read_recipe(path)
+    assert recipe.name == name
+    ops = [t.op for t in recipe.transforms]
+    if name == "naive-draft":
+        # The label-breaking pair the demo is meant to catch.
+        assert any(t.op == "flip" and t.params["axis"] == "horizontal" and t.relabel is None
+                   and t.only is None for t in recipe.transforms)
+        assert any(t.op == "hue" and t.params["degrees"][1] >= 120 for t in recipe.transforms)
+    if name == "light-and-pose":
+        flips = [t for t in recipe.transforms if t.op == "flip" and t.params["axis"] == "horizontal"]
+        assert flips and dict(flips[0].relabel) == {"chevron-left": "chevron-right",
+                                                    "chevron-right": "chevron-left"}
+        assert "brightness" in ops and "rotate" in ops
