@@ -1,0 +1,822 @@
+"""Reading a data set: layout, image normalisation, fingerprint, duplicates.
+
+A data set is a folder ``DATA/train/<class>/*``, ``DATA/val/<class>/*``,
+optionally ``DATA/test/<class>/*`` and ``DATA/field/<class>/*`` (labelled) or
+``DATA/field/*`` (unlabelled), or a CSV manifest with columns
+``path,label,split``. The data folder is only ever read, never written.
+
+Image policy
+------------
+Every image becomes an ``(H, W, 3)`` RGB ``uint8`` array:
+
+- ``1``, ``L``, ``CMYK``, ``YCbCr`` and the like: Pillow's own conversion to RGB.
+- Alpha (``LA``, ``PA``, ``RGBA``, palette or grey/RGB transparency) is
+  **composited over black**: each colour is multiplied by its opacity, so a
+  fully transparent pixel is black whatever colour it stored. Hidden colours
+  under transparent pixels therefore cannot leak into features.
+- 16-bit data (``I;16`` variants, and ``I`` whose values lie in
+  ``[0, 65535]``, which is how Pillow opens 16-bit PNG and TIFF files) are
+  scaled by the bit depth, ``round(v * 255 / 65535)``: 65535 -> 255,
+  32768 -> 128. ``I`` data outside that range are min-max scaled.
+- ``F`` (float) data within ``[0, 1]`` are scaled by 255; anything else is
+  min-max scaled to ``[0, 255]``; non-finite values count as 0; a constant
+  image outside ``[0, 1]`` becomes black.
+- EXIF orientation is applied (``PIL.ImageOps.exif_transpose``).
+- Multi-frame files (GIF, TIFF) give their first frame.
+"""
+
+import csv
+import hashlib
+import io
+import os
+import unicodedata
+import warnings
+from dataclasses import dataclass, field as dataclass_field
+from pathlib import Path, PurePosixPath
+
+import numpy as np
+from PIL import Image, ImageOps
+
+from augplan.errors import BadInputError
+
+__all__ = [
+    "ImageRecord",
+    "Dataset",
+    "SPLITS",
+    "NEAR_DUPLICATE_BITS",
+    "open_dataset",
+    "read_image",
+    "load_images",
+    "fingerprint",
+    "perceptual_hash",
+    "find_duplicates",
+]
+
+SPLITS = ("train", "val", "test", "field")
+
+# Hamming distance (of 64 bits) at or below which two perceptual hashes are
+# called near duplicates. Common practice, no source; the tests check that a
+# JPEG-recompressed, noised copy lands well below it and an unrelated sample
+# image well above it.
+NEAR_DUPLICATE_BITS = 6
+
+
+@dataclass(frozen=True)
+class ImageRecord:
+    """One image file of a data set.
+
+    Attributes
+    ----------
+    path : Path
+        Absolute path of the file.
+    relpath : str
+        Path relative to the data root, POSIX separators. Images of a field
+        folder given apart from the data root read ``field/<path in that folder>``.
+    label : str or None
+        Class name (NFC-normalised); None for unlabelled field images.
+    split : str
+        One of ``"train"``, ``"val"``, ``"test"``, ``"field"``.
+    sha256 : str
+        Hex digest of the file bytes.
+    """
+
+    path: Path
+    relpath: str
+    label: str | None
+    split: str
+    sha256: str
+
+
+@dataclass
+class Dataset:
+    """An opened data set.
+
+    Attributes
+    ----------
+    root : Path
+        The data folder (absolute).
+    records : list of ImageRecord
+        Every usable image, in a deterministic order.
+    skipped : list of (str, str)
+        ``(relpath, reason)`` for files and folders that were left out.
+    classes : tuple of str
+        Sorted training classes.
+    val_from_train : bool
+        True when no validation split was given and a stratified split of
+        the training images stands in.
+    split_seed : int or None
+        Seed of that split; None when ``val_from_train`` is False.
+    """
+
+    root: Path
+    records: list = dataclass_field(default_factory=list)
+    skipped: list = dataclass_field(default_factory=list)
+    classes: tuple = ()
+    val_from_train: bool = False
+    split_seed: int | None = None
+
+    def split(self, name):
+        """Records of one split (``"train"``, ``"val"``, ``"test"``, ``"field"``)."""
+        if name not in SPLITS:
+            raise ValueError(f"split must be one of {SPLITS}; got {name!r}")
+        return [record for record in self.records if record.split == name]
+
+
+# --------------------------------------------------------------------------
+# Identifying and reading images
+
+
+def _pixel_limit_message(path, error):
+    return (f"{path}: image is too large to decode safely ({error}); "
+            "Pillow refuses images this big as a possible decompression bomb")
+
+
+def _identify(data):
+    """Return None if ``data`` decodes as an image header, else the reason.
+
+    ``Image.verify`` checks PNG chunk checksums and completeness; it does
+    nothing for JPEG, so JPEGs are also decoded at 1/8 scale, which still
+    walks all of the entropy-coded data and so catches truncation cheaply.
+    """
+    if not data:
+        return "empty file (0 bytes)"
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", Image.DecompressionBombWarning)
+            with Image.open(io.BytesIO(data)) as image:
+                image_format = image.format
+                width, height = image.size
+                image.verify()
+            if image_format == "JPEG":
+                with Image.open(io.BytesIO(data)) as image:
+                    image.draft(image.mode, (max(1, width // 8), max(1, height // 8)))
+                    image.load()
+    except (Image.DecompressionBombError, Image.DecompressionBombWarning) as error:
+        return f"too large to decode safely, a possible decompression bomb ({error})"
+    except Image.UnidentifiedImageError:
+        return "not an image Pillow can read"
+    except (OSError, SyntaxError, ValueError, EOFError, IndexError, TypeError) as error:
+        # Pillow signals damaged files with a mix of these.
+        return f"damaged or truncated image ({type(error).__name__}: {error})"
+    if width < 1 or height < 1:
+        return f"image has no pixels ({width}x{height})"
+    return None
+
+
+def _composite_over_black(rgba):
+    """RGBA uint8 array -> RGB uint8, colours multiplied by opacity."""
+    rgb = rgba[..., :3].astype(np.uint16)
+    alpha = rgba[..., 3:4].astype(np.uint16)
+    return ((rgb * alpha + 127) // 255).astype(np.uint8)
+
+
+def _grey_to_rgb(grey):
+    return np.repeat(grey[..., None], 3, axis=2)
+
+
+def _scale_16bit(values):
+    values = values.astype(np.uint32)
+    return ((values * 255 + 32767) // 65535).astype(np.uint8)
+
+
+def _min_max(values):
+    low, high = float(values.min()), float(values.max())
+    if high <= low:
+        return np.zeros(values.shape, np.uint8)
+    scaled = (values.astype(np.float64) - low) * (255.0 / (high - low))
+    return np.clip(np.rint(scaled), 0, 255).astype(np.uint8)
+
+
+def _to_rgb_array(image):
+    """A loaded Pillow image of any mode -> (H, W, 3) RGB uint8 (see module notes)."""
+    mode = image.mode
+    has_transparency = "transparency" in image.info
+    if mode in ("LA", "La", "PA", "RGBA", "RGBa") or (
+            has_transparency and mode in ("1", "L", "P", "RGB")):
+        return _composite_over_black(np.asarray(image.convert("RGBA")))
+    if mode == "RGB":
+        return np.array(image, dtype=np.uint8)
+    if mode.startswith("I;16") or mode == "I":
+        values = np.asarray(image)
+        if values.dtype.kind in "ui" and values.size and values.min() >= 0 and values.max() <= 65535:
+            return _grey_to_rgb(_scale_16bit(values))
+        return _grey_to_rgb(_min_max(values))
+    if mode == "F":
+        values = np.nan_to_num(np.asarray(image, dtype=np.float64), nan=0.0, posinf=0.0, neginf=0.0)
+        if values.min() >= 0.0 and values.max() <= 1.0:
+            return _grey_to_rgb(np.rint(values * 255.0).astype(np.uint8))
+        return _grey_to_rgb(_min_max(values))
+    return np.array(image.convert("RGB"), dtype=np.uint8)
+
+
+def _decode(path, *, max_side=None, draft_size=None):
+    """Open ``path`` and return its RGB uint8 array.
+
+    ``max_side`` bounds the longer side of the result; ``draft_size`` asks
+    the JPEG decoder for at least that (width, height). Both keep huge
+    JPEGs from ever being decoded at full size.
+    """
+    path = Path(path)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", Image.DecompressionBombWarning)
+            with Image.open(path) as image:
+                if image.format == "JPEG":
+                    width, height = image.size
+                    request = draft_size
+                    if max_side is not None and max(width, height) > max_side:
+                        ratio = max_side / max(width, height)
+                        request = (max(1, int(np.ceil(width * ratio))),
+                                   max(1, int(np.ceil(height * ratio))))
+                    if request is not None:
+                        image.draft(image.mode, request)
+                image.load()
+                image = ImageOps.exif_transpose(image)
+                array = _to_rgb_array(image)
+    except (Image.DecompressionBombError, Image.DecompressionBombWarning) as error:
+        raise BadInputError(_pixel_limit_message(path, error)) from None
+    except FileNotFoundError:
+        raise BadInputError(f"{path}: image file not found") from None
+    except IsADirectoryError:
+        raise BadInputError(f"{path}: is a folder, expected an image file") from None
+    except PermissionError:
+        raise BadInputError(f"{path}: cannot read the image (permission denied)") from None
+    except Image.UnidentifiedImageError:
+        raise BadInputError(f"{path}: not an image Pillow can read") from None
+    except (OSError, SyntaxError, ValueError, EOFError, IndexError, TypeError) as error:
+        raise BadInputError(
+            f"{path}: damaged or truncated image ({type(error).__name__}: {error})") from None
+    if max_side is not None and max(array.shape[:2]) > max_side:
+        height, width = array.shape[:2]
+        ratio = max_side / max(width, height)
+        size = (max(1, round(width * ratio)), max(1, round(height * ratio)))
+        array = _resize(array, size)
+    return array
+
+
+def _resize(array, size):
+    """Resize an RGB uint8 array to ``size`` (width, height).
+
+    Shrinking averages over the area each output pixel covers (Pillow's box
+    filter), so fine detail is averaged rather than aliased; enlarging is
+    bilinear.
+    """
+    height, width = array.shape[:2]
+    shrinking = size[0] <= width and size[1] <= height
+    method = Image.Resampling.BOX if shrinking else Image.Resampling.BILINEAR
+    return np.asarray(Image.fromarray(array).resize(size, method))
+
+
+def read_image(path, max_side=None):
+    """Read one image file as an RGB uint8 array.
+
+    Parameters
+    ----------
+    path : str or Path
+        The image file.
+    max_side : int, optional
+        If given, the image is downsized while reading (the JPEG decoder's
+        draft mode, then an area-averaging resize) so that its longer side is
+        at most ``max_side``; aspect ratio is kept.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``(H, W, 3)`` uint8, RGB, EXIF orientation applied. Mode handling
+        (alpha over black, 16-bit and float scaling) is in the module notes.
+
+    Raises
+    ------
+    BadInputError
+        The file is missing, unreadable, not an image, damaged, or larger
+        than Pillow's decompression-bomb limit.
+    """
+    if max_side is not None:
+        if isinstance(max_side, bool) or not isinstance(max_side, (int, np.integer)) or max_side < 1:
+            raise ValueError(f"max_side must be a positive integer or None; got {max_side!r}")
+        max_side = int(max_side)
+    return _decode(path, max_side=max_side)
+
+
+def load_images(records, size=64):
+    """Read images one at a time and resize each to a ``size`` x ``size`` square.
+
+    Aspect ratio is **not** kept: the proxy model works on fixed squares and
+    a stretch keeps all of the content, where a crop would drop some.
+    Shrinking averages over areas (Pillow's box filter, after JPEG draft
+    decoding); enlarging a small image is bilinear.
+
+    Parameters
+    ----------
+    records : sequence of ImageRecord or path
+        Images to read, in order.
+    size : int, default 64
+        Side of the output squares.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``(N, size, size, 3)`` uint8.
+
+    Raises
+    ------
+    BadInputError
+        An image cannot be decoded (the message names the file).
+    """
+    if isinstance(size, bool) or not isinstance(size, (int, np.integer)) or size < 1:
+        raise ValueError(f"size must be a positive integer; got {size!r}")
+    size = int(size)
+    records = list(records)
+    batch = np.empty((len(records), size, size, 3), dtype=np.uint8)
+    for index, record in enumerate(records):
+        path = record.path if isinstance(record, ImageRecord) else Path(record)
+        array = _decode(path, draft_size=(size, size))
+        if array.shape[:2] != (size, size):
+            array = _resize(array, (size, size))
+        batch[index] = array
+    return batch
+
+
+# --------------------------------------------------------------------------
+# Walking the data folder
+
+
+def _is_hidden(name):
+    return name.startswith(".")
+
+
+def _sorted_entries(folder):
+    """Non-hidden entries of ``folder`` sorted by name, as os.DirEntry."""
+    with os.scandir(folder) as entries:
+        return sorted((entry for entry in entries if not _is_hidden(entry.name)),
+                      key=lambda entry: entry.name)
+
+
+def _is_real_dir(entry):
+    """A folder, not a symlink to one (folder symlinks are never followed)."""
+    try:
+        return entry.is_dir(follow_symlinks=False)
+    except OSError:
+        return False
+
+
+def _label_of(name):
+    # NFC so that a class typed on one system matches the folder made on another.
+    return unicodedata.normalize("NFC", name)
+
+
+class _Scanner:
+    """Reads file bytes, hashes and identifies them, and keeps the skip list."""
+
+    def __init__(self, root, strict):
+        self.root = root
+        self.strict = strict
+        self.skipped = []
+
+    def skip(self, relpath, reason):
+        if self.strict:
+            raise BadInputError(f"{self.root / relpath}: {reason} (strict mode stops on any "
+                                "file that is not a readable image; remove it or drop --strict)")
+        self.skipped.append((relpath, reason))
+
+    def note(self, relpath, reason):
+        """A skip that is not a bad file (an empty folder): never fatal."""
+        self.skipped.append((relpath, reason))
+
+    def examine(self, path, relpath):
+        """sha256 of a usable image file, or None after recording why not."""
+        if path.is_symlink() and path.is_dir():
+            self.skip(relpath, "folder symlink, not followed")
+            return None
+        if path.is_dir():
+            self.skip(relpath, "a folder, not an image file (subfolders of a class are not read)")
+            return None
+        try:
+            data = path.read_bytes()
+        except PermissionError:
+            self.skip(relpath, "cannot read the file (permission denied)")
+            return None
+        except OSError as error:
+            self.skip(relpath, f"cannot read the file ({error.strerror or error})")
+            return None
+        reason = _identify(data)
+        if reason is not None:
+            self.skip(relpath, reason)
+            return None
+        return hashlib.sha256(data).hexdigest()
+
+
+def _scan_class_folder(scanner, folder, relfolder, label, split):
+    records = []
+    for entry in _sorted_entries(folder):
+        relpath = f"{relfolder}/{entry.name}"
+        digest = scanner.examine(Path(entry.path), relpath)
+        if digest is not None:
+            records.append(ImageRecord(Path(entry.path).absolute(), relpath, label, split, digest))
+    return records
+
+
+def _scan_split(scanner, folder, relfolder, split, *, allow_loose):
+    """Images of one split folder; ``allow_loose`` accepts unlabelled top-level files."""
+    records = []
+    for entry in _sorted_entries(folder):
+        relpath = f"{relfolder}/{entry.name}"
+        if _is_real_dir(entry):
+            found = _scan_class_folder(scanner, Path(entry.path), relpath, _label_of(entry.name), split)
+            if not found:
+                scanner.note(relpath, "empty class folder (no readable images), left out")
+            records.extend(found)
+        elif allow_loose:
+            digest = scanner.examine(Path(entry.path), relpath)
+            if digest is not None:
+                records.append(ImageRecord(Path(entry.path).absolute(), relpath, None, split, digest))
+        else:
+            try:
+                is_symlinked_dir = entry.is_symlink() and Path(entry.path).is_dir()
+            except OSError:
+                is_symlinked_dir = False
+            if is_symlinked_dir:
+                scanner.skip(relpath, "folder symlink, not followed")
+            else:
+                scanner.skip(relpath, f"file outside a class folder (expected {relfolder}/<class>/<image>)")
+    return records
+
+
+def _scan_folders(root, scanner, field):
+    train_dir = root / "train"
+    if not train_dir.is_dir():
+        raise BadInputError(
+            f"{root}: no train/ folder; expected {root}/train/<class>/<images> "
+            "(and val/<class>/...), or a CSV manifest with columns path,label,split")
+    records = _scan_split(scanner, train_dir, "train", "train", allow_loose=False)
+    has_val = (root / "val").is_dir()
+    for split in ("val", "test"):
+        if (root / split).is_dir():
+            records += _scan_split(scanner, root / split, split, split, allow_loose=False)
+    if field is not None:
+        records += _scan_split(scanner, field, "field", "field", allow_loose=True)
+    elif (root / "field").is_dir():
+        records += _scan_split(scanner, root / "field", "field", "field", allow_loose=True)
+    return records, has_val
+
+
+# --------------------------------------------------------------------------
+# Manifest
+
+
+_MANIFEST_COLUMNS = ("path", "label", "split")
+
+
+def _read_manifest(manifest, root, scanner):
+    try:
+        text = manifest.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise BadInputError(f"{manifest}: manifest file not found") from None
+    except UnicodeDecodeError as error:
+        raise BadInputError(f"{manifest}: manifest is not UTF-8 text ({error})") from None
+    except OSError as error:
+        raise BadInputError(f"{manifest}: cannot read the manifest ({error})") from None
+    reader = csv.DictReader(io.StringIO(text, newline=""))
+    header = [name.strip() for name in (reader.fieldnames or [])]
+    missing = [name for name in _MANIFEST_COLUMNS if name not in header]
+    if missing:
+        raise BadInputError(
+            f"{manifest}: manifest lacks column(s) {', '.join(missing)}; the first line must "
+            f"name the columns path,label,split; got {','.join(header) or 'an empty file'}")
+    reader.fieldnames = header
+    base = manifest.parent.resolve()
+    resolved_root = root.resolve()
+    records, seen = [], {}
+    for row in reader:
+        where = f"{manifest} line {reader.line_num}"
+        raw_path = (row.get("path") or "").strip()
+        label = (row.get("label") or "").strip()
+        split = (row.get("split") or "").strip()
+        if not raw_path:
+            raise BadInputError(f"{where}: empty path")
+        if split not in SPLITS:
+            raise BadInputError(f"{where}: unknown split {split!r}; allowed: {', '.join(SPLITS)}")
+        if not label and split != "field":
+            raise BadInputError(f"{where}: empty label; only field images may be unlabelled")
+        posix = PurePosixPath(raw_path.replace("\\", "/"))
+        if posix.is_absolute() or Path(raw_path).is_absolute() or (len(raw_path) > 1 and raw_path[1] == ":"):
+            raise BadInputError(f"{where}: absolute path {raw_path!r}; paths must be relative "
+                                "to the manifest's folder")
+        if ".." in posix.parts:
+            raise BadInputError(f"{where}: path {raw_path!r} uses '..'; paths must stay "
+                                "inside the data folder")
+        path = base.joinpath(*posix.parts)
+        try:
+            real = path.resolve(strict=True)
+        except FileNotFoundError:
+            raise BadInputError(f"{where}: file {raw_path!r} not found (looked for {path})") from None
+        except (OSError, RuntimeError) as error:  # symlink loops
+            raise BadInputError(f"{where}: cannot resolve {raw_path!r} ({error})") from None
+        if not real.is_relative_to(resolved_root):
+            raise BadInputError(f"{where}: {raw_path!r} resolves to {real}, outside the data "
+                                f"folder {resolved_root} (a symlink leading out?)")
+        relpath = path.relative_to(resolved_root).as_posix() if path.is_relative_to(resolved_root) \
+            else real.relative_to(resolved_root).as_posix()
+        if relpath in seen:
+            raise BadInputError(f"{where}: {raw_path!r} is already listed on line {seen[relpath]}")
+        seen[relpath] = reader.line_num
+        digest = scanner.examine(path, relpath)
+        if digest is not None:
+            records.append(ImageRecord(path, relpath, _label_of(label) if label else None,
+                                       split, digest))
+    return records
+
+
+# --------------------------------------------------------------------------
+# Validation split
+
+
+def _stratified_val(records, val_fraction, seed):
+    """Move a ``val_fraction`` share of each class's training images to val.
+
+    Each class with at least two images gives ``round(fraction * n)`` images,
+    at least one and never all; single-image classes stay whole in train.
+    """
+    rng = np.random.default_rng(seed)
+    by_class = {}
+    for index, record in enumerate(records):
+        if record.split == "train":
+            by_class.setdefault(record.label, []).append(index)
+    to_val = set()
+    for label in sorted(by_class):
+        indices = sorted(by_class[label], key=lambda i: records[i].relpath)
+        n = len(indices)
+        if n < 2:
+            continue
+        n_val = min(n - 1, max(1, int(round(val_fraction * n))))
+        chosen = rng.permutation(n)[:n_val]
+        to_val.update(indices[i] for i in chosen)
+    return [ImageRecord(r.path, r.relpath, r.label, "val", r.sha256) if i in to_val else r
+            for i, r in enumerate(records)]
+
+
+# --------------------------------------------------------------------------
+# Opening a data set
+
+
+def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, seed=0, field=None):
+    """Open a data set folder (or CSV manifest) and list its images.
+
+    Parameters
+    ----------
+    root : str or Path
+        The data folder. A path to a ``.csv`` file is read as a manifest
+        whose folder is the data folder.
+    strict : bool, default False
+        Raise on the first file that is not a readable image instead of
+        listing it in ``Dataset.skipped``.
+    manifest : str or Path, optional
+        CSV with columns ``path,label,split``; paths are relative to the
+        manifest's folder and must stay inside ``root``. A relative manifest
+        path that does not exist from the working folder is looked up in
+        ``root``.
+    val_fraction : float, default 0.2
+        Share of each class moved to validation when no val split exists.
+    seed : int, default 0
+        Seed of that stratified split.
+    field : str or Path, optional
+        A field folder apart from the data folder (``field/<class>/*`` or
+        ``field/*`` form); it replaces ``DATA/field``.
+
+    Returns
+    -------
+    Dataset
+
+    Raises
+    ------
+    BadInputError
+        The folder or manifest is missing or malformed, fewer than two
+        training classes, a val/test/field class unknown to train, or (with
+        ``strict``) a file that is not a readable image.
+    """
+    if not isinstance(val_fraction, (int, float)) or not 0.0 < float(val_fraction) < 1.0:
+        raise BadInputError(f"val_fraction must be a number between 0 and 1 (exclusive); "
+                            f"got {val_fraction!r}")
+    root = Path(root)
+    if manifest is None and root.suffix.lower() == ".csv" and root.is_file():
+        manifest, root = root, root.parent
+    if not root.exists():
+        raise BadInputError(f"{root}: data folder not found")
+    if not root.is_dir():
+        raise BadInputError(f"{root}: expected a data folder, got a file")
+    root = root.absolute()
+    scanner = _Scanner(root, strict)
+
+    if manifest is not None:
+        manifest = Path(manifest)
+        if not manifest.is_absolute() and not manifest.exists() and (root / manifest).exists():
+            manifest = root / manifest
+        records = _read_manifest(manifest.absolute(), root, scanner)
+        has_val = any(record.split == "val" for record in records)
+        source = str(manifest)
+    else:
+        if field is not None:
+            field = Path(field)
+            if not field.is_dir():
+                raise BadInputError(f"{field}: field folder not found (expected a folder "
+                                    "of <class>/<images> or of images)")
+            field = field.absolute()
+        records, has_val = _scan_folders(root, scanner, field)
+        source = str(root)
+
+    classes = tuple(sorted({r.label for r in records if r.split == "train"}))
+    if not classes:
+        raise BadInputError(f"{source}: no training images found; expected "
+                            "train/<class>/<images> with at least two classes")
+    if len(classes) < 2:
+        raise BadInputError(f"{source}: only one training class ({classes[0]!r}); "
+                            "a classifier needs at least two")
+    for split in ("val", "test", "field"):
+        unknown = sorted({r.label for r in records if r.split == split and r.label is not None}
+                         - set(classes))
+        if unknown:
+            raise BadInputError(f"{source}: {split} has class(es) {', '.join(map(repr, unknown))} "
+                                f"that train lacks; train classes: {', '.join(classes)}")
+
+    val_from_train, split_seed = False, None
+    if has_val:
+        if not any(r.split == "val" for r in records):
+            raise BadInputError(f"{source}: val/ holds no readable images; add images or "
+                                "remove the val/ folder to split one off train")
+    else:
+        records = _stratified_val(records, float(val_fraction), seed)
+        if not any(r.split == "val" for r in records):
+            raise BadInputError(f"{source}: no val split and no class has two images to "
+                                "split one off; add val/<class>/<images>")
+        val_from_train, split_seed = True, int(seed)
+
+    return Dataset(root=root, records=records, skipped=scanner.skipped, classes=classes,
+                   val_from_train=val_from_train, split_seed=split_seed)
+
+
+# --------------------------------------------------------------------------
+# Fingerprint and duplicates
+
+
+def fingerprint(dataset):
+    """sha256 hex digest identifying a data set's content and splits.
+
+    Hashes the sorted lines ``relpath, split, label, file sha256`` (tab
+    separated), so it is independent of walk order and changes when any
+    file's bytes, label or split change.
+    """
+    lines = sorted(f"{r.relpath}\t{r.split}\t{r.label if r.label is not None else ''}\t{r.sha256}\n"
+                   for r in dataset.records)
+    digest = hashlib.sha256()
+    for line in lines:
+        digest.update(line.encode("utf-8"))
+    return digest.hexdigest()
+
+
+def perceptual_hash(image):
+    """64-bit DCT perceptual hash (pHash) of an RGB uint8 image.
+
+    The image is turned to grey (Pillow's ``L``, ITU-R BT.601 luma), area
+    averaged down to 32 x 32, transformed with an orthonormal 2-D DCT-II, and
+    the 8 x 8 block of coefficients at rows and columns 1..8 (low
+    frequencies, the DC term left out) is thresholded at its median [1]_.
+
+    Parameters
+    ----------
+    image : numpy.ndarray
+        ``(H, W, 3)`` uint8.
+
+    Returns
+    -------
+    numpy.uint64
+        The 64 bits, row-major, first coefficient in the highest bit.
+
+    References
+    ----------
+    .. [1] C. Zauner, "Implementation and Benchmarking of Perceptual Image
+       Hash Functions", Master's thesis, Upper Austria University of Applied
+       Sciences, Hagenberg, 2010. (Block placement recalled from memory of
+       the DCT hash described there, not checked against the text.)
+    """
+    return _perceptual_hash_and_spread(image)[0]
+
+
+def _perceptual_hash_and_spread(image):
+    """`perceptual_hash` plus the standard deviation of the 64 coefficients.
+
+    A flat image has all those coefficients near zero, so its bits come from
+    rounding noise; the spread lets callers leave such images out.
+    """
+    from scipy.fft import dctn
+
+    image = np.asarray(image)
+    if image.ndim != 3 or image.shape[2] != 3 or image.dtype != np.uint8:
+        raise ValueError(f"expected an (H, W, 3) uint8 image; got shape {image.shape}, "
+                         f"dtype {image.dtype}")
+    grey = Image.fromarray(image).convert("L").resize((32, 32), Image.Resampling.BOX)
+    coefficients = dctn(np.asarray(grey, dtype=np.float64), type=2, norm="ortho")
+    block = coefficients[1:9, 1:9].ravel()
+    bits = block > np.median(block)
+    weights = np.left_shift(np.uint64(1), np.arange(63, -1, -1, dtype=np.uint64))
+    return np.bitwise_or.reduce(np.where(bits, weights, np.uint64(0))), float(block.std())
+
+
+_POPCOUNT_BYTE = np.array([bin(i).count("1") for i in range(256)], dtype=np.uint8)
+
+
+def _popcount64(values):
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(values).astype(np.int64)
+    as_bytes = values[..., None].view(np.uint8)
+    return _POPCOUNT_BYTE[as_bytes].sum(axis=-1, dtype=np.int64)
+
+
+def hamming_matrix(hashes_a, hashes_b):
+    """Pairwise Hamming distances between two arrays of 64-bit hashes."""
+    a = np.asarray(hashes_a, dtype=np.uint64)
+    b = np.asarray(hashes_b, dtype=np.uint64)
+    return _popcount64(np.bitwise_xor(a[:, None], b[None, :]))
+
+
+# Coefficient spread (grey levels, orthonormal DCT) below which an image is
+# taken as flat and left out of the near-duplicate search: blank frames would
+# otherwise all share one meaningless hash. Chosen here, no source.
+FLAT_SPREAD = 1.0
+
+
+def _hash_file(path):
+    # 128 px is ample for a 32 x 32 hash and lets JPEGs decode at reduced scale.
+    return _perceptual_hash_and_spread(_decode(path, max_side=128))
+
+
+_SPLIT_ORDER = {name: i for i, name in enumerate(SPLITS)}
+
+
+def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
+    """Images shared between splits: exact copies and near copies.
+
+    Only pairs in different splits are reported (a train image that is also
+    in val, test or field; likewise val against test and field, test against
+    field), since those leak between what a model learns and what scores it.
+    ``a`` is the pair member of the earlier split (train, val, test, field).
+
+    Parameters
+    ----------
+    dataset : Dataset
+    near_threshold : int, default NEAR_DUPLICATE_BITS (6)
+        Largest Hamming distance (of 64 bits) between perceptual hashes that
+        counts as a near duplicate (common practice, no source). Negative
+        turns the near search off.
+    workers : int, default 1
+        Processes for hashing (see `augplan.parallel.parallel_map`).
+
+    Returns
+    -------
+    list of dict
+        ``{"kind": "exact" | "near", "a": relpath, "b": relpath,
+        "splits": [split_a, split_b], "distance": int}``; exact pairs first
+        (distance 0), then near pairs, each sorted by ``(a, b)``. A near
+        pair is never also an exact pair. Flat images (DCT coefficient
+        spread below ``FLAT_SPREAD``) take part in the exact search only.
+
+    Raises
+    ------
+    BadInputError
+        An image cannot be decoded (names the file).
+    """
+    from augplan.parallel import parallel_map
+
+    records = sorted(dataset.records, key=lambda r: (_SPLIT_ORDER[r.split], r.relpath))
+    exact, near = [], []
+    by_digest = {}
+    for record in records:
+        by_digest.setdefault(record.sha256, []).append(record)
+    for group in by_digest.values():
+        for i, first in enumerate(group):
+            for second in group[i + 1:]:
+                if first.split != second.split:
+                    exact.append({"kind": "exact", "a": first.relpath, "b": second.relpath,
+                                  "splits": [first.split, second.split], "distance": 0})
+    if near_threshold >= 0 and len(records) > 1:
+        results = parallel_map(_hash_file, [r.path for r in records], workers=workers,
+                               desc="hashing images")
+        hashes = np.array([h for h, _ in results], dtype=np.uint64)
+        textured = np.array([spread >= FLAT_SPREAD for _, spread in results])
+        splits = np.array([_SPLIT_ORDER[r.split] for r in records])
+        chunk = 1024  # bounds the distance matrix to chunk x N at a time
+        for start in range(0, len(records), chunk):
+            stop = min(start + chunk, len(records))
+            distances = hamming_matrix(hashes[start:stop], hashes)
+            rows, cols = np.nonzero((distances <= near_threshold)
+                                    & (splits[start:stop, None] < splits[None, :])
+                                    & textured[start:stop, None] & textured[None, :])
+            for row, col in zip(rows.tolist(), cols.tolist()):
+                first, second = records[start + row], records[col]
+                if first.sha256 == second.sha256:
+                    continue
+                near.append({"kind": "near", "a": first.relpath, "b": second.relpath,
+                             "splits": [first.split, second.split],
+                             "distance": int(distances[row, col])})
+    exact.sort(key=lambda d: (d["a"], d["b"]))
+    near.sort(key=lambda d: (d["a"], d["b"]))
+    return exact + near
