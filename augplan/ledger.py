@@ -1,0 +1,187 @@
+"""The results ledger: every evaluation stored in a local SQLite database.
+
+Two tables. ``evaluations`` holds one row per recipe result, keyed by
+(recipe content hash, data fingerprint, model settings key, seed, repeats),
+with the recipe's result and the baseline it was compared against as JSON.
+``runs`` holds one row per comparison (date, data, recipes, best gain) for
+``augplan history``. Standard library ``sqlite3`` only; each call opens and
+closes its own connection, so a crash never leaves the database locked.
+"""
+
+import json
+import sqlite3
+from contextlib import closing
+from datetime import datetime, timezone
+from pathlib import Path
+
+from augplan.errors import BadInputError
+
+__all__ = ["lookup_results", "store_results", "record_run", "list_history"]
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS evaluations (
+    recipe_hash TEXT NOT NULL,
+    fingerprint TEXT NOT NULL,
+    settings_key TEXT NOT NULL,
+    seed INTEGER NOT NULL,
+    repeats INTEGER NOT NULL,
+    recipe_name TEXT NOT NULL,
+    result_json TEXT NOT NULL,
+    baseline_json TEXT NOT NULL,
+    created TEXT NOT NULL,
+    PRIMARY KEY (recipe_hash, fingerprint, settings_key, seed, repeats)
+);
+CREATE TABLE IF NOT EXISTS runs (
+    id INTEGER PRIMARY KEY AUTOINCREMENT,
+    created TEXT NOT NULL,
+    fingerprint TEXT NOT NULL,
+    data_root TEXT,
+    settings_key TEXT NOT NULL,
+    seed INTEGER NOT NULL,
+    repeats INTEGER NOT NULL,
+    recipes_json TEXT NOT NULL,
+    best_recipe TEXT,
+    best_gain REAL,
+    from_ledger INTEGER NOT NULL
+);
+"""
+
+
+def _connect(ledger_path, *, create):
+    path = Path(ledger_path)
+    if not create and not path.exists():
+        return None
+    if create:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    try:
+        connection = sqlite3.connect(path, timeout=30)
+        connection.executescript(_SCHEMA)
+    except sqlite3.DatabaseError as error:
+        raise BadInputError(
+            f"{path}: not a usable augplan ledger (SQLite said: {error}); "
+            "pass another --ledger path or move this file away."
+        ) from error
+    return connection
+
+
+def _now():
+    return datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M:%S")
+
+
+def lookup_results(ledger_path, *, fingerprint, settings_key, seed, repeats, recipe_hashes):
+    """Stored results for every recipe of a comparison, or ``None``.
+
+    Parameters
+    ----------
+    ledger_path : str or Path
+        The SQLite file (a missing file means nothing is stored).
+    fingerprint, settings_key : str
+        Data fingerprint and model settings key of the comparison.
+    seed, repeats : int
+        Seed and number of repeats of the comparison.
+    recipe_hashes : sequence of str
+        Content hashes of the recipes, in run order.
+
+    Returns
+    -------
+    tuple of (dict, list of dict) or None
+        ``(baseline, results)`` with ``results`` in the order of
+        ``recipe_hashes``, only when every recipe is stored under the same
+        keys; ``None`` otherwise (the comparison is then computed afresh).
+    """
+    connection = _connect(ledger_path, create=False)
+    if connection is None:
+        return None
+    baseline = None
+    results = []
+    with closing(connection):
+        for recipe_hash in recipe_hashes:
+            row = connection.execute(
+                "SELECT result_json, baseline_json FROM evaluations WHERE recipe_hash=? AND "
+                "fingerprint=? AND settings_key=? AND seed=? AND repeats=?",
+                (recipe_hash, fingerprint, settings_key, int(seed), int(repeats)),
+            ).fetchone()
+            if row is None:
+                return None
+            results.append(json.loads(row[0]))
+            if baseline is None:
+                baseline = json.loads(row[1])
+    return baseline, results
+
+
+def store_results(ledger_path, *, fingerprint, settings_key, seed, repeats, baseline, results):
+    """Store (or replace) the results of one comparison.
+
+    Parameters
+    ----------
+    ledger_path : str or Path
+        The SQLite file; created with its folder if missing.
+    fingerprint, settings_key, seed, repeats
+        The keys, as in `lookup_results`.
+    baseline : dict
+        The baseline entry (JSON-able).
+    results : sequence of dict
+        Per-recipe entries, each with at least ``"recipe_hash"`` and ``"name"``.
+    """
+    baseline_text = json.dumps(baseline, sort_keys=True)
+    created = _now()
+    connection = _connect(ledger_path, create=True)
+    with closing(connection), connection:
+        connection.executemany(
+            "INSERT OR REPLACE INTO evaluations VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            [
+                (entry["recipe_hash"], fingerprint, settings_key, int(seed), int(repeats),
+                 entry["name"], json.dumps(entry, sort_keys=True), baseline_text, created)
+                for entry in results
+            ],
+        )
+
+
+def record_run(ledger_path, *, fingerprint, data_root, settings_key, seed, repeats,
+               recipe_names, best_recipe, best_gain, from_ledger):
+    """Append one comparison to the history (see `list_history`)."""
+    connection = _connect(ledger_path, create=True)
+    with closing(connection), connection:
+        connection.execute(
+            "INSERT INTO runs (created, fingerprint, data_root, settings_key, seed, repeats, "
+            "recipes_json, best_recipe, best_gain, from_ledger) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (_now(), fingerprint, None if data_root is None else str(data_root), settings_key,
+             int(seed), int(repeats), json.dumps(list(recipe_names)), best_recipe,
+             None if best_gain is None else float(best_gain), int(bool(from_ledger))),
+        )
+
+
+def list_history(ledger_path, fingerprint=None):
+    """Past comparisons, oldest first.
+
+    Parameters
+    ----------
+    ledger_path : str or Path
+        The SQLite file. A missing file gives an empty history.
+    fingerprint : str, optional
+        Keep only comparisons on data with this fingerprint.
+
+    Returns
+    -------
+    list of dict
+        ``{"date", "fingerprint" (first 12 characters), "data", "recipes"
+        (names), "best_recipe", "best_gain", "seed", "repeats",
+        "from_ledger"}`` per comparison; ``date`` is UTC.
+    """
+    connection = _connect(ledger_path, create=False)
+    if connection is None:
+        return []
+    query = ("SELECT created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, "
+             "repeats, from_ledger FROM runs")
+    arguments = ()
+    if fingerprint is not None:
+        query += " WHERE fingerprint=?"
+        arguments = (fingerprint,)
+    with closing(connection):
+        rows = connection.execute(query + " ORDER BY id", arguments).fetchall()
+    return [
+        {"date": created, "fingerprint": fp[:12], "data": data_root, "recipes": json.loads(names),
+         "best_recipe": best_recipe, "best_gain": best_gain, "seed": seed, "repeats": repeats,
+         "from_ledger": bool(from_ledger)}
+        for created, fp, data_root, names, best_recipe, best_gain, seed, repeats, from_ledger in rows
+    ]

@@ -1,0 +1,105 @@
+"""Tests of the results ledger and the feature cache of original images."""
+
+import sqlite3
+
+import numpy as np
+import pytest
+
+from augplan import ledger
+from augplan.errors import BadInputError
+from augplan.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
+
+KEYS = dict(fingerprint="f" * 64, settings_key="s" * 24, seed=0, repeats=5)
+
+
+def _entry(name, digest, gain):
+    return {"recipe_hash": digest, "name": name, "scores": {"val": {"gain": gain}}}
+
+
+def test_stored_results_come_back_only_when_every_key_matches(tmp_path):
+    path = tmp_path / "sub" / "ledger.sqlite"
+    baseline = {"val": {"accuracy": 0.8}}
+    results = [_entry("a", "1" * 64, 0.02), _entry("b", "2" * 64, -0.01)]
+    ledger.store_results(path, baseline=baseline, results=results, **KEYS)
+
+    stored = ledger.lookup_results(path, recipe_hashes=["2" * 64, "1" * 64], **KEYS)
+    assert stored == (baseline, [results[1], results[0]])
+    for changed in ({"seed": 1}, {"repeats": 3}, {"fingerprint": "e" * 64}, {"settings_key": "t" * 24}):
+        assert ledger.lookup_results(path, recipe_hashes=["1" * 64], **{**KEYS, **changed}) is None
+    # One recipe missing: the whole comparison is recomputed.
+    assert ledger.lookup_results(path, recipe_hashes=["1" * 64, "3" * 64], **KEYS) is None
+
+
+def test_missing_ledger_is_empty(tmp_path):
+    path = tmp_path / "none.sqlite"
+    assert ledger.lookup_results(path, recipe_hashes=["1" * 64], **KEYS) is None
+    assert ledger.list_history(path) == []
+    assert not path.exists()
+
+
+def test_history_lists_runs_in_order_and_filters_by_data(tmp_path):
+    path = tmp_path / "ledger.sqlite"
+    for fingerprint, names, gain in (("a" * 64, ["x", "y"], 0.03), ("b" * 64, ["z"], None)):
+        ledger.record_run(path, fingerprint=fingerprint, data_root="/data", settings_key="k",
+                          seed=0, repeats=5, recipe_names=names, best_recipe=names[0],
+                          best_gain=gain, from_ledger=False)
+    rows = ledger.list_history(path)
+    assert [r["recipes"] for r in rows] == [["x", "y"], ["z"]]
+    assert rows[0]["fingerprint"] == "a" * 12
+    assert rows[0]["best_gain"] == pytest.approx(0.03)
+    assert rows[1]["best_gain"] is None
+    assert [r["recipes"] for r in ledger.list_history(path, fingerprint="b" * 64)] == [["z"]]
+    # The file is a plain SQLite database (stdlib sqlite3 reads it back).
+    with sqlite3.connect(path) as connection:
+        assert connection.execute("SELECT COUNT(*) FROM runs").fetchone()[0] == 2
+
+
+def test_a_file_that_is_not_a_ledger_is_named(tmp_path):
+    path = tmp_path / "notes.sqlite"
+    path.write_bytes(b"this is not a database, just some text " * 20)
+    with pytest.raises(BadInputError, match="notes.sqlite"):
+        ledger.list_history(path)
+
+
+def test_feature_cache_round_trip_and_counts(tmp_path):
+    cache = FeatureCache(tmp_path, "k" * 24)
+    digest = "ab" * 32
+    assert cache.get(digest) is None
+    row = np.linspace(0, 1, 7, dtype=np.float32)
+    cache.put(digest, row)
+    np.testing.assert_array_equal(cache.get(digest), row)
+    assert (cache.hits, cache.misses) == (1, 1)
+    # Rows of other settings never mix.
+    assert FeatureCache(tmp_path, "m" * 24).get(digest) is None
+    # No temporary files are left behind by the atomic write.
+    assert [p.name for p in (tmp_path / ("k" * 24)).rglob("*")] == ["ab", f"{digest}.npy"]
+
+
+def test_disabled_cache_stores_nothing(tmp_path):
+    cache = FeatureCache(None, "k" * 24)
+    cache.put("cd" * 32, np.ones(3))
+    assert cache.get("cd" * 32) is None
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_corrupt_cache_row_is_recomputed(tmp_path):
+    cache = FeatureCache(tmp_path, "k" * 24)
+    digest = "ef" * 32
+    cache.put(digest, np.ones(3))
+    (tmp_path / ("k" * 24) / "ef" / f"{digest}.npy").write_bytes(b"garbage")
+    assert cache.get(digest) is None
+
+
+def _features_a(images):
+    return images.reshape(len(images), -1)
+
+
+def _features_b(images):
+    return images.reshape(len(images), -1) / 2
+
+
+def test_settings_key_changes_with_function_and_size(tmp_path):
+    assert feature_settings_key(_features_a, 64) == feature_settings_key(_features_a, 64)
+    assert feature_settings_key(_features_a, 64) != feature_settings_key(_features_a, 32)
+    assert feature_settings_key(_features_a, 64) != feature_settings_key(_features_b, 64)
+    assert default_cache_dir(tmp_path / "DATA") == tmp_path.resolve() / ".augplan" / "features"
