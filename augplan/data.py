@@ -155,8 +155,7 @@ def _identify(data):
         return f"too large to decode safely, a possible decompression bomb ({error})"
     except Image.UnidentifiedImageError:
         return "not an image Pillow can read"
-    except (OSError, SyntaxError, ValueError, EOFError, IndexError, TypeError) as error:
-        # Pillow signals damaged files with a mix of these.
+    except Exception as error:  # noqa: BLE001 - Pillow plugins raise many kinds on bad bytes
         return f"damaged or truncated image ({type(error).__name__}: {error})"
     if width < 1 or height < 1:
         return f"image has no pixels ({width}x{height})"
@@ -243,7 +242,7 @@ def _decode(path, *, max_side=None, draft_size=None):
         raise BadInputError(f"{path}: cannot read the image (permission denied)") from None
     except Image.UnidentifiedImageError:
         raise BadInputError(f"{path}: not an image Pillow can read") from None
-    except (OSError, SyntaxError, ValueError, EOFError, IndexError, TypeError) as error:
+    except Exception as error:  # noqa: BLE001 - Pillow plugins raise many kinds on bad bytes
         raise BadInputError(
             f"{path}: damaged or truncated image ({type(error).__name__}: {error})") from None
     if max_side is not None and max(array.shape[:2]) > max_side:
@@ -373,9 +372,10 @@ class _Scanner:
         self.strict = strict
         self.skipped = []
 
-    def skip(self, relpath, reason):
+    def skip(self, relpath, reason, path=None):
         if self.strict:
-            raise BadInputError(f"{self.root / relpath}: {reason} (strict mode stops on any "
+            shown = path if path is not None else self.root / relpath
+            raise BadInputError(f"{shown}: {reason} (strict mode stops on any "
                                 "file that is not a readable image; remove it or drop --strict)")
         self.skipped.append((relpath, reason))
 
@@ -386,22 +386,22 @@ class _Scanner:
     def examine(self, path, relpath):
         """sha256 of a usable image file, or None after recording why not."""
         if path.is_symlink() and path.is_dir():
-            self.skip(relpath, "folder symlink, not followed")
+            self.skip(relpath, "folder symlink, not followed", path)
             return None
         if path.is_dir():
-            self.skip(relpath, "a folder, not an image file (subfolders of a class are not read)")
+            self.skip(relpath, "a folder, not an image file (subfolders of a class are not read)", path)
             return None
         try:
             data = path.read_bytes()
         except PermissionError:
-            self.skip(relpath, "cannot read the file (permission denied)")
+            self.skip(relpath, "cannot read the file (permission denied)", path)
             return None
         except OSError as error:
-            self.skip(relpath, f"cannot read the file ({error.strerror or error})")
+            self.skip(relpath, f"cannot read the file ({error.strerror or error})", path)
             return None
         reason = _identify(data)
         if reason is not None:
-            self.skip(relpath, reason)
+            self.skip(relpath, reason, path)
             return None
         return hashlib.sha256(data).hexdigest()
 
