@@ -49,6 +49,8 @@ __all__ = [
     "load_images",
     "fingerprint",
     "perceptual_hash",
+    "hamming_matrix",
+    "FLAT_SPREAD",
     "find_duplicates",
 ]
 
