@@ -1,0 +1,159 @@
+"""Propose a candidate recipe from the data: a commented YAML starting point.
+
+With a field sample, the lighting, contrast and pose ranges are chosen to
+span what the field shows, measured with the same nuisance factors that
+``coverage`` reports; without one, conservative defaults. A draft is a
+proposal: ``augplan check`` and ``augplan vet`` decide.
+"""
+
+import json
+
+import numpy as np
+
+from .data import load_images
+from .factors import brightness, orientation, rms_contrast, sharpness
+from .recipe import parse_recipe
+
+__all__ = ["draft_ranges", "draft_recipe_text"]
+
+# Conservative defaults when there is no field sample (common practice, no
+# source): mild changes that rarely change what an image shows.
+DEFAULTS = {
+    "rotate": (-5.0, 5.0),
+    "zoom": (0.95, 1.05),
+    "shift": (-0.05, 0.05),
+    "brightness": (0.8, 1.25),
+    "contrast": (0.85, 1.15),
+}
+# The widest ranges a draft proposes whatever the field shows; beyond these a
+# person should decide.
+LIMITS = {"brightness": (0.2, 5.0), "contrast": (0.4, 2.5), "rotate": 45.0}
+
+
+def _ratio_range(train_values, field_values, default, limits):
+    """Multiplicative range that takes the training median to the field's 5-95% span.
+
+    Always includes 1 (the unchanged image); clipped to ``limits``.
+    """
+    centre = float(np.median(train_values))
+    if field_values is None or len(field_values) == 0 or centre <= 0:
+        return default
+    low = float(np.percentile(field_values, 5)) / centre
+    high = float(np.percentile(field_values, 95)) / centre
+    low, high = min(low, default[0]), max(high, default[1])
+    return (round(max(low, limits[0]), 2), round(min(high, limits[1]), 2))
+
+
+def _axial_spread(angles):
+    """Circular standard deviation (degrees) of axial angles with period 180."""
+    doubled = np.deg2rad(np.asarray(angles) * 2.0)
+    resultant = np.hypot(np.mean(np.cos(doubled)), np.mean(np.sin(doubled)))
+    resultant = min(max(resultant, 1e-12), 1.0)
+    return float(np.rad2deg(np.sqrt(-2.0 * np.log(resultant))) / 2.0)
+
+
+def draft_ranges(train_images, field_images=None):
+    """The ranges a draft proposes.
+
+    Parameters
+    ----------
+    train_images : numpy.ndarray (N, H, W, 3) uint8
+        Original training images.
+    field_images : numpy.ndarray (M, H, W, 3) uint8, optional
+        A sample from deployment.
+
+    Returns
+    -------
+    dict
+        ``{op: (low, high)}`` for rotate, zoom, shift, brightness, contrast and,
+        when the field is blurrier than the training data, blur.
+
+    Notes
+    -----
+    Brightness multiplies linear light and mean relative luminance is linear
+    in it, so the factor that takes the training median luminance ``L`` to a
+    field luminance ``F`` is ``F / L``; the range spans the field's 5th to
+    95th percentile. Contrast likewise with RMS contrast. The rotation range
+    is the field's extra orientation spread (circular standard deviation of
+    the structure-tensor orientation, Mardia & Jupp 2000) beyond the training
+    data's, doubled to cover both directions.
+    """
+    ranges = dict(DEFAULTS)
+    if field_images is None or len(field_images) == 0:
+        return ranges
+    ranges["brightness"] = _ratio_range(brightness(train_images), brightness(field_images),
+                                        DEFAULTS["brightness"], LIMITS["brightness"])
+    ranges["contrast"] = _ratio_range(rms_contrast(train_images), rms_contrast(field_images),
+                                      DEFAULTS["contrast"], LIMITS["contrast"])
+    extra = max(0.0, _axial_spread(orientation(field_images)) - _axial_spread(orientation(train_images)))
+    degrees = float(np.clip(round(2.0 * extra), DEFAULTS["rotate"][1], LIMITS["rotate"]))
+    ranges["rotate"] = (-degrees, degrees)
+    train_sharpness = float(np.median(sharpness(train_images)))
+    field_sharpness = float(np.median(sharpness(field_images)))
+    if train_sharpness > 0 and field_sharpness < 0.7 * train_sharpness:
+        ranges["blur"] = (0.0, 1.0)
+    return ranges
+
+
+def _fmt(pair):
+    return f"[{pair[0]:g}, {pair[1]:g}]"
+
+
+def draft_recipe_text(dataset, *, name="draft", seed=0, size=64, quiet=True):
+    """A commented YAML recipe drafted from ``dataset`` (and its field split).
+
+    Parameters
+    ----------
+    dataset : augplan.data.Dataset
+    name : str
+        The recipe's name.
+    seed : int
+        Written as the recipe's seed.
+    size : int
+        Side of the square the images are measured at.
+
+    Returns
+    -------
+    str
+        Recipe YAML that `augplan.recipe.parse_recipe` accepts.
+    """
+    train = load_images(dataset.split("train"), size=size)
+    field_records = dataset.split("field")
+    field = load_images(field_records, size=size) if field_records else None
+    ranges = draft_ranges(train, field)
+    source = (f"the field sample ({len(field_records)} images)" if field is not None
+              else "conservative defaults (no field sample was given)")
+    lines = [
+        f"# Drafted by augplan from {len(train)} training images; ranges from {source}.",
+        "# A proposal, not a verdict: run 'augplan check' (or 'augplan vet') before use.",
+        f"name: {json.dumps(name)}",
+        f"seed: {int(seed)}",
+        "copies: 4",
+        "fill: reflect",
+        "transforms:",
+        "  # Exposure change in linear light; spans the field's lighting when a field sample exists.",
+        "  - op: brightness",
+        f"    factor: {_fmt(ranges['brightness'])}",
+        "  - op: contrast",
+        f"    factor: {_fmt(ranges['contrast'])}",
+        "  - op: rotate",
+        f"    degrees: {_fmt(ranges['rotate'])}",
+        "  - op: zoom",
+        f"    factor: {_fmt(ranges['zoom'])}",
+        "  - op: shift",
+        f"    fraction: {_fmt(ranges['shift'])}",
+    ]
+    if "blur" in ranges:
+        lines += ["  # The field is blurrier than the training images.",
+                  "  - op: blur", f"    sigma: {_fmt(ranges['blur'])}"]
+    lines += [
+        "  # Flips are proposed unconfirmed: 'check' must confirm them, since a flip",
+        "  # swaps mirror-image classes (left/right parts, some letters and digits).",
+        "  - op: flip",
+        "    axis: horizontal",
+        "    probability: 0.5",
+        "# Hue and saturation are left out on purpose: colour often carries the class.",
+    ]
+    text = "\n".join(lines) + "\n"
+    parse_recipe(text, source=f"draft '{name}'")  # a draft must always be a valid recipe
+    return text
