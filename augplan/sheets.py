@@ -1,0 +1,277 @@
+"""Contact sheets: grids of small images with row, column and cell captions.
+
+A contact sheet lets a person look at what a recipe does before trusting any
+number: each row shows one original next to a few augmented draws. Cells are
+enlarged with nearest-neighbour sampling so every source pixel stays a crisp
+block and nothing is smoothed away. Text uses Pillow's bundled default font,
+so sheets look the same on every machine with the same Pillow version.
+
+Layout (all in pixels, ``PAD`` between and around cells)::
+
+    +-----------------------------------------------+
+    | title                                         |
+    |              column label  column label  ...  |
+    | row label    [ cell ]      [ cell ]           |
+    |              caption       caption            |
+    | row label    [ cell ]      [ cell ]           |
+    +-----------------------------------------------+
+
+so ``width = left_margin + PAD + n_columns * (cell + PAD)`` (or the
+title's width, if that is wider) and
+``height = top_margin + PAD + n_rows * (cell + caption_band + PAD)``.
+"""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import numpy as np
+from PIL import Image, ImageDraw, ImageFont
+
+from augplan.atomic import write_bytes_atomic
+
+__all__ = ["PAD", "contact_sheet", "preview_sheet", "png_bytes", "save_png"]
+
+PAD = 6
+_BACKGROUND = (255, 255, 255)
+_TEXT = (20, 20, 20)
+# Captions mark something a reader must notice (a label that changed), so
+# they stand out from the neutral row and column labels.
+_CAPTION = (170, 20, 20)
+_MAX_LABEL_CHARS = 40
+_FONT_SIZE = 12
+_PNG_OPTIONS = {"format": "PNG", "compress_level": 6, "optimize": False}
+
+
+def _font():
+    # Pillow's bundled font; at its default 10 px the spaces nearly vanish.
+    return ImageFont.load_default(size=_FONT_SIZE)
+
+
+def _text_size(font, text):
+    left, top, right, bottom = font.getbbox(text)
+    return right - left, bottom - top
+
+
+def _shorten(text):
+    text = str(text)
+    return text if len(text) <= _MAX_LABEL_CHARS else text[: _MAX_LABEL_CHARS - 3] + "..."
+
+
+def _as_rgb_cell(image, where, cell):
+    """Validate one cell image and enlarge it (nearest neighbour) to fit ``cell``."""
+    array = np.asarray(image)
+    if array.dtype != np.uint8 or array.ndim not in (2, 3) or (array.ndim == 3 and array.shape[2] != 3):
+        raise ValueError(
+            f"{where} must be a uint8 image of shape (H, W, 3) or (H, W); "
+            f"got shape {array.shape} and dtype {array.dtype}"
+        )
+    if array.shape[0] == 0 or array.shape[1] == 0:
+        raise ValueError(f"{where} must have at least one pixel; got shape {array.shape}")
+    picture = Image.fromarray(array if array.ndim == 3 else np.stack([array] * 3, axis=-1), mode="RGB")
+    height, width = array.shape[:2]
+    scale = cell / max(height, width)
+    size = (max(1, round(width * scale)), max(1, round(height * scale)))
+    return picture.resize(size, resample=Image.Resampling.NEAREST)
+
+
+def contact_sheet(rows, row_labels, *, column_labels=None, cell=96, title=None, captions=None):
+    """Lay images out in a labelled grid.
+
+    Parameters
+    ----------
+    rows : list of list of numpy.ndarray
+        ``rows[i][j]`` is a uint8 image, ``(H, W, 3)`` RGB or ``(H, W)`` grey,
+        or None for an empty cell. Rows may differ in length.
+    row_labels : list of str
+        One label per row, drawn left of the row. May be given by keyword.
+    column_labels : list of str, optional
+        One label per column, drawn above the first row.
+    cell : int, default 96
+        Side of the square each image is enlarged into (nearest neighbour,
+        aspect ratio kept, centred).
+    title : str, optional
+        One line across the top.
+    captions : list of list of str, optional
+        ``captions[i][j]`` is drawn under cell ``(i, j)``; None or "" draws
+        nothing. A caption band is reserved under every row only when some
+        caption is given.
+
+    Returns
+    -------
+    PIL.Image.Image
+        RGB image on a white background; its size follows the layout in the
+        module notes.
+
+    Raises
+    ------
+    ValueError
+        Empty ``rows``, label or caption counts that do not match, a cell
+        that is not a uint8 image, or ``cell`` below 8.
+    """
+    rows = [list(row) for row in rows]
+    if not rows:
+        raise ValueError("rows must hold at least one row of images; got none")
+    if isinstance(cell, bool) or not isinstance(cell, (int, np.integer)) or cell < 8:
+        raise ValueError(f"cell must be an integer of at least 8 pixels; got {cell!r}")
+    cell = int(cell)
+    row_labels = [_shorten(label) for label in row_labels]
+    if len(row_labels) != len(rows):
+        raise ValueError(f"row_labels must have one label per row ({len(rows)}); got {len(row_labels)}")
+    n_columns = max(len(row) for row in rows)
+    if n_columns == 0:
+        raise ValueError("rows must hold at least one image; every row is empty")
+    if column_labels is not None:
+        column_labels = [_shorten(label) for label in column_labels]
+        if len(column_labels) != n_columns:
+            raise ValueError(
+                f"column_labels must have one label per column ({n_columns}); got {len(column_labels)}"
+            )
+    if captions is not None:
+        captions = [list(row) for row in captions]
+        if len(captions) != len(rows) or any(len(c) > len(r) for c, r in zip(captions, rows)):
+            raise ValueError("captions must have the shape of rows: one list per row, "
+                             "at most one caption per cell")
+
+    font = _font()
+    line = _text_size(font, "Ag")[1] + 4
+    label_width = max((_text_size(font, label)[0] for label in row_labels), default=0)
+    left = label_width + PAD if label_width else 0
+    top = 0
+    if title:
+        top += line + PAD
+    if column_labels is not None:
+        top += line
+    caption_band = line if captions and any(text for row in captions for text in row) else 0
+    row_height = cell + caption_band + PAD
+    width = left + PAD + n_columns * (cell + PAD)
+    if title:
+        # A narrow grid widens to fit its title rather than cut it off.
+        title = _shorten_title(str(title))
+        width = max(width, _text_size(font, title)[0] + 2 * PAD)
+    height = top + PAD + len(rows) * row_height
+
+    sheet = Image.new("RGB", (width, height), _BACKGROUND)
+    draw = ImageDraw.Draw(sheet)
+    if title:
+        draw.text((PAD, PAD), title, fill=_TEXT, font=font)
+    for j, label in enumerate(column_labels or ()):
+        x = left + PAD + j * (cell + PAD)
+        draw.text((x, top - line + 1), label, fill=_TEXT, font=font)
+    for i, row in enumerate(rows):
+        y = top + PAD + i * row_height
+        text_height = _text_size(font, row_labels[i] or "Ag")[1]
+        draw.text((PAD, y + (cell - text_height) // 2), row_labels[i], fill=_TEXT, font=font)
+        for j, image in enumerate(row):
+            if image is None:
+                continue
+            picture = _as_rgb_cell(image, f"rows[{i}][{j}]", cell)
+            x = left + PAD + j * (cell + PAD)
+            sheet.paste(picture, (x + (cell - picture.width) // 2, y + (cell - picture.height) // 2))
+            if caption_band and j < len(captions[i]) and captions[i][j]:
+                draw.text((x, y + cell + 2), _shorten(captions[i][j]), fill=_CAPTION, font=font)
+    return sheet
+
+
+def _shorten_title(text):
+    return text if len(text) <= 120 else text[:117] + "..."
+
+
+def preview_sheet(dataset, recipe, *, per_class=3, draws=5, rng):
+    """Contact sheet of a recipe on a data set: originals and augmented draws.
+
+    For every training class, the first ``per_class`` training images in
+    sorted path order each get one row: the original, then ``draws``
+    independent draws of ``augplan.transforms.apply_recipe`` with the
+    image's label. When a ``relabel`` changed the label of a draw, the new
+    label is written under it ("now <label>").
+
+    Parameters
+    ----------
+    dataset : augplan.data.Dataset or str or Path
+        The data set (a path is opened with `augplan.data.open_dataset`).
+    recipe : augplan.recipe.Recipe
+    per_class : int, default 3
+        Training images shown per class.
+    draws : int, default 5
+        Augmented draws per image.
+    rng : numpy.random.Generator
+        One child generator is spawned per shown image, so a row does not
+        depend on how many rows come before it.
+
+    Returns
+    -------
+    PIL.Image.Image
+        The sheet, cells 96 pixels wide; images larger than that are
+        downsized as they are read, smaller ones are augmented at their own
+        size and enlarged only for display.
+    """
+    from augplan.data import Dataset, open_dataset, read_image
+    from augplan.transforms import apply_recipe
+
+    for name, value in (("per_class", per_class), ("draws", draws)):
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
+            raise ValueError(f"{name} must be a positive integer; got {value!r}")
+    if not isinstance(rng, np.random.Generator):
+        raise TypeError(f"rng must be a numpy.random.Generator; got {type(rng).__name__}")
+    if not isinstance(dataset, Dataset):
+        dataset = open_dataset(dataset)
+    cell = 96
+
+    train = dataset.split("train")
+    chosen = []
+    for label in dataset.classes:
+        records = sorted((r for r in train if r.label == label), key=lambda r: r.relpath)
+        chosen.extend(records[:per_class])
+
+    rows, row_labels, captions = [], [], []
+    for record, image_rng in zip(chosen, rng.spawn(len(chosen))):
+        original = read_image(record.path, max_side=cell)
+        row, row_captions = [original], [""]
+        for _ in range(draws):
+            augmented, new_label = apply_recipe(original, recipe, image_rng, record.label)
+            row.append(augmented)
+            row_captions.append(f"now {new_label}" if new_label != record.label else "")
+        rows.append(row)
+        row_labels.append(record.label)
+        captions.append(row_captions)
+    if not rows:
+        raise ValueError(f"{dataset.root}: the data set has no training images to preview")
+    column_labels = ["original"] + [f"draw {k}" for k in range(1, draws + 1)]
+    title = f"recipe {recipe.name}: {per_class} training image(s) per class, {draws} draws each"
+    return contact_sheet(rows, row_labels, column_labels=column_labels, cell=cell,
+                         title=title, captions=captions)
+
+
+def png_bytes(image):
+    """Encode an image as PNG bytes with fixed options and no metadata."""
+    if not isinstance(image, Image.Image):
+        array = np.asarray(image)
+        if array.dtype != np.uint8 or array.ndim not in (2, 3):
+            raise ValueError(
+                f"image must be a PIL image or a uint8 array of shape (H, W, 3) or (H, W); "
+                f"got shape {array.shape} and dtype {array.dtype}"
+            )
+        image = Image.fromarray(array)
+    buffer = io.BytesIO()
+    image.convert("RGB").save(buffer, **_PNG_OPTIONS)
+    return buffer.getvalue()
+
+
+def save_png(image, path):
+    """Write an image as a PNG file, atomically and with deterministic bytes.
+
+    Parameters
+    ----------
+    image : PIL.Image.Image or numpy.ndarray
+        Saved as RGB.
+    path : str or Path
+        Destination; its folder must exist.
+
+    Returns
+    -------
+    Path
+        The destination.
+    """
+    return write_bytes_atomic(Path(path), png_bytes(image))

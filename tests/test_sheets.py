@@ -1,0 +1,205 @@
+"""Tests of contact sheets (augplan.sheets).
+
+Nearest-neighbour enlargement is checked against numpy's ``repeat`` (an
+independent implementation of block replication) on a sample image that
+ships with scikit-image; PNG structure against the chunk layout of the PNG
+specification (ISO/IEC 15948:2004, section 5.3).
+"""
+
+import hashlib
+import struct
+
+import numpy as np
+import pytest
+from PIL import Image
+from skimage import data as skdata
+
+from augplan import demo
+from augplan.data import open_dataset
+from augplan.recipe import parse_recipe
+from augplan.sheets import PAD, contact_sheet, png_bytes, preview_sheet, save_png
+
+WHITE = 255
+
+
+def _grid(n_rows, n_columns, side=16, seed=0):
+    rng = np.random.default_rng(seed)
+    return [[rng.integers(0, 256, size=(side, side, 3), dtype=np.uint8) for _ in range(n_columns)]
+            for _ in range(n_rows)]
+
+
+def _cell_origin(left, top, i, j, cell, caption_band=0):
+    return left + PAD + j * (cell + PAD), top + PAD + i * (cell + caption_band + PAD)
+
+
+@pytest.mark.parametrize("shape", [(1, 1), (2, 3), (4, 2)], ids=["1x1", "2x3", "4x2"])
+def test_sheet_size_grows_by_rows_and_columns_times_cell(shape):
+    n_rows, n_columns = shape
+    rows = _grid(n_rows, n_columns)
+    labels = [f"class {i}" for i in range(n_rows)]
+    columns = [f"col {j}" for j in range(n_columns)]
+    small = contact_sheet(rows, row_labels=labels, column_labels=columns, cell=32)
+    large = contact_sheet(rows, row_labels=labels, column_labels=columns, cell=64)
+    assert large.width - small.width == n_columns * 32
+    assert large.height - small.height == n_rows * 32
+    # The margins around the grid are positive: room for labels and gaps.
+    assert small.width > n_columns * 32 + PAD * (n_columns + 1)
+    assert small.height > n_rows * 32 + PAD * (n_rows + 1)
+
+
+def test_sheet_without_labels_is_the_bare_grid():
+    rows = _grid(2, 3)
+    sheet = contact_sheet(rows, row_labels=["", ""], cell=20)
+    assert sheet.size == (PAD + 3 * (20 + PAD), PAD + 2 * (20 + PAD))
+
+
+def test_labels_are_drawn_in_their_margins():
+    rows = _grid(2, 2)
+    bare = contact_sheet(rows, row_labels=["", ""], cell=40)
+    sheet = contact_sheet(rows, row_labels=["chevron-left", "glaze-teal"],
+                          column_labels=["original", "draw 1"], cell=40, title="recipe cautious")
+    pixels = np.asarray(sheet)
+    left = sheet.width - bare.width
+    top = sheet.height - bare.height
+    assert left > 0 and top > 0
+    for i in range(2):
+        _, y = _cell_origin(left, top, i, 0, 40)
+        assert (pixels[y:y + 40, :left] < WHITE).any(), f"row label {i} missing"
+    assert (pixels[:top, left:] < WHITE).any()  # column labels and title
+    # The gap between the title band and the first row stays white.
+    assert (pixels[top:top + PAD, :] == WHITE).all()
+
+
+def test_cells_are_nearest_neighbour_enlargements():
+    # skimage's astronaut sample (ships with scikit-image) cut to 16 x 16.
+    image = np.ascontiguousarray(skdata.astronaut()[100:116, 200:216])
+    sheet = np.asarray(contact_sheet([[image]], row_labels=["x"], cell=64))
+    bare_left = sheet.shape[1] - (PAD + 64 + PAD)
+    x, y = _cell_origin(bare_left, 0, 0, 0, 64)
+    reference = np.repeat(np.repeat(image, 4, axis=0), 4, axis=1)  # block replication
+    np.testing.assert_array_equal(sheet[y:y + 64, x:x + 64], reference)
+
+
+def test_non_square_and_grey_cells_keep_aspect_and_centre():
+    wide = np.zeros((8, 16, 3), dtype=np.uint8)
+    grey = np.full((16, 16), 100, dtype=np.uint8)
+    sheet = np.asarray(contact_sheet([[wide, grey]], row_labels=[""], cell=32))
+    x, y = _cell_origin(0, 0, 0, 0, 32)
+    block = sheet[y:y + 32, x:x + 32]
+    assert (block[8:24] == 0).all() and (block[:8] == WHITE).all() and (block[24:] == WHITE).all()
+    x, y = _cell_origin(0, 0, 0, 1, 32)
+    assert (sheet[y:y + 32, x:x + 32] == 100).all()
+
+
+def test_captions_get_a_band_and_are_drawn_under_their_cell():
+    rows = _grid(2, 2)
+    plain = contact_sheet(rows, row_labels=["", ""], cell=40)
+    captioned = contact_sheet(rows, row_labels=["", ""], cell=40,
+                              captions=[["", "now chevron-right"], ["", ""]])
+    band = (captioned.height - plain.height) // 2
+    assert band > 0
+    pixels = np.asarray(captioned)
+    x0, y0 = _cell_origin(0, 0, 0, 0, 40, band)
+    x1, _ = _cell_origin(0, 0, 0, 1, 40, band)
+    assert (pixels[y0 + 40:y0 + 40 + band, x1:x1 + 40] < WHITE).any()
+    assert (pixels[y0 + 40:y0 + 40 + band, x0:x0 + 40] == WHITE).all()
+
+
+@pytest.mark.parametrize(
+    "kwargs, message",
+    [
+        ({"rows": [], "row_labels": []}, "at least one row"),
+        ({"rows": [[np.zeros((4, 4, 3), np.uint8)]], "row_labels": ["a", "b"]}, "one label per row"),
+        ({"rows": [[np.zeros((4, 4, 3), np.float32)]], "row_labels": ["a"]}, "uint8"),
+        ({"rows": [[np.zeros((4, 4, 3), np.uint8)]], "row_labels": ["a"], "cell": 4}, "at least 8"),
+        ({"rows": [[np.zeros((4, 4, 3), np.uint8)]], "row_labels": ["a"],
+          "column_labels": ["x", "y"]}, "one label per column"),
+    ],
+    ids=["no-rows", "label-count", "float-image", "tiny-cell", "column-count"],
+)
+def test_bad_arguments_are_refused(kwargs, message):
+    with pytest.raises(ValueError, match=message):
+        contact_sheet(**kwargs)
+
+
+def _png_chunk_types(blob):
+    # PNG layout (ISO/IEC 15948 section 5.3): 8-byte signature, then chunks
+    # of length (4 bytes, big endian), type (4), data, CRC (4).
+    assert blob[:8] == b"\x89PNG\r\n\x1a\n"
+    types, offset = [], 8
+    while offset < len(blob):
+        (length,) = struct.unpack(">I", blob[offset:offset + 4])
+        types.append(blob[offset + 4:offset + 8].decode("ascii"))
+        offset += 12 + length
+    return types
+
+
+def test_save_png_is_deterministic_and_carries_no_metadata(tmp_path):
+    sheet = contact_sheet(_grid(1, 2), row_labels=["a"], cell=16)
+    first, second = save_png(sheet, tmp_path / "a.png"), save_png(sheet, tmp_path / "b.png")
+    assert first.read_bytes() == second.read_bytes()
+    assert set(_png_chunk_types(first.read_bytes())) == {"IHDR", "IDAT", "IEND"}
+    np.testing.assert_array_equal(np.asarray(Image.open(first)), np.asarray(sheet))
+    # No temporary file is left behind by the atomic write.
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.png", "b.png"]
+
+
+RELABEL_FLIP = """
+name: mirror
+transforms:
+  - op: flip
+    axis: horizontal
+    relabel: {chevron-left: chevron-right, chevron-right: chevron-left}
+  - op: rotate
+    degrees: [-10, 10]
+"""
+
+
+@pytest.fixture(scope="module")
+def small_dataset(tmp_path_factory):
+    root = tmp_path_factory.mktemp("preview")
+    demo.make_demo_dataset(root, n_train=3, n_val=1, n_field=1)
+    return open_dataset(root)
+
+
+def test_preview_is_deterministic_for_a_seeded_rng(small_dataset):
+    recipe = parse_recipe(RELABEL_FLIP)
+    sheets = [preview_sheet(small_dataset, recipe, per_class=2, draws=3, rng=np.random.default_rng(seed))
+              for seed in (5, 5, 6)]
+    digests = [hashlib.sha256(png_bytes(s)).hexdigest() for s in sheets]
+    assert digests[0] == digests[1]
+    assert digests[0] != digests[2]
+    n_classes = len(small_dataset.classes)
+    assert sheets[0].height > n_classes * 2 * 96 and sheets[0].width > 4 * 96
+
+
+def test_preview_shows_originals_and_marks_relabelled_draws(small_dataset):
+    recipe = parse_recipe(RELABEL_FLIP)
+    sheet = preview_sheet(small_dataset, recipe, per_class=1, draws=2, rng=np.random.default_rng(0))
+    plain = preview_sheet(small_dataset, parse_recipe("name: still\ntransforms:\n  - op: rotate\n"
+                                                      "    degrees: [-10, 10]\n"),
+                          per_class=1, draws=2, rng=np.random.default_rng(0))
+    band = (sheet.height - plain.height) // len(small_dataset.classes)
+    assert band > 0  # only the relabelling recipe needs captions
+    pixels = np.asarray(sheet)
+    left = sheet.width - (PAD + 3 * (96 + PAD))
+    top = sheet.height - (PAD + len(small_dataset.classes) * (96 + band + PAD))
+    for i, label in enumerate(small_dataset.classes):
+        first = sorted(r.relpath for r in small_dataset.split("train") if r.label == label)[0]
+        original = np.asarray(Image.open(small_dataset.root / first).convert("RGB"))
+        x, y = _cell_origin(left, top, i, 0, 96, band)
+        shown = pixels[y:y + 96, x:x + 96]
+        # 64 -> 96 is a 1.5x nearest enlargement: every source pixel appears.
+        assert {tuple(p) for p in shown.reshape(-1, 3)} == {tuple(p) for p in original.reshape(-1, 3)}
+        xd, _ = _cell_origin(left, top, i, 1, 96, band)
+        caption = pixels[y + 96:y + 96 + band, xd:xd + 96]
+        if label.startswith("chevron"):
+            assert (caption < WHITE).any(), f"{label}: relabel caption missing"
+        else:
+            assert (caption == WHITE).all(), f"{label}: unexpected caption"
+
+
+@pytest.mark.parametrize("kwargs", [{"per_class": 0}, {"draws": -1}], ids=["per-class", "draws"])
+def test_preview_refuses_bad_counts(small_dataset, kwargs):
+    with pytest.raises(ValueError, match="positive integer"):
+        preview_sheet(small_dataset, parse_recipe(RELABEL_FLIP), rng=np.random.default_rng(0), **kwargs)
