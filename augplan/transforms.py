@@ -319,10 +319,10 @@ def blur(image, params, rng=None):
     # Filtering into a float buffer and rounding: scipy truncates when it
     # writes a uint8 output, which would darken the image by half a code.
     out = ndimage.gaussian_filter(
-        image.astype(np.float32), sigma=(sigma, sigma, 0.0), mode="reflect", truncate=4.0
+        image, sigma=(sigma, sigma, 0.0), mode="reflect", truncate=4.0, output=np.float32
     )
+    # Positive weights summing to 1 keep values in [0, 255]: no clip needed.
     out += 0.5
-    np.clip(out, 0.0, 255.0, out=out)
     return out.astype(np.uint8)
 
 
