@@ -21,6 +21,13 @@ counts them in the file.
 The op catalogue itself (the image functions) lives in `augplan.transforms`;
 this module keeps the table of which fields each op takes and which values
 they allow, since checking a recipe is the recipe's job.
+
+References
+----------
+.. [1] YAML Ain't Markup Language, version 1.1 (the dialect PyYAML reads),
+       https://yaml.org/spec/1.1/
+.. [2] JSON Schema draft 2020-12, https://json-schema.org/draft/2020-12
+.. [3] FIPS 180-4, Secure Hash Standard (SHA-256), used by `recipe_hash`.
 """
 
 import difflib
@@ -646,7 +653,20 @@ def read_recipe_document(path, *, extra_fields=()):
 def read_recipe(path):
     """Read and validate a recipe file; see `parse_recipe`.
 
-    Files larger than `MAX_RECIPE_BYTES` are refused before they are read.
+    Parameters
+    ----------
+    path : str or Path
+
+    Returns
+    -------
+    Recipe
+        With ``source`` set to ``str(path)``.
+
+    Raises
+    ------
+    RecipeError
+        Also for a missing file, a folder, non-UTF-8 bytes, and a file larger
+        than `MAX_RECIPE_BYTES` (refused before it is read).
     """
     return read_recipe_document(path)[0]
 
@@ -659,8 +679,16 @@ def _range_out(pair):
 def recipe_to_dict(recipe):
     """The recipe as plain YAML/JSON-able data, in the file format's layout.
 
-    A fixed range ``(v, v)`` is written as the scalar ``v``; ``probability`` is
-    always written; ``only``/``except``/``relabel`` only when set.
+    Parameters
+    ----------
+    recipe : Recipe
+
+    Returns
+    -------
+    dict
+        ``name, seed, copies, fill, transforms`` in that order. A fixed range
+        ``(v, v)`` is written as the scalar ``v``; ``probability`` is always
+        written; ``only``/``except``/``relabel`` only when set.
     """
     steps = []
     for step in recipe.transforms:
@@ -714,7 +742,13 @@ def dump_recipe(recipe):
 
 
 def write_recipe(recipe, path):
-    """Write the recipe as YAML to ``path`` atomically; return the path."""
+    """Write the recipe as YAML to ``path`` atomically (see `augplan.atomic`).
+
+    Returns
+    -------
+    Path
+        The destination path.
+    """
     return write_text_atomic(path, dump_recipe(recipe))
 
 

@@ -431,3 +431,14 @@ def test_every_shipped_recipe_passes_schema_and_reader():
         assert not errors, f"{path.name}: {errors}"
         recipe = read_recipe(path)
         assert parse_recipe(dump_recipe(recipe)) == recipe
+
+
+def test_recipe_document_returns_allowed_extra_fields_only(tmp_path):
+    text = "name: v\nchecksum: abc\nevidence: {n: 3}\ntransforms: []\n"
+    path = tmp_path / "vetted.yaml"
+    path.write_text(text, encoding="utf-8")
+    recipe, extras = recipe_module.read_recipe_document(path, extra_fields=("evidence", "checksum"))
+    assert recipe == Recipe(name="v") and extras == {"checksum": "abc", "evidence": {"n": 3}}
+    # Without the permission the same fields are unknown, with their line.
+    with pytest.raises(RecipeError, match=r"vetted\.yaml line 2: unknown field 'checksum'"):
+        read_recipe(path)
