@@ -1,0 +1,827 @@
+"""Does a recipe widen the nuisance factors, cover the field, and break shortcuts?
+
+`analyse_coverage` returns the ``coverage --json`` document of DESIGN.md:
+
+- widening: each factor of `augplan.factors.FACTORS` on the original
+  training images and on the augmented training set (the originals plus
+  ``draws`` augmented draws of each, as a model would see it);
+- field coverage: per factor, the share of field images inside the augmented
+  1-99% range and the 1-D Wasserstein distance train -> field before and
+  after augmentation; over all factors together, Naeem et al.'s density and
+  coverage;
+- shortcut audit: cross-validated balanced accuracy of predicting the class
+  from each factor alone (and from all factors, for information) on the
+  original training set, the validation split, the augmented training set
+  and a labelled field sample;
+- suggestions: a transform and range for each flagged shortcut or poorly
+  covered factor.
+
+Only factor values are kept in memory, never the augmented images: each work
+unit loads a chunk of training images, draws its augmentations, measures and
+returns the numbers.
+
+References
+----------
+.. [1] M. F. Naeem, S. J. Oh, Y. Uh, Y. Choi and J. Yoo, "Reliable fidelity
+   and diversity metrics for generative models", ICML 2020.
+.. [2] J. Rabin, J. Delon and Y. Gousseau, "Transportation distances on the
+   circle", J. Math. Imaging Vis. 41, pp. 147-167, 2011; M. Werman,
+   S. Peleg and A. Rosenfeld, "A distance metric for multidimensional
+   histograms", CVGIP 32, 1985 (circular earth mover's distance).
+.. [3] K. H. Brodersen, C. S. Ong, K. E. Stephan and J. M. Buhmann, "The
+   balanced accuracy and its posterior distribution", ICPR 2010.
+.. [4] N. I. Fisher, Statistical Analysis of Circular Data, Cambridge
+   University Press, 1993 (circular mean and standard deviation).
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from pathlib import Path
+
+import numpy as np
+import scipy.spatial
+import scipy.stats
+
+from augplan.atomic import write_bytes_atomic
+from augplan.data import Dataset, load_images
+from augplan.errors import BadInputError
+from augplan.factors import FACTORS, measure_factors
+from augplan.parallel import parallel_map
+from augplan.transforms import OPS, apply_recipe
+
+__all__ = [
+    "K_NEIGHBOURS",
+    "COVERAGE_FLOOR",
+    "HISTOGRAM_BINS",
+    "circular_mean",
+    "circular_wasserstein",
+    "factor_wasserstein",
+    "naeem_density_coverage",
+    "shortcut_threshold",
+    "shortcut_score",
+    "summarise_factor",
+    "analyse_coverage",
+    "write_factor_plots",
+]
+
+K_NEIGHBOURS = 5
+# A factor is poorly covered when fewer field images than this share lie in
+# the augmented 1-99% range (common practice, no source).
+COVERAGE_FLOOR = 0.9
+HISTOGRAM_BINS = 24
+# Cap on each sample entering the k-nearest-neighbour step.
+KNN_LIMIT = 5000
+_CHUNK = 32
+ALL_FACTORS = "all factors"
+
+SHORTCUT_RULE = (
+    "A factor is flagged as a shortcut when its cross-validated balanced accuracy "
+    "on the original training set reaches chance + 0.5 x (1 - chance), halfway from "
+    "chance to perfect (0.75 for two classes); it persists when the augmented "
+    "training set still reaches that level. The all-factors row is for information "
+    "only and never flagged: classes may differ in colour or shape legitimately."
+)
+
+
+# ----------------------------------------------------------- circular maths
+
+
+def circular_mean(values, period):
+    """Circular mean of angles with the given period, in [0, period).
+
+    Parameters
+    ----------
+    values : array_like of float
+        Angles; NaN entries are ignored.
+    period : float
+        360 for directions in degrees, 180 for axial angles.
+
+    Returns
+    -------
+    float
+        NaN when no finite value is given or the resultant vanishes.
+
+    References
+    ----------
+    .. [1] N. I. Fisher, Statistical Analysis of Circular Data, 1993, section 2.2.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    values = values[np.isfinite(values)]
+    if values.size == 0:
+        return math.nan
+    theta = values * (2.0 * np.pi / period)
+    c, s = np.cos(theta).mean(), np.sin(theta).mean()
+    if math.hypot(c, s) < 1e-12:
+        return math.nan
+    return float(np.arctan2(s, c) * period / (2.0 * np.pi) % period)
+
+
+def _unwrap(values, centre, period):
+    # Place each angle within half a period of `centre`, so linear quantiles
+    # of the result describe the arc around the centre.
+    return centre + (np.asarray(values, dtype=np.float64) - centre + period / 2.0) % period - period / 2.0
+
+
+def circular_wasserstein(u, v, period):
+    """1-Wasserstein distance between two samples of angles on a circle.
+
+    Parameters
+    ----------
+    u, v : array_like of float
+        Angles (any real values; taken modulo ``period``).
+    period : float
+
+    Returns
+    -------
+    float
+        ``min_c integral |F_u(x) - F_v(x) - c| dx`` over one period, with
+        ``F`` the empirical distribution functions from 0: the optimal
+        transport cost with arc length as ground distance [1]_. The
+        minimising ``c`` is a length-weighted median of ``F_u - F_v``. When
+        both samples lie in an arc shorter than half a period it equals the
+        linear ``scipy.stats.wasserstein_distance`` of the unwrapped values.
+
+    References
+    ----------
+    .. [1] J. Rabin, J. Delon and Y. Gousseau, "Transportation distances on
+       the circle", JMIV 41, 2011, section 3.
+    """
+    u = np.asarray(u, dtype=np.float64) % period
+    v = np.asarray(v, dtype=np.float64) % period
+    if u.size == 0 or v.size == 0:
+        raise ValueError("circular_wasserstein needs two non-empty samples")
+    grid = np.unique(np.concatenate([[0.0, period], u, v]))
+    left = grid[:-1]
+    lengths = np.diff(grid)
+    difference = (np.searchsorted(np.sort(u), left, side="right") / u.size
+                  - np.searchsorted(np.sort(v), left, side="right") / v.size)
+    order = np.argsort(difference, kind="stable")
+    cumulative = np.cumsum(lengths[order])
+    shift = difference[order][np.searchsorted(cumulative, 0.5 * cumulative[-1])]
+    return float(np.sum(lengths * np.abs(difference - shift)))
+
+
+def factor_wasserstein(u, v, factor):
+    """Wasserstein distance for one factor: circular for angles, else scipy's 1-D."""
+    u = np.asarray(u, dtype=np.float64)
+    v = np.asarray(v, dtype=np.float64)
+    u, v = u[np.isfinite(u)], v[np.isfinite(v)]
+    if u.size == 0 or v.size == 0:
+        return None
+    if factor.circular:
+        return circular_wasserstein(u, v, factor.period)
+    return float(scipy.stats.wasserstein_distance(u, v))
+
+
+# ------------------------------------------------------- density, coverage
+
+
+def naeem_density_coverage(reference, sample, k=K_NEIGHBOURS):
+    """Naeem et al.'s density and coverage of ``sample`` against ``reference``.
+
+    Parameters
+    ----------
+    reference : array_like, shape (N, D)
+        The "real" points whose k-nearest-neighbour balls define the
+        manifold: here the field sample, the distribution the model will meet.
+    sample : array_like, shape (M, D)
+        The "fake" points judged against it: here the (augmented) training set.
+    k : int, default 5
+
+    Returns
+    -------
+    (float, float)
+        ``density = 1/(k M) sum_j sum_i 1[|Y_j - X_i| < r_i]`` and
+        ``coverage = 1/N sum_i 1[exists j: |Y_j - X_i| < r_i]``, with ``r_i``
+        the distance from ``X_i`` to its k-th nearest other reference point.
+
+    Notes
+    -----
+    Which side is "real": the question is how well the training set covers
+    the field, so the field plays the target distribution and the training
+    set the approximation, as real and generated samples do in [1]_.
+    Coverage is then the share of field neighbourhoods that hold at least one
+    training image; density (about 1 when training images sit inside the
+    field's neighbourhoods as densely as field images do) falls when
+    augmentation puts images where the field has none. Coverage grows with
+    the number of sample points, so compare samples of equal size.
+
+    References
+    ----------
+    .. [1] M. F. Naeem et al., "Reliable fidelity and diversity metrics for
+       generative models", ICML 2020, equations (3) and (4).
+    """
+    reference = np.asarray(reference, dtype=np.float64)
+    sample = np.asarray(sample, dtype=np.float64)
+    if reference.ndim != 2 or sample.ndim != 2 or reference.shape[1] != sample.shape[1]:
+        raise ValueError(
+            f"reference and sample must be 2-D with the same number of columns; "
+            f"got shapes {reference.shape} and {sample.shape}")
+    if reference.shape[0] <= k or sample.shape[0] == 0:
+        raise ValueError(
+            f"need more than k={k} reference points and at least one sample point; "
+            f"got {reference.shape[0]} and {sample.shape[0]}")
+    tree = scipy.spatial.cKDTree(reference)
+    radii = tree.query(reference, k=k + 1)[0][:, k]
+    inside = np.zeros(reference.shape[0], dtype=bool)
+    count = 0
+    for start in range(0, sample.shape[0], 512):
+        distances = scipy.spatial.distance.cdist(sample[start:start + 512], reference)
+        hits = distances < radii[None, :]
+        count += int(hits.sum())
+        inside |= hits.any(axis=0)
+    return count / (k * sample.shape[0]), float(inside.mean())
+
+
+# ------------------------------------------------------------ shortcut audit
+
+
+def shortcut_threshold(n_classes):
+    """Balanced accuracy at which a factor counts as a shortcut (see SHORTCUT_RULE)."""
+    chance = 1.0 / n_classes
+    return chance + 0.5 * (1.0 - chance)
+
+
+def shortcut_score(features, labels, *, groups=None, seed=0, folds=5):
+    """Cross-validated balanced accuracy of predicting ``labels`` from ``features``.
+
+    Parameters
+    ----------
+    features : array_like, shape (N, D)
+    labels : sequence of str, length N
+    groups : array_like of int, optional
+        Source image of each row; rows of one group stay in one fold, so an
+        augmented copy is never scored by a model fitted on its original.
+    seed : int
+        Seed of the fold shuffle.
+    folds : int
+        At most this many folds; fewer when the smallest class is smaller.
+
+    Returns
+    -------
+    float or None
+        Balanced accuracy [1]_ of out-of-fold predictions of a logistic
+        regression on standardised features; None when fewer than two
+        classes or fewer than two images in the smallest class.
+
+    References
+    ----------
+    .. [1] K. H. Brodersen et al., "The balanced accuracy and its posterior
+       distribution", ICPR 2010.
+    """
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.metrics import balanced_accuracy_score
+    from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold, cross_val_predict
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    features = np.asarray(features, dtype=np.float64)
+    labels = np.asarray(labels)
+    names, counts = np.unique(labels, return_counts=True)
+    if names.size < 2:
+        return None
+    if groups is not None:
+        # A class's smallest number of distinct source images bounds the folds.
+        smallest = min(np.unique(np.asarray(groups)[labels == name]).size for name in names)
+    else:
+        smallest = int(counts.min())
+    n_splits = min(folds, smallest)
+    if n_splits < 2:
+        return None
+    if groups is None:
+        splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=seed)
+    else:
+        splitter = StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
+    model = make_pipeline(StandardScaler(), LogisticRegression(max_iter=1000))
+    predicted = cross_val_predict(model, features, labels, cv=splitter, groups=groups)
+    return float(balanced_accuracy_score(labels, predicted))
+
+
+def _factor_columns(values, names):
+    # Linear factors as they are; angles as (cos, sin) so that 359 and 1
+    # degrees are neighbours. An undefined angle (grey image, flat image)
+    # sits at the origin: no direction.
+    columns = []
+    for name in names:
+        factor = FACTORS[name]
+        v = np.asarray(values[name], dtype=np.float64)
+        if factor.circular:
+            theta = v * (2.0 * np.pi / factor.period)
+            defined = np.isfinite(theta)
+            columns.append(np.where(defined, np.cos(np.where(defined, theta, 0.0)), 0.0))
+            columns.append(np.where(defined, np.sin(np.where(defined, theta, 0.0)), 0.0))
+        else:
+            columns.append(np.nan_to_num(v, nan=0.0))
+    return np.stack(columns, axis=1)
+
+
+# ------------------------------------------------------------- summaries
+
+
+def _number(x):
+    if x is None:
+        return None
+    x = float(x)
+    if not math.isfinite(x):
+        return None
+    return float(f"{x:.6g}")
+
+
+def _spread(values, factor):
+    """Centre, std and the unwrapped values used for quantiles."""
+    if factor.circular:
+        centre = circular_mean(values, factor.period)
+        if math.isnan(centre):
+            return centre, math.nan, values
+        std = float(scipy.stats.circstd(values, high=factor.period, low=0.0))
+        return centre, std, _unwrap(values, centre, factor.period)
+    return float(values.mean()), float(values.std()), values
+
+
+def summarise_factor(values, factor, edges):
+    """Mean, std, 1/5/95/99 percentiles and histogram of one factor's values.
+
+    Parameters
+    ----------
+    values : array_like of float
+        NaN entries (an undefined angle) are counted as ``undefined`` and
+        otherwise left out.
+    factor : augplan.factors.Factor
+    edges : array_like
+        Histogram bin edges.
+
+    Returns
+    -------
+    dict
+        ``{"n", "undefined", "mean", "std", "p01", "p05", "p95", "p99",
+        "histogram": {"edges", "counts"}}``. For angles ``mean`` is the
+        circular mean, ``std`` the circular standard deviation
+        ``sqrt(-2 ln R)`` scaled to the period (``scipy.stats.circstd``), and
+        the percentiles are the ends of the arc around the circular mean,
+        unwrapped (so p05 may be negative and p95 may exceed the period).
+    """
+    values = np.asarray(values, dtype=np.float64)
+    finite = values[np.isfinite(values)]
+    out = {"n": int(finite.size), "undefined": int(values.size - finite.size)}
+    if finite.size == 0:
+        out.update(mean=None, std=None, p01=None, p05=None, p95=None, p99=None)
+        counts = np.zeros(len(edges) - 1, dtype=int)
+    else:
+        centre, std, unwrapped = _spread(finite, factor)
+        p01, p05, p95, p99 = np.percentile(unwrapped, [1, 5, 95, 99])
+        out.update(mean=_number(centre), std=_number(std), p01=_number(p01), p05=_number(p05),
+                   p95=_number(p95), p99=_number(p99))
+        counts = np.histogram(finite % factor.period if factor.circular else finite, bins=edges)[0]
+    out["histogram"] = {"edges": [_number(e) for e in edges], "counts": [int(c) for c in counts]}
+    return out
+
+
+def _edges(factor, *samples):
+    if factor.circular:
+        return np.linspace(0.0, factor.period, HISTOGRAM_BINS + 1)
+    pooled = np.concatenate([s[np.isfinite(s)] for s in samples if s is not None])
+    low, high = (float(pooled.min()), float(pooled.max())) if pooled.size else (0.0, 1.0)
+    if high - low < 1e-12:
+        low, high = low - 0.5, high + 0.5
+    return np.linspace(low, high, HISTOGRAM_BINS + 1)
+
+
+def _in_range_share(field_values, augmented_values, factor):
+    field_values = field_values[np.isfinite(field_values)]
+    augmented_values = augmented_values[np.isfinite(augmented_values)]
+    if field_values.size == 0 or augmented_values.size == 0:
+        return None
+    if factor.circular:
+        centre = circular_mean(augmented_values, factor.period)
+        if math.isnan(centre):
+            return None
+        augmented_values = _unwrap(augmented_values, centre, factor.period)
+        field_values = _unwrap(field_values, centre, factor.period)
+    low, high = np.percentile(augmented_values, [1, 99])
+    return float(np.mean((field_values >= low) & (field_values <= high)))
+
+
+# ---------------------------------------------------------------- measuring
+
+
+def _measure_plain(item):
+    records, size = item
+    return measure_factors(load_images(records, size=size))
+
+
+def _measure_augmented(item):
+    records, size, recipe, generators, draws = item
+    images = load_images(records, size=size)
+    original = measure_factors(images)
+    augmented = np.empty((len(records) * draws,) + images.shape[1:], dtype=np.uint8)
+    labels = []
+    for i, (record, rng) in enumerate(zip(records, generators)):
+        for d in range(draws):
+            augmented[i * draws + d], label = apply_recipe(images[i], recipe, rng, record.label)
+            labels.append(label)
+    return original, measure_factors(augmented), labels
+
+
+def _concat(parts):
+    return {name: np.concatenate([p[name] for p in parts]) if parts else np.empty(0)
+            for name in FACTORS}
+
+
+def _chunks(records, size=_CHUNK):
+    return [records[i:i + size] for i in range(0, len(records), size)]
+
+
+def _measure_records(records, size, workers, quiet, desc):
+    parts = parallel_map(_measure_plain, [(chunk, size) for chunk in _chunks(records)],
+                         workers=workers, desc=desc, quiet=quiet)
+    return _concat(parts)
+
+
+def _field_records(dataset, field):
+    if field is None:
+        return dataset.split("field")
+    if isinstance(field, Dataset):
+        records = field.split("field")
+        return records if records else list(field.records)
+    return list(field)
+
+
+# -------------------------------------------------------------- suggestions
+
+
+def _ratio_range(targets, reference):
+    ratios = [t / reference for t in targets if reference > 0 and t > 0 and math.isfinite(t)]
+    return min(ratios + [1.0]), max(ratios + [1.0])
+
+
+def _class_centres(values, labels, factor):
+    centres = []
+    for name in sorted(set(labels)):
+        v = values[(labels == name) & np.isfinite(values)]
+        if v.size:
+            centres.append(circular_mean(v, factor.period) if factor.circular else float(np.median(v)))
+    return [c for c in centres if math.isfinite(c)]
+
+
+def _blur_sigma_for(ratio, sample_images):
+    """Smallest blur sigma whose median sharpness ratio falls to ``ratio``."""
+    from augplan.factors import sharpness
+
+    base = sharpness(sample_images)
+    blur = OPS["blur"].function
+    for sigma in (0.25, 0.5, 0.75, 1.0, 1.5, 2.0, 3.0, 4.0):
+        blurred = np.stack([blur(image, {"sigma": sigma}, None) for image in sample_images])
+        if np.median(sharpness(blurred) / np.maximum(base, 1e-12)) <= ratio:
+            return sigma
+    return 4.0
+
+
+def _suggestion(name, original, labels, field_values, flagged, poorly_covered, sample_images):
+    factor = FACTORS[name]
+    values = original[name]
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return None, None
+    why = []
+    if flagged:
+        why.append("it predicts the class in the training data")
+    if poorly_covered:
+        why.append("the augmented training set misses part of the field")
+    reason = f"{name}: " + " and ".join(why)
+    field_finite = None if field_values is None else field_values[np.isfinite(field_values)]
+    use_field = poorly_covered and field_finite is not None and field_finite.size > 0
+    centres = _class_centres(values, labels, factor) if flagged else []
+
+    if factor.circular:
+        centre = circular_mean(finite, factor.period)
+        ends = [0.0]
+        if centres:
+            spread = max(abs(_unwrap(a, b, factor.period) - b) for a in centres for b in centres)
+            ends += [-spread, spread]
+        if use_field:
+            ends += list(np.percentile(_unwrap(field_finite, centre, factor.period), [1, 99]) - centre)
+        limit = factor.period / 2.0
+        low, high = max(min(ends), -limit), min(max(ends), limit)
+        op = "hue" if name == "hue" else "rotate"
+        suggestion = {"factor": name, "op": op, "parameter": "degrees",
+                      "range": [math.floor(low), math.ceil(high)], "reason": reason}
+        if name == "hue":
+            suggestion["warning"] = ("hue may carry the class itself (ripeness, rust, stain): "
+                                     "confirm with `augplan check` before adopting it")
+        return suggestion, None
+
+    reference = float(np.median(finite))
+    targets = []
+    if centres:
+        targets += [a / b * reference for a in centres for b in centres if b > 0]
+    if use_field:
+        targets += list(np.percentile(field_finite, [1, 99]))
+
+    if name in ("brightness", "contrast", "colourfulness", "area"):
+        low, high = _ratio_range(targets, reference)
+        op = {"brightness": "brightness", "contrast": "contrast", "colourfulness": "saturation",
+              "area": "zoom"}[name]
+        if name == "area":
+            # Zoom scales lengths; the foreground area goes with its square.
+            low, high = math.sqrt(low), math.sqrt(high)
+        low, high = max(low, 0.05), min(high, 20.0)
+        suggestion = {"factor": name, "op": op, "parameter": "factor",
+                      "range": [math.floor(low * 100) / 100, math.ceil(high * 100) / 100],
+                      "reason": reason}
+        if name == "colourfulness":
+            suggestion["warning"] = ("saturation changes can erase a colour cue that defines a "
+                                     "class: confirm with `augplan check`")
+        return suggestion, None
+    if name in ("centroid_x", "centroid_y"):
+        offsets = [t - reference for t in targets] + [0.0]
+        low, high = max(min(offsets), -0.5), min(max(offsets), 0.5)
+        return {"factor": name, "op": "shift", "parameter": "fraction",
+                "range": [math.floor(low * 100) / 100, math.ceil(high * 100) / 100],
+                "reason": reason}, None
+    if name == "sharpness":
+        lowest = min(targets) if targets else reference
+        if lowest >= reference:
+            return None, (f"The field holds sharper images than training ({name}); no transform "
+                          "sharpens, so the gap stays open.")
+        sigma = _blur_sigma_for(lowest / reference, sample_images)
+        return {"factor": name, "op": "blur", "parameter": "sigma", "range": [0.0, sigma],
+                "reason": reason}, None
+    return None, f"No transform targets {name} directly; it is reported for information."
+
+
+# ------------------------------------------------------------------- plots
+
+
+def write_factor_plots(samples, plots_dir):
+    """One PNG per factor with the original, augmented and field histograms overlaid.
+
+    Parameters
+    ----------
+    samples : dict
+        ``{"original": {name: values}, "augmented": {...}, "field": {...} or None}``.
+    plots_dir : str or Path
+        Created if missing; each file is written atomically.
+
+    Returns
+    -------
+    list of Path
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    plots_dir = Path(plots_dir)
+    plots_dir.mkdir(parents=True, exist_ok=True)
+    written = []
+    for name, factor in FACTORS.items():
+        field = samples.get("field")
+        field_values = None if field is None else field[name]
+        edges = _edges(factor, samples["original"][name], samples["augmented"][name], field_values)
+        figure = Figure(figsize=(5.0, 3.2), dpi=100)
+        FigureCanvasAgg(figure)
+        axes = figure.add_subplot()
+        for label, values, colour in (("original", samples["original"][name], "tab:blue"),
+                                      ("augmented", samples["augmented"][name], "tab:orange"),
+                                      ("field", field_values, "tab:green")):
+            if values is None:
+                continue
+            values = values[np.isfinite(values)]
+            if values.size == 0:
+                continue
+            if factor.circular:
+                values = values % factor.period
+            axes.hist(values, bins=edges, density=True, histtype="step", linewidth=1.6,
+                      color=colour, label=f"{label} (n={values.size})")
+        axes.set_xlabel(f"{name} ({factor.unit})")
+        axes.set_ylabel("density")
+        axes.legend(fontsize=8)
+        figure.tight_layout()
+        buffer = io.BytesIO()
+        figure.savefig(buffer, format="png", metadata={"Software": None})
+        written.append(write_bytes_atomic(plots_dir / f"{name}.png", buffer.getvalue()))
+    return written
+
+
+# ----------------------------------------------------------------- analysis
+
+
+def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, workers=1,
+                     quiet=True, plots_dir=None):
+    """Widening, field coverage, shortcut audit and suggestions for one recipe.
+
+    Parameters
+    ----------
+    dataset : augplan.data.Dataset
+    recipe : augplan.recipe.Recipe
+    field : list of ImageRecord or Dataset, optional
+        The field sample; by default ``dataset.split("field")``. Labelled when
+        every record has a label.
+    draws : int or None, default 4
+        Augmented draws per training image; None takes ``recipe.copies``.
+    size : int, default 64
+        Images are measured at ``size`` x ``size``.
+    seed : int, default 0
+        Seeds the augmentation draws (one child generator per training
+        image), the fold shuffles and the kNN subsample.
+    workers : int, default 1
+    quiet : bool, default True
+    plots_dir : str or Path, optional
+        Write one histogram PNG per factor there.
+
+    Returns
+    -------
+    dict
+        The ``coverage --json`` document: ``recipe``, ``factors``,
+        ``field_coverage``, ``shortcuts``, ``shortcut_rule``,
+        ``val_shares_shortcut``, ``messages``, ``suggestions`` (and ``plots``
+        when ``plots_dir`` is given).
+
+    Raises
+    ------
+    BadInputError
+        No training images, or a bad ``draws``.
+
+    Notes
+    -----
+    Naeem density and coverage are computed on all factors standardised by
+    the original training set's mean and standard deviation (angles as
+    cosine and sine), with the field as the reference manifold (see
+    `naeem_density_coverage`). The augmented set is subsampled to the size
+    of the original training set (at most `KNN_LIMIT`) so that before and
+    after compare samples of equal size. For angles the Wasserstein distance
+    is the circular one (`circular_wasserstein`).
+    """
+    draws = recipe.copies if draws is None else draws
+    if isinstance(draws, bool) or not isinstance(draws, (int, np.integer)) or draws < 1:
+        raise BadInputError(f"draws must be a positive whole number of augmented draws per image; got {draws!r}")
+    train = dataset.split("train")
+    if not train:
+        raise BadInputError(f"{dataset.root}: no training images found (expected train/<class>/*)")
+    rng = np.random.default_rng(seed)
+    generators = rng.spawn(len(train))
+    items = [(train[i:i + _CHUNK], size, recipe, generators[i:i + _CHUNK], int(draws))
+             for i in range(0, len(train), _CHUNK)]
+    parts = parallel_map(_measure_augmented, items, workers=workers,
+                         desc="augmenting and measuring", quiet=quiet)
+    original = _concat([p[0] for p in parts])
+    draws_only = _concat([p[1] for p in parts])
+    train_labels = np.array([r.label for r in train])
+    draw_labels = np.array([label for p in parts for label in p[2]])
+    augmented = {name: np.concatenate([original[name], draws_only[name]]) for name in FACTORS}
+    augmented_labels = np.concatenate([train_labels, draw_labels])
+    groups = np.concatenate([np.arange(len(train)), np.repeat(np.arange(len(train)), draws)])
+
+    val_records = dataset.split("val")
+    val = _measure_records(val_records, size, workers, quiet, "measuring val") if val_records else None
+    field_records = _field_records(dataset, field)
+    field_values = (_measure_records(field_records, size, workers, quiet, "measuring field")
+                    if field_records else None)
+    field_labelled = bool(field_records) and all(r.label is not None for r in field_records)
+
+    messages = []
+    if getattr(dataset, "val_from_train", False):
+        messages.append(f"No validation split was given: a stratified split of train "
+                        f"(seed {dataset.split_seed}) stands in for it.")
+
+    # ---- widening and per-factor field coverage
+    factors_out = {}
+    poorly_covered = []
+    for name, factor in FACTORS.items():
+        f_values = None if field_values is None else field_values[name]
+        edges = _edges(factor, original[name], augmented[name], f_values)
+        entry = {"kind": factor.kind, "unit": factor.unit,
+                 "original": summarise_factor(original[name], factor, edges),
+                 "augmented": summarise_factor(augmented[name], factor, edges)}
+        if factor.circular:
+            entry["period"] = factor.period
+        if f_values is not None:
+            share = _in_range_share(f_values, augmented[name], factor)
+            entry["field"] = {
+                "coverage": _number(share),
+                "wasserstein_before": _number(factor_wasserstein(original[name], f_values, factor)),
+                "wasserstein_after": _number(factor_wasserstein(augmented[name], f_values, factor)),
+                "summary": summarise_factor(f_values, factor, edges),
+            }
+            if share is not None and share < COVERAGE_FLOOR:
+                poorly_covered.append(name)
+                messages.append(f"Only {share:.0%} of field images have a {name} inside the "
+                                f"augmented training set's 1-99% range.")
+        factors_out[name] = entry
+
+    # ---- joint field coverage (Naeem et al.)
+    names = list(FACTORS)
+    train_matrix = _factor_columns(original, names)
+    centre = train_matrix.mean(axis=0)
+    scale = train_matrix.std(axis=0)
+    scale[scale < 1e-12] = 1.0
+
+    def standardise(matrix):
+        return (matrix - centre) / scale
+
+    field_coverage = None
+    if field_values is not None:
+        field_matrix = standardise(_factor_columns(field_values, names))
+        if field_matrix.shape[0] <= K_NEIGHBOURS:
+            messages.append(f"The field sample has {field_matrix.shape[0]} images; density and "
+                            f"coverage need more than k={K_NEIGHBOURS}.")
+        else:
+            knn_rng = np.random.default_rng([seed, 1])
+            limit = min(len(train), KNN_LIMIT)
+            before = standardise(train_matrix)
+            if before.shape[0] > limit:
+                before = before[np.sort(knn_rng.choice(before.shape[0], limit, replace=False))]
+            field_matrix = field_matrix[:KNN_LIMIT]
+            after = standardise(_factor_columns(augmented, names))
+            after = after[np.sort(knn_rng.choice(after.shape[0], limit, replace=False))]
+            density_before, coverage_before = naeem_density_coverage(field_matrix, before)
+            density_after, coverage_after = naeem_density_coverage(field_matrix, after)
+            field_coverage = {"density_before": _number(density_before),
+                              "coverage_before": _number(coverage_before),
+                              "density_after": _number(density_after),
+                              "coverage_after": _number(coverage_after),
+                              "k": K_NEIGHBOURS, "reference": "field", "sample_size": int(limit)}
+            messages.append(
+                f"Over all factors together, the training set reaches {coverage_before:.0%} of the "
+                f"field's neighbourhoods before augmentation and {coverage_after:.0%} after "
+                f"(Naeem coverage, k={K_NEIGHBOURS}).")
+    else:
+        messages.append("No field sample: field coverage was not measured.")
+
+    # ---- shortcut audit
+    n_classes = len(dataset.classes) if dataset.classes else len(set(train_labels))
+    chance = 1.0 / max(n_classes, 1)
+    threshold = shortcut_threshold(max(n_classes, 1))
+    val_labels = np.array([r.label for r in val_records]) if val_records else None
+    field_label_array = np.array([r.label for r in field_records]) if field_labelled else None
+    shortcuts = []
+    for name in names + [ALL_FACTORS]:
+        chosen = names if name == ALL_FACTORS else [name]
+        row = {"factor": name,
+               "original": _number(shortcut_score(_factor_columns(original, chosen), train_labels,
+                                                  seed=seed)),
+               "augmented": _number(shortcut_score(_factor_columns(augmented, chosen),
+                                                   augmented_labels, groups=groups, seed=seed)),
+               "val": (_number(shortcut_score(_factor_columns(val, chosen), val_labels, seed=seed))
+                       if val is not None else None),
+               "field": (_number(shortcut_score(_factor_columns(field_values, chosen),
+                                                field_label_array, seed=seed))
+                         if field_labelled else None),
+               "chance": _number(chance)}
+        combined = name == ALL_FACTORS
+        flagged = not combined and row["original"] is not None and row["original"] >= threshold
+        row["flagged"] = bool(flagged)
+        row["persists"] = bool(flagged and row["augmented"] is not None
+                               and row["augmented"] >= threshold)
+        row["combined"] = combined
+        shortcuts.append(row)
+
+    flagged_rows = [r for r in shortcuts if r["flagged"]]
+    val_shares = [r["factor"] for r in flagged_rows if r["val"] is not None and r["val"] >= threshold]
+    for row in flagged_rows:
+        text = (f"{row['factor']} predicts the class in the original training set (balanced "
+                f"accuracy {row['original']:.2f}, chance {chance:.2f}): a likely shortcut.")
+        if row["persists"]:
+            text += f" After augmentation it still does ({row['augmented']:.2f}): the recipe does not break the link."
+        elif row["augmented"] is not None:
+            text += f" After augmentation it falls to {row['augmented']:.2f}: the recipe breaks the link."
+        messages.append(text)
+        if row["field"] is not None and row["field"] < threshold:
+            messages.append(f"In the labelled field sample {row['factor']} does not predict the "
+                            f"class ({row['field']:.2f}): a model leaning on it will fail there.")
+    if val_shares:
+        messages.append(
+            f"The validation split carries the same shortcut ({', '.join(val_shares)}): a "
+            f"validation score cannot reveal it; only field data or a recipe that breaks the "
+            f"link can.")
+
+    # ---- suggestions
+    suggestions = []
+    sample_images = None
+    for name in names:
+        is_flagged = any(r["factor"] == name for r in flagged_rows)
+        if not (is_flagged or name in poorly_covered):
+            continue
+        if name == "sharpness" and sample_images is None:
+            sample_images = load_images(train[:16], size=size)
+        suggestion, note = _suggestion(
+            name, original, train_labels, None if field_values is None else field_values[name],
+            is_flagged, name in poorly_covered, sample_images)
+        if suggestion is not None:
+            suggestions.append(suggestion)
+        if note is not None:
+            messages.append(note)
+
+    result = {"recipe": recipe.name, "draws": int(draws), "size": int(size),
+              "n_images": {"train": len(train), "augmented": int(augmented_labels.size),
+                           "val": len(val_records), "field": len(field_records)},
+              "field_labelled": field_labelled,
+              "factors": factors_out, "field_coverage": field_coverage,
+              "shortcuts": shortcuts, "shortcut_rule": SHORTCUT_RULE,
+              "val_shares_shortcut": val_shares, "messages": messages,
+              "suggestions": suggestions}
+    if plots_dir is not None:
+        written = write_factor_plots({"original": original, "augmented": augmented,
+                                      "field": field_values}, plots_dir)
+        result["plots"] = [str(p) for p in written]
+    return result

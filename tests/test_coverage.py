@@ -1,0 +1,216 @@
+"""Tests for augplan.coverage: circular statistics, Wasserstein, Naeem metrics, shortcut audit."""
+
+import json
+
+import numpy as np
+import pytest
+import scipy.stats
+from PIL import Image
+
+from augplan import coverage
+from augplan.colour import encode_linear_to_uint8
+from augplan.data import open_dataset
+from augplan.factors import FACTORS
+from augplan.recipe import parse_recipe
+
+
+# ------------------------------------------------------------ circular maths
+
+
+@pytest.mark.parametrize("period", [360.0, 180.0], ids=["period-360", "period-180"])
+def test_circular_mean_matches_scipy_circmean(period):
+    rng = np.random.default_rng(1)
+    values = (rng.normal(0.9 * period, 0.1 * period, 50)) % period  # straddles the wrap
+    expected = scipy.stats.circmean(values, high=period, low=0.0)
+    assert coverage.circular_mean(values, period) == pytest.approx(expected, abs=1e-9)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_linear_wasserstein_is_scipy(seed):
+    rng = np.random.default_rng(seed)
+    u, v = rng.normal(0, 1, 40), rng.normal(0.5, 2, 25)
+    got = coverage.factor_wasserstein(u, v, FACTORS["brightness"])
+    assert got == pytest.approx(scipy.stats.wasserstein_distance(u, v), rel=1e-12)
+
+
+@pytest.mark.parametrize("offset", [100.0, 355.0], ids=["inside-arc", "across-zero"])
+def test_circular_wasserstein_equals_linear_on_a_short_arc(offset):
+    # Rabin, Delon & Gousseau 2011: on an arc shorter than half the circle the
+    # circular transport cost is the linear one (scipy.stats.wasserstein_distance).
+    rng = np.random.default_rng(7)
+    u, v = rng.uniform(0, 20, 30), rng.uniform(10, 40, 17)
+    expected = scipy.stats.wasserstein_distance(u, v)
+    got = coverage.circular_wasserstein((u + offset) % 360, (v + offset) % 360, 360.0)
+    assert got == pytest.approx(expected, rel=1e-9)
+
+
+def test_circular_wasserstein_takes_the_short_way_round():
+    # Two point masses at 350 and 10 degrees are 20 degrees apart, not 340.
+    assert coverage.circular_wasserstein([350.0], [10.0], 360.0) == pytest.approx(20.0)
+    assert coverage.circular_wasserstein([5.0], [175.0], 180.0) == pytest.approx(10.0)
+
+
+# --------------------------------------------------------- Naeem et al. 2020
+
+
+def _naeem_brute_force(real, fake, k):
+    # Naeem et al. 2020, eqs. (3)-(4), written loop by loop.
+    radii = []
+    for i in range(len(real)):
+        distances = sorted(np.linalg.norm(real[i] - real[j]) for j in range(len(real)) if j != i)
+        radii.append(distances[k - 1])
+    density_count, covered = 0, 0
+    for i in range(len(real)):
+        hit = False
+        for j in range(len(fake)):
+            if np.linalg.norm(fake[j] - real[i]) < radii[i]:
+                density_count += 1
+                hit = True
+        covered += hit
+    return density_count / (k * len(fake)), covered / len(real)
+
+
+@pytest.mark.parametrize("shift", [0.0, 0.7, 2.0], ids=["overlap", "shifted", "far"])
+def test_naeem_matches_brute_force(shift):
+    rng = np.random.default_rng(11)
+    real, fake = rng.normal(size=(30, 3)), rng.normal(shift, 1.0, size=(25, 3))
+    expected = _naeem_brute_force(real, fake, 5)
+    assert coverage.naeem_density_coverage(real, fake, k=5) == pytest.approx(expected)
+
+
+def test_naeem_identical_samples_cover_and_disjoint_do_not():
+    rng = np.random.default_rng(4)
+    points = rng.normal(size=(200, 4))
+    density, cover = coverage.naeem_density_coverage(points, points.copy())
+    assert cover == 1.0 and density == pytest.approx(1.0, abs=0.05)
+    same_law = rng.normal(size=(200, 4))
+    assert coverage.naeem_density_coverage(points, same_law)[1] > 0.9
+    assert coverage.naeem_density_coverage(points, points + 50.0) == (0.0, 0.0)
+
+
+def test_shortcut_score_of_a_perfect_and_a_useless_feature():
+    rng = np.random.default_rng(5)
+    labels = np.repeat(["a", "b"], 40)
+    perfect = np.where(labels == "a", 0.0, 1.0)[:, None] + rng.normal(0, 0.05, (80, 1))
+    useless = rng.normal(size=(80, 1))
+    assert coverage.shortcut_score(perfect, labels) == 1.0
+    assert abs(coverage.shortcut_score(useless, labels) - 0.5) < 0.2
+    assert coverage.shortcut_score(useless[:3], ["a", "a", "b"]) is None
+    assert coverage.shortcut_threshold(2) == 0.75
+
+
+# ---------------------------------------------- ground truth: a lighting shortcut
+
+LIT, DIM = 0.25, 0.05  # linear-light background levels, a factor of 5 apart
+
+
+def _tile(rng, label, level):
+    # Class cue: stripe direction (horizontal or vertical); nuisance: lighting level.
+    size = 40
+    rows, cols = np.mgrid[0:size, 0:size]
+    axis = rows if label == "horizontal" else cols
+    pattern = np.sin(2 * np.pi * (axis / 8.0 + rng.uniform()))
+    linear = level * (1.0 + 0.4 * pattern)
+    tint = np.array([1.0, 0.95, 0.9])
+    return encode_linear_to_uint8(linear[..., None] * tint)
+
+
+def _write_split(root, split, per_class, level_of, rng):
+    for label in ("horizontal", "vertical"):
+        folder = root / split / label
+        folder.mkdir(parents=True)
+        for i in range(per_class):
+            image = _tile(rng, label, level_of(label, rng))
+            Image.fromarray(image).save(folder / f"{i:03d}.png")
+
+
+@pytest.fixture(scope="module")
+def lighting_shortcut(tmp_path_factory):
+    root = tmp_path_factory.mktemp("shortcut")
+    rng = np.random.default_rng(2024)
+
+    def trained(label, rng):
+        return (LIT if label == "horizontal" else DIM) * rng.uniform(0.9, 1.1)
+
+    def mixed(label, rng):
+        return LIT * np.exp(rng.uniform(np.log(DIM / LIT), 0.0))
+
+    _write_split(root, "train", 24, trained, rng)
+    _write_split(root, "val", 12, trained, rng)
+    _write_split(root, "field", 16, mixed, rng)
+    return open_dataset(root)
+
+
+NO_AUGMENTATION = parse_recipe("name: none\ntransforms: []\n")
+BREAK_LIGHTING = parse_recipe(
+    "name: relight\n"
+    "transforms:\n"
+    "  - op: brightness\n    factor: [0.2, 1.0]\n    only: [horizontal]\n"
+    "  - op: brightness\n    factor: [1.0, 5.0]\n    only: [vertical]\n"
+)
+
+
+@pytest.fixture(scope="module")
+def reports(lighting_shortcut, tmp_path_factory):
+    plots = tmp_path_factory.mktemp("plots")
+    return {
+        "none": coverage.analyse_coverage(lighting_shortcut, NO_AUGMENTATION, size=32),
+        "relight": coverage.analyse_coverage(lighting_shortcut, BREAK_LIGHTING, size=32,
+                                             plots_dir=plots),
+    }
+
+
+def _row(report, name):
+    return next(r for r in report["shortcuts"] if r["factor"] == name)
+
+
+def test_lighting_shortcut_is_flagged_and_shared_by_val(reports):
+    row = _row(reports["none"], "brightness")
+    assert row["original"] > 0.9 and row["flagged"] and row["persists"]
+    assert row["val"] > 0.9 and row["chance"] == 0.5
+    # Lighting is mixed in the labelled field sample: no shortcut there.
+    assert row["field"] < 0.75
+    assert "brightness" in reports["none"]["val_shares_shortcut"]
+    assert any("validation score cannot reveal it" in m for m in reports["none"]["messages"])
+
+
+def test_relighting_recipe_breaks_the_shortcut(reports):
+    row = _row(reports["relight"], "brightness")
+    assert row["flagged"] and not row["persists"]
+    assert row["augmented"] < 0.7
+    combined = _row(reports["relight"], coverage.ALL_FACTORS)
+    assert combined["combined"] and not combined["flagged"]
+
+
+def test_relighting_improves_field_coverage(reports):
+    before = reports["relight"]["field_coverage"]
+    assert before["coverage_after"] > before["coverage_before"]
+    field = reports["relight"]["factors"]["brightness"]["field"]
+    assert field["wasserstein_after"] < field["wasserstein_before"]
+    assert field["coverage"] >= 0.9
+
+
+def test_brightness_suggestion_spans_both_lighting_levels(reports):
+    suggestion = next(s for s in reports["none"]["suggestions"] if s["factor"] == "brightness")
+    assert suggestion["op"] == "brightness"
+    low, high = suggestion["range"]
+    # Class levels differ by about 5x, so the range must reach about 1/5 and 5.
+    assert low <= 0.25 and high >= 4.0
+
+
+def test_document_is_json_and_deterministic(reports, lighting_shortcut):
+    text = json.dumps(reports["relight"], sort_keys=True, allow_nan=False)
+    again = coverage.analyse_coverage(lighting_shortcut, BREAK_LIGHTING, size=32)
+    again.pop("plots", None)
+    first = dict(reports["relight"])
+    first.pop("plots")
+    assert json.dumps(again, sort_keys=True) == json.dumps(first, sort_keys=True)
+    assert set(json.loads(text)["factors"]) == set(FACTORS)
+
+
+def test_plots_written_one_per_factor(reports):
+    paths = reports["relight"]["plots"]
+    assert len(paths) == len(FACTORS)
+    for path in paths:
+        with Image.open(path) as image:
+            assert image.format == "PNG"
