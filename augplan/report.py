@@ -1,0 +1,795 @@
+"""The self-contained HTML report of ``augplan vet``.
+
+One page, read top to bottom: the verdict, the cautions, then for each recipe
+the label-safety table with its evidence sheets, the coverage of nuisance
+factors and the shortcut audit, then the leaderboard and the data notes.
+
+The page loads nothing: every figure is a PNG embedded as a base64 data URI,
+the style sheet is inline, there are no scripts, and the only links are
+in-page anchors. Every piece of text that comes from the user (class names,
+recipe names, paths) goes through `html.escape`.
+
+The evidence document may lack optional keys (an older run, a recipe that
+was not rechecked, a data set without a field sample); every lookup of an
+optional key uses ``.get`` and an absent value prints as a dash.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import math
+import re
+from pathlib import Path
+
+__all__ = ["render_report", "embed_png"]
+
+_PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+_DASH = "\u2013"
+# The word is printed beside the colour so the badge reads in greyscale print.
+_BADGE = {
+    "safe": ("safe", "\u2713"),
+    "breaks": ("breaks", "\u2717"),
+    "unverified": ("unverified", "?"),
+}
+
+_STYLE = """
+:root { --ink: #1b1b1b; --muted: #555; --rule: #c9c9c9; --soft: #f4f4f2; }
+* { box-sizing: border-box; }
+body { margin: 0 auto; max-width: 72rem; padding: 1rem 1.25rem 3rem; color: var(--ink);
+       font: 15px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, Helvetica, Arial, sans-serif; }
+h1 { font-size: 1rem; font-weight: 600; color: var(--muted); margin: 0 0 .4rem; letter-spacing: .02em; }
+h2 { font-size: 1.3rem; margin: 2.2rem 0 .6rem; padding-bottom: .2rem; border-bottom: 2px solid var(--ink); }
+h3 { font-size: 1.05rem; margin: 1.6rem 0 .5rem; }
+p, li { max-width: 60rem; }
+.verdict { font-size: 1.35rem; line-height: 1.35; font-weight: 600; margin: .2rem 0 .5rem;
+           padding: .7rem .9rem; border-left: 6px solid var(--ink); background: var(--soft); }
+.meta { color: var(--muted); font-size: .88rem; margin: 0 0 .8rem; }
+.meta span { margin-right: 1.2rem; white-space: nowrap; }
+.cautions { border: 2px solid #8a5a00; background: #fff6e0; padding: .5rem 1rem; margin: .8rem 0 1rem; }
+.cautions h2 { border: 0; margin: .3rem 0; font-size: 1.05rem; }
+.cautions ul { margin: .2rem 0 .4rem; padding-left: 1.2rem; }
+.note { color: var(--muted); font-size: .9rem; }
+.warn { border-left: 4px solid #8a5a00; padding: .2rem .7rem; margin: .5rem 0; }
+nav ol { margin: .2rem 0; padding-left: 1.4rem; columns: 2; max-width: 44rem; }
+.scroll { overflow-x: auto; margin: .5rem 0 1rem; }
+table { border-collapse: collapse; font-size: .9rem; min-width: 28rem; }
+th, td { border: 1px solid var(--rule); padding: .3rem .5rem; text-align: left; vertical-align: top; }
+th { background: var(--soft); font-weight: 600; }
+td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+tr.baseline td { font-style: italic; }
+tr.best td, tr.flagged td { font-weight: 600; }
+.badge { display: inline-block; padding: 0 .45rem; border: 1px solid; border-radius: .3rem;
+         font-weight: 700; white-space: nowrap; }
+.badge.safe { color: #0b5a1e; background: #dff3e3; }
+.badge.breaks { color: #8b0f0f; background: #fbe1e1; }
+.badge.unverified { color: #6b4a00; background: #fff0c2; }
+.badge.other { color: var(--ink); background: var(--soft); }
+.flag { font-weight: 700; }
+figure { margin: .8rem 0 1.2rem; }
+figure img { display: block; max-width: 100%; height: auto; border: 1px solid var(--rule); }
+figcaption { font-size: .88rem; color: var(--muted); margin-top: .25rem; }
+.plots { display: flex; flex-wrap: wrap; gap: 1rem; }
+.plots figure { flex: 1 1 20rem; max-width: 34rem; }
+code { font-size: .88em; background: var(--soft); padding: 0 .2rem; word-break: break-all; }
+@media (max-width: 40rem) {
+  body { padding: .6rem .7rem 2rem; font-size: 14px; }
+  .verdict { font-size: 1.15rem; }
+  nav ol { columns: 1; }
+}
+@media print {
+  body { max-width: none; padding: 0; font-size: 10.5pt; }
+  .verdict, th, .cautions, code { background: none; }
+  .scroll { overflow: visible; }
+  table { min-width: 0; width: 100%; }
+  thead { display: table-header-group; }
+  tr, figure, img, .cautions, .verdict { break-inside: avoid; page-break-inside: avoid; }
+  h2, h3 { break-after: avoid; page-break-after: avoid; }
+  nav { display: none; }
+  .badge { background: none; }
+}
+"""
+
+
+# --------------------------------------------------------------------------
+# small formatters: every one accepts None and odd types without raising
+
+
+def _e(value):
+    """Escape any value for HTML text or attribute use."""
+    return html.escape("" if value is None else str(value), quote=True)
+
+
+def _is_number(value):
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def _pair(value):
+    """``(low, high)`` from a two-item sequence of numbers, else None."""
+    if isinstance(value, (list, tuple)) and len(value) == 2 and all(_is_number(v) for v in value):
+        return float(value[0]), float(value[1])
+    return None
+
+
+def _percent(value, digits=0):
+    return f"{100 * value:.{digits}f}%" if _is_number(value) else _DASH
+
+
+def _rate_ci(value, interval, digits=0):
+    """``81% (74-86%)``: a share with its 95% interval."""
+    text = _percent(value, digits)
+    pair = _pair(interval)
+    if pair is not None:
+        text += f" ({100 * pair[0]:.{digits}f}{_DASH}{100 * pair[1]:.{digits}f}%)"
+    return text
+
+
+def _points(value, signed=True):
+    if not _is_number(value):
+        return _DASH
+    return f"{100 * value:+.1f}" if signed else f"{100 * value:.1f}"
+
+
+def _points_ci(value, interval, signed=True):
+    text = _points(value, signed)
+    pair = _pair(interval)
+    if pair is not None:
+        text += f" [{_points(pair[0], signed)}, {_points(pair[1], signed)}]"
+    return text
+
+
+def _p(value):
+    if not _is_number(value):
+        return _DASH
+    return "<0.001" if value < 0.001 else f"{value:.3f}"
+
+
+def _number(value, digits=3):
+    if _is_number(value):
+        return f"{value:.{digits}g}" if isinstance(value, float) else str(value)
+    return _DASH if value is None else _e(value)
+
+
+def _value_text(value):
+    """Plain text for a recipe parameter value (scalar, range, list or mapping)."""
+    if isinstance(value, dict):
+        return "{" + ", ".join(f"{k}: {_value_text(v)}" for k, v in value.items()) + "}"
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_value_text(v) for v in value) + "]"
+    if isinstance(value, float):
+        return f"{value:g}"
+    return str(value)
+
+
+def _badge(verdict):
+    word, mark = _BADGE.get(verdict, (str(verdict) if verdict else "unknown", "\u2022"))
+    css = verdict if verdict in _BADGE else "other"
+    return f'<span class="badge {css}">{_e(mark)} {_e(word)}</span>'
+
+
+def _table(header, rows, *, numeric=(), row_classes=None, caption=None):
+    """A table inside a horizontally scrolling wrapper; cells are already HTML."""
+    parts = ['<div class="scroll"><table>']
+    if caption:
+        parts.append(f"<caption class=\"note\">{caption}</caption>")
+    parts.append("<thead><tr>")
+    for column, name in enumerate(header):
+        css = ' class="num"' if column in numeric else ""
+        parts.append(f"<th scope=\"col\"{css}>{name}</th>")
+    parts.append("</tr></thead><tbody>")
+    for number, row in enumerate(rows):
+        css = row_classes[number] if row_classes and row_classes[number] else ""
+        parts.append(f'<tr class="{css}">' if css else "<tr>")
+        for column, cell in enumerate(row):
+            cell_css = ' class="num"' if column in numeric else ""
+            parts.append(f"<td{cell_css}>{cell}</td>")
+        parts.append("</tr>")
+    parts.append("</tbody></table></div>")
+    return "".join(parts)
+
+
+def _list(items):
+    items = [item for item in (items or []) if item]
+    if not items:
+        return ""
+    return "<ul>" + "".join(f"<li>{_e(item)}</li>" for item in items) + "</ul>"
+
+
+def _anchor(prefix, name, number):
+    """An id that is safe in HTML and unique per position."""
+    slug = re.sub(r"[^a-z0-9]+", "-", str(name).lower()).strip("-")[:40] or "item"
+    return f"{prefix}-{number}-{slug}"
+
+
+# --------------------------------------------------------------------------
+# figures
+
+
+def embed_png(path, *, base_dir=None):
+    """A ``data:image/png;base64,...`` URI for a PNG file, or None.
+
+    Parameters
+    ----------
+    path : str or Path or None
+        The PNG. A relative path is taken relative to ``base_dir`` when given.
+    base_dir : str or Path, optional
+
+    Returns
+    -------
+    str or None
+        None when there is no path, the file cannot be read, or it is not a
+        PNG (checked by its signature, PNG specification section 5.2), so the
+        report never embeds something a browser would have to guess at.
+
+    References
+    ----------
+    .. [1] W3C, "Portable Network Graphics (PNG) Specification (Second
+       Edition)", 2003, section 5.2 (PNG signature).
+    .. [2] L. Masinter, "The 'data' URL scheme", RFC 2397, 1998.
+    """
+    if not path:
+        return None
+    path = Path(path)
+    if not path.is_absolute() and base_dir is not None:
+        path = Path(base_dir) / path
+    try:
+        data = path.read_bytes()
+    except OSError:
+        return None
+    if not data.startswith(_PNG_SIGNATURE):
+        return None
+    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+
+
+def _figure(path, caption, alt, base_dir):
+    uri = embed_png(path, base_dir=base_dir)
+    if uri is None:
+        if not path:
+            return ""
+        return f'<p class="note">Figure not available: <code>{_e(path)}</code></p>'
+    return (f'<figure><img src="{uri}" alt="{_e(alt)}">'
+            f"<figcaption>{_e(caption)}</figcaption></figure>")
+
+
+# --------------------------------------------------------------------------
+# sections
+
+
+def _head(evidence):
+    data = evidence.get("data") or {}
+    fp = str(data.get("fingerprint") or "")
+    fp_short = fp.split(":")[-1][:12] if fp else _DASH
+    verdict = evidence.get("verdict") or "No verdict was recorded for this run."
+    meta = [
+        f"<span>data fingerprint <code title=\"{_e(fp)}\">{_e(fp_short)}</code></span>",
+        f"<span>created {_e(evidence.get('created') or _DASH)}</span>",
+        f"<span>augplan {_e(evidence.get('augplan_version') or _DASH)}</span>",
+    ]
+    if evidence.get("seed") is not None:
+        meta.append(f"<span>seed {_e(evidence.get('seed'))}</span>")
+    if data.get("root"):
+        meta.append(f"<span>data <code>{_e(data.get('root'))}</code></span>")
+    if evidence.get("best"):
+        meta.append(f"<span>recommended: <strong>{_e(evidence.get('best'))}</strong> (vetted)</span>")
+    return ("<header><h1>augplan vet: augmentation recipe report</h1>"
+            f'<p class="verdict" id="verdict">{_e(verdict)}</p>'
+            f'<p class="meta">{"".join(meta)}</p></header>')
+
+
+def _cautions(evidence):
+    cautions = [c for c in (evidence.get("cautions") or []) if c]
+    if not cautions:
+        return ""
+    return ('<section class="cautions" id="cautions"><h2>Cautions</h2>'
+            f"{_list(cautions)}</section>")
+
+
+def _contents(recipes):
+    items = []
+    for number, entry in enumerate(recipes):
+        name = entry.get("name", f"recipe {number + 1}")
+        items.append(f'<li><a href="#{_anchor("recipe", name, number)}">Recipe {_e(name)}: label safety</a></li>')
+        items.append(f'<li><a href="#{_anchor("coverage", name, number)}">Recipe {_e(name)}: coverage '
+                     "and shortcuts</a></li>")
+    items.append('<li><a href="#leaderboard">Leaderboard</a></li>')
+    items.append('<li><a href="#data-notes">Data notes</a></li>')
+    return f'<nav><strong>Contents</strong><ol>{"".join(items)}</ol></nav>'
+
+
+def _transform_text(step, fallback):
+    """``rotate degrees=[-8, 8], probability=0.5``, from the recipe step or the check params."""
+    source = step if isinstance(step, dict) else {}
+    op = source.get("op") or fallback.get("op") or "?"
+    params = {k: v for k, v in source.items() if k != "op"} or dict(fallback.get("params") or {})
+    text = ", ".join(f"{k}={_value_text(v)}" for k, v in params.items())
+    return f"<strong>{_e(op)}</strong>" + (f" <span class=\"note\">{_e(text)}</span>" if text else "")
+
+
+def _swaps_text(swaps, limit=3):
+    swaps = [s for s in (swaps or []) if isinstance(s, dict)]
+    if not swaps:
+        return _DASH
+    parts = []
+    for swap in swaps[:limit]:
+        n = f", n={swap['n']}" if _is_number(swap.get("n")) else ""
+        parts.append(f"{_e(swap.get('from', '?'))} \u2192 {_e(swap.get('to', '?'))} "
+                     f"{_percent(swap.get('rate'))}{n}")
+    more = f"<br><span class=\"note\">and {len(swaps) - limit} more</span>" if len(swaps) > limit else ""
+    return "<br>".join(parts) + more
+
+
+def _limit_text(transform):
+    pair = transform.get("safe_limit")
+    if isinstance(pair, (list, tuple)) and len(pair) == 2:
+        if pair[0] == pair[1]:
+            return f"{_number(pair[0])} only (no change is safe)"
+        return f"{_number(pair[0])} to {_number(pair[1])}"
+    if transform.get("magnitudes"):
+        return "no safe magnitude"
+    return _DASH
+
+
+def _vetting_text(change, suggestion):
+    parts = []
+    if change:
+        action = change.get("action") or _DASH
+        detail = change.get("detail")
+        parts.append(f"<strong>{_e(action)}</strong>" + (f": {_e(detail)}" if detail else ""))
+    if isinstance(suggestion, dict) and suggestion:
+        said = "; ".join(f"{k} {_value_text(v)}" for k, v in suggestion.items())
+        parts.append(f"<span class=\"note\">checker suggests {_e(said)}</span>")
+    return "<br>".join(parts) or _DASH
+
+
+def _check_section(entry, number, base_dir):
+    name = entry.get("name", f"recipe {number + 1}")
+    check = entry.get("check") or {}
+    vetted = entry.get("vetted") or {}
+    steps = (entry.get("recipe") or {}).get("transforms") or []
+    changes = {c.get("index"): c for c in (vetted.get("changes") or []) if isinstance(c, dict)}
+    out = [f'<section id="{_anchor("recipe", name, number)}"><h2>Recipe {_e(name)}: label safety</h2>']
+    facts = []
+    if entry.get("source"):
+        facts.append(f"file <code>{_e(entry['source'])}</code>")
+    if entry.get("recipe_hash"):
+        facts.append(f"recipe hash <code>{_e(str(entry['recipe_hash'])[:12])}</code>")
+    model = check.get("model") or {}
+    if _is_number(model.get("cv_accuracy")):
+        facts.append(f"checking model: cross-validated accuracy {_percent(model['cv_accuracy'], 1)}"
+                     + (f" against chance {_percent(model.get('chance'), 1)}" if _is_number(model.get("chance"))
+                        else ""))
+    if _is_number(check.get("n_images")):
+        facts.append(f"{check['n_images']} training images checked")
+    if facts:
+        out.append(f"<p class=\"note\">{'; '.join(facts)}.</p>")
+    if model.get("weak"):
+        out.append('<p class="warn">The checking model is weak on this data: its verdicts say little. '
+                   "Treat every verdict as unverified and look at the images.</p>")
+
+    transforms = [t for t in (check.get("transforms") or []) if isinstance(t, dict)]
+    rows = []
+    row_classes = []
+    for position, transform in enumerate(transforms):
+        index = transform.get("index", position)
+        step = steps[index] if isinstance(index, int) and 0 <= index < len(steps) else None
+        rows.append([
+            _e(index),
+            _transform_text(step, transform),
+            _badge(transform.get("verdict")),
+            _rate_ci(transform.get("change_rate"), transform.get("change_rate_ci")),
+            _rate_ci(transform.get("leave_rate"), transform.get("leave_rate_ci")),
+            _swaps_text(transform.get("swaps")),
+            _limit_text(transform),
+            _vetting_text(changes.get(index), transform.get("suggestion")),
+        ])
+        row_classes.append("")
+    if rows:
+        out.append(_table(
+            ["#", "transform", "verdict", "moved to another class (95% CI)",
+             "left every class (95% CI)", "main swaps", "safe limit", "what vetting did"],
+            rows, numeric=(0, 3, 4), row_classes=row_classes))
+    else:
+        out.append('<p class="note">The check recorded no transforms.</p>')
+    if check.get("decision_rule"):
+        out.append(f"<p><strong>Decision rule.</strong> {_e(check['decision_rule'])}</p>")
+    for warning in check.get("warnings") or []:
+        out.append(f'<p class="warn">{_e(warning)}</p>')
+
+    sheets = [t for t in transforms if t.get("evidence_sheet")]
+    if sheets:
+        out.append("<h3>Images that moved</h3>"
+                   '<p class="note">Each pair shows an original and the transformed image; the caption '
+                   "says its class and where the transformed image landed (another class, or outside "
+                   "every class).</p>")
+        for transform in sheets:
+            caption = (f"transform {transform.get('index', '?')} ({transform.get('op', '?')}): "
+                       f"{transform.get('verdict', 'unknown')}")
+            out.append(_figure(transform["evidence_sheet"], caption, f"evidence sheet, {caption}", base_dir))
+
+    out.append(_vetted_block(vetted))
+    out.append("</section>")
+    return "".join(out)
+
+
+def _vetted_block(vetted):
+    if not vetted:
+        return ""
+    out = ["<h3>The vetted recipe</h3>"]
+    name = vetted.get("name")
+    if vetted.get("unchanged"):
+        out.append(f"<p>Every transform is kept as written; the vetted recipe is <strong>{_e(name)}</strong>.</p>")
+    else:
+        out.append(f"<p>Vetting changed the recipe; the result is <strong>{_e(name)}</strong>.</p>")
+    score = vetted.get("score") or {}
+    if score:
+        out.append(f"<p>Validation accuracy {_percent(score.get('accuracy'), 1)}, gain over no augmentation "
+                   f"{_points_ci(score.get('gain'), score.get('gain_ci'))} percentage points "
+                   "(95% CI).</p>")
+    recheck = vetted.get("recheck") or {}
+    transforms = [t for t in (recheck.get("transforms") or []) if isinstance(t, dict)]
+    if transforms:
+        rows = [[_e(t.get("index", i)), f"<strong>{_e(t.get('op', '?'))}</strong>", _badge(t.get("verdict")),
+                 _rate_ci(t.get("change_rate"), t.get("change_rate_ci")), _swaps_text(t.get("swaps"))]
+                for i, t in enumerate(transforms)]
+        out.append("<p>The rewritten transforms were checked again:</p>")
+        out.append(_table(["#", "transform", "verdict", "moved to another class (95% CI)", "main swaps"],
+                          rows, numeric=(0, 3)))
+    return "".join(out)
+
+
+def _plot_items(plots):
+    """``[(factor, path)]`` from plots given as ``{factor: path}`` or a list of paths."""
+    if isinstance(plots, dict):
+        return [(str(k), v) for k, v in plots.items() if v]
+    if isinstance(plots, (list, tuple)):
+        return [(Path(str(p)).stem, p) for p in plots if p]
+    return []
+
+
+def _suggestion_text(suggestion):
+    if isinstance(suggestion, str):
+        return suggestion
+    if not isinstance(suggestion, dict) or not suggestion:
+        return ""
+    if suggestion.get("op"):
+        text = f"{suggestion.get('factor', '?')}: add {suggestion['op']}"
+        if suggestion.get("parameter"):
+            text += f" with {suggestion['parameter']} {_value_text(suggestion.get('range', '?'))}"
+        if suggestion.get("reason"):
+            text += f" ({suggestion['reason']})"
+        return text
+    return _value_text(suggestion)
+
+
+def _range_text(stats):
+    if not isinstance(stats, dict):
+        return _DASH
+    low, high = stats.get("p05"), stats.get("p95")
+    text = f"{_number(low)} to {_number(high)}" if _is_number(low) and _is_number(high) else _DASH
+    if _is_number(stats.get("std")):
+        text += f" <span class=\"note\">(sd {_number(stats['std'])})</span>"
+    return text
+
+
+def _widening(original, augmented):
+    if not (isinstance(original, dict) and isinstance(augmented, dict)):
+        return _DASH
+    a, b = original.get("std"), augmented.get("std")
+    if _is_number(a) and _is_number(b) and a > 0:
+        return f"\u00d7{b / a:.2f}"
+    return _DASH
+
+
+def _field_text(field):
+    if not isinstance(field, dict) or not field:
+        return _DASH
+    parts = []
+    if _is_number(field.get("coverage")):
+        parts.append(f"covers {_percent(field['coverage'])}")
+    before, after = field.get("wasserstein_before"), field.get("wasserstein_after")
+    if _is_number(before) or _is_number(after):
+        parts.append(f"distance {_number(before)} \u2192 {_number(after)}")
+    return "<br>".join(parts) or _DASH
+
+
+def _score_cell(value):
+    return _percent(value, 0) if _is_number(value) else _DASH
+
+
+def _coverage_section(entry, number, base_dir):
+    name = entry.get("name", f"recipe {number + 1}")
+    coverage = entry.get("coverage") or {}
+    out = [f'<section id="{_anchor("coverage", name, number)}"><h2>Recipe {_e(name)}: coverage and shortcuts</h2>']
+    plots = _plot_items(coverage.get("plots"))
+    if plots:
+        out.append("<h3>Nuisance factors: original, augmented and field</h3>")
+        out.append('<div class="plots">')
+        for factor, path in plots:
+            out.append(_figure(path, f"{factor}: original, augmented and field distributions",
+                               f"histogram of {factor}", base_dir))
+        out.append("</div>")
+
+    factors = coverage.get("factors") or {}
+    if isinstance(factors, dict) and factors:
+        rows = []
+        for factor, info in factors.items():
+            info = info if isinstance(info, dict) else {}
+            unit = f' <span class="note">({_e(info["unit"])})</span>' if info.get("unit") else ""
+            rows.append([_e(factor) + unit, _range_text(info.get("original")), _range_text(info.get("augmented")),
+                         _widening(info.get("original"), info.get("augmented")), _field_text(info.get("field"))])
+        out.append("<h3>How far the recipe widens each factor</h3>")
+        out.append(_table(["factor", "original 5th to 95th percentile", "augmented 5th to 95th percentile",
+                           "spread widened", "field sample (share covered; distance before \u2192 after)"],
+                          rows, numeric=(3,)))
+
+    shortcuts = [s for s in (coverage.get("shortcuts") or []) if isinstance(s, dict)]
+    if shortcuts:
+        rows, classes = [], []
+        for s in shortcuts:
+            flags = []
+            if s.get("flagged"):
+                flags.append("shortcut")
+            if s.get("persists"):
+                flags.append("survives the recipe")
+            if s.get("combined"):
+                flags.append("all factors together, for information")
+            rows.append([_e(s.get("factor", "?")), _score_cell(s.get("original")), _score_cell(s.get("augmented")),
+                         _score_cell(s.get("val")), _score_cell(s.get("field")), _score_cell(s.get("chance")),
+                         f"<span class=\"flag\">{_e(', '.join(flags))}</span>" if flags else "no"])
+            classes.append("flagged" if s.get("flagged") else "")
+        out.append("<h3>Shortcut audit</h3>"
+                   '<p class="note">How well the class can be told from one factor alone (cross-validated '
+                   "balanced accuracy). Far above chance means the factor is a shortcut a model can learn "
+                   "instead of the object.</p>")
+        out.append(_table(["factor", "original train", "augmented train", "validation", "field", "chance",
+                           "flag"], rows, numeric=(1, 2, 3, 4, 5), row_classes=classes))
+    if coverage.get("shortcut_rule"):
+        out.append(f"<p><strong>Shortcut rule.</strong> {_e(coverage['shortcut_rule'])}</p>")
+    for message in coverage.get("messages") or []:
+        out.append(f'<p class="warn">{_e(message)}</p>')
+    suggestions = [_suggestion_text(s) for s in (coverage.get("suggestions") or [])]
+    if any(suggestions):
+        out.append("<p><strong>Suggested transforms</strong></p>" + _list(suggestions))
+
+    out.append(_field_coverage(coverage.get("field_coverage")))
+    if len(out) == 1:
+        out.append('<p class="note">No coverage results were recorded for this recipe.</p>')
+    out.append("</section>")
+    return "".join(out)
+
+
+def _field_coverage(field):
+    """Naeem et al.'s density and coverage of the field sample, before and after the recipe.
+
+    References
+    ----------
+    .. [1] M. F. Naeem, S. J. Oh, Y. Uh, Y. Choi and J. Yoo, "Reliable
+       fidelity and diversity metrics for generative models", ICML 2020.
+    """
+    if not isinstance(field, dict) or not field:
+        return ""
+    out = ["<h3>Field coverage</h3>"]
+    if "before" not in field and "after" not in field:
+        # Flat form of augplan.coverage: density_before, coverage_after, ...
+        flat = {"before": {}, "after": {}}
+        rest = {}
+        for key, value in field.items():
+            measure, _, when = str(key).rpartition("_")
+            if measure and when in flat:
+                flat[when][measure] = value
+            else:
+                rest[key] = value
+        if flat["before"] or flat["after"]:
+            field = {**rest, **flat}
+    before, after = field.get("before"), field.get("after")
+    if isinstance(before, dict) or isinstance(after, dict):
+        before = before if isinstance(before, dict) else {}
+        after = after if isinstance(after, dict) else {}
+        metrics = [k for k in ("density", "coverage") if k in before or k in after]
+        metrics += [k for k in list(before) + list(after)
+                    if k not in metrics and (_is_number(before.get(k)) or _is_number(after.get(k)))]
+        metrics = list(dict.fromkeys(metrics))
+        rows = [[_e(k), _number(before.get(k)), _number(after.get(k))] for k in metrics]
+        out.append('<p class="note">Density and coverage of the field sample by the training images '
+                   "(Naeem et al., 2020): coverage is the share of field images that have a training image "
+                   "close by; 1 means every field image is covered.</p>")
+        out.append(_table(["measure", "original train", "augmented train"], rows, numeric=(1, 2)))
+        rest = {k: v for k, v in field.items() if k not in ("before", "after")}
+    else:
+        rest = field
+    scalars = [(k, v) for k, v in rest.items() if not isinstance(v, (dict, list))]
+    if scalars:
+        out.append("<p class=\"note\">" + "; ".join(f"{_e(k)}: {_number(v) if _is_number(v) else _e(v)}"
+                                                   for k, v in scalars) + "</p>")
+    return "".join(out)
+
+
+def _leaderboard(evidence):
+    evaluation = evidence.get("evaluation") or {}
+    recipes = evidence.get("recipes") or []
+    out = ['<section id="leaderboard"><h2>Leaderboard</h2>']
+    if not evaluation:
+        out.append('<p class="note">No evaluation was recorded.</p></section>')
+        return "".join(out)
+    vetted_names = {(e.get("vetted") or {}).get("name") for e in recipes if not (e.get("vetted") or {}).get("unchanged")}
+    best_name = None
+    for e in recipes:
+        if e.get("name") == evidence.get("best"):
+            best_name = (e.get("vetted") or {}).get("name") or e.get("name")
+    baseline = evaluation.get("baseline") or {}
+    rows = [["", "no augmentation (baseline)", _percent(baseline.get("accuracy"), 1)
+             + (f" [{_percent(_pair(baseline.get('accuracy_ci'))[0], 1)}, "
+                f"{_percent(_pair(baseline.get('accuracy_ci'))[1], 1)}]" if _pair(baseline.get("accuracy_ci")) else ""),
+             _DASH, _DASH, _DASH, "reference"]]
+    row_classes = ["baseline"]
+    scored = [r for r in (evaluation.get("recipes") or []) if isinstance(r, dict)]
+    ranked = sorted(scored, key=lambda r: -(r["gain"] if _is_number(r.get("gain")) else -math.inf))
+    for rank, row in enumerate(ranked, start=1):
+        flags = []
+        if row.get("name") == best_name:
+            flags.append("recommended")
+        if row.get("name") in vetted_names:
+            flags.append("vetted")
+        if row.get("flagged"):
+            flags.append("loses accuracy")
+        pair = _pair(row.get("gain_ci"))
+        if pair and pair[0] > 0 and not row.get("flagged"):
+            flags.append("gain above zero")
+        accuracy = _percent(row.get("accuracy"), 1)
+        acc_pair = _pair(row.get("accuracy_ci"))
+        if acc_pair:
+            accuracy += f" [{_percent(acc_pair[0], 1)}, {_percent(acc_pair[1], 1)}]"
+        rows.append([str(rank), _e(row.get("name", "?")), accuracy,
+                     _points_ci(row.get("gain"), row.get("gain_ci")), _p(row.get("p_value")),
+                     _p(row.get("p_holm")), _e(", ".join(flags)) or _DASH])
+        row_classes.append("best" if row.get("name") == best_name else "")
+    out.append(_table(["rank", "recipe", "validation accuracy [95% CI]",
+                       "gain, percentage points [95% CI]", "p (McNemar)", "p (Holm)", "flags"],
+                      rows, numeric=(0, 2, 3, 4, 5), row_classes=row_classes))
+
+    facts = []
+    if evaluation.get("scored_on"):
+        facts.append(f"Scored on {_e(evaluation['scored_on'])}")
+    if "augmented_validation_images" in evaluation:
+        facts.append(f"augmented validation images: {_e(evaluation['augmented_validation_images'])}")
+    if evaluation.get("repeats") is not None:
+        facts.append(f"repeats per recipe: {_e(evaluation['repeats'])}")
+    if evaluation.get("accuracy_interval"):
+        facts.append(f"intervals: {_e(evaluation['accuracy_interval'])}")
+    if facts:
+        out.append(f"<p class=\"note\">{'; '.join(facts)}.</p>")
+    out.append(_per_class_table(ranked))
+    out.append(_confirm_block(evaluation.get("confirm")))
+    out.append(_field_block(evaluation.get("field"), ranked))
+    for warning in evaluation.get("warnings") or []:
+        out.append(f'<p class="warn">{_e(warning)}</p>')
+    out.append("</section>")
+    return "".join(out)
+
+
+def _per_class_table(ranked):
+    classes = []
+    for row in ranked:
+        gains = row.get("per_class_gain")
+        if isinstance(gains, dict):
+            classes.extend(c for c in gains if c not in classes)
+    if not classes:
+        return ""
+    rows = []
+    for row in ranked:
+        gains = row.get("per_class_gain") if isinstance(row.get("per_class_gain"), dict) else {}
+        rows.append([_e(row.get("name", "?"))] + [_points(gains.get(c)) for c in classes])
+    return ("<h3>Change in recall per class</h3>"
+            '<p class="note">Percentage points against the baseline; a negative value means the recipe '
+            "hurts that class.</p>"
+            + _table(["recipe"] + [_e(c) for c in classes], rows, numeric=tuple(range(1, len(classes) + 1))))
+
+
+def _short_score(score):
+    if not isinstance(score, dict):
+        return _DASH
+    text = _percent(score.get("accuracy"), 1)
+    pair = _pair(score.get("accuracy_ci"))
+    if pair:
+        text += f" [{_percent(pair[0], 1)}, {_percent(pair[1], 1)}]"
+    if _is_number(score.get("gain")):
+        text += f", gain {_points_ci(score.get('gain'), score.get('gain_ci'))} points"
+    if _is_number(score.get("p_value")):
+        text += f", p {_p(score.get('p_value'))}"
+    return text
+
+
+def _confirm_block(confirm):
+    if not isinstance(confirm, dict) or not confirm:
+        return ""
+    n = f" ({confirm['n_images']} images)" if _is_number(confirm.get("n_images")) else ""
+    rows = [["no augmentation (baseline)", _short_score(confirm.get("baseline"))],
+            [_e(confirm.get("recipe", "?")), _short_score(confirm.get("recipe_scores"))]]
+    note = f'<p class="note">{_e(confirm["note"])}.</p>' if confirm.get("note") else ""
+    return (f"<h3>Confirmation on {_e(confirm.get('source', 'a held-out split'))}{n}</h3>" + note
+            + _table(["model", "accuracy [95% CI]"], rows))
+
+
+def _field_block(field, ranked):
+    if not isinstance(field, dict) or not field:
+        return ""
+    n = f" ({field['n_images']} images)" if _is_number(field.get("n_images")) else ""
+    rows = [["no augmentation (baseline)", _short_score(field.get("baseline"))]]
+    rows += [[_e(r.get("name", "?")), _short_score(r.get("field"))] for r in ranked if r.get("field")]
+    note = f'<p class="note">{_e(field["note"])}.</p>' if field.get("note") else ""
+    return f"<h3>Field sample{n}</h3>" + note + _table(["model", "accuracy [95% CI]"], rows)
+
+
+def _data_notes(evidence):
+    data = evidence.get("data") or {}
+    out = ['<section id="data-notes"><h2>Data notes</h2>']
+    counts = data.get("counts") or {}
+    if isinstance(counts, dict) and counts:
+        out.append("<p>Images per split: " + ", ".join(f"{_e(k)} {_e(v)}" for k, v in counts.items()) + ".</p>")
+    classes = data.get("classes") or []
+    if classes:
+        out.append(f"<p>Classes ({len(classes)}): " + ", ".join(_e(c) for c in classes) + ".</p>")
+    if data.get("fingerprint"):
+        out.append(f"<p class=\"note\">Full data fingerprint: <code>{_e(data['fingerprint'])}</code></p>")
+    if data.get("val_from_train"):
+        seed = data.get("split_seed")
+        out.append('<p class="warn">There is no <code>val/</code> folder: validation is a stratified split of '
+                   f"<code>train/</code> (seed {_e(seed if seed is not None else _DASH)}). Scores on it are "
+                   "less independent than on a separately collected validation set.</p>")
+    skipped = [s for s in (data.get("skipped") or []) if s]
+    out.append("<h3>Skipped files</h3>")
+    if skipped:
+        rows = [[f"<code>{_e(s[0] if isinstance(s, (list, tuple)) else s)}</code>",
+                 _e(s[1] if isinstance(s, (list, tuple)) and len(s) > 1 else "")] for s in skipped]
+        out.append(_table(["file", "reason"], rows))
+    else:
+        out.append("<p>None: every file was read as an image.</p>")
+    leaks = [leak for leak in (data.get("leaks") or []) if isinstance(leak, dict)]
+    out.append("<h3>Images shared between splits</h3>")
+    if leaks:
+        out.append('<p class="warn">These images appear in two splits: a model is scored on images it was '
+                   "trained on, which inflates every score. Remove one copy of each pair.</p>")
+        rows = [[_e(leak.get("kind", "?")), f"<code>{_e(leak.get('a', '?'))}</code>",
+                 f"<code>{_e(leak.get('b', '?'))}</code>", _e(" / ".join(str(s) for s in leak.get("splits") or [])),
+                 _number(leak.get("distance"))] for leak in leaks]
+        out.append(_table(["kind", "image", "copy", "splits", "hash distance (of 64 bits)"], rows, numeric=(4,)))
+    else:
+        out.append("<p>None found (exact copies and near copies by perceptual hash).</p>")
+    out.append("</section>")
+    return "".join(out)
+
+
+def render_report(evidence, *, base_dir=None):
+    """Render the evidence document of ``augplan vet`` as one self-contained HTML page.
+
+    Parameters
+    ----------
+    evidence : dict
+        The evidence document built by `augplan.vet.vet_recipes` (the same
+        content as ``evidence.json``). Optional keys may be missing.
+    base_dir : str or Path, optional
+        Folder that relative figure paths (such as ``figures/x.png`` in a
+        written ``evidence.json``) are resolved against.
+
+    Returns
+    -------
+    str
+        The HTML page. Figures are embedded as PNG data URIs; a figure whose
+        file is missing is named in a note instead.
+    """
+    if not isinstance(evidence, dict):
+        raise TypeError(f"render_report expects the evidence document as a dict; got {type(evidence).__name__}.")
+    recipes = [r for r in (evidence.get("recipes") or []) if isinstance(r, dict)]
+    title = "augplan report"
+    if recipes:
+        title += ": " + ", ".join(str(r.get("name", "?")) for r in recipes)
+    body = [_head(evidence), _cautions(evidence), _contents(recipes)]
+    for number, entry in enumerate(recipes):
+        body.append(_check_section(entry, number, base_dir))
+        body.append(_coverage_section(entry, number, base_dir))
+    body.append(_leaderboard(evidence))
+    body.append(_data_notes(evidence))
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+            f"<title>{_e(title)}</title><style>{_STYLE}</style></head>"
+            f"<body>{''.join(body)}</body></html>\n")
