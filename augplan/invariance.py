@@ -1,0 +1,621 @@
+"""Label safety: does a transform keep each image in its class?
+
+Counting how often a classifier's prediction changes on transformed images
+does not measure label safety: a small model that never saw rotated images
+changes its mind on many of them even where the class is untouched. This
+checker uses the geometry of the original images instead. Every class owns a
+*region* of feature space, learned from how far its own held-out originals
+lie from their class, and a transformed image is judged by where it lands:
+in its own region (kept), inside another class's region (moved), or outside
+every region (left: nothing in the data can judge it, a person must look).
+
+Method
+------
+1. The feature model is fitted on original training images only; its
+   cross-validated accuracy is reported and a warning is raised when it is
+   too weak to judge.
+2. Features are standardised and reduced by PCA to keep 95% of the variance.
+   For an image ``x`` and a class ``c``, ``d_c(x)`` is the mean Euclidean
+   distance from ``x`` to its ``k = 5`` nearest originals of ``c`` (fewer
+   when the class is small), never counting ``x``'s own source original.
+3. Typicality thresholds are learned on held-out originals, leave-one-out
+   (k-fold with one image per fold): ``t_c`` is the 95th percentile of
+   ``d_c`` over the originals of ``c``. The ratio ``r_c = d_c / t_c`` is at
+   most 1 inside class ``c``'s region.
+4. An image is *outside* when ``min_c r_c > 1``. Otherwise its destination
+   is, among the classes whose region holds it (``r_c <= 1``), the one the
+   classifier gives the highest probability. The held-out originals
+   themselves (the identity transform) give each class's baseline rates of
+   landing in another class and of landing outside.
+5. Each transform runs with probability 1 on every sampled original of each
+   class in its scope, at each value of `augplan.transforms.magnitude_grid`
+   (a flip once). The expected class is ``relabel.get(A, A)``.
+
+Decision rule
+-------------
+A class *breaks* when the Wilson 95% lower bound of the share of its
+transformed images that land in another class's region exceeds that class's
+held-out baseline by more than 0.10; otherwise it is *unverified* when the
+Wilson 95% lower bound of the share that lands outside every region exceeds
+its baseline by more than 0.10; otherwise it is *safe*. A transform takes the
+worst verdict of its classes (breaks > unverified > safe), with the rates
+pooled over the magnitude grid. The safe limit applies the same rule at each
+grid value separately and reports the widest run of consecutive safe values
+around the identity magnitude.
+
+References
+----------
+.. [1] E. B. Wilson, "Probable inference, the law of succession, and
+   statistical inference", JASA 22(158), 209-212, 1927.
+.. [2] T. M. Cover and P. E. Hart, "Nearest neighbor pattern
+   classification", IEEE Trans. Information Theory 13(1), 21-27, 1967.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from pathlib import Path
+
+import numpy as np
+from scipy.spatial.distance import cdist
+from sklearn.decomposition import PCA
+from sklearn.preprocessing import StandardScaler
+
+from augplan.errors import BadInputError
+from augplan.parallel import parallel_map
+
+__all__ = [
+    "DECISION_RULE",
+    "check_recipe",
+    "class_distances",
+    "locate",
+    "class_verdict",
+    "safe_limit",
+]
+
+# Neighbours averaged for the distance to a class (Cover & Hart's k-NN idea).
+NEIGHBOURS = 5
+# Percentile of held-out own-class distances that bounds a class's region.
+TYPICAL_PERCENTILE = 95.0
+# Excess over the held-out baseline that a rate's lower bound must pass
+# (common practice, no source: a 10-point margin ignores small leaks).
+MARGIN = 0.10
+VARIANCE_KEPT = 0.95
+MIN_PER_CLASS = 3
+EVIDENCE_IMAGES = 8
+OUTSIDE = -1
+_RANK = {"safe": 0, "unverified": 1, "breaks": 2}
+
+DECISION_RULE = (
+    "A class breaks when the Wilson 95% lower bound of the share of its transformed "
+    "images that land in another class's region exceeds its held-out baseline by more "
+    "than 0.10, is unverified when the same holds for the share that lands outside every "
+    "class's region, and is safe otherwise; a transform takes its worst class verdict."
+)
+
+
+# --------------------------------------------------------------------------
+# geometry
+
+
+def class_distances(query, reference, reference_labels, n_classes, *, k=NEIGHBOURS,
+                    exclude=None):
+    """Mean distance from each query point to its ``k`` nearest points of each class.
+
+    Parameters
+    ----------
+    query : numpy.ndarray, shape (M, D)
+    reference : numpy.ndarray, shape (N, D)
+    reference_labels : numpy.ndarray of int, shape (N,)
+        Class index ``0 .. n_classes - 1`` of each reference point.
+    n_classes : int
+    k : int, default 5
+        Neighbours averaged. Class ``c`` uses ``min(k, n_c - 1)`` so that a
+        query with its source excluded and one without see the same count.
+    exclude : numpy.ndarray of int, shape (M,), optional
+        Reference index to leave out for each query (its source image), or
+        -1 for none.
+
+    Returns
+    -------
+    numpy.ndarray of float64, shape (M, n_classes)
+
+    References
+    ----------
+    .. [1] T. M. Cover and P. E. Hart, "Nearest neighbor pattern
+       classification", IEEE Trans. Information Theory 13(1), 21-27, 1967.
+    """
+    query = np.asarray(query, dtype=np.float64)
+    reference = np.asarray(reference, dtype=np.float64)
+    reference_labels = np.asarray(reference_labels)
+    if query.ndim != 2 or reference.ndim != 2 or query.shape[1] != reference.shape[1]:
+        raise ValueError(f"query and reference must be 2-D with equal widths; "
+                         f"got {query.shape} and {reference.shape}")
+    # cdist rather than a BLAS product: its sums run in a fixed order, so the
+    # distances do not depend on how many threads a worker process has.
+    dist = cdist(query, reference)
+    if exclude is not None:
+        exclude = np.asarray(exclude)
+        rows = np.flatnonzero(exclude >= 0)
+        dist[rows, exclude[rows]] = np.inf
+    out = np.empty((len(query), n_classes))
+    for c in range(n_classes):
+        members = dist[:, reference_labels == c]
+        if members.shape[1] < 2:
+            raise ValueError(f"class {c} has {members.shape[1]} reference points; at least 2 needed")
+        kc = min(k, members.shape[1] - 1)
+        nearest = np.partition(members, kc - 1, axis=1)[:, :kc]
+        out[:, c] = np.sort(nearest, axis=1).mean(axis=1)
+    return out
+
+
+def locate(ratios, probabilities):
+    """Destination class of each image, or -1 when it lies outside every region.
+
+    Parameters
+    ----------
+    ratios : numpy.ndarray, shape (M, C)
+        ``r_c = d_c / t_c``; at most 1 inside class ``c``'s region.
+    probabilities : numpy.ndarray, shape (M, C)
+        Classifier probabilities in the same class order.
+
+    Returns
+    -------
+    numpy.ndarray of int, shape (M,)
+        Among the classes whose region holds the image, the one with the
+        highest probability; -1 when no region holds it.
+    """
+    inside = ratios <= 1.0
+    masked = np.where(inside, probabilities, -np.inf)
+    destination = np.argmax(masked, axis=1)
+    return np.where(inside.any(axis=1), destination, OUTSIDE)
+
+
+def class_verdict(moved, left, n, baseline_change, baseline_leave, margin=MARGIN):
+    """Verdict of one class from its counts (the module's decision rule).
+
+    Parameters
+    ----------
+    moved, left, n : int
+        Transformed images that landed in another class's region, outside
+        every region, and in total.
+    baseline_change, baseline_leave : float
+        The same shares for the class's held-out originals.
+    margin : float, default 0.10
+
+    Returns
+    -------
+    str
+        ``"breaks"``, ``"unverified"`` or ``"safe"``.
+    """
+    from augplan.stats import wilson_interval
+
+    if n == 0:
+        return "safe"
+    if wilson_interval(moved, n)[0] > baseline_change + margin:
+        return "breaks"
+    if wilson_interval(left, n)[0] > baseline_leave + margin:
+        return "unverified"
+    return "safe"
+
+
+def safe_limit(values, verdicts, identity):
+    """Widest run of consecutive safe grid values around the identity magnitude.
+
+    Parameters
+    ----------
+    values : sequence of float
+        Ascending grid values.
+    verdicts : sequence of str
+        Verdict at each value.
+    identity : float
+        Magnitude that leaves images unchanged (0 or 1).
+
+    Returns
+    -------
+    list of float or None
+        ``[low, high]``, starting from the grid value nearest ``identity``;
+        None when that value is not safe or the grid is empty.
+    """
+    values = list(values)
+    if not values:
+        return None
+    start = int(np.argmin([abs(v - identity) for v in values]))
+    if verdicts[start] != "safe":
+        return None
+    low = high = start
+    while low > 0 and verdicts[low - 1] == "safe":
+        low -= 1
+    while high < len(values) - 1 and verdicts[high + 1] == "safe":
+        high += 1
+    return [float(values[low]), float(values[high])]
+
+
+class _Geometry:
+    """Standardise + PCA projection with the reference points and thresholds."""
+
+    def __init__(self, features, labels, n_classes, random_state):
+        self.scaler = StandardScaler().fit(features)
+        scaled = self.scaler.transform(features)
+        n_components = VARIANCE_KEPT if min(scaled.shape) > 1 else None
+        self.pca = PCA(n_components=n_components, svd_solver="full", random_state=random_state)
+        self.reference = self.pca.fit_transform(scaled).astype(np.float64)
+        self.labels = labels
+        self.n_classes = n_classes
+        held_out = class_distances(self.reference, self.reference, labels, n_classes,
+                                   exclude=np.arange(len(labels)))
+        self.thresholds = np.array([
+            np.percentile(held_out[labels == c, c], TYPICAL_PERCENTILE) for c in range(n_classes)])
+        # A class whose originals coincide has threshold 0; keep the ratio finite.
+        self.thresholds = np.maximum(self.thresholds, 1e-12)
+        self.held_out_ratios = held_out / self.thresholds
+
+    def ratios(self, features, sources):
+        points = self.pca.transform(self.scaler.transform(features))
+        distances = class_distances(points, self.reference, self.labels, self.n_classes,
+                                    exclude=sources)
+        return distances / self.thresholds
+
+
+# --------------------------------------------------------------------------
+# work units
+
+
+def _probabilities(model, features, classes):
+    proba = np.asarray(model.predict_proba_features(features), dtype=np.float64)
+    order = [list(model.classes_).index(name) for name in classes]
+    return proba[:, order]
+
+
+def _run_unit(context, unit):
+    """Transform, featurise and locate the in-scope images of one (transform, magnitude)."""
+    from augplan.transforms import OPS, params_at
+
+    transform_index, magnitude, rng = unit
+    transform = context["transforms"][transform_index]
+    sources = context["scope"][transform_index]
+    images = context["images"]
+    function = OPS[transform.op].function
+    params = params_at(transform, 0.0 if magnitude is None else magnitude, context["fill"])
+    moved_images = np.empty((len(sources),) + images.shape[1:], dtype=np.uint8)
+    for row, source in enumerate(sources):
+        moved_images[row] = function(images[source], params, rng)
+    model = context["model"]
+    features = model.featurize(moved_images)
+    proba = _probabilities(model, features, context["classes"])
+    ratios = context["geometry"].ratios(features, sources)
+    destinations = locate(ratios, proba)
+    examples = []
+    if context["evidence"]:
+        expected = context["expected"][transform_index]
+        labels = context["labels"]
+        off = [row for row, src in enumerate(sources) if destinations[row] != expected[labels[src]]]
+        # Moved images first: they are the clearest evidence of a broken label.
+        off.sort(key=lambda row: (destinations[row] == OUTSIDE, row))
+        examples = [(int(sources[row]), int(destinations[row]), moved_images[row])
+                    for row in off[:EVIDENCE_IMAGES]]
+    return destinations, examples
+
+
+# --------------------------------------------------------------------------
+# the checker
+
+
+def _sample_training(dataset, sample, rng):
+    records = sorted(dataset.split("train"), key=lambda record: record.relpath)
+    classes = tuple(dataset.classes)
+    by_class = {name: [] for name in classes}
+    for record in records:
+        if record.label in by_class:
+            by_class[record.label].append(record)
+    chosen, labels = [], []
+    for index, name in enumerate(classes):
+        group = by_class[name]
+        if sample is not None and len(group) > sample:
+            picks = np.sort(rng.choice(len(group), size=sample, replace=False))
+            group = [group[i] for i in picks]
+        chosen.extend(group)
+        labels.extend([index] * len(group))
+    return chosen, np.array(labels, dtype=np.int64), classes
+
+
+def _rate(count, n):
+    return round(count / n, 4) if n else 0.0
+
+
+def _interval(count, n):
+    from augplan.stats import wilson_interval
+
+    low, high = wilson_interval(count, n)
+    return [round(low, 4), round(high, 4)]
+
+
+def _json_params(transform):
+    params = {}
+    for key, value in transform.params.items():
+        params[key] = [float(v) for v in value] if isinstance(value, (tuple, list)) else value
+    return params
+
+
+def _suggestion(transform, checked, verdicts, flows, classes):
+    """Relabel for swap cycles among breaking classes; `only` for the safe ones."""
+    breaking = [a for a in checked if verdicts[a] == "breaks"]
+    main = {}
+    for a in breaking:
+        row = flows[a]
+        if row.sum() > 0:
+            main[a] = int(np.argmax(row))
+    in_cycle = set()
+    for a in main:
+        path, node = [], a
+        while node in main and node not in path:
+            path.append(node)
+            node = main[node]
+        if node in path:
+            in_cycle.update(path[path.index(node):])
+    suggestion = {}
+    if in_cycle:
+        relabel = dict(transform.relabel or {})
+        relabel.update({classes[a]: classes[main[a]] for a in sorted(in_cycle)})
+        suggestion["relabel"] = dict(sorted(relabel.items()))
+    safe = [a for a in checked if verdicts[a] == "safe"]
+    unresolved = [a for a in checked if verdicts[a] != "safe" and a not in in_cycle]
+    if unresolved and (safe or in_cycle):
+        suggestion["only"] = sorted(classes[a] for a in set(safe) | in_cycle)
+    return suggestion or None
+
+
+def _write_evidence(evidence_dir, index, transform, verdict, examples, images, labels, classes):
+    """Contact sheet of moved and outside images: one row per image, original then transformed."""
+    from augplan.sheets import contact_sheet, save_png
+
+    rows, row_labels = [], []
+    for source, destination, moved in examples:
+        target = "outside" if destination == OUTSIDE else classes[destination]
+        rows.append([images[source], moved])
+        row_labels.append(f"{classes[labels[source]]} -> {target}")
+    sheet = contact_sheet(rows, row_labels, column_labels=["original", "transformed"],
+                          title=f"transform {index} ({transform.op}): {verdict}")
+    path = Path(evidence_dir) / f"transform-{index:02d}-{transform.op}.png"
+    save_png(sheet, path)
+    return str(path)
+
+
+def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitudes=5, seed=0,
+                 workers=1, quiet=True, evidence_dir=None):
+    """Check every transform of a recipe for label safety.
+
+    Parameters
+    ----------
+    dataset : augplan.data.Dataset
+        Only its ``train`` split is used.
+    recipe : augplan.recipe.Recipe
+    model : augplan.features.FeatureModel, optional
+        An unfitted model to use instead of the default one.
+    sample : int, optional
+        At most this many training images per class (drawn with ``seed``).
+    size : int, default 64
+        Side of the squares images are read at.
+    magnitudes : int, default 5
+        Grid values per magnitude range (both ends included).
+    seed : int, default 0
+    workers : int, default 1
+        Processes for the (transform, magnitude) work units; results do not
+        depend on it.
+    quiet : bool, default True
+        Hide the progress bar.
+    evidence_dir : str or Path, optional
+        Folder for a contact sheet of moved and outside images of each
+        transform that breaks or is unverified.
+
+    Returns
+    -------
+    dict
+        The ``check --json`` document (see DESIGN.md); ``decision_rule``
+        states the rule in the module docstring.
+
+    Raises
+    ------
+    BadInputError
+        Fewer than two classes with at least 3 training images, an unusable
+        ``sample``, ``magnitudes`` or ``evidence_dir``.
+    """
+    from augplan.data import load_images
+    from augplan.transforms import OPS, magnitude_grid
+
+    if sample is not None and (isinstance(sample, bool) or int(sample) != sample or sample < MIN_PER_CLASS):
+        raise BadInputError(f"--sample must be an integer of at least {MIN_PER_CLASS}; got {sample!r}.")
+    if isinstance(magnitudes, bool) or int(magnitudes) != magnitudes or magnitudes < 2:
+        raise BadInputError(f"magnitudes must be an integer of at least 2; got {magnitudes!r}.")
+    if evidence_dir is not None:
+        evidence_dir = Path(evidence_dir)
+        try:
+            evidence_dir.mkdir(parents=True, exist_ok=True)
+        except OSError as error:
+            raise BadInputError(f"--evidence {evidence_dir}: cannot create the folder ({error}).") from None
+    rng = np.random.default_rng(seed)
+    sample_rng, unit_root = rng.spawn(2)
+    warnings = []
+
+    records, labels, classes = _sample_training(dataset, sample, sample_rng)
+    counts = np.bincount(labels, minlength=len(classes))
+    small = [classes[c] for c in range(len(classes)) if counts[c] < MIN_PER_CLASS]
+    if small:
+        warnings.append(f"classes with fewer than {MIN_PER_CLASS} training images have no region "
+                        f"and are left out of the check: {', '.join(small)}")
+        keep_classes = [c for c in range(len(classes)) if counts[c] >= MIN_PER_CLASS]
+        keep = np.isin(labels, keep_classes)
+        records = [r for r, k in zip(records, keep) if k]
+        remap = {old: new for new, old in enumerate(keep_classes)}
+        labels = np.array([remap[c] for c in labels[keep]], dtype=np.int64)
+        classes = tuple(classes[c] for c in keep_classes)
+        counts = np.bincount(labels, minlength=len(classes))
+    if len(classes) < 2:
+        raise BadInputError(f"{dataset.root}: the label check needs at least two classes with "
+                            f"{MIN_PER_CLASS} or more training images each; found {len(classes)}.")
+    few = [classes[c] for c in range(len(classes)) if counts[c] < 20]
+    if few:
+        warnings.append(f"classes with fewer than 20 training images give wide intervals: {', '.join(few)}")
+
+    images = load_images(records, size=size)
+    label_names = [classes[c] for c in labels]
+    if model is None:
+        from augplan.features import FeatureModel
+
+        model = FeatureModel(random_state=seed)
+    model.fit(images, np.array(label_names))
+    features = model.featurize(images)
+    cv_accuracy = float(model.cv_accuracy_)
+    chance = float(getattr(model, "chance_", counts.max() / counts.sum()))
+    # Fallback when the model does not judge itself: a quarter of the way
+    # from chance to perfect (common practice, no source).
+    weak = bool(getattr(model, "weak_", cv_accuracy < chance + 0.25 * (1.0 - chance)))
+    if weak:
+        warnings.append(f"the feature model is weak (cross-validated accuracy {cv_accuracy:.2f}, "
+                        f"chance {chance:.2f}); verdicts are unreliable")
+
+    geometry = _Geometry(features, labels, len(classes), seed)
+    base_proba = _probabilities(model, features, classes)
+    base_dest = locate(geometry.held_out_ratios, base_proba)
+    baseline_change = np.array([np.mean((base_dest[labels == c] != c) & (base_dest[labels == c] != OUTSIDE))
+                                for c in range(len(classes))])
+    baseline_leave = np.array([np.mean(base_dest[labels == c] == OUTSIDE) for c in range(len(classes))])
+
+    transforms = list(recipe.transforms)
+    scope, expected, units, unit_info = [], [], [], []
+    for t_index, transform in enumerate(transforms):
+        spec = OPS[transform.op]
+        checked = [c for c in range(len(classes)) if transform.applies_to(classes[c])]
+        scope.append(np.flatnonzero(np.isin(labels, checked)))
+        relabel = dict(transform.relabel or {})
+        exp = np.array([classes.index(relabel[name]) if relabel.get(name) in classes else c
+                        for c, name in enumerate(classes)])
+        expected.append(exp)
+        if spec.magnitude is None:
+            grid, extra = [None], []
+        else:
+            grid = [float(v) for v in magnitude_grid(transform, int(magnitudes))]
+            identity = spec.identity
+            extra = ([identity] if grid[0] <= identity <= grid[-1] and
+                     not any(math.isclose(v, identity, abs_tol=1e-12) for v in grid) else [])
+        for value in grid + extra:
+            units.append((t_index, value))
+            unit_info.append((t_index, value, value not in extra or value is None))
+    unit_rngs = unit_root.spawn(len(units))
+    work = [(t, v, r) for (t, v), r in zip(units, unit_rngs)]
+    context = {"transforms": transforms, "scope": scope, "images": images, "fill": recipe.fill,
+               "model": model, "classes": classes, "geometry": geometry,
+               "evidence": evidence_dir is not None, "expected": expected, "labels": labels}
+    work = [item for item in work if len(scope[item[0]])]
+    results = parallel_map(functools.partial(_run_unit, context), work, workers=workers,
+                           desc="checking transforms", quiet=quiet)
+    by_unit = {(t, v): result for (t, v, _), result in zip(work, results)}
+
+    report = []
+    for t_index, transform in enumerate(transforms):
+        spec = OPS[transform.op]
+        sources = scope[t_index]
+        exp = expected[t_index]
+        checked = sorted(set(labels[sources].tolist()))
+        source_labels = labels[sources]
+        entry_units = [(v, pooled) for (t, v, pooled) in unit_info if t == t_index]
+        flows = {a: np.zeros(len(classes), dtype=np.int64) for a in checked}
+        moved_n = dict.fromkeys(checked, 0)
+        left_n = dict.fromkeys(checked, 0)
+        n_by_class = dict.fromkeys(checked, 0)
+        per_magnitude, examples = [], []
+        for value, pooled in entry_units:
+            if (t_index, value) not in by_unit:
+                continue
+            destinations, unit_examples = by_unit[(t_index, value)]
+            examples.append(unit_examples)
+            worst, m_moved, m_left = "safe", 0, 0
+            for a in checked:
+                dest = destinations[source_labels == a]
+                moved = int(np.sum((dest != exp[a]) & (dest != OUTSIDE)))
+                left = int(np.sum(dest == OUTSIDE))
+                verdict = class_verdict(moved, left, len(dest), baseline_change[a], baseline_leave[a])
+                worst = max(worst, verdict, key=_RANK.get)
+                m_moved, m_left = m_moved + moved, m_left + left
+                if pooled:
+                    n_by_class[a] += len(dest)
+                    moved_n[a] += moved
+                    left_n[a] += left
+                    for b in dest[(dest != exp[a]) & (dest != OUTSIDE)]:
+                        flows[a][b] += 1
+            if value is not None:
+                per_magnitude.append({"value": value, "verdict": worst,
+                                      "change_rate": _rate(m_moved, len(destinations)),
+                                      "leave_rate": _rate(m_left, len(destinations))})
+        class_entries, verdicts = {}, {}
+        for a in checked:
+            verdicts[a] = class_verdict(moved_n[a], left_n[a], n_by_class[a],
+                                        baseline_change[a], baseline_leave[a])
+            class_entries[classes[a]] = {
+                "verdict": verdicts[a],
+                "change_rate": _rate(moved_n[a], n_by_class[a]),
+                "leave_rate": _rate(left_n[a], n_by_class[a]),
+                "n": n_by_class[a],
+            }
+        overall = max(verdicts.values(), key=_RANK.get, default="safe")
+        n_total = sum(n_by_class.values())
+        moved_total, left_total = sum(moved_n.values()), sum(left_n.values())
+        swaps = [{"from": classes[a], "to": classes[b], "rate": _rate(int(flows[a][b]), n_by_class[a]),
+                  "n": int(flows[a][b])}
+                 for a in checked for b in range(len(classes)) if flows[a][b] > 0]
+        swaps.sort(key=lambda s: (-s["rate"], -s["n"], s["from"], s["to"]))
+        limit = None
+        if spec.magnitude is not None and per_magnitude:
+            per_magnitude.sort(key=lambda m: m["value"])
+            limit = safe_limit([m["value"] for m in per_magnitude],
+                               [m["verdict"] for m in per_magnitude], spec.identity)
+        if not checked:
+            warnings.append(f"transform {t_index} ({transform.op}) applies to no class of the data; "
+                            f"nothing to check")
+        sheet = None
+        if evidence_dir is not None and overall != "safe":
+            picked = _round_robin(examples, EVIDENCE_IMAGES)
+            if picked:
+                sheet = _write_evidence(evidence_dir, t_index, transform, overall, picked, images,
+                                        labels, classes)
+        report.append({
+            "index": t_index,
+            "op": transform.op,
+            "params": _json_params(transform),
+            "verdict": overall,
+            "change_rate": _rate(moved_total, n_total),
+            "change_rate_ci": _interval(moved_total, n_total),
+            "leave_rate": _rate(left_total, n_total),
+            "leave_rate_ci": _interval(left_total, n_total),
+            "n": n_total,
+            "swaps": swaps,
+            "classes": class_entries,
+            "magnitudes": per_magnitude,
+            "safe_limit": limit,
+            "suggestion": _suggestion(transform, checked, verdicts, flows, classes),
+            "evidence_sheet": sheet,
+        })
+
+    return {
+        "recipe": recipe.name,
+        "model": {"cv_accuracy": round(cv_accuracy, 4), "chance": round(chance, 4), "weak": weak},
+        "baseline": {classes[c]: {"change_rate": round(float(baseline_change[c]), 4),
+                                  "leave_rate": round(float(baseline_leave[c]), 4)}
+                     for c in range(len(classes))},
+        "transforms": report,
+        "warnings": warnings,
+        "decision_rule": DECISION_RULE,
+        "n_images": int(len(labels)),
+    }
+
+
+def _round_robin(groups, limit):
+    """Take items from each group in turn so a sheet spans the magnitudes."""
+    picked, position = [], 0
+    while len(picked) < limit and any(position < len(g) for g in groups):
+        for group in groups:
+            if position < len(group) and len(picked) < limit:
+                picked.append(group[position])
+        position += 1
+    return picked

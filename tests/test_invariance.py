@@ -1,0 +1,325 @@
+"""Tests of the label-safety checker (augplan/invariance.py).
+
+Outside references: scikit-learn's bundled digits (UCI optical recognition of
+handwritten digits, Alpaydin & Kaynak 1998), scikit-image's ``lfw_subset``
+(Labeled Faces in the Wild), scikit-learn's NearestNeighbors as an
+independent k-nearest-neighbour distance. Everything else is synthetic ground
+truth drawn here, where the right verdict is known by construction.
+"""
+
+import json
+
+import numpy as np
+import pytest
+from PIL import Image, ImageDraw
+
+from augplan.data import open_dataset
+from augplan.errors import BadInputError
+from augplan.invariance import (DECISION_RULE, check_recipe, class_distances, class_verdict,
+                                locate, safe_limit)
+from augplan.recipe import Recipe, Transform
+
+
+def _save(image, path):
+    path.parent.mkdir(parents=True, exist_ok=True)
+    Image.fromarray(image).save(path)
+
+
+def _add_val(root):
+    # A val/ folder keeps every train/ image in train (no split stands in).
+    for folder in sorted((root / "train").iterdir()):
+        first = sorted(folder.iterdir())[0]
+        target = root / "val" / folder.name / first.name
+        target.parent.mkdir(parents=True, exist_ok=True)
+        target.write_bytes(first.read_bytes())
+    return root
+
+
+# --------------------------------------------------------------------------
+# data sets written in the DATA layout
+
+
+@pytest.fixture(scope="module")
+def digits_root(tmp_path_factory):
+    """sklearn's digits (Alpaydin & Kaynak 1998) as 32x32 RGB PNGs, 60 per class."""
+    from sklearn.datasets import load_digits
+
+    digits = load_digits()
+    root = tmp_path_factory.mktemp("digits")
+    seen = {}
+    for image, target in zip(digits.images, digits.target):
+        count = seen.get(target, 0)
+        if count >= 60:
+            continue
+        seen[target] = count + 1
+        grey = Image.fromarray(np.round(image * 255 / 16).astype(np.uint8))
+        grey = np.asarray(grey.resize((32, 32), Image.Resampling.BILINEAR))
+        _save(np.repeat(grey[:, :, None], 3, axis=2), root / "train" / str(target) / f"{count:03d}.png")
+    return _add_val(root)
+
+
+@pytest.fixture(scope="module")
+def digits_report(digits_root):
+    recipe = Recipe(name="digits", transforms=(
+        Transform("rotate", {"degrees": 180}),
+        Transform("rotate", {"degrees": (-5, 5)}),
+        Transform("rotate", {"degrees": (-180, 180)}),
+    ))
+    return check_recipe(open_dataset(digits_root), recipe, size=32, seed=0)
+
+
+def _arrow(draw, cx, cy, size, facing, colour):
+    # A triangle with a stem: symmetric about its horizontal axis, so a
+    # vertical flip keeps it and a horizontal flip mirrors its direction.
+    s = facing * size
+    draw.polygon([(cx + s, cy), (cx, cy - size * 0.8), (cx, cy + size * 0.8)], fill=colour)
+    draw.rectangle([min(cx, cx - s), cy - size * 0.25, max(cx, cx - s), cy + size * 0.25], fill=colour)
+
+
+SYNTHETIC_HUES = {"red": 0.0, "green": 1 / 3, "blue": 2 / 3}
+
+
+@pytest.fixture(scope="module")
+def synthetic_root(tmp_path_factory):
+    """Mirror-image arrows, hue-coded discs and size-coded squares, 40 each."""
+    import colorsys
+
+    rng = np.random.default_rng(12)
+    root = tmp_path_factory.mktemp("synthetic")
+    for name in ["arrow-left", "arrow-right", *SYNTHETIC_HUES, "square-small", "square-large"]:
+        for i in range(40):
+            shade = int(rng.integers(200, 240))
+            canvas = Image.new("RGB", (32, 32), (shade, shade, shade))
+            draw = ImageDraw.Draw(canvas)
+            cx, cy = 16 + rng.uniform(-3, 3), 16 + rng.uniform(-3, 3)
+            ink = tuple(int(v) for v in rng.integers(20, 70, size=3))
+            if name.startswith("arrow"):
+                _arrow(draw, cx, cy, rng.uniform(7, 10), -1 if name == "arrow-left" else 1, ink)
+            elif name in SYNTHETIC_HUES:
+                h = (SYNTHETIC_HUES[name] + rng.uniform(-0.02, 0.02)) % 1.0
+                rgb = colorsys.hsv_to_rgb(h, rng.uniform(0.7, 1.0), rng.uniform(0.7, 1.0))
+                r = rng.uniform(7, 10)
+                draw.ellipse([cx - r, cy - r, cx + r, cy + r], fill=tuple(int(255 * v) for v in rgb))
+            else:
+                half = rng.uniform(3, 4.5) if name == "square-small" else rng.uniform(7, 9)
+                draw.rectangle([cx - half, cy - half, cx + half, cy + half], fill=ink)
+            _save(np.asarray(canvas), root / "train" / name / f"{i:03d}.png")
+    return _add_val(root)
+
+
+MIRROR = {"arrow-left": "arrow-right", "arrow-right": "arrow-left"}
+SYNTHETIC_RECIPE = Recipe(name="synthetic", transforms=(
+    Transform("flip", {"axis": "horizontal"}),
+    Transform("flip", {"axis": "vertical"}),
+    Transform("flip", {"axis": "horizontal"}, only=tuple(MIRROR), relabel=MIRROR),
+    Transform("hue", {"degrees": 120}, only=tuple(SYNTHETIC_HUES)),
+    Transform("hue", {"degrees": (-5, 5)}),
+    Transform("zoom", {"factor": 2.0}, only=("square-small", "square-large")),
+))
+
+
+@pytest.fixture(scope="module")
+def synthetic_dataset(synthetic_root):
+    return open_dataset(synthetic_root)
+
+
+@pytest.fixture(scope="module")
+def synthetic_report(synthetic_dataset, tmp_path_factory):
+    evidence = tmp_path_factory.mktemp("evidence")
+    return check_recipe(synthetic_dataset, SYNTHETIC_RECIPE, size=32, seed=0, evidence_dir=evidence)
+
+
+# --------------------------------------------------------------------------
+# building blocks
+
+
+def test_class_distances_match_sklearn_nearest_neighbors():
+    # Reference: scikit-learn's NearestNeighbors (an independent k-NN search).
+    from sklearn.neighbors import NearestNeighbors
+
+    rng = np.random.default_rng(0)
+    reference = rng.normal(size=(40, 6))
+    labels = np.repeat([0, 1], 20)
+    query = rng.normal(size=(7, 6))
+    got = class_distances(query, reference, labels, 2, k=3)
+    for c in range(2):
+        members = reference[labels == c]
+        distances, _ = NearestNeighbors(n_neighbors=3).fit(members).kneighbors(query)
+        np.testing.assert_allclose(got[:, c], distances.mean(axis=1), rtol=1e-10)
+
+
+def test_class_distances_exclude_the_source_image():
+    # A query equal to reference point 0 is at distance 0 from it; excluded,
+    # its nearest neighbours are the next ones (NearestNeighbors on the rest).
+    from sklearn.neighbors import NearestNeighbors
+
+    rng = np.random.default_rng(1)
+    reference = rng.normal(size=(10, 3))
+    labels = np.zeros(10, dtype=int)
+    got = class_distances(reference[:1], reference, labels, 1, k=3, exclude=np.array([0]))
+    distances, _ = NearestNeighbors(n_neighbors=3).fit(reference[1:]).kneighbors(reference[:1])
+    np.testing.assert_allclose(got[0, 0], distances.mean(), rtol=1e-10)
+    # Without the exclusion the zero distance to itself is counted.
+    assert class_distances(reference[:1], reference, labels, 1, k=3)[0, 0] < got[0, 0]
+
+
+def test_locate_picks_the_most_probable_region_or_outside():
+    ratios = np.array([[0.5, 0.9, 2.0], [1.5, 1.2, 3.0], [0.2, 2.0, 0.8]])
+    proba = np.array([[0.2, 0.7, 0.1], [0.9, 0.05, 0.05], [0.1, 0.1, 0.8]])
+    # Row 0: classes 0 and 1 hold it, 1 is more probable. Row 1: no region
+    # holds it although the classifier is sure of class 0. Row 2: class 2.
+    assert locate(ratios, proba).tolist() == [1, -1, 2]
+
+
+@pytest.mark.parametrize("moved, left, n, expected", [
+    (0, 0, 50, "safe"),
+    (40, 0, 50, "breaks"),
+    (0, 40, 50, "unverified"),
+    (10, 0, 50, "safe"),      # 20% moved: Wilson lower bound 0.11 < 0.05 + 0.10
+    (30, 30, 60, "breaks"),   # breaks wins over unverified
+], ids=["none", "moved", "left", "small-leak", "both"])
+def test_class_verdict_follows_the_wilson_rule(moved, left, n, expected):
+    assert class_verdict(moved, left, n, 0.05, 0.05) == expected
+
+
+@pytest.mark.parametrize("values, verdicts, identity, expected", [
+    ([-180, -90, 0, 90, 180], ["breaks", "unverified", "safe", "safe", "breaks"], 0, [0, 90]),
+    ([0.5, 1.0, 2.0], ["safe", "safe", "safe"], 1, [0.5, 2.0]),
+    ([180], ["breaks"], 0, None),
+    ([1.5, 2.0], ["safe", "breaks"], 1, [1.5, 1.5]),
+    ([], [], 0, None),
+], ids=["rotate", "all-safe", "fixed-breaks", "identity-outside-range", "no-magnitude"])
+def test_safe_limit_is_the_safe_run_around_identity(values, verdicts, identity, expected):
+    assert safe_limit(values, verdicts, identity) == expected
+
+
+# --------------------------------------------------------------------------
+# outside references
+
+
+def _transform(report, index):
+    entry = report["transforms"][index]
+    assert entry["index"] == index
+    return entry
+
+
+def test_digits_rotation_by_180_swaps_six_and_nine(digits_report):
+    # sklearn digits (Alpaydin & Kaynak 1998): a 6 turned half a turn reads as a 9.
+    entry = _transform(digits_report, 0)
+    assert entry["verdict"] == "breaks"
+    pairs = {(s["from"], s["to"]) for s in entry["swaps"]}
+    assert ("6", "9") in pairs and ("9", "6") in pairs
+    rates = [s["rate"] for s in entry["swaps"]]
+    assert rates == sorted(rates, reverse=True)
+    assert entry["safe_limit"] is None
+
+
+def test_digits_small_rotation_is_safe(digits_report):
+    entry = _transform(digits_report, 1)
+    assert entry["verdict"] == "safe", entry["classes"]
+    assert entry["safe_limit"] == [-5.0, 5.0]
+    assert digits_report["model"]["weak"] is False
+
+
+def test_digits_safe_limit_of_a_full_turn_is_narrower(digits_report):
+    entry = _transform(digits_report, 2)
+    assert entry["verdict"] != "safe"
+    low, high = entry["safe_limit"]
+    assert low <= 0.0 <= high and high - low < 360.0
+    assert [m["value"] for m in entry["magnitudes"]] == [-180.0, -90.0, 0.0, 90.0, 180.0]
+
+
+def test_lfw_faces_survive_a_horizontal_flip(tmp_path):
+    # skimage.data.lfw_subset(): 100 faces then 100 non-face patches (Labeled
+    # Faces in the Wild). A mirrored face is still a face (common practice,
+    # no source).
+    from skimage.data import lfw_subset
+
+    images = lfw_subset()
+    for i, image in enumerate(images):
+        grey = np.round(image * 255).astype(np.uint8)
+        name = "face" if i < 100 else "other"
+        _save(np.repeat(grey[:, :, None], 3, axis=2), tmp_path / "train" / name / f"{i:03d}.png")
+    recipe = Recipe(name="faces", transforms=(Transform("flip", {"axis": "horizontal"}),))
+    report = check_recipe(open_dataset(_add_val(tmp_path)), recipe, size=32)
+    assert report["transforms"][0]["classes"]["face"]["verdict"] == "safe"
+    assert report["transforms"][0]["classes"]["face"]["n"] == 100
+
+
+# --------------------------------------------------------------------------
+# synthetic ground truth
+
+
+def test_mirror_classes_break_under_horizontal_flip(synthetic_report):
+    entry = _transform(synthetic_report, 0)
+    assert entry["verdict"] == "breaks"
+    assert entry["classes"]["arrow-left"]["verdict"] == "breaks"
+    assert entry["classes"]["red"]["verdict"] == "safe"
+    pairs = {(s["from"], s["to"]) for s in entry["swaps"][:2]}
+    assert pairs == {("arrow-left", "arrow-right"), ("arrow-right", "arrow-left")}
+    assert entry["suggestion"]["relabel"] == MIRROR
+    assert entry["evidence_sheet"] is not None
+
+
+def test_vertical_flip_of_horizontally_symmetric_shapes_is_safe(synthetic_report):
+    entry = _transform(synthetic_report, 1)
+    assert entry["verdict"] == "safe", entry["classes"]
+    assert entry["suggestion"] is None and entry["evidence_sheet"] is None
+
+
+def test_flip_with_relabel_is_safe(synthetic_report):
+    entry = _transform(synthetic_report, 2)
+    assert entry["verdict"] == "safe", entry["classes"]
+    # The scope is respected: only the two arrow classes were checked.
+    assert sorted(entry["classes"]) == ["arrow-left", "arrow-right"]
+
+
+def test_hue_turn_of_a_third_breaks_hue_classes_in_a_cycle(synthetic_report):
+    entry = _transform(synthetic_report, 3)
+    assert entry["verdict"] == "breaks"
+    flows = {(s["from"], s["to"]) for s in entry["swaps"] if s["rate"] > 0.5}
+    # +120 degrees takes red to green, green to blue, blue to red.
+    assert flows == {("red", "green"), ("green", "blue"), ("blue", "red")}
+    assert entry["suggestion"]["relabel"] == {"blue": "red", "green": "blue", "red": "green"}
+
+
+def test_small_hue_shift_is_safe(synthetic_report):
+    entry = _transform(synthetic_report, 4)
+    assert entry["verdict"] == "safe", entry["classes"]
+    assert entry["safe_limit"] == [-5.0, 5.0]
+
+
+def test_zoom_by_two_turns_small_into_large(synthetic_report):
+    entry = _transform(synthetic_report, 5)
+    assert entry["verdict"] == "breaks"
+    assert entry["classes"]["square-small"]["verdict"] == "breaks"
+    assert entry["swaps"][0]["from"] == "square-small" and entry["swaps"][0]["to"] == "square-large"
+
+
+def test_report_is_plain_json_with_the_contract_fields(synthetic_report):
+    text = json.dumps(synthetic_report)
+    assert json.loads(text) == synthetic_report
+    assert synthetic_report["decision_rule"] == DECISION_RULE
+    assert synthetic_report["n_images"] == 7 * 40
+    entry = synthetic_report["transforms"][4]
+    assert entry["params"] == {"degrees": [-5.0, 5.0]}
+    low, high = entry["change_rate_ci"]
+    assert low <= entry["change_rate"] <= high
+
+
+def test_same_seed_same_report_for_any_worker_count(synthetic_dataset):
+    recipe = Recipe(name="small", transforms=SYNTHETIC_RECIPE.transforms[3:5])
+    one = check_recipe(synthetic_dataset, recipe, size=32, sample=20, seed=3)
+    again = check_recipe(synthetic_dataset, recipe, size=32, sample=20, seed=3)
+    two = check_recipe(synthetic_dataset, recipe, size=32, sample=20, seed=3, workers=2)
+    assert one == again == two
+    assert one["n_images"] == 7 * 20
+
+
+def test_too_few_images_is_bad_input(tmp_path):
+    for name in ("a", "b"):
+        for i in range(2):
+            _save(np.full((8, 8, 3), 40 * i, np.uint8), tmp_path / "train" / name / f"{i}.png")
+    recipe = Recipe(name="tiny", transforms=(Transform("flip", {"axis": "vertical"}),))
+    with pytest.raises(BadInputError, match="at least two classes"):
+        check_recipe(open_dataset(_add_val(tmp_path)), recipe, size=8)
