@@ -28,12 +28,16 @@ def write_bytes_atomic(path, data):
         The destination path.
     """
     path = Path(path)
+    # mkstemp creates 0600 files; give the output the permissions any new file gets.
+    umask = os.umask(0)
+    os.umask(umask)
     handle, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
         with os.fdopen(handle, "wb") as tmp:
             tmp.write(data)
             tmp.flush()
             os.fsync(tmp.fileno())
+        os.chmod(tmp_name, 0o666 & ~umask)
         os.replace(tmp_name, path)
     except BaseException:
         try:

@@ -286,6 +286,37 @@ def make_demo_dataset(root, *, seed=DEMO_SEED, n_train=36, n_val=15, n_field=18)
     return written
 
 
+DEFAULT_RECIPE_DIR = Path(__file__).resolve().parent.parent / "recipes"
+DEMO_RECIPES = ("naive-draft.yaml", "cautious.yaml", "light-and-pose.yaml")
+
+
+def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
+    """Vet the demo recipes on the demo scenario; the output folder is replaced.
+
+    Uses the committed ``demo_images/`` and ``recipes/`` of the repository.
+
+    Returns
+    -------
+    dict
+        The summary of `augplan.vet.vet_recipes`.
+    """
+    from .data import open_dataset
+    from .errors import BadInputError
+    from .recipe import read_recipe
+    from .vet import vet_recipes
+
+    paths = [DEFAULT_RECIPE_DIR / name for name in DEMO_RECIPES]
+    if not DEFAULT_DEMO_DIR.is_dir() or not all(path.is_file() for path in paths):
+        raise BadInputError(f"the demo needs {DEFAULT_DEMO_DIR} and the recipes in {DEFAULT_RECIPE_DIR}; "
+                            "run it from a checkout of the augplan repository")
+    dataset = open_dataset(DEFAULT_DEMO_DIR, seed=seed)
+    recipes = [read_recipe(path) for path in paths]
+    ledger = Path(out_dir).resolve().parent / ".augplan" / "ledger.sqlite"
+    ledger.parent.mkdir(parents=True, exist_ok=True)
+    return vet_recipes(dataset, recipes, out_dir, force=True, repeats=repeats, seed=seed, workers=workers,
+                       quiet=quiet, ledger_path=ledger, cache_dir=ledger.parent / "features")
+
+
 def main(argv=None):
     """Regenerate the demo images: ``python -m augplan.demo [OUTPUT_DIR]``.
 
