@@ -1,0 +1,174 @@
+"""The user's data and recipe are never modified, and an interrupted run keeps no partial output.
+
+Every command runs in-process (``augplan.cli.main``) on one tiny data set;
+each test hashes every file and folder under the data folder and the recipe
+before and after, and asserts they are identical and that nothing was
+created inside the data folder. Outputs go to a separate folder.
+"""
+
+import contextlib
+import hashlib
+import io
+from pathlib import Path
+from types import SimpleNamespace
+
+import pytest
+
+from augplan.cli import main
+from conftest import TINY_RECIPE, write_tiny_dataset
+
+
+def _snapshot(space):
+    """{relative path: sha256 or '<dir>'} for the data folder, plus the recipe's hash."""
+    entries = {}
+    for path in sorted(space.data.rglob("*")):
+        key = path.relative_to(space.data).as_posix()
+        entries[key] = "<dir>" if path.is_dir() else hashlib.sha256(path.read_bytes()).hexdigest()
+    entries["<recipe>"] = hashlib.sha256(space.recipe.read_bytes()).hexdigest()
+    return entries
+
+
+def _run(argv):
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main([str(a) for a in argv])
+    return int(code), out.getvalue(), err.getvalue()
+
+
+@pytest.fixture(scope="module")
+def space(tmp_path_factory):
+    root = tmp_path_factory.mktemp("untouched")
+    data = write_tiny_dataset(root / "DATA", train=5, val=3)
+    recipe = root / "recipe.yaml"
+    recipe.write_text(TINY_RECIPE, encoding="utf-8")
+    out = root / "out"
+    out.mkdir()
+    return SimpleNamespace(root=root, data=data, recipe=recipe, out=out, vet=None)
+
+
+def _vet_once(space):
+    """Run `vet` once per module (verify needs its output); returns (code, err, before, after)."""
+    if space.vet is None:
+        before = _snapshot(space)
+        code, _, err = _run(["vet", space.data, "--recipe", space.recipe, "-o", space.out / "vet",
+                             "--repeats", "2", "--sample", "3", "--quiet"])
+        space.vet = (code, err, before, _snapshot(space))
+    return space.vet
+
+
+COMMANDS = {
+    "preview": (lambda s: ["preview", s.data, "--recipe", s.recipe, "-o", s.out / "sheet.png",
+                           "--per-class", "1", "--draws", "1"], "sheet.png"),
+    "check": (lambda s: ["check", s.data, "--recipe", s.recipe, "--sample", "3", "--quiet", "--json",
+                         "--evidence", s.out / "evidence"], None),
+    "coverage": (lambda s: ["coverage", s.data, "--recipe", s.recipe, "--draws", "1", "--quiet", "--json",
+                            "--plots", s.out / "plots"], None),
+    # No --ledger: the default ledger and feature cache must land beside the data, not in it.
+    "evaluate": (lambda s: ["evaluate", s.data, "--recipe", s.recipe, "--repeats", "2", "--quiet",
+                            "--json"], None),
+    "draft": (lambda s: ["draft", s.data, "-o", s.out / "draft.yaml", "--quiet"], "draft.yaml"),
+    "history": (lambda s: ["history", s.data, "--json"], None),
+}
+
+
+@pytest.mark.parametrize("command", list(COMMANDS))
+def test_command_leaves_data_untouched(space, command):
+    build, output = COMMANDS[command]
+    before = _snapshot(space)
+    code, out, err = _run(build(space))
+    assert "Traceback" not in err
+    assert code in (0, 1), err
+    if output is not None:
+        assert (space.out / output).is_file()
+    else:
+        assert out.lstrip().startswith("{"), out  # the command ran to its JSON document
+    assert _snapshot(space) == before
+
+
+# vet.py is still being finished: its _collect_figures reads coverage "plots" as a
+# mapping while analyse_coverage returns a list (internal error, exit 3). Remove
+# this marker once vet runs end to end.
+_VET_IN_PROGRESS = pytest.mark.xfail(raises=AssertionError, strict=False,
+                                     reason="vet.py _collect_figures: 'list' object has no attribute 'items'")
+
+
+@_VET_IN_PROGRESS
+def test_vet_leaves_data_untouched(space):
+    code, err, before, after = _vet_once(space)
+    assert "Traceback" not in err
+    assert code in (0, 1), err
+    assert (space.out / "vet" / "report.html").is_file()
+    assert (space.out / "vet" / "vetted-recipe.yaml").is_file()
+    assert after == before
+
+
+@_VET_IN_PROGRESS
+def test_verify_leaves_data_untouched(space):
+    code, err, _, _ = _vet_once(space)
+    assert code in (0, 1), err
+    before = _snapshot(space)
+    code, out, err = _run(["verify", space.out / "vet" / "vetted-recipe.yaml", "--data", space.data])
+    assert "Traceback" not in err
+    assert code == 0, out + err  # same data as at vetting, checksum intact
+    assert _snapshot(space) == before
+
+
+def test_vet_refuses_output_inside_data(space):
+    before = _snapshot(space)
+    code, _, err = _run(["vet", space.data, "--recipe", space.recipe, "-o", space.data / "results",
+                         "--repeats", "2", "--sample", "3", "--quiet"])
+    assert code == 2
+    assert "inside the data folder" in err
+    assert _snapshot(space) == before
+
+
+def test_vet_refuses_non_empty_output_without_force(space, tmp_path):
+    out = tmp_path / "busy"
+    out.mkdir()
+    (out / "keep.txt").write_text("mine\n")
+    code, _, err = _run(["vet", space.data, "--recipe", space.recipe, "-o", out, "--repeats", "2",
+                         "--sample", "3", "--quiet"])
+    assert code == 2
+    assert "busy" in err and "--force" in err and "Traceback" not in err
+    assert sorted(p.name for p in out.iterdir()) == ["keep.txt"]
+
+
+# --------------------------------------------------------------------------
+# Ctrl-C
+
+
+def _interrupt(*args, **kwargs):
+    raise KeyboardInterrupt
+
+
+def _left_over(folder):
+    return sorted(p.relative_to(folder).as_posix() for p in Path(folder).rglob("*"))
+
+
+@pytest.mark.parametrize("step", ["evaluate_recipes", "render_report"])
+def test_interrupted_vet_keeps_no_partial_files(space, tmp_path, monkeypatch, step):
+    import augplan.report
+    import augplan.vet
+
+    # vet imports evaluate_recipes at module level and render_report on call.
+    monkeypatch.setattr(augplan.vet if step == "evaluate_recipes" else augplan.report, step, _interrupt)
+    out = tmp_path / "vet"
+    before = _snapshot(space)
+    code, _, err = _run(["vet", space.data, "--recipe", space.recipe, "-o", out, "--repeats", "2",
+                         "--sample", "3", "--quiet"])
+    assert code == 130
+    assert "interrupted" in err and "Traceback" not in err
+    left = _left_over(out) if out.exists() else []
+    assert not any(name.endswith((".html", ".yaml", ".json", ".tmp")) for name in left), left
+    assert left == []
+    assert _snapshot(space) == before
+
+
+def test_interrupted_atomic_write_leaves_nothing(tmp_path, monkeypatch):
+    # Ctrl-C in the middle of writing a file: neither the file nor its temporary remains.
+    import augplan.atomic
+
+    monkeypatch.setattr(augplan.atomic.os, "fsync", _interrupt)
+    with pytest.raises(KeyboardInterrupt):
+        augplan.atomic.write_text_atomic(tmp_path / "report.html", "<html></html>")
+    assert list(tmp_path.iterdir()) == []
