@@ -517,6 +517,9 @@ def _suggestion(name, original, labels, field_values, flagged, poorly_covered, s
         if name == "hue":
             suggestion["warning"] = ("hue may carry the class itself (ripeness, rust, stain): "
                                      "confirm with `augplan check` before adopting it")
+        else:
+            suggestion["warning"] = ("if orientation defines a class (arrows, laterality, "
+                                     "digits), rotation changes labels: confirm with `augplan check`")
         return suggestion, None
 
     reference = float(np.median(finite))
@@ -787,7 +790,8 @@ def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, w
     val_shares = [r["factor"] for r in flagged_rows if r["val"] is not None and r["val"] >= threshold]
     for row in flagged_rows:
         text = (f"{row['factor']} predicts the class in the original training set (balanced "
-                f"accuracy {row['original']:.2f}, chance {chance:.2f}): a likely shortcut.")
+                f"accuracy {row['original']:.2f}, chance {chance:.2f}): a shortcut unless it is "
+                f"the cue that defines the classes.")
         if row["persists"]:
             text += f" After augmentation it still does ({row['augmented']:.2f}): the recipe does not break the link."
         elif row["augmented"] is not None:
