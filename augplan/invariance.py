@@ -39,7 +39,8 @@ held-out baseline by more than 0.10; otherwise it is *unverified* when the
 Wilson 95% lower bound of the share that lands outside every region exceeds
 its baseline by more than 0.10; otherwise it is *safe*. A transform takes the
 worst verdict of its classes (breaks > unverified > safe), with the rates
-pooled over the magnitude grid. The safe limit applies the same rule at each
+pooled over the magnitude grid. When the feature model is weak (not clearly
+better than chance), nothing is called safe: safe becomes unverified. The safe limit applies the same rule at each
 grid value separately and reports the widest run of consecutive safe values
 around the identity magnitude.
 
@@ -91,7 +92,8 @@ DECISION_RULE = (
     "A class breaks when the Wilson 95% lower bound of the share of its transformed "
     "images that land in another class's region exceeds its held-out baseline by more "
     "than 0.10, is unverified when the same holds for the share that lands outside every "
-    "class's region, and is safe otherwise; a transform takes its worst class verdict."
+    "class's region, and is safe otherwise (unverified when the feature model is weak); a "
+    "transform takes its worst class verdict."
 )
 
 
@@ -172,7 +174,7 @@ def locate(ratios, probabilities):
     return np.where(inside.any(axis=1), destination, OUTSIDE)
 
 
-def class_verdict(moved, left, n, baseline_change, baseline_leave, margin=MARGIN):
+def class_verdict(moved, left, n, baseline_change, baseline_leave, margin=MARGIN, *, weak=False):
     """Verdict of one class from its counts (the module's decision rule).
 
     Parameters
@@ -183,6 +185,9 @@ def class_verdict(moved, left, n, baseline_change, baseline_leave, margin=MARGIN
     baseline_change, baseline_leave : float
         The same shares for the class's held-out originals.
     margin : float, default 0.10
+    weak : bool, default False
+        The feature model is too weak to vouch for anything: a class that
+        would be safe is unverified.
 
     Returns
     -------
@@ -195,7 +200,7 @@ def class_verdict(moved, left, n, baseline_change, baseline_leave, margin=MARGIN
         return "safe"
     if wilson_interval(moved, n)[0] > baseline_change + margin:
         return "breaks"
-    if wilson_interval(left, n)[0] > baseline_leave + margin:
+    if wilson_interval(left, n)[0] > baseline_leave + margin or weak:
         return "unverified"
     return "safe"
 
@@ -535,7 +540,8 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
                 dest = destinations[source_labels == a]
                 moved = int(np.sum((dest != exp[a]) & (dest != OUTSIDE)))
                 left = int(np.sum(dest == OUTSIDE))
-                verdict = class_verdict(moved, left, len(dest), baseline_change[a], baseline_leave[a])
+                verdict = class_verdict(moved, left, len(dest), baseline_change[a], baseline_leave[a],
+                                        weak=weak)
                 worst = max(worst, verdict, key=_RANK.get)
                 m_moved, m_left = m_moved + moved, m_left + left
                 if pooled:
@@ -551,7 +557,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         class_entries, verdicts = {}, {}
         for a in checked:
             verdicts[a] = class_verdict(moved_n[a], left_n[a], n_by_class[a],
-                                        baseline_change[a], baseline_leave[a])
+                                        baseline_change[a], baseline_leave[a], weak=weak)
             class_entries[classes[a]] = {
                 "verdict": verdicts[a],
                 "change_rate": _rate(moved_n[a], n_by_class[a]),
@@ -599,7 +605,8 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
 
     return {
         "recipe": recipe.name,
-        "model": {"cv_accuracy": round(cv_accuracy, 4), "chance": round(chance, 4), "weak": weak},
+        "model": {"cv_accuracy": round(cv_accuracy, 4) if math.isfinite(cv_accuracy) else None,
+                  "chance": round(chance, 4), "weak": weak},
         "baseline": {classes[c]: {"change_rate": round(float(baseline_change[c]), 4),
                                   "leave_rate": round(float(baseline_leave[c]), 4)}
                      for c in range(len(classes))},

@@ -20,6 +20,16 @@ from augplan.invariance import (DECISION_RULE, check_recipe, class_distances, cl
 from augplan.recipe import Recipe, Transform
 
 
+@pytest.fixture(scope="module", autouse=True)
+def one_blas_thread():
+    # The machine is shared: many BLAS threads per process thrash a small
+    # number of cores and cost several times the CPU of one thread.
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):
+        yield
+
+
 def _save(image, path):
     path.parent.mkdir(parents=True, exist_ok=True)
     Image.fromarray(image).save(path)
@@ -182,6 +192,11 @@ def test_class_verdict_follows_the_wilson_rule(moved, left, n, expected):
     assert class_verdict(moved, left, n, 0.05, 0.05) == expected
 
 
+def test_a_weak_model_vouches_for_nothing():
+    assert class_verdict(0, 0, 50, 0.05, 0.05, weak=True) == "unverified"
+    assert class_verdict(40, 0, 50, 0.05, 0.05, weak=True) == "breaks"
+
+
 @pytest.mark.parametrize("values, verdicts, identity, expected", [
     ([-180, -90, 0, 90, 180], ["breaks", "unverified", "safe", "safe", "breaks"], 0, [0, 90]),
     ([0.5, 1.0, 2.0], ["safe", "safe", "safe"], 1, [0.5, 2.0]),
@@ -258,7 +273,8 @@ def test_mirror_classes_break_under_horizontal_flip(synthetic_report):
     pairs = {(s["from"], s["to"]) for s in entry["swaps"][:2]}
     assert pairs == {("arrow-left", "arrow-right"), ("arrow-right", "arrow-left")}
     assert entry["suggestion"]["relabel"] == MIRROR
-    assert entry["evidence_sheet"] is not None
+    with Image.open(entry["evidence_sheet"]) as sheet:
+        assert sheet.format == "PNG" and sheet.width > 64
 
 
 def test_vertical_flip_of_horizontally_symmetric_shapes_is_safe(synthetic_report):
@@ -309,11 +325,11 @@ def test_report_is_plain_json_with_the_contract_fields(synthetic_report):
 
 def test_same_seed_same_report_for_any_worker_count(synthetic_dataset):
     recipe = Recipe(name="small", transforms=SYNTHETIC_RECIPE.transforms[3:5])
-    one = check_recipe(synthetic_dataset, recipe, size=32, sample=20, seed=3)
-    again = check_recipe(synthetic_dataset, recipe, size=32, sample=20, seed=3)
-    two = check_recipe(synthetic_dataset, recipe, size=32, sample=20, seed=3, workers=2)
+    one = check_recipe(synthetic_dataset, recipe, size=32, sample=12, seed=3)
+    again = check_recipe(synthetic_dataset, recipe, size=32, sample=12, seed=3)
+    two = check_recipe(synthetic_dataset, recipe, size=32, sample=12, seed=3, workers=2)
     assert one == again == two
-    assert one["n_images"] == 7 * 20
+    assert one["n_images"] == 7 * 12
 
 
 def test_too_few_images_is_bad_input(tmp_path):

@@ -1,0 +1,107 @@
+"""Benchmark of the label-safety checker (augplan.invariance.check_recipe).
+
+A 5-transform recipe on 1,000 synthetic 64x64 images in 10 classes, written
+to a temporary folder in the DATA layout. Prints wall time, CPU time and
+peak resident memory of this process and its worker processes.
+
+Target (issue 3): under 30 s on 2 cores and under 1 GB.
+
+    .venv/bin/python benchmarks/bench_check.py [--workers 2] [--images 1000]
+"""
+
+import argparse
+import colorsys
+import resource
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+from PIL import Image, ImageDraw
+
+from augplan.data import open_dataset
+from augplan.invariance import check_recipe
+from augplan.recipe import parse_recipe
+
+RECIPE = """
+name: bench
+transforms:
+  - op: flip
+    axis: horizontal
+  - op: rotate
+    degrees: [-15, 15]
+  - op: zoom
+    factor: [0.9, 1.2]
+  - op: brightness
+    factor: [0.7, 1.4]
+  - op: hue
+    degrees: [-10, 10]
+"""
+
+
+def write_images(root, n_images, n_classes, rng):
+    """Classes differ by shape (ellipse, box, triangle, ...) and hue."""
+    per_class = n_images // n_classes
+    for c in range(n_classes):
+        for i in range(per_class):
+            canvas = Image.new("RGB", (64, 64), tuple(int(v) for v in rng.integers(150, 230, 3)))
+            draw = ImageDraw.Draw(canvas)
+            hue = (c / n_classes + rng.uniform(-0.02, 0.02)) % 1.0
+            ink = tuple(int(255 * v) for v in colorsys.hsv_to_rgb(hue, 0.8, rng.uniform(0.5, 0.9)))
+            cx, cy, r = 32 + rng.uniform(-6, 6), 32 + rng.uniform(-6, 6), rng.uniform(12, 18)
+            if c % 3 == 0:
+                draw.ellipse([cx - r, cy - r, cx + r, cy + r * 0.6], fill=ink)
+            elif c % 3 == 1:
+                draw.rectangle([cx - r, cy - r * 0.5, cx + r, cy + r * 0.5], fill=ink)
+            else:
+                draw.polygon([(cx, cy - r), (cx - r, cy + r), (cx + r, cy + r)], fill=ink)
+            split = "val" if i == 0 else "train"
+            path = root / split / f"class-{c}" / f"{i:04d}.png"
+            path.parent.mkdir(parents=True, exist_ok=True)
+            canvas.save(path)
+    # val/ keeps one image per class apart; train/ holds the rest.
+    return n_classes * (per_class - 1)
+
+
+def peak_rss_mb(who):
+    # ru_maxrss is in kilobytes on Linux.
+    return resource.getrusage(who).ru_maxrss / 1024
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--images", type=int, default=1010)
+    parser.add_argument("--classes", type=int, default=10)
+    args = parser.parse_args(argv)
+    rng = np.random.default_rng(0)
+    with tempfile.TemporaryDirectory() as folder:
+        root = Path(folder) / "data"
+        n_train = write_images(root, args.images, args.classes, rng)
+        dataset = open_dataset(root)
+        recipe = parse_recipe(RECIPE)
+        wall, cpu = time.perf_counter(), time.process_time()
+        report = check_recipe(dataset, recipe, workers=args.workers, size=64)
+        wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
+    # Worker processes are kept alive for reuse; stop them so their CPU time
+    # and peak memory show up in the children's resource usage.
+    from joblib.externals.loky import get_reusable_executor
+
+    get_reusable_executor().shutdown(wait=True)
+    children = resource.getrusage(resource.RUSAGE_CHILDREN)
+    print(f"images checked: {report['n_images']} (train {n_train}) in {args.classes} classes, "
+          f"{len(recipe.transforms)} transforms, workers={args.workers}")
+    print(f"wall time: {wall:.1f} s; CPU time: this process {cpu:.1f} s, "
+          f"workers {children.ru_utime + children.ru_stime:.1f} s")
+    print(f"peak memory: this process {peak_rss_mb(resource.RUSAGE_SELF):.0f} MB, "
+          f"largest worker {peak_rss_mb(resource.RUSAGE_CHILDREN):.0f} MB")
+    for entry in report["transforms"]:
+        print(f"  {entry['index']} {entry['op']:<10} {entry['verdict']:<10} "
+              f"change {entry['change_rate']:.3f} leave {entry['leave_rate']:.3f} "
+              f"limit {entry['safe_limit']}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
