@@ -1,0 +1,252 @@
+"""Tests of the recipe evaluator on scikit-learn's digits (UCI optdigits).
+
+The data: scikit-learn's bundled copy of the UCI optical recognition of
+handwritten digits test set (8x8 grey images), upsampled to 32x32 RGB PNGs in
+a temporary DATA layout with 15 training images per class, 30 validation
+images and 10 labelled field images per class.
+"""
+
+import hashlib
+import json
+import time
+
+import numpy as np
+import pytest
+from PIL import Image
+
+import augplan.transforms as transforms
+from augplan import ledger
+from augplan.data import load_images, open_dataset
+from augplan.errors import BadInputError
+from augplan.evaluate import evaluate_recipes
+from augplan.features import FeatureModel, image_features
+from augplan.recipe import Recipe, Transform
+
+SIZE = 32
+PER_CLASS = {"train": 15, "val": 30, "field": 10}
+
+FLIPS = Recipe(name="flips", copies=4, transforms=(
+    Transform("flip", {"axis": "horizontal"}, probability=0.5),
+    Transform("flip", {"axis": "vertical"}, probability=0.5),
+))
+SMALL_AFFINE = Recipe(name="small-affine", copies=4, transforms=(
+    Transform("rotate", {"degrees": (-8.0, 8.0)}),
+    Transform("shift", {"fraction": (-0.06, 0.06)}),
+))
+
+
+def _write_digits(root):
+    from sklearn.datasets import load_digits
+
+    digits = load_digits()
+    rng = np.random.default_rng(0)
+    for digit in range(10):
+        indices = rng.permutation(np.flatnonzero(digits.target == digit))
+        start = 0
+        for split, count in PER_CLASS.items():
+            folder = root / split / f"d{digit}"
+            folder.mkdir(parents=True)
+            for index in indices[start:start + count]:
+                # 0..16 ink levels -> white paper, dark ink, as on a scanned form.
+                grey = (255 - digits.images[index] * (255 / 16)).astype(np.uint8)
+                image = Image.fromarray(grey).resize((SIZE, SIZE), Image.Resampling.BILINEAR)
+                image.convert("RGB").save(folder / f"{index}.png")
+            start += count
+
+
+@pytest.fixture(scope="module")
+def digits_data(tmp_path_factory):
+    root = tmp_path_factory.mktemp("digits") / "DATA"
+    _write_digits(root)
+    return open_dataset(root)
+
+
+@pytest.fixture(scope="module")
+def cache_dir(tmp_path_factory):
+    return tmp_path_factory.mktemp("cache")
+
+
+@pytest.fixture(scope="module")
+def comparison(digits_data, cache_dir):
+    return evaluate_recipes(digits_data, [FLIPS, SMALL_AFFINE], repeats=3, size=SIZE, seed=0,
+                            cache_dir=cache_dir)
+
+
+def _by_name(document):
+    return {entry["name"]: entry for entry in document["recipes"]}
+
+
+def test_flips_lose_accuracy_on_digits(comparison):
+    # Flipping digits makes 2/5, 6/9-like confusions and mirror shapes absent
+    # from real handwriting (UCI optdigits via scikit-learn): the gain
+    # interval must lie entirely below zero and the recipe be flagged.
+    flips = _by_name(comparison)["flips"]
+    assert flips["gain"] < 0
+    assert flips["gain_ci"][1] < 0
+    assert flips["flagged"] is True
+
+
+def test_small_affine_distortions_do_not_lose_on_digits(comparison):
+    # Simard, Steinkraus & Platt (ICDAR 2003) report lower error on
+    # handwritten digits with small affine distortions; with 15 images per
+    # class we require at least that the loss is not significant.
+    affine = _by_name(comparison)["small-affine"]
+    assert affine["gain_ci"][1] > 0
+    assert affine["flagged"] is False
+    assert affine["gain"] > _by_name(comparison)["flips"]["gain"]
+
+
+def test_document_shape_and_consistency(comparison):
+    assert comparison["augmented_validation_images"] == 0
+    assert comparison["scored_on"] == "val"
+    assert comparison["repeats"] == 3
+    assert comparison["from_ledger"] is False
+    baseline = comparison["baseline"]
+    assert baseline["n_images"] == 10 * PER_CLASS["val"]
+    low, high = baseline["accuracy_ci"]
+    assert low <= baseline["accuracy"] <= high
+    # The pooled accuracy is the mean of the per-repeat accuracies (equal n).
+    assert baseline["accuracy"] == pytest.approx(np.mean(baseline["repeat_accuracy"]), abs=1e-5)
+    for entry in comparison["recipes"]:
+        assert entry["gain"] == pytest.approx(entry["accuracy"] - baseline["accuracy"], abs=1e-5)
+        assert entry["gain_ci"][0] <= entry["gain"] <= entry["gain_ci"][1]
+        assert 0 <= entry["p_value"] <= entry["p_holm"] <= 1
+        for label, gain in entry["per_class_gain"].items():
+            expected = entry["per_class_recall"][label] - baseline["per_class_recall"][label]
+            assert gain == pytest.approx(expected, abs=1e-5)
+        # Originals plus copies draws of each of the 150 training images, per repeat.
+        assert entry["augmented_training_images"] == 3 * 4 * 10 * PER_CLASS["train"]
+        # The labelled field sample is a second, separate source.
+        assert entry["field"]["n_images"] == 10 * PER_CLASS["field"]
+    assert comparison["field"]["baseline"]["n_images"] == 10 * PER_CLASS["field"]
+    assert comparison["confirm"] is None
+    assert all(entry["confirm"] is None for entry in comparison["recipes"])
+
+
+def test_validation_images_never_reach_a_transform(digits_data, cache_dir, monkeypatch):
+    seen = []
+    real = transforms.OPS["rotate"]
+
+    def recording_rotate(image, params, rng):
+        seen.append(hashlib.sha256(np.ascontiguousarray(image).tobytes()).hexdigest())
+        return real.function(image, params, rng)
+
+    monkeypatch.setitem(transforms.OPS, "rotate", transforms.OpSpec(
+        "rotate", recording_rotate, real.magnitude, real.identity,
+        log_scale=real.log_scale, geometric=real.geometric))
+    recipe = Recipe(name="recorded", copies=1, transforms=(Transform("rotate", {"degrees": (-5.0, 5.0)}),))
+    document = evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, cache_dir=cache_dir)
+
+    def hashes(split):
+        images = load_images(digits_data.split(split), SIZE)
+        return {hashlib.sha256(np.ascontiguousarray(im).tobytes()).hexdigest() for im in images}
+
+    # Every training image was drawn once (copies=1), each seen by the recorder.
+    assert hashes("train") <= set(seen)
+    assert len(seen) == 10 * PER_CLASS["train"]
+    assert not hashes("val") & set(seen)
+    assert not hashes("field") & set(seen)
+    assert document["augmented_validation_images"] == 0
+
+
+def test_same_seed_gives_identical_json_across_worker_counts(digits_data, cache_dir):
+    recipe = Recipe(name="affine-2", copies=2, transforms=SMALL_AFFINE.transforms)
+    texts = [json.dumps(evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=3,
+                                         workers=workers, cache_dir=cache_dir), sort_keys=True)
+             for workers in (1, 1, 2)]
+    assert texts[0] == texts[1] == texts[2]
+    other_seed = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=4,
+                                  cache_dir=cache_dir)
+    assert json.dumps(other_seed, sort_keys=True) != texts[0]
+
+
+def test_ledger_reuses_stored_results_and_lists_history(digits_data, cache_dir, tmp_path):
+    path = tmp_path / "ledger.sqlite"
+    recipe = Recipe(name="affine-ledger", copies=2, transforms=SMALL_AFFINE.transforms)
+    started = time.perf_counter()
+    first = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, cache_dir=cache_dir,
+                             ledger_path=path)
+    computed = time.perf_counter() - started
+    started = time.perf_counter()
+    second = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, cache_dir=cache_dir,
+                              ledger_path=path)
+    reused = time.perf_counter() - started
+    assert first["from_ledger"] is False and second["from_ledger"] is True
+    assert {**first, "from_ledger": True} == second
+    assert reused < computed / 5
+    # A different seed is a different key: computed afresh.
+    third = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=1,
+                             cache_dir=cache_dir, ledger_path=path)
+    assert third["from_ledger"] is False
+    from augplan.data import fingerprint
+
+    history = ledger.list_history(path, fingerprint=fingerprint(digits_data))
+    assert [row["recipes"] for row in history] == [["affine-ledger"]] * 3
+    assert [row["from_ledger"] for row in history] == [False, True, False]
+    assert history[0]["best_gain"] == pytest.approx(first["recipes"][0]["gain"])
+    assert ledger.list_history(path, fingerprint="0" * 64) == []
+
+
+_featurised_rows = []
+
+
+def counting_features(images):
+    _featurised_rows.append(len(images))
+    return image_features(images)
+
+
+def test_feature_cache_spares_originals_on_rerun(digits_data, tmp_path):
+    model = FeatureModel(feature_fn=counting_features)
+    recipe = Recipe(name="affine-cache", copies=1, transforms=SMALL_AFFINE.transforms)
+    n_originals = len(digits_data.records)
+    n_augmented = 10 * PER_CLASS["train"]
+
+    _featurised_rows.clear()
+    evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, model=model, cache_dir=tmp_path)
+    assert sum(_featurised_rows) == n_originals + n_augmented
+    _featurised_rows.clear()
+    evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, model=model, cache_dir=tmp_path)
+    # Only the augmented draws are featurised again.
+    assert sum(_featurised_rows) == n_augmented
+
+
+def test_many_recipes_without_confirmation_warn(digits_data, cache_dir):
+    # Recipes without transforms train on originals only: cheap stand-ins.
+    plain = [Recipe(name=f"plain-{i}", seed=i) for i in range(4)]
+    document = evaluate_recipes(digits_data, plain, repeats=1, size=SIZE, cache_dir=cache_dir)
+    assert any("overfits the validation set" in w for w in document["warnings"])
+    assert document["confirm"] is None
+
+    confirmed = evaluate_recipes(digits_data, plain, repeats=1, size=SIZE, cache_dir=cache_dir,
+                                 confirm_fraction=0.3)
+    assert not any("overfits" in w for w in confirmed["warnings"])
+    confirm = confirmed["confirm"]
+    # 30 val images per class, 30% of each class set aside: 9 per class.
+    assert confirm["n_images"] == 90
+    assert confirmed["baseline"]["n_images"] == 210
+    assert confirm["recipe"] in {r.name for r in plain}
+    chosen = [e for e in confirmed["recipes"] if e["confirm"] is not None]
+    assert [e["name"] for e in chosen] == [confirm["recipe"]]
+
+
+@pytest.mark.parametrize("kwargs, fault", [
+    ({"repeats": 0}, "--repeats"),
+    ({"confirm_fraction": 1.5}, "--confirm-fraction"),
+    ({"workers": 0}, "--workers"),
+], ids=["no-repeats", "fraction-above-one", "no-workers"])
+def test_bad_settings_are_named(digits_data, cache_dir, kwargs, fault):
+    with pytest.raises(BadInputError, match=fault):
+        evaluate_recipes(digits_data, [FLIPS], size=SIZE, cache_dir=cache_dir, **kwargs)
+
+
+def test_bad_recipe_lists_are_refused(digits_data, cache_dir):
+    with pytest.raises(BadInputError, match="no recipe"):
+        evaluate_recipes(digits_data, [], cache_dir=cache_dir)
+    with pytest.raises(BadInputError, match="unique"):
+        evaluate_recipes(digits_data, [FLIPS, FLIPS], cache_dir=cache_dir)
+
+
+def test_cache_inside_data_folder_is_refused(digits_data):
+    with pytest.raises(BadInputError, match="inside the data folder"):
+        evaluate_recipes(digits_data, [FLIPS], size=SIZE, repeats=1,
+                         cache_dir=digits_data.root / ".cache")
