@@ -25,6 +25,8 @@ from pathlib import Path
 __all__ = ["render_report", "embed_png"]
 
 _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+# Pairs listed in full; a long list is summarised (evidence.json keeps all).
+_LEAKS_SHOWN = 25
 _DASH = "\u2013"
 # The word is printed beside the colour so the badge reads in greyscale print.
 _BADGE = {
@@ -54,6 +56,8 @@ p, li { max-width: 60rem; }
 nav ol { margin: .2rem 0; padding-left: 1.4rem; columns: 2; max-width: 44rem; }
 .scroll { overflow-x: auto; margin: .5rem 0 1rem; }
 table { border-collapse: collapse; font-size: .9rem; min-width: 28rem; }
+table.wide { width: 100%; }
+.swap { display: inline-block; min-width: 12rem; }
 th, td { border: 1px solid var(--rule); padding: .3rem .5rem; text-align: left; vertical-align: top; }
 th { background: var(--soft); font-weight: 600; }
 td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
@@ -167,9 +171,9 @@ def _badge(verdict):
     return f'<span class="badge {css}">{_e(mark)} {_e(word)}</span>'
 
 
-def _table(header, rows, *, numeric=(), row_classes=None, caption=None):
+def _table(header, rows, *, numeric=(), row_classes=None, caption=None, wide=False):
     """A table inside a horizontally scrolling wrapper; cells are already HTML."""
-    parts = ['<div class="scroll"><table>']
+    parts = ['<div class="scroll"><table class="wide">' if wide else '<div class="scroll"><table>']
     if caption:
         parts.append(f"<caption class=\"note\">{caption}</caption>")
     parts.append("<thead><tr>")
@@ -273,7 +277,7 @@ def _head(evidence):
         meta.append(f"<span>recommended: <strong>{_e(evidence.get('best'))}</strong> (vetted)</span>")
     return ("<header><h1>augplan vet: augmentation recipe report</h1>"
             f'<p class="verdict" id="verdict">{_e(verdict)}</p>'
-            f'<p class="meta">{"".join(meta)}</p></header>')
+            f'<p class="meta">{" ".join(meta)}</p></header>')
 
 
 def _cautions(evidence):
@@ -305,15 +309,15 @@ def _transform_text(step, fallback):
     return f"<strong>{_e(op)}</strong>" + (f" <span class=\"note\">{_e(text)}</span>" if text else "")
 
 
-def _swaps_text(swaps, limit=3):
+def _swaps_text(swaps, limit=2):
     swaps = [s for s in (swaps or []) if isinstance(s, dict)]
     if not swaps:
         return _DASH
     parts = []
     for swap in swaps[:limit]:
         n = f", n={swap['n']}" if _is_number(swap.get("n")) else ""
-        parts.append(f"{_e(swap.get('from', '?'))} \u2192 {_e(swap.get('to', '?'))} "
-                     f"{_percent(swap.get('rate'))}{n}")
+        parts.append(f"<span class=\"swap\">{_e(swap.get('from', '?'))} \u2192 {_e(swap.get('to', '?'))} "
+                     f"{_percent(swap.get('rate'))}{n}</span>")
     more = f"<br><span class=\"note\">and {len(swaps) - limit} more</span>" if len(swaps) > limit else ""
     return "<br>".join(parts) + more
 
@@ -335,7 +339,8 @@ def _vetting_text(change, suggestion):
         action = change.get("action") or _DASH
         detail = change.get("detail")
         parts.append(f"<strong>{_e(action)}</strong>" + (f": {_e(detail)}" if detail else ""))
-    if isinstance(suggestion, dict) and suggestion:
+    applied = change and change.get("action") in ("relabel", "scope")
+    if isinstance(suggestion, dict) and suggestion and not applied:
         said = "; ".join(f"{k} {_value_text(v)}" for k, v in suggestion.items())
         parts.append(f"<span class=\"note\">checker suggests {_e(said)}</span>")
     return "<br>".join(parts) or _DASH
@@ -385,9 +390,9 @@ def _check_section(entry, number, base_dir):
         row_classes.append("")
     if rows:
         out.append(_table(
-            ["#", "transform", "verdict", "moved to another class (95% CI)",
-             "left every class (95% CI)", "main swaps", "safe limit", "what vetting did"],
-            rows, numeric=(0, 3, 4), row_classes=row_classes))
+            ["#", "transform", "verdict", "moved to another class<br>(95% CI)",
+             "left every class<br>(95% CI)", "main swaps", "safe limit", "what vetting did"],
+            rows, numeric=(0, 3, 4), row_classes=row_classes, wide=True))
     else:
         out.append('<p class="note">The check recorded no transforms.</p>')
     if check.get("decision_rule"):
@@ -401,10 +406,12 @@ def _check_section(entry, number, base_dir):
                    '<p class="note">Each pair shows an original and the transformed image; the caption '
                    "says its class and where the transformed image landed (another class, or outside "
                    "every class).</p>")
+        out.append('<div class="plots">')
         for transform in sheets:
             caption = (f"transform {transform.get('index', '?')} ({transform.get('op', '?')}): "
                        f"{transform.get('verdict', 'unknown')}")
             out.append(_figure(transform["evidence_sheet"], caption, f"evidence sheet, {caption}", base_dir))
+        out.append("</div>")
 
     out.append(_vetted_block(vetted))
     out.append("</section>")
@@ -597,10 +604,11 @@ def _field_coverage(field):
         rest = {k: v for k, v in field.items() if k not in ("before", "after")}
     else:
         rest = field
-    scalars = [(k, v) for k, v in rest.items() if not isinstance(v, (dict, list))]
+    words = {"k": "neighbours (k)", "sample_size": "training images sampled", "reference": "measured from"}
+    scalars = [(k, v) for k, v in rest.items() if not isinstance(v, (dict, list)) and v is not None]
     if scalars:
-        out.append("<p class=\"note\">" + "; ".join(f"{_e(k)}: {_number(v) if _is_number(v) else _e(v)}"
-                                                   for k, v in scalars) + "</p>")
+        out.append("<p class=\"note\">" + "; ".join(
+            f"{_e(words.get(k, k))}: {_number(v) if _is_number(v) else _e(v)}" for k, v in scalars) + "</p>")
     return "".join(out)
 
 
@@ -749,10 +757,19 @@ def _data_notes(evidence):
     if leaks:
         out.append('<p class="warn">These images appear in two splits: a model is scored on images it was '
                    "trained on, which inflates every score. Remove one copy of each pair.</p>")
+        tally = {}
+        for leak in leaks:
+            key = (str(leak.get("kind", "?")), " / ".join(str(s) for s in leak.get("splits") or []))
+            tally[key] = tally.get(key, 0) + 1
+        out.append("<p>" + "; ".join(f"{n} {_e(kind)} {'pair' if n == 1 else 'pairs'} across {_e(splits)}"
+                                     for (kind, splits), n in sorted(tally.items())) + ".</p>")
         rows = [[_e(leak.get("kind", "?")), f"<code>{_e(leak.get('a', '?'))}</code>",
                  f"<code>{_e(leak.get('b', '?'))}</code>", _e(" / ".join(str(s) for s in leak.get("splits") or [])),
-                 _number(leak.get("distance"))] for leak in leaks]
+                 _number(leak.get("distance"))] for leak in leaks[:_LEAKS_SHOWN]]
         out.append(_table(["kind", "image", "copy", "splits", "hash distance (of 64 bits)"], rows, numeric=(4,)))
+        if len(leaks) > _LEAKS_SHOWN:
+            out.append(f'<p class="note">The first {_LEAKS_SHOWN} of {len(leaks)} pairs; evidence.json lists '
+                       "them all.</p>")
     else:
         out.append("<p>None found (exact copies and near copies by perceptual hash).</p>")
     out.append("</section>")

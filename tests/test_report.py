@@ -435,3 +435,13 @@ def test_null_and_non_finite_numbers_print_as_dashes(tmp_path):
 def test_a_document_that_is_not_a_dict_is_refused():
     with pytest.raises(TypeError, match="dict"):
         render_report([("verdict", "x")])
+
+
+def test_a_long_leak_list_is_summarised(tmp_path):
+    evidence = _evidence(tmp_path)
+    evidence["data"]["leaks"] = [{"kind": "near", "a": f"train/a/{i}.png", "b": f"val/a/{i}.png",
+                                  "splits": ["train", "val"], "distance": 4} for i in range(60)]
+    page = _parse(render_report(evidence))
+    assert len(page.table_with("splits")) == 1 + 25
+    assert "60 near pairs across train / val" in page.all_text
+    assert "first 25 of 60 pairs" in page.all_text
