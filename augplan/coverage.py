@@ -61,6 +61,7 @@ __all__ = [
     "factor_wasserstein",
     "naeem_density_coverage",
     "shortcut_threshold",
+    "shortcut_scores",
     "shortcut_score",
     "summarise_factor",
     "analyse_coverage",
@@ -77,12 +78,21 @@ KNN_LIMIT = 5000
 _CHUNK = 32
 ALL_FACTORS = "all factors"
 
+# With more than two classes, a factor that tells one class from all the
+# others this well is flagged even when the overall score is low; stricter
+# than the two-class 0.75 because every class gets a try (common practice,
+# no source).
+ONE_VS_REST_THRESHOLD = 0.9
+
 SHORTCUT_RULE = (
     "A factor is flagged as a shortcut when its cross-validated balanced accuracy "
     "on the original training set reaches chance + 0.5 x (1 - chance), halfway from "
-    "chance to perfect (0.75 for two classes); it persists when the augmented "
-    "training set still reaches that level. The all-factors row is for information "
-    "only and never flagged: classes may differ in colour or shape legitimately."
+    "chance to perfect (0.75 for two classes), or, with more than two classes, when "
+    "it tells one class from the rest with a one-vs-rest balanced accuracy of at "
+    "least 0.9; it persists when the augmented training set still meets the same "
+    "test, and the validation split shares it when val meets it. The all-factors "
+    "row is for information only and never flagged: classes may differ in colour "
+    "or shape legitimately."
 )
 
 
@@ -245,7 +255,7 @@ def shortcut_threshold(n_classes):
     return chance + 0.5 * (1.0 - chance)
 
 
-def shortcut_score(features, labels, *, groups=None, seed=0, folds=5):
+def shortcut_scores(features, labels, *, groups=None, seed=0, folds=5):
     """Cross-validated balanced accuracy of predicting ``labels`` from ``features``.
 
     Parameters
@@ -262,10 +272,12 @@ def shortcut_score(features, labels, *, groups=None, seed=0, folds=5):
 
     Returns
     -------
-    float or None
-        Balanced accuracy [1]_ of out-of-fold predictions of a logistic
-        regression (L2, C=1) on standardised features; None when fewer than two
-        classes or fewer than two images in the smallest class.
+    (float or None, dict of str -> float)
+        The balanced accuracy [1]_ of out-of-fold predictions of a logistic
+        regression (L2, C=1) on standardised features, and per class the
+        balanced accuracy of "this class or not" read from the same
+        predictions (one-vs-rest). ``(None, {})`` when there are fewer than
+        two classes or fewer than two images in the smallest class.
 
     References
     ----------
@@ -282,7 +294,7 @@ def shortcut_score(features, labels, *, groups=None, seed=0, folds=5):
     labels = np.asarray(labels)
     names, counts = np.unique(labels, return_counts=True)
     if names.size < 2:
-        return None
+        return None, {}
     if groups is not None:
         # A class's smallest number of distinct source images bounds the folds.
         smallest = min(np.unique(np.asarray(groups)[labels == name]).size for name in names)
@@ -290,7 +302,7 @@ def shortcut_score(features, labels, *, groups=None, seed=0, folds=5):
         smallest = int(counts.min())
     n_splits = min(folds, smallest)
     if n_splits < 2:
-        return None
+        return None, {}
     if groups is None:
         splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=seed)
     else:
@@ -303,7 +315,15 @@ def shortcut_score(features, labels, *, groups=None, seed=0, folds=5):
         # predictions are still the separating ones.
         warnings.simplefilter("ignore")
         predicted = cross_val_predict(model, features, labels, cv=splitter, groups=groups)
-    return float(balanced_accuracy_score(labels, predicted))
+    overall = float(balanced_accuracy_score(labels, predicted))
+    per_class = {str(name): float(balanced_accuracy_score(labels == name, predicted == name))
+                 for name in names}
+    return overall, per_class
+
+
+def shortcut_score(features, labels, *, groups=None, seed=0, folds=5):
+    """The overall score of `shortcut_scores` (a float, or None when it cannot be scored)."""
+    return shortcut_scores(features, labels, groups=groups, seed=seed, folds=folds)[0]
 
 
 def _factor_columns(values, names):
@@ -762,44 +782,82 @@ def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, w
     n_classes = len(dataset.classes) if dataset.classes else len(set(train_labels))
     chance = 1.0 / max(n_classes, 1)
     threshold = shortcut_threshold(max(n_classes, 1))
-    val_labels = np.array([r.label for r in val_records]) if val_records else None
-    field_label_array = np.array([r.label for r in field_records]) if field_labelled else None
+    sets = {"original": (original, train_labels, None),
+            "augmented": (augmented, augmented_labels, groups)}
+    if val is not None:
+        sets["val"] = (val, np.array([r.label for r in val_records]), None)
+    if field_labelled:
+        sets["field"] = (field_values, np.array([r.label for r in field_records]), None)
     shortcuts = []
     for name in names + [ALL_FACTORS]:
         chosen = names if name == ALL_FACTORS else [name]
-        row = {"factor": name,
-               "original": _number(shortcut_score(_factor_columns(original, chosen), train_labels,
-                                                  seed=seed)),
-               "augmented": _number(shortcut_score(_factor_columns(augmented, chosen),
-                                                   augmented_labels, groups=groups, seed=seed)),
-               "val": (_number(shortcut_score(_factor_columns(val, chosen), val_labels, seed=seed))
-                       if val is not None else None),
-               "field": (_number(shortcut_score(_factor_columns(field_values, chosen),
-                                                field_label_array, seed=seed))
-                         if field_labelled else None),
-               "chance": _number(chance)}
+        row = {"factor": name}
+        by_class = {}
+        for set_name in ("original", "augmented", "val", "field"):
+            if set_name not in sets:
+                row[set_name] = None
+                continue
+            values, labels, set_groups = sets[set_name]
+            overall, per_class = shortcut_scores(_factor_columns(values, chosen), labels,
+                                                 groups=set_groups, seed=seed)
+            row[set_name] = _number(overall)
+            by_class[set_name] = {c: _number(v) for c, v in per_class.items()}
+        row["chance"] = _number(chance)
         combined = name == ALL_FACTORS
-        flagged = not combined and row["original"] is not None and row["original"] >= threshold
+        # With more than two classes a factor can single out one class while
+        # the overall score stays low: the one-vs-rest scores catch that.
+        driver = None
+        if n_classes > 2 and by_class.get("original"):
+            best = max(by_class["original"], key=lambda c: (by_class["original"][c], c))
+            if by_class["original"][best] >= ONE_VS_REST_THRESHOLD:
+                driver = best
+
+        def meets(set_name):
+            if row.get(set_name) is None:
+                return False
+            if row[set_name] >= threshold:
+                return True
+            score = by_class.get(set_name, {}).get(driver) if driver else None
+            return score is not None and score >= ONE_VS_REST_THRESHOLD
+
+        flagged = not combined and (meets("original") or driver is not None)
         row["flagged"] = bool(flagged)
-        row["persists"] = bool(flagged and row["augmented"] is not None
-                               and row["augmented"] >= threshold)
+        row["persists"] = bool(flagged and meets("augmented"))
+        row["val_shares"] = bool(flagged and meets("val"))
+        row["class"] = driver if flagged else None
+        row["by_class"] = by_class
         row["combined"] = combined
         shortcuts.append(row)
 
     flagged_rows = [r for r in shortcuts if r["flagged"]]
-    val_shares = [r["factor"] for r in flagged_rows if r["val"] is not None and r["val"] >= threshold]
+    val_shares = [r["factor"] for r in flagged_rows if r["val_shares"]]
+
+    def score_text(row, set_name):
+        if row["class"] is not None and row["by_class"].get(set_name, {}).get(row["class"]) is not None:
+            return f"{row['by_class'][set_name][row['class']]:.2f} for {row['class']} vs the rest"
+        return f"{row[set_name]:.2f}"
+
     for row in flagged_rows:
-        text = (f"{row['factor']} predicts the class in the original training set (balanced "
-                f"accuracy {row['original']:.2f}, chance {chance:.2f}): a shortcut unless it is "
+        what = (f"singles out {row['class']}" if row["class"] is not None and row["original"] < threshold
+                else "predicts the class")
+        text = (f"{row['factor']} {what} in the original training set (balanced accuracy "
+                f"{score_text(row, 'original')}; chance {chance:.2f}): a shortcut unless it is "
                 f"the cue that defines the classes.")
         if row["persists"]:
-            text += f" After augmentation it still does ({row['augmented']:.2f}): the recipe does not break the link."
+            text += (f" After augmentation it still does ({score_text(row, 'augmented')}): the "
+                     f"recipe does not break the link.")
         elif row["augmented"] is not None:
-            text += f" After augmentation it falls to {row['augmented']:.2f}: the recipe breaks the link."
+            text += (f" After augmentation it falls to {score_text(row, 'augmented')}: the recipe "
+                     f"breaks the link.")
         messages.append(text)
-        if row["field"] is not None and row["field"] < threshold:
-            messages.append(f"In the labelled field sample {row['factor']} does not predict the "
-                            f"class ({row['field']:.2f}): a model leaning on it will fail there.")
+        if row["field"] is not None:
+            in_field = row["field"] >= threshold or (
+                row["class"] is not None
+                and (row["by_class"].get("field", {}).get(row["class"]) or 0) >= ONE_VS_REST_THRESHOLD)
+            if not in_field:
+                messages.append(f"In the labelled field sample {row['factor']} does not carry the "
+                                f"class ({score_text(row, 'field')}): a model leaning on it will "
+                                f"fail there.")
     if val_shares:
         messages.append(
             f"The validation split carries the same shortcut ({', '.join(val_shares)}): a "
@@ -810,7 +868,8 @@ def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, w
     suggestions = []
     sample_images = None
     for name in names:
-        is_flagged = any(r["factor"] == name for r in flagged_rows)
+        # A shortcut the recipe already breaks needs no further suggestion.
+        is_flagged = any(r["factor"] == name and r["persists"] for r in flagged_rows)
         if not (is_flagged or name in poorly_covered):
             continue
         if name == "sharpness" and sample_images is None:

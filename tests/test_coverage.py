@@ -99,6 +99,17 @@ def test_shortcut_score_of_a_perfect_and_a_useless_feature():
     assert coverage.shortcut_threshold(2) == 0.75
 
 
+def test_one_vs_rest_scores_single_out_one_class_among_three():
+    # Invented ground truth: class "c" sits far from "a" and "b", which overlap.
+    rng = np.random.default_rng(6)
+    labels = np.repeat(["a", "b", "c"], 30)
+    feature = np.where(labels == "c", 5.0, 0.0) + rng.normal(0, 1.0, 90)
+    overall, per_class = coverage.shortcut_scores(feature[:, None], labels)
+    assert per_class["c"] > 0.95
+    assert max(per_class["a"], per_class["b"]) < 0.8
+    assert overall < coverage.shortcut_threshold(3) + 0.1
+
+
 # ---------------------------------------------- ground truth: a lighting shortcut
 
 LIT, DIM = 0.25, 0.05  # linear-light background levels, a factor of 5 apart
