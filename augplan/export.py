@@ -10,6 +10,7 @@ edited one.
 import dataclasses
 import hashlib
 import json
+import math
 import os
 import time
 
@@ -30,6 +31,10 @@ def creation_date():
     return time.strftime("%Y-%m-%d", time.gmtime(seconds))
 
 
+def _range_text(pair):
+    return f"[{pair[0]:.3g}, {pair[1]:.3g}]"
+
+
 def _intersect(range_pair, limit):
     low, high = range_pair
     return (max(low, limit[0]), min(high, limit[1]))
@@ -43,7 +48,9 @@ def _clip_to_limit(step, check_entry):
     limit = check_entry.get("safe_limit")
     if magnitude is None or limit is None:
         return None
-    clipped = _intersect(step.params[magnitude], limit)
+    low, high = _intersect(step.params[magnitude], limit)
+    # Round inward to 3 decimals: the clipped range never exceeds what was measured safe.
+    clipped = (math.ceil(low * 1000 - 1e-9) / 1000, math.floor(high * 1000 + 1e-9) / 1000)
     if clipped[0] > clipped[1]:
         return None
     return dataclasses.replace(step, params={**step.params, magnitude: clipped})
@@ -88,7 +95,8 @@ def vet_transforms(recipe, check_result, *, approve=()):
         action, new_step, detail = "keep", step, ""
         if verdict == "breaks" and "relabel" in suggestion and step.relabel is None:
             relabel = suggestion["relabel"]
-            action, detail = "relabel", f"label follows the image: {relabel}"
+            pairs = ", ".join(f"{a} -> {b}" for a, b in sorted(relabel.items()))
+            action, detail = "relabel", f"label follows the image: {pairs}"
             new_step = dataclasses.replace(step, relabel=relabel)
         elif verdict == "breaks" and "only" in suggestion and suggestion["only"]:
             only = tuple(suggestion["only"])
@@ -100,14 +108,14 @@ def vet_transforms(recipe, check_result, *, approve=()):
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {entry['safe_limit']}"
+                detail = f"clipped to the safe limit {_range_text(entry['safe_limit'])}"
             else:
                 action, new_step, detail = "remove", None, f"removed: {verdict}"
         else:
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {entry['safe_limit']}"
+                detail = f"clipped to the safe limit {_range_text(entry['safe_limit'])}"
         if new_step is not None:
             kept.append(new_step)
         changes.append({"index": index, "op": step.op, "verdict": verdict, "action": action,

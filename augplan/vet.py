@@ -1,0 +1,206 @@
+"""The whole job: check, coverage and evaluation of recipes, then report and vetted export.
+
+Every output is computed first and written last, each file atomically, so an
+interrupted run leaves the output folder without partial files.
+"""
+
+import json
+import tempfile
+from pathlib import Path
+
+from . import __version__
+from .atomic import write_bytes_atomic, write_text_atomic
+from .cautions import CAUTIONS
+from .coverage import analyse_coverage
+from .data import find_duplicates, fingerprint
+from .errors import BadInputError
+from .evaluate import evaluate_recipes
+from .export import creation_date, vet_transforms, vetted_text
+from .invariance import check_recipe
+from .recipe import recipe_hash, recipe_to_dict
+
+__all__ = ["vet_recipes", "prepare_output"]
+
+
+def prepare_output(out_dir, *, force=False):
+    """Create ``out_dir``; refuse an existing non-empty one unless ``force``."""
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise BadInputError(f"{out_dir}: exists and is not a folder; choose another output folder.")
+    if out_dir.is_dir() and any(out_dir.iterdir()) and not force:
+        raise BadInputError(f"{out_dir}: the output folder is not empty; pass --force to write into it "
+                            "or choose another folder.")
+    if not out_dir.parent.is_dir():
+        raise BadInputError(f"{out_dir}: its parent folder {out_dir.parent} does not exist.")
+    out_dir.mkdir(exist_ok=True)
+    return out_dir
+
+
+def _inside(path, folder):
+    try:
+        Path(path).resolve().relative_to(Path(folder).resolve())
+        return True
+    except ValueError:
+        return False
+
+
+def _collect_figures(entries, scratch):
+    """Read the evidence sheets and plots out of the scratch folder.
+
+    Their paths in the entries are rewritten to ``figures/<name>`` inside the
+    output folder, where they are written with the other outputs.
+    """
+    figures = {}
+    for number, entry in enumerate(entries):
+        for transform in entry["check"]["transforms"]:
+            sheet = transform.get("evidence_sheet")
+            if sheet and Path(sheet).is_file():
+                name = f"{number}-{entry['name']}-transform-{transform['index']}.png"
+                figures[name] = Path(sheet).read_bytes()
+                transform["evidence_sheet"] = f"figures/{name}"
+        plots = entry["coverage"].get("plots") or []
+        for position, plot in enumerate(plots):
+            if plot and Path(plot).is_file():
+                name = f"{number}-{entry['name']}-{Path(plot).name}"
+                figures[name] = Path(plot).read_bytes()
+                plots[position] = f"figures/{name}"
+    return figures
+
+
+def _vetted_name(recipe):
+    return f"{recipe.name}-vetted"
+
+
+def _verdict_sentence(recipe_entries, evaluation, best):
+    changed = [entry for entry in recipe_entries if not entry["vetted"]["unchanged"]]
+    parts = []
+    if changed:
+        names = ", ".join(entry["name"] for entry in changed)
+        parts.append(f"augplan had to change {names} to make {'it' if len(changed) == 1 else 'them'} "
+                     "label-safe")
+    else:
+        parts.append("every transform of every recipe kept its labels")
+    if best is not None:
+        gain = best["gain"]
+        low, high = best["gain_ci"]
+        parts.append(f"the recommended recipe is {best['name']} (validation gain {gain:+.3f}, "
+                     f"95% CI [{low:+.3f}, {high:+.3f}] over no augmentation)")
+    return "; ".join(parts) + "."
+
+
+def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5, sample=None, seed=0,
+                workers=1, quiet=True, ledger_path=None, cache_dir=None):
+    """Vet recipes end to end and write the report, vetted recipes and evidence.
+
+    Parameters
+    ----------
+    dataset : augplan.data.Dataset
+    recipes : list of augplan.recipe.Recipe
+        Distinct names.
+    out_dir : str or Path
+        Created; an existing non-empty folder needs ``force``.
+    approve : tuple of int
+        Indices of unverified transforms a person approved (applies to every recipe).
+    repeats, sample, seed, workers, quiet, ledger_path, cache_dir
+        Passed to the check, coverage and evaluation steps.
+
+    Returns
+    -------
+    dict
+        ``{"verdict", "report", "vetted_recipe", "evidence", "unchanged", "best"}``.
+    """
+    from .report import render_report
+
+    if _inside(out_dir, dataset.root):
+        raise BadInputError(f"{out_dir}: the output folder lies inside the data folder {dataset.root}; "
+                            "augplan never writes into the data. Choose another folder.")
+    out_dir = prepare_output(out_dir, force=force)
+    data_fingerprint = fingerprint(dataset)
+    leaks = find_duplicates(dataset)
+    created = creation_date()
+
+    with tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
+        scratch = Path(scratch)
+        entries, vetted_recipes = [], []
+        for number, recipe in enumerate(recipes):
+            check = check_recipe(dataset, recipe, sample=sample, seed=seed, workers=workers, quiet=quiet,
+                                 evidence_dir=scratch / f"evidence-{number}")
+            coverage = analyse_coverage(dataset, recipe, seed=seed, workers=workers, quiet=quiet,
+                                        plots_dir=scratch / f"plots-{number}")
+            vetted, changes = vet_transforms(recipe, check, approve=approve)
+            unchanged = vetted.transforms == recipe.transforms
+            if not unchanged:
+                vetted = vetted.__class__(name=_vetted_name(recipe), seed=vetted.seed, copies=vetted.copies,
+                                          fill=vetted.fill, transforms=vetted.transforms)
+            rechecked = None
+            if any(change["action"] in ("relabel", "scope") for change in changes):
+                # A rewrite was suggested by the checker but not itself measured: measure it.
+                rechecked = check_recipe(dataset, vetted, sample=sample, seed=seed, workers=workers,
+                                         quiet=quiet)
+            entries.append({"name": recipe.name, "source": recipe.source, "recipe": recipe_to_dict(recipe),
+                            "recipe_hash": recipe_hash(recipe), "check": check, "coverage": coverage,
+                            "vetted": {"name": vetted.name, "recipe": recipe_to_dict(vetted),
+                                       "changes": changes, "unchanged": unchanged, "recheck": rechecked}})
+            vetted_recipes.append(vetted)
+
+        to_score = list(recipes) + [v for v, e in zip(vetted_recipes, entries) if not e["vetted"]["unchanged"]]
+        evaluation = evaluate_recipes(dataset, to_score, repeats=repeats, seed=seed, workers=workers,
+                                      quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir)
+        scores = {row["name"]: row for row in evaluation["recipes"]}
+
+        best_entry, best_vetted = None, None
+        for entry, vetted in zip(entries, vetted_recipes):
+            score = scores[vetted.name]
+            entry["vetted"]["score"] = score
+            if best_entry is None or score["gain"] > best_entry["vetted"]["score"]["gain"]:
+                best_entry, best_vetted = entry, vetted
+
+        documents = {}
+        for entry, vetted in zip(entries, vetted_recipes):
+            score = entry["vetted"]["score"]
+            evidence = {
+                "augplan_version": __version__,
+                "created": created,
+                "data_fingerprint": data_fingerprint,
+                "vetted_from": {"name": entry["name"], "recipe_hash": entry["recipe_hash"]},
+                "model": {"cv_accuracy": entry["check"]["model"]["cv_accuracy"]},
+                "verdicts": [{"index": t["index"], "op": t["op"], "verdict": t["verdict"],
+                              "change_rate": t["change_rate"], "change_rate_ci": t["change_rate_ci"]}
+                             for t in entry["check"]["transforms"]],
+                "changes": [f"{c['index']} {c['op']}: {c['action']}" + (f" ({c['detail']})" if c["detail"] else "")
+                            for c in entry["vetted"]["changes"]],
+                "validation": {"scored_on": evaluation["scored_on"], "gain": score["gain"],
+                               "gain_ci": score["gain_ci"], "p_holm": score["p_holm"],
+                               "repeats": evaluation["repeats"]},
+                "seeds": {"analysis": seed, "recipe": vetted.seed},
+            }
+            documents[f"vetted-{entry['name']}.yaml"] = vetted_text(vetted, evidence)
+        documents["vetted-recipe.yaml"] = documents[f"vetted-{best_entry['name']}.yaml"]
+
+        verdict = _verdict_sentence(entries, evaluation, best_entry["vetted"]["score"])
+        evidence_document = {
+            "augplan_version": __version__, "created": created, "verdict": verdict,
+            "data": {"root": str(dataset.root), "fingerprint": data_fingerprint, "classes": list(dataset.classes),
+                     "counts": {split: len(dataset.split(split)) for split in ("train", "val", "test", "field")},
+                     "val_from_train": dataset.val_from_train, "split_seed": dataset.split_seed,
+                     "skipped": [list(item) for item in dataset.skipped], "leaks": leaks},
+            "recipes": entries, "evaluation": evaluation, "best": best_entry["name"],
+            "cautions": list(CAUTIONS), "seed": seed,
+        }
+        html = render_report(evidence_document)
+        figures = _collect_figures(entries, scratch)
+        # Everything is computed: now write, each file atomically.
+        evidence_text = json.dumps(evidence_document, indent=2, allow_nan=False, default=str)
+        for name, text in documents.items():
+            write_text_atomic(out_dir / name, text)
+        if figures:
+            (out_dir / "figures").mkdir(exist_ok=True)
+            for name, data in figures.items():
+                write_bytes_atomic(out_dir / "figures" / name, data)
+        write_text_atomic(out_dir / "evidence.json", evidence_text + "\n")
+        write_text_atomic(out_dir / "report.html", html)
+
+    unchanged = all(entry["vetted"]["unchanged"] for entry in entries)
+    return {"verdict": verdict, "report": str(out_dir / "report.html"),
+            "vetted_recipe": str(out_dir / "vetted-recipe.yaml"), "evidence": str(out_dir / "evidence.json"),
+            "unchanged": unchanged, "best": best_entry["name"]}
