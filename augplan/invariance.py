@@ -22,11 +22,16 @@ Method
    (k-fold with one image per fold): ``t_c`` is the 95th percentile of
    ``d_c`` over the originals of ``c``. The ratio ``r_c = d_c / t_c`` is at
    most 1 inside class ``c``'s region.
-4. An image is *outside* when ``min_c r_c > 1``. Otherwise its destination
-   is, among the classes whose region holds it (``r_c <= 1``), the one the
-   classifier gives the highest probability. The held-out originals
-   themselves (the identity transform) give each class's baseline rates of
-   landing in another class and of landing outside.
+4. A class change needs two witnesses: an image of expected class ``A``
+   *moves* to ``B != A`` only when the classifier's most probable class is
+   ``B`` and ``B``'s region holds it (``r_B <= 1``). Otherwise it is *kept*
+   when some region holds it and either the classifier still picks ``A`` or
+   ``A``'s region holds it; else it is *outside*. A broad class whose region
+   overlaps others therefore cannot swallow images the classifier places
+   elsewhere, and a classifier that changes its mind on an image no region
+   confirms cannot call it moved. The held-out originals themselves (the
+   identity transform) give each class's baseline rates of moving and of
+   landing outside.
 5. Each transform runs with probability 1 on every sampled original of each
    class in its scope, at each value of `augplan.transforms.magnitude_grid`
    (a flip once). The expected class is ``relabel.get(A, A)``.
@@ -152,8 +157,12 @@ def class_distances(query, reference, reference_labels, n_classes, *, k=NEIGHBOU
     return out
 
 
-def locate(ratios, probabilities):
-    """Destination class of each image, or -1 when it lies outside every region.
+def locate(ratios, probabilities, expected):
+    """Destination class of each image, or -1 when nothing in the data vouches for one.
+
+    A class change needs the classifier and the geometry to agree; where
+    they disagree, an image keeps its expected class if either of them
+    still vouches for it, and is outside otherwise.
 
     Parameters
     ----------
@@ -161,17 +170,30 @@ def locate(ratios, probabilities):
         ``r_c = d_c / t_c``; at most 1 inside class ``c``'s region.
     probabilities : numpy.ndarray, shape (M, C)
         Classifier probabilities in the same class order.
+    expected : numpy.ndarray of int, shape (M,)
+        Class each image should still belong to.
 
     Returns
     -------
     numpy.ndarray of int, shape (M,)
-        Among the classes whose region holds the image, the one with the
-        highest probability; -1 when no region holds it.
+        With ``b`` the classifier's most probable class:
+
+        - ``b`` when ``b``'s region holds the image (both agree);
+        - else ``expected`` when some region holds the image and either the
+          classifier picks ``expected`` or ``expected``'s region holds it;
+        - else -1 (outside): no region holds it, or the classifier points to
+          a class whose region does not hold it while the expected class's
+          region does not either.
     """
+    ratios = np.asarray(ratios)
+    expected = np.asarray(expected)
+    rows = np.arange(len(ratios))
+    best = np.argmax(probabilities, axis=1)
     inside = ratios <= 1.0
-    masked = np.where(inside, probabilities, -np.inf)
-    destination = np.argmax(masked, axis=1)
-    return np.where(inside.any(axis=1), destination, OUTSIDE)
+    in_any = inside.any(axis=1)
+    agree = inside[rows, best]
+    keeps = in_any & ((best == expected) | inside[rows, expected])
+    return np.where(agree, best, np.where(keeps, expected, OUTSIDE))
 
 
 def class_verdict(moved, left, n, baseline_change, baseline_leave, margin=MARGIN, *, weak=False):
@@ -290,7 +312,8 @@ def _run_unit(context, unit):
     features = model.featurize(moved_images)
     proba = _probabilities(model, features, context["classes"])
     ratios = context["geometry"].ratios(features, sources)
-    destinations = locate(ratios, proba)
+    expected = context["expected"][transform_index][context["labels"][sources]]
+    destinations = locate(ratios, proba, expected)
     examples = []
     if context["evidence"]:
         expected = context["expected"][transform_index]
@@ -482,7 +505,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
 
     geometry = _Geometry(features, labels, len(classes), seed)
     base_proba = _probabilities(model, features, classes)
-    base_dest = locate(geometry.held_out_ratios, base_proba)
+    base_dest = locate(geometry.held_out_ratios, base_proba, labels)
     baseline_change = np.array([np.mean((base_dest[labels == c] != c) & (base_dest[labels == c] != OUTSIDE))
                                 for c in range(len(classes))])
     baseline_leave = np.array([np.mean(base_dest[labels == c] == OUTSIDE) for c in range(len(classes))])

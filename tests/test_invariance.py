@@ -173,12 +173,17 @@ def test_class_distances_exclude_the_source_image():
     assert class_distances(reference[:1], reference, labels, 1, k=3)[0, 0] < got[0, 0]
 
 
-def test_locate_picks_the_most_probable_region_or_outside():
-    ratios = np.array([[0.5, 0.9, 2.0], [1.5, 1.2, 3.0], [0.2, 2.0, 0.8]])
-    proba = np.array([[0.2, 0.7, 0.1], [0.9, 0.05, 0.05], [0.1, 0.1, 0.8]])
-    # Row 0: classes 0 and 1 hold it, 1 is more probable. Row 1: no region
-    # holds it although the classifier is sure of class 0. Row 2: class 2.
-    assert locate(ratios, proba).tolist() == [1, -1, 2]
+@pytest.mark.parametrize("ratios, proba, expected, destination", [
+    ([0.5, 0.9, 2.0], [0.2, 0.7, 0.1], 0, 1),    # classifier and region agree on 1: moved
+    ([1.5, 1.2, 3.0], [0.9, 0.05, 0.05], 0, -1),  # no region holds it: outside
+    ([1.5, 2.0, 0.8], [0.9, 0.05, 0.05], 0, 0),   # classifier keeps 0, a region holds it: kept
+    ([0.8, 2.0, 2.0], [0.1, 0.8, 0.1], 0, 0),     # classifier says 1, only 0's region holds it: kept
+    ([1.5, 2.0, 0.8], [0.1, 0.8, 0.1], 0, -1),    # classifier says 1, region says 2: outside
+    ([1.5, 0.9, 0.8], [0.1, 0.3, 0.6], 1, 2),     # agreement on 2 against expected 1: moved
+], ids=["agree-moved", "outside", "classifier-keeps", "region-keeps", "disagree", "agree-other"])
+def test_locate_needs_two_witnesses_for_a_move(ratios, proba, expected, destination):
+    got = locate(np.array([ratios]), np.array([proba]), np.array([expected]))
+    assert got.tolist() == [destination]
 
 
 @pytest.mark.parametrize("moved, left, n, expected", [
