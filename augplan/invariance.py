@@ -319,8 +319,15 @@ def _run_unit(context, unit):
         expected = context["expected"][transform_index]
         labels = context["labels"]
         off = [row for row, src in enumerate(sources) if destinations[row] != expected[labels[src]]]
-        # Moved images first: they are the clearest evidence of a broken label.
-        off.sort(key=lambda row: (destinations[row] == OUTSIDE, row))
+        # Moved images first (the clearest evidence of a broken label), then
+        # the classes taken in turn so one class does not fill the sheet.
+        seen = {}
+        rank = {}
+        for row in off:
+            key = (destinations[row] == OUTSIDE, labels[sources[row]])
+            rank[row] = seen.get(key, 0)
+            seen[key] = rank[row] + 1
+        off.sort(key=lambda row: (destinations[row] == OUTSIDE, rank[row], row))
         examples = [(int(sources[row]), int(destinations[row]), moved_images[row])
                     for row in off[:EVIDENCE_IMAGES]]
     return destinations, examples

@@ -344,3 +344,28 @@ def test_too_few_images_is_bad_input(tmp_path):
     recipe = Recipe(name="tiny", transforms=(Transform("flip", {"axis": "vertical"}),))
     with pytest.raises(BadInputError, match="at least two classes"):
         check_recipe(open_dataset(_add_val(tmp_path)), recipe, size=8)
+
+
+def test_demo_draft_is_flagged_and_gentle_steps_pass():
+    # The bundled demo scenario (augplan/demo.py) is synthetic ground truth:
+    # mirror-image chevrons and glazes told apart only by hue.
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent.parent / "demo_images"
+    if not (root / "train").is_dir():
+        pytest.skip("demo_images/ is not in this checkout")
+    recipe = Recipe(name="demo", transforms=(
+        Transform("flip", {"axis": "horizontal"}),
+        Transform("hue", {"degrees": (-150, 150)}),
+        Transform("flip", {"axis": "vertical"}),
+        Transform("contrast", {"factor": (0.9, 1.1)}),
+        Transform("blur", {"sigma": (0, 0.6)}),
+    ))
+    report = check_recipe(open_dataset(root), recipe, seed=0)
+    flip, hue = report["transforms"][0], report["transforms"][1]
+    assert flip["verdict"] == "breaks"
+    assert {(s["from"], s["to"]) for s in flip["swaps"][:2]} == {
+        ("chevron-left", "chevron-right"), ("chevron-right", "chevron-left")}
+    assert hue["verdict"] == "breaks"
+    assert hue["swaps"][0]["from"] == "glaze-amber" and hue["swaps"][0]["to"] == "glaze-teal"
+    assert [entry["verdict"] for entry in report["transforms"][2:]] == ["safe"] * 3
