@@ -39,15 +39,16 @@ Method
 Decision rule
 -------------
 A class *breaks* when the Wilson 95% lower bound of the share of its
-transformed images that land in another class's region exceeds that class's
+transformed images that move to another class (step 4) exceeds that class's
 held-out baseline by more than 0.10; otherwise it is *unverified* when the
-Wilson 95% lower bound of the share that lands outside every region exceeds
-its baseline by more than 0.10; otherwise it is *safe*. A transform takes the
-worst verdict of its classes (breaks > unverified > safe), with the rates
-pooled over the magnitude grid. When the feature model is weak (not clearly
-better than chance), nothing is called safe: safe becomes unverified. The safe limit applies the same rule at each
-grid value separately and reports the widest run of consecutive safe values
-around the identity magnitude.
+Wilson 95% lower bound of the share that lands outside exceeds its baseline
+by more than 0.10; otherwise it is *safe*. When the feature model is weak
+(not clearly better than chance) nothing is called safe: safe becomes
+unverified. A transform takes the worst verdict of its classes (breaks >
+unverified > safe), with the rates pooled over the magnitude grid. The safe
+limit applies the same rule at each grid value separately (worst class at
+that value) and reports the widest run of consecutive safe grid values
+around the identity magnitude (or the grid value nearest to it).
 
 References
 ----------
@@ -95,8 +96,9 @@ _RANK = {"safe": 0, "unverified": 1, "breaks": 2}
 
 DECISION_RULE = (
     "A class breaks when the Wilson 95% lower bound of the share of its transformed "
-    "images that land in another class's region exceeds its held-out baseline by more "
-    "than 0.10, is unverified when the same holds for the share that lands outside every "
+    "images that land in another class's region (and are classified as that class) exceeds "
+    "its held-out baseline by more than 0.10, is unverified when the same holds for the "
+    "share that lands outside every "
     "class's region, and is safe otherwise (unverified when the feature model is weak); a "
     "transform takes its worst class verdict."
 )
@@ -448,7 +450,10 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     -------
     dict
         The ``check --json`` document (see DESIGN.md); ``decision_rule``
-        states the rule in the module docstring.
+        states the rule in the module docstring. Beyond the contract fields,
+        ``baseline`` holds each class's held-out rates, and each transform
+        carries ``n`` (images judged, pooled) and ``magnitudes`` (value,
+        verdict, change and leave rate at each grid value).
 
     Raises
     ------
