@@ -48,6 +48,16 @@ def _common(parser, *, data=True, json_flag=True):
     parser.add_argument("--traceback", action="store_true", help="show the traceback of an unexpected error")
 
 
+def _positive_int(text):
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1; got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1; got {value}")
+    return value
+
+
 def _workers(parser):
     parser.add_argument("--workers", type=int, default=1,
                         help="parallel worker processes (default 1; -1 uses every core)")
@@ -64,14 +74,14 @@ def _build_parser():
     _common(p, json_flag=False)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
     p.add_argument("-o", "--output", required=True, type=Path, help="PNG file to write")
-    p.add_argument("--per-class", type=int, default=3, help="images per class (default 3)")
-    p.add_argument("--draws", type=int, default=5, help="augmented draws per image (default 5)")
+    p.add_argument("--per-class", type=_positive_int, default=3, help="images per class (default 3)")
+    p.add_argument("--draws", type=_positive_int, default=5, help="augmented draws per image (default 5)")
 
     p = commands.add_parser("check", help="label safety of each transform")
     _common(p)
     _workers(p)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
-    p.add_argument("--sample", type=int, default=None, help="at most N training images per class")
+    p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class")
     p.add_argument("--evidence", type=Path, default=None,
                    help="folder for contact sheets of the images that moved")
 
@@ -81,13 +91,13 @@ def _build_parser():
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
     p.add_argument("--plots", type=Path, default=None, help="folder for one histogram PNG per factor")
-    p.add_argument("--draws", type=int, default=4, help="augmented draws per training image (default 4)")
+    p.add_argument("--draws", type=_positive_int, default=4, help="augmented draws per training image (default 4)")
 
     p = commands.add_parser("evaluate", help="score recipes against a no-augmentation baseline")
     _common(p)
     _workers(p)
     p.add_argument("--recipe", required=True, type=Path, action="append", help="recipe YAML (repeatable)")
-    p.add_argument("--repeats", type=int, default=5, help="independent draws and model seeds (default 5)")
+    p.add_argument("--repeats", type=_positive_int, default=5, help="independent draws and model seeds (default 5)")
     p.add_argument("--confirm-fraction", type=float, default=None,
                    help="carve this share of val out as a confirmation split scored once")
     p.add_argument("--ledger", type=Path, default=None,
@@ -108,8 +118,8 @@ def _build_parser():
     p.add_argument("-o", "--output", required=True, type=Path, help="output folder")
     p.add_argument("--force", action="store_true", help="write into an existing non-empty output folder")
     p.add_argument("--approve", default="", help="indices of unverified transforms to keep, e.g. 3,5")
-    p.add_argument("--repeats", type=int, default=5, help="evaluation repeats (default 5)")
-    p.add_argument("--sample", type=int, default=None, help="at most N training images per class for check")
+    p.add_argument("--repeats", type=_positive_int, default=5, help="evaluation repeats (default 5)")
+    p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class for check")
     p.add_argument("--ledger", type=Path, default=None, help="results ledger path")
 
     p = commands.add_parser("verify", help="check a vetted recipe's checksum and validity")
@@ -205,19 +215,23 @@ def _run_preview(args, console):
 
     dataset = _open_data(args)
     _report_dataset(console, dataset)
+    _ensure_parent(args.output, dataset)
     recipe = read_recipe(args.recipe)
     sheet = preview_sheet(dataset, recipe, per_class=args.per_class, draws=args.draws,
                           rng=np.random.default_rng(args.seed))
-    _ensure_parent(args.output)
     save_png(sheet, args.output)
     console.say(f"wrote {args.output}")
     return ExitCode.OK
 
 
-def _ensure_parent(path):
+def _ensure_parent(path, dataset=None):
     parent = Path(path).resolve().parent
     if not parent.is_dir():
         raise BadInputError(f"{path}: the folder {parent} does not exist")
+    if dataset is not None:
+        from .data import ensure_outside_data
+
+        ensure_outside_data(path, dataset)
 
 
 def _run_check(args, console):
@@ -226,6 +240,8 @@ def _run_check(args, console):
 
     dataset = _open_data(args)
     _report_dataset(console, dataset)
+    if args.evidence is not None:
+        _ensure_parent(args.evidence, dataset)
     leaks = _report_leaks(console, dataset)
     recipe = _read_recipes([args.recipe])[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=args.workers,
@@ -247,6 +263,8 @@ def _run_coverage(args, console):
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
+    if args.plots is not None:
+        _ensure_parent(args.plots, dataset)
     recipe = _read_recipes([args.recipe])[0]
     result = analyse_coverage(dataset, recipe, draws=args.draws, seed=args.seed, workers=args.workers,
                               quiet=args.quiet, plots_dir=args.plots)
@@ -285,8 +303,8 @@ def _run_draft(args, console):
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
+    _ensure_parent(args.output, dataset)
     text = draft_recipe_text(dataset, name=args.name, seed=args.seed, quiet=args.quiet)
-    _ensure_parent(args.output)
     write_text_atomic(args.output, text)
     console.say(f"wrote {args.output}; run 'augplan check' on it before use")
     return ExitCode.OK

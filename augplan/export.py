@@ -13,11 +13,13 @@ import json
 import math
 import os
 import time
+from pathlib import Path
 
 import yaml
 
 from . import __version__
 from .atomic import write_text_atomic
+from .errors import BadInputError
 from .recipe import RecipeError, read_recipe_document, recipe_to_dict
 
 __all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
@@ -183,6 +185,8 @@ def verify_vetted(path, *, data=None):
         ``{"ok", "format_ok", "checksum_ok", "fingerprint_match", "messages"}``;
         ``fingerprint_match`` is None without ``data``.
     """
+    if not Path(path).is_file():
+        raise BadInputError(f"{path}: vetted recipe file not found.")
     messages = []
     result = {"path": str(path), "ok": False, "format_ok": False, "checksum_ok": False,
               "fingerprint_match": None, "messages": messages}

@@ -12,7 +12,7 @@ from . import __version__
 from .atomic import write_bytes_atomic, write_text_atomic
 from .cautions import CAUTIONS
 from .coverage import analyse_coverage
-from .data import find_duplicates, fingerprint
+from .data import ensure_outside_data, find_duplicates, fingerprint
 from .errors import BadInputError
 from .evaluate import evaluate_recipes
 from .export import creation_date, vet_transforms, vetted_text
@@ -34,14 +34,6 @@ def prepare_output(out_dir, *, force=False):
         raise BadInputError(f"{out_dir}: its parent folder {out_dir.parent} does not exist.")
     out_dir.mkdir(exist_ok=True)
     return out_dir
-
-
-def _inside(path, folder):
-    try:
-        Path(path).resolve().relative_to(Path(folder).resolve())
-        return True
-    except ValueError:
-        return False
 
 
 def _collect_figures(entries, scratch):
@@ -111,9 +103,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     """
     from .report import render_report
 
-    if _inside(out_dir, dataset.root):
-        raise BadInputError(f"{out_dir}: the output folder lies inside the data folder {dataset.root}; "
-                            "augplan never writes into the data. Choose another folder.")
+    ensure_outside_data(out_dir, dataset)
     out_dir = prepare_output(out_dir, force=force)
     data_fingerprint = fingerprint(dataset)
     leaks = find_duplicates(dataset)

@@ -486,8 +486,6 @@ def test_exif_orientation_is_applied_on_read(tmp_path):
     assert read_image(path).shape == (16, 24, 3)
 
 
-@pytest.mark.xfail(strict=True, reason="verify reports a missing file on stdout with exit 1, not exit 2 "
-                                       "on stderr (augplan/export.py verify_vetted / cli _run_verify)")
 def test_verify_missing_file_is_bad_input(tmp_path, run_cli):
     result = run_cli("verify", tmp_path / "no-such-vetted.yaml")
     assert "Traceback" not in result.err
