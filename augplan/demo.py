@@ -89,8 +89,8 @@ class CaptureConditions:
     stratified: bool = False
 
 
-_NORMAL_LIGHT = CaptureConditions(exposure=(0.9, 1.1), rotation=6.0)
-_DIM_LIGHT = CaptureConditions(exposure=(0.35, 0.5), rotation=6.0)
+_NORMAL_LIGHT = CaptureConditions(exposure=(0.9, 1.1), rotation=10.0)
+_DIM_LIGHT = CaptureConditions(exposure=(0.35, 0.5), rotation=10.0)
 _FIELD = CaptureConditions(exposure=(0.3, 1.2), rotation=25.0, stratified=True)
 
 # split -> class -> conditions. The shortcut: on train and val the crack
@@ -188,15 +188,17 @@ def render_tile(label, rng, *, exposure, rotation, size=IMAGE_SIZE):
     if label not in CLASSES:
         raise ValueError(f"label must be one of {', '.join(CLASSES)}; got {label!r}")
     big = size * _SUPERSAMPLE
-    centre = (big / 2 + rng.uniform(-1.5, 1.5) * _SUPERSAMPLE,
-              big / 2 + rng.uniform(-1.5, 1.5) * _SUPERSAMPLE)
+    # Tiles land on the belt a few pixels off centre and the camera's
+    # distance drifts a little, so position and scale vary from photo to photo.
+    centre = (big / 2 + rng.uniform(-4.0, 4.0) * _SUPERSAMPLE,
+              big / 2 + rng.uniform(-4.0, 4.0) * _SUPERSAMPLE)
 
     belt_grey = rng.uniform(78, 96)
     belt = Image.new("RGB", (big, big), tuple(int(round(belt_grey + d)) for d in (0, 1, 3)))
 
     # An off-white glaze whose tint varies slightly from tile to tile.
     base = tuple(int(round(c + rng.uniform(-8, 8))) for c in (226, 216, 196))
-    tile_half = 0.39 * big
+    tile_half = 0.39 * big * rng.uniform(0.92, 1.08)
     layer = Image.new("RGBA", (big, big), (0, 0, 0, 0))
     draw = ImageDraw.Draw(layer)
     draw.rectangle((centre[0] - tile_half, centre[1] - tile_half,
