@@ -39,30 +39,40 @@ def format_range(value, digits=3):
 
 
 def _params_text(params):
-    parts = []
-    for key, value in params.items():
-        parts.append(f"{key} {format_range(value)}")
-    return ", ".join(parts)
+    return " ".join(format_range(value) for value in params.values())
+
+
+def _swaps_text(swaps, limit=3):
+    return "; ".join(f"{s['from']} -> {s['to']} {s['rate']:.0%} (n={s['n']})" for s in swaps[:limit])
 
 
 def check_table(result):
-    """The label-safety table of a ``check`` result."""
+    """The label-safety table of a ``check`` result, then its swaps and suggestions."""
     rows = []
     for t in result["transforms"]:
-        swap = t["swaps"][0] if t["swaps"] else None
-        swap_text = f"{swap['from']}->{swap['to']} {swap['rate']:.0%}" if swap else "-"
         rows.append([t["index"], f"{t['op']} {_params_text(t['params'])}", t["verdict"],
                      f"{t['change_rate']:.2f} {format_interval(*t['change_rate_ci'])}",
-                     format_range(t.get("safe_limit")), swap_text])
+                     f"{t.get('leave_rate', 0.0):.2f}", format_range(t.get("safe_limit"))])
     model = result["model"]
     head = (f"recipe {result['recipe']}: proxy model cross-validated accuracy "
             f"{model['cv_accuracy']:.2f} (chance {model.get('chance', float('nan')):.2f})")
-    table = format_table(["#", "transform", "verdict", "change [95% CI]", "safe limit", "main swap"], rows)
+    table = format_table(["#", "transform", "verdict", "changed [95% CI]", "left", "safe limit"], rows)
     notes = []
     for t in result["transforms"]:
+        if t["swaps"] and t["verdict"] != "safe":
+            notes.append(f"#{t['index']} {t['op']} moves {_swaps_text(t['swaps'])}")
         if t.get("suggestion"):
-            notes.append(f"transform {t['index']} ({t['op']}): suggestion {t['suggestion']}")
-    return "\n".join([head, table, *notes])
+            suggestion = t["suggestion"]
+            if "relabel" in suggestion:
+                pairs = ", ".join(f"{a} -> {b}" for a, b in suggestion["relabel"].items())
+                notes.append(f"#{t['index']} {t['op']}: usable with relabel: {{{pairs}}}")
+            if suggestion.get("only"):
+                notes.append(f"#{t['index']} {t['op']}: safe only for: {', '.join(suggestion['only'])}")
+        if t.get("note"):
+            notes.append(f"#{t['index']} {t['op']}: {t['note']}")
+    legend = ("changed: share of transformed images that land in another class;\n"
+              "left: share outside every class's region (nothing in the data can judge them)")
+    return "\n".join([head, table, *notes, legend])
 
 
 def coverage_table(result):
