@@ -23,6 +23,7 @@ from augplan.coverage import analyse_coverage
 from augplan.data import open_dataset
 from augplan.factors import FACTORS, measure_factors
 from augplan.recipe import parse_recipe
+from augplan.transforms import apply_recipe
 
 RECIPE = parse_recipe(
     "name: bench\n"
@@ -69,6 +70,15 @@ def main():
     measure_factors(images)
     elapsed = time.perf_counter() - start
     print(f"  {'all (shared)':14s} {args.n / elapsed:9.0f} images/s")
+    # The other stage of the work: drawing the augmentations themselves.
+    subset = images[:200]
+    generators = rng.spawn(len(subset))
+    start = time.perf_counter()
+    for image, generator in zip(subset, generators):
+        for _ in range(args.draws):
+            apply_recipe(image, RECIPE, generator, "left")
+    elapsed = time.perf_counter() - start
+    print(f"apply_recipe ({RECIPE.name}): {len(subset) * args.draws / elapsed:.0f} draws/s, one process")
 
     with tempfile.TemporaryDirectory() as folder:
         root = Path(folder)
