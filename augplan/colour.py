@@ -284,25 +284,29 @@ def rgb_to_hsv(rgb):
     rgb = _float_array(rgb)
     _check_last_axis(rgb, "rgb")
     red, green, blue = rgb[..., 0], rgb[..., 1], rgb[..., 2]
-    value = rgb.max(axis=-1)
-    chroma = value - rgb.min(axis=-1)
+    value = np.maximum(np.maximum(red, green), blue)
+    chroma = value - np.minimum(np.minimum(red, green), blue)
     grey = chroma == 0
-    safe_chroma = np.where(grey, 1.0, chroma).astype(rgb.dtype, copy=False)
-    safe_value = np.where(value == 0, 1.0, value).astype(rgb.dtype, copy=False)
-    saturation = np.where(grey, 0.0, chroma / safe_value)
+    safe_chroma = np.where(grey, 1, chroma).astype(rgb.dtype, copy=False)
+    saturation = np.divide(chroma, value, out=np.zeros_like(value), where=value > 0)
     # Which sextant the hue lies in depends on which channel is the maximum;
-    # ties resolve red first, then green, like colorsys.
-    hue = np.where(
-        value == red,
-        (green - blue) / safe_chroma,
-        np.where(value == green, 2.0 + (blue - red) / safe_chroma, 4.0 + (red - green) / safe_chroma),
-    )
-    hue = (hue / 6.0) % 1.0
-    hue = np.where(grey, 0.0, hue)
+    # ties resolve red first, then green, like colorsys. Masked assignment
+    # computes each sextant's formula only where it applies.
+    is_red = value == red
+    is_green = ~is_red & (value == green)
+    is_blue = ~(is_red | is_green)
+    hue = np.empty_like(value)
+    hue[is_red] = ((green - blue) / safe_chroma)[is_red]
+    hue[is_green] = (2.0 + (blue - red) / safe_chroma)[is_green]
+    hue[is_blue] = (4.0 + (red - green) / safe_chroma)[is_blue]
+    hue /= 6.0
+    hue -= np.floor(hue)
+    hue[grey] = 0.0
     # A tiny negative hue can wrap to exactly 1.0 in floating point.
-    hue = np.where(hue >= 1.0, 0.0, hue)
-    out = np.stack([hue, saturation, value], axis=-1)
-    return out.astype(rgb.dtype, copy=False)
+    hue[hue >= 1.0] = 0.0
+    out = np.empty(rgb.shape, dtype=rgb.dtype)
+    out[..., 0], out[..., 1], out[..., 2] = hue, saturation, value
+    return out
 
 
 def hsv_to_rgb(hsv):
