@@ -90,7 +90,9 @@ SHORTCUT_RULE = (
     "chance to perfect (0.75 for two classes), or, with more than two classes, when "
     "it tells one class from the rest with a one-vs-rest balanced accuracy of at "
     "least 0.9; it persists when the augmented training set still meets the same "
-    "test, and the validation split shares it when val meets it. The all-factors "
+    "test, and the validation split shares it when val meets it. When a labelled "
+    "field sample also meets the test, the factor is a cue that defines the class "
+    "there and is not flagged. The all-factors "
     "row is for information only and never flagged: classes may differ in colour "
     "or shape legitimately."
 )
@@ -821,10 +823,15 @@ def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, w
             return score is not None and score >= ONE_VS_REST_THRESHOLD
 
         flagged = not combined and (meets("original") or driver is not None)
+        # A labelled field sample is the one witness that can tell a shortcut
+        # from the cue that defines the class: a cue still carries the class
+        # where the model will be deployed, a shortcut does not.
+        row["field_confirms"] = bool(flagged and meets("field"))
+        flagged = flagged and not row["field_confirms"]
         row["flagged"] = bool(flagged)
         row["persists"] = bool(flagged and meets("augmented"))
         row["val_shares"] = bool(flagged and meets("val"))
-        row["class"] = driver if flagged else None
+        row["class"] = driver if (flagged or row["field_confirms"]) else None
         row["by_class"] = by_class
         row["combined"] = combined
         shortcuts.append(row)
@@ -837,6 +844,12 @@ def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, w
             return f"{row['by_class'][set_name][row['class']]:.2f} for {row['class']} vs the rest"
         return f"{row[set_name]:.2f}"
 
+    for row in shortcuts:
+        if row["field_confirms"]:
+            messages.append(
+                f"{row['factor']} carries the class in the training set and also in the labelled "
+                f"field sample ({score_text(row, 'field')}): it behaves as a cue that defines the "
+                f"class, not a shortcut, so it is not flagged.")
     for row in flagged_rows:
         what = (f"singles out {row['class']}" if row["class"] is not None and row["original"] < threshold
                 else "predicts the class")

@@ -225,3 +225,25 @@ def test_plots_written_one_per_factor(reports):
     for path in paths:
         with Image.open(path) as image:
             assert image.format == "PNG"
+
+
+@pytest.fixture(scope="module")
+def lighting_cue(tmp_path_factory):
+    """Ground truth: lighting defines the class everywhere, the field included."""
+    root = tmp_path_factory.mktemp("cue")
+    rng = np.random.default_rng(7)
+
+    def defining(label, rng):
+        return (LIT if label == "horizontal" else DIM) * rng.uniform(0.9, 1.1)
+
+    for split, per_class in (("train", 24), ("val", 12), ("field", 16)):
+        _write_split(root, split, per_class, defining, rng)
+    return open_dataset(root)
+
+
+def test_a_factor_the_field_confirms_is_a_cue_not_a_shortcut(lighting_cue):
+    report = coverage.analyse_coverage(lighting_cue, NO_AUGMENTATION, size=32)
+    row = _row(report, "brightness")
+    assert row["original"] > 0.9 and row["field"] > 0.9
+    assert row["field_confirms"] and not row["flagged"] and not row["persists"]
+    assert any("cue that defines the class" in message for message in report["messages"])
