@@ -1,15 +1,117 @@
 """The one execution layer: every parallel loop in augplan goes through here.
 
-No other module imports joblib. Work units must be independent and carry
-their own randomness (a child ``numpy.random.Generator`` spawned from the
-caller's), so results never depend on worker order or worker count.
+No other module imports joblib or Dask. Work units must be independent and
+carry their own randomness (a child ``numpy.random.Generator`` or
+``SeedSequence`` spawned from the caller's), so results never depend on worker
+order, worker count or the machine that ran them.
+
+Three ways to run the same map:
+
+- in this process (``workers=1``);
+- ``N`` local processes through joblib (``workers=N``; ``-1`` = every core);
+- an existing Dask cluster (``workers=Cluster("tcp://HOST:PORT")``), reached
+  through ``dask.distributed``. Dask is an optional extra
+  (``pip install 'augplan[cluster]'``) and is imported only when a cluster
+  is used.
 """
 
+import functools
+import re
 import sys
+from collections import deque
+from dataclasses import dataclass
 
 from tqdm.auto import tqdm
 
-__all__ = ["parallel_map", "progress"]
+from augplan.errors import BadInputError
+
+__all__ = ["Cluster", "parallel_map", "progress", "resolve_workers"]
+
+CLUSTER_INSTALL_HINT = "pip install 'augplan[cluster]'"
+
+# Tasks a failing unit is rerun before its error reaches the user. Covers
+# passing faults on a shared file system; a worker that dies is handled by
+# the Dask scheduler itself (it reschedules the lost worker's tasks).
+TASK_RETRIES = 2
+
+# Seconds to wait for the scheduler before giving up on the address.
+CONNECT_TIMEOUT = 20
+
+_ADDRESS = re.compile(r"(?P<scheme>tcp|tls)://(?P<host>\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.\-]+):(?P<port>[0-9]{1,5})")
+
+# Objects too cheap to be worth scattering once to every worker.
+_SMALL = (bool, int, float, complex, str, bytes, type(None))
+
+
+@dataclass(frozen=True)
+class Cluster:
+    """Address of a running Dask scheduler, e.g. ``Cluster("tcp://10.0.0.5:8786")``.
+
+    Parameters
+    ----------
+    address : str
+        ``tcp://HOST:PORT`` (or ``tls://HOST:PORT``), as printed by
+        ``dask scheduler`` when it starts.
+
+    Raises
+    ------
+    BadInputError
+        The address is not of that form.
+    """
+
+    address: str
+
+    def __post_init__(self):
+        text = self.address
+        match = _ADDRESS.fullmatch(text) if isinstance(text, str) else None
+        if match is None or not 1 <= int(match["port"]) <= 65535:
+            raise BadInputError(f"--cluster must be a Dask scheduler address of the form tcp://HOST:PORT "
+                                f"(for example tcp://127.0.0.1:8786); got {text!r}")
+
+
+def _require_distributed():
+    """Import ``distributed`` or say how to install it."""
+    try:
+        import distributed
+    except ImportError:
+        raise BadInputError("running on a Dask cluster needs Dask's distributed scheduler, which is not "
+                            f"installed; install it with: {CLUSTER_INSTALL_HINT}") from None
+    return distributed
+
+
+def resolve_workers(workers, cluster=None):
+    """Turn the ``workers`` and ``cluster`` settings into one execution choice.
+
+    Parameters
+    ----------
+    workers : int or Cluster
+        1 runs in this process, N > 1 uses N local processes, -1 uses every
+        core; a `Cluster` runs on that Dask cluster.
+    cluster : str or Cluster, optional
+        A scheduler address; when given it wins over an integer ``workers``.
+
+    Returns
+    -------
+    int or Cluster
+
+    Raises
+    ------
+    BadInputError
+        A worker count that is 0, below -1 or not a whole number; an address
+        not of the form ``tcp://HOST:PORT``; a cluster while Dask is not
+        installed (the message gives the install command).
+    """
+    if cluster is not None and cluster != "":
+        workers = cluster if isinstance(cluster, Cluster) else Cluster(cluster)
+    if isinstance(workers, Cluster):
+        _require_distributed()
+        return workers
+    if isinstance(workers, bool) or not isinstance(workers, int) and not hasattr(workers, "__index__"):
+        raise BadInputError(f"--workers must be a positive integer or -1 (every core); got {workers!r}")
+    workers = int(workers)
+    if workers == 0 or workers < -1:
+        raise BadInputError(f"--workers must be a positive integer or -1 (every core); got {workers!r}")
+    return workers
 
 
 def progress(iterable, *, desc, total=None, quiet=False):
@@ -28,13 +130,16 @@ def parallel_map(function, items, *, workers=1, desc="working", quiet=True):
     Parameters
     ----------
     function : callable
-        A picklable function of one argument.
+        A picklable function of one argument (a module-level function or a
+        ``functools.partial`` of one). On a cluster, every worker must be
+        able to import augplan.
     items : sequence
         The work units. Each should be small (paths, seeds, indices), never a
         whole data set of decoded images.
-    workers : int, default 1
+    workers : int or Cluster, default 1
         1 runs in this process; N > 1 uses N local processes (joblib's loky
-        backend); -1 uses every core.
+        backend); -1 uses every core; a `Cluster` runs the units on that Dask
+        cluster.
     desc : str
         Label of the progress bar.
     quiet : bool, default True
@@ -44,8 +149,19 @@ def parallel_map(function, items, *, workers=1, desc="working", quiet=True):
     -------
     list
         ``[function(item) for item in items]``, in the order of ``items``.
+
+    Raises
+    ------
+    BadInputError
+        Bad ``workers``; a cluster that cannot be reached or Dask missing.
     """
+    workers = resolve_workers(workers)
     items = list(items)
+    if isinstance(workers, Cluster):
+        if not items:
+            return []
+        results = _dask_ordered(function, items, workers)
+        return list(progress(results, desc=desc, total=len(items), quiet=quiet))
     if workers == 1 or len(items) <= 1:
         return [function(item) for item in progress(items, desc=desc, quiet=quiet)]
     from joblib import Parallel, delayed
@@ -53,3 +169,86 @@ def parallel_map(function, items, *, workers=1, desc="working", quiet=True):
     runner = Parallel(n_jobs=workers, return_as="generator")
     results = runner(delayed(function)(item) for item in items)
     return list(progress(results, desc=desc, total=len(items), quiet=quiet))
+
+
+# ------------------------------------------------------------------ Dask
+
+
+def _shared_positions(items):
+    """Tuple positions that hold the very same non-trivial object in every item.
+
+    Callers put shared context (feature matrices, a fitted model, the
+    record list) by reference into each unit; on a cluster these are sent
+    once to every worker instead of once per task.
+    """
+    if len(items) < 2 or not all(isinstance(item, tuple) for item in items):
+        return []
+    width = len(items[0])
+    if any(len(item) != width for item in items):
+        return []
+    first = items[0]
+    return [p for p in range(width)
+            if not isinstance(first[p], _SMALL) and all(item[p] is first[p] for item in items[1:])]
+
+
+def _dask_ordered(function, items, cluster):
+    """Yield ``function(item)`` for each item, in order, computed on ``cluster``.
+
+    At most a window of a few tasks per worker thread is in flight, so the
+    client holds a bounded number of results at a time however many items
+    there are. Context shared by every unit (the arguments of a
+    ``functools.partial``, or objects repeated by reference in every tuple
+    item) is scattered once to all workers.
+    """
+    distributed = _require_distributed()
+    try:
+        client = distributed.Client(cluster.address, timeout=CONNECT_TIMEOUT, set_as_default=False)
+    except (OSError, TimeoutError) as error:
+        raise BadInputError(f"cannot reach the Dask scheduler at {cluster.address} ({error}); start it with "
+                            "'dask scheduler' and workers with 'dask worker ADDRESS', or check --cluster "
+                            "and AUGPLAN_CLUSTER") from None
+    with client:
+        threads = sum(w.get("nthreads", 1) for w in client.scheduler_info().get("workers", {}).values())
+        window = max(8, 4 * threads)
+        submit = functools.partial(client.submit, pure=False, retries=TASK_RETRIES)
+
+        if isinstance(function, functools.partial):
+            context = client.scatter([(function.args, dict(function.keywords))], broadcast=True)[0]
+            task, leading = _call_unpacking, (function.func, context)
+        else:
+            task, leading = _call_plain, (function,)
+
+        positions = _shared_positions(items)
+        scattered = {}
+        if positions:
+            futures = client.scatter([items[0][p] for p in positions], broadcast=True)
+            scattered = dict(zip(positions, futures))
+
+        def unit(item):
+            if not scattered:
+                return item
+            return tuple(scattered.get(p, value) for p, value in enumerate(item))
+
+        pending = deque()
+        upcoming = iter(items)
+        for item in upcoming:
+            pending.append(submit(task, *leading, unit(item)))
+            if len(pending) >= window:
+                break
+        while pending:
+            future = pending.popleft()
+            result = future.result()
+            future.release()
+            for item in upcoming:
+                pending.append(submit(task, *leading, unit(item)))
+                break
+            yield result
+
+
+def _call_plain(function, item):
+    return function(item)
+
+
+def _call_unpacking(function, context, item):
+    args, keywords = context
+    return function(*args, item, **keywords)
