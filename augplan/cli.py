@@ -61,6 +61,16 @@ def _positive_int(text):
 def _workers(parser):
     parser.add_argument("--workers", type=int, default=1,
                         help="parallel worker processes (default 1; -1 uses every core)")
+    parser.add_argument("--cluster", metavar="ADDRESS", default=os.environ.get("AUGPLAN_CLUSTER") or None,
+                        help="run the heavy work on the Dask scheduler at tcp://HOST:PORT instead "
+                             "(default: $AUGPLAN_CLUSTER; needs pip install 'augplan[cluster]')")
+
+
+def _execution(args):
+    """The cluster when --cluster (or AUGPLAN_CLUSTER) names one, else the worker count."""
+    from .parallel import resolve_workers
+
+    return resolve_workers(args.workers, getattr(args, "cluster", None))
 
 
 def _build_parser():
@@ -244,7 +254,7 @@ def _run_check(args, console):
         _ensure_parent(args.evidence, dataset)
     leaks = _report_leaks(console, dataset)
     recipe = _read_recipes([args.recipe])[0]
-    result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=args.workers,
+    result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, evidence_dir=args.evidence)
     result["leaks"] = leaks
     for warning in result.get("warnings", []):
@@ -266,7 +276,7 @@ def _run_coverage(args, console):
     if args.plots is not None:
         _ensure_parent(args.plots, dataset)
     recipe = _read_recipes([args.recipe])[0]
-    result = analyse_coverage(dataset, recipe, draws=args.draws, seed=args.seed, workers=args.workers,
+    result = analyse_coverage(dataset, recipe, draws=args.draws, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, plots_dir=args.plots)
     if args.json:
         console.emit_json(result)
@@ -284,7 +294,7 @@ def _run_evaluate(args, console):
     _report_dataset(console, dataset)
     leaks = _report_leaks(console, dataset)
     recipes = _read_recipes(args.recipe)
-    result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=args.workers,
+    result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
                               cache_dir=_default_cache(args.data), confirm_fraction=args.confirm_fraction)
     result["leaks"] = leaks
@@ -326,7 +336,7 @@ def _run_vet(args, console):
     _report_dataset(console, dataset)
     recipes = _read_recipes(args.recipe)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
-                          repeats=args.repeats, sample=args.sample, seed=args.seed, workers=args.workers,
+                          repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
                           cache_dir=_default_cache(args.data))
     if args.json:
@@ -366,7 +376,7 @@ def _run_history(args, console):
 def _run_demo(args, console):
     from .demo import run_demo
 
-    summary = run_demo(args.output, seed=args.seed, workers=args.workers, quiet=args.quiet)
+    summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     if args.json:
         console.emit_json(summary)
     console.say(summary["verdict"])
@@ -392,6 +402,8 @@ def main(argv=None):
             return ExitCode.BAD_INPUT
         if getattr(args, "workers", 1) == 0 or getattr(args, "workers", 1) < -1:
             raise BadInputError(f"--workers must be a positive number or -1 (every core); got {args.workers}")
+        if getattr(args, "cluster", None):
+            _execution(args)  # a bad address or a missing Dask stops here, before any data is read
         console = _Console(getattr(args, "json", False), args.quiet)
         return _COMMANDS[args.command](args, console)
     except SystemExit as stop:  # --help and --version
