@@ -169,6 +169,8 @@ def _train_one(unit):
     labels = np.array([r.label for r in train_records], dtype=object)
     blocks, block_labels = [train_features], [labels]
     augmented = 0
+    # A recipe without transforms adds only exact duplicates of the originals,
+    # so it is trained like the baseline (the same data, without the copies).
     if recipe is not None and recipe.copies > 0 and recipe.transforms:
         image_seqs = draws_seq.spawn(len(train_records))
         for start in range(0, len(train_records), _CHUNK):

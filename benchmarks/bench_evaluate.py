@@ -1,0 +1,150 @@
+"""Benchmark of `augplan.evaluate.evaluate_recipes` (a measurement, not a test).
+
+5 recipes x 5 repeats, copies=4, 10 classes of synthetic 64x64 images
+(2,000 training + 500 validation) written to a temporary folder, workers=2.
+Reports: cold time (target < 3 min), rerun time with a warm feature cache and
+no ledger, rerun time served by the ledger (target for a rerun: >= 3x
+faster), peak memory of this process and its worker processes (target
+< 1.5 GB), and how the time scales from 500 to 2,000 training images.
+
+Run: ``.venv/bin/python benchmarks/bench_evaluate.py [--workers 2]``
+"""
+
+import argparse
+import resource
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+from PIL import Image
+
+from augplan.data import open_dataset
+from augplan.evaluate import evaluate_recipes
+from augplan.recipe import Recipe, Transform
+
+SIZE = 64
+CLASSES = 10
+
+
+def _synthetic_image(label, rng):
+    """A class-coded bar (angle by class) on a noisy, randomly lit background."""
+    y, x = np.mgrid[0:SIZE, 0:SIZE] / (SIZE - 1) - 0.5
+    angle = np.pi * label / CLASSES + rng.normal(0, 0.08)
+    offset = rng.normal(0, 0.05)
+    distance = np.abs(x * np.sin(angle) - y * np.cos(angle) - offset)
+    bar = (distance < 0.06 + 0.01 * rng.random()).astype(np.float32)
+    background = rng.uniform(0.2, 0.6) + rng.normal(0, 0.05, (SIZE, SIZE))
+    tint = rng.uniform(0.8, 1.2, 3)
+    image = (background[..., None] * tint + bar[..., None] * 0.4) * 255
+    return np.clip(image, 0, 255).astype(np.uint8)
+
+
+def write_dataset(root, n_train, n_val, seed=0):
+    rng = np.random.default_rng(seed)
+    for split, total in (("train", n_train), ("val", n_val)):
+        for index in range(total):
+            label = index % CLASSES
+            folder = root / split / f"c{label}"
+            folder.mkdir(parents=True, exist_ok=True)
+            Image.fromarray(_synthetic_image(label, rng)).save(folder / f"{index:05d}.png")
+    return open_dataset(root)
+
+
+RECIPES = [
+    Recipe(name="flips", transforms=(Transform("flip", {"axis": "horizontal"}, probability=0.5),)),
+    Recipe(name="small-affine", transforms=(Transform("rotate", {"degrees": (-8.0, 8.0)}),
+                                            Transform("shift", {"fraction": (-0.06, 0.06)}))),
+    Recipe(name="lighting", transforms=(Transform("brightness", {"factor": (0.7, 1.4)}),
+                                        Transform("contrast", {"factor": (0.8, 1.2)}))),
+    Recipe(name="blur-noise", transforms=(Transform("blur", {"sigma": (0.0, 1.0)}),
+                                          Transform("noise", {"sigma": (0.0, 0.03)}))),
+    Recipe(name="mixed", transforms=(Transform("zoom", {"factor": (0.9, 1.15)}),
+                                     Transform("hue", {"degrees": (-10.0, 10.0)}),
+                                     Transform("rotate", {"degrees": (-10.0, 10.0)}))),
+]
+
+
+def _peak_mb():
+    # ru_maxrss is in kilobytes on Linux; children = worker processes reaped so far
+    # (the largest single child, not their sum).
+    own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+    return own, children
+
+
+def _worker_peak_mb():
+    """Largest peak RSS (VmHWM) among live child processes (the worker pool).
+
+    The pool's workers outlive each call, so RUSAGE_CHILDREN (reaped children
+    only) does not see them; /proc does (Linux only).
+    """
+    import os
+
+    peak = 0.0
+    for status in Path("/proc").glob("[0-9]*/status"):
+        try:
+            fields = dict(line.split(":", 1) for line in status.read_text().splitlines() if ":" in line)
+        except OSError:
+            continue
+        if fields.get("PPid", "").strip() == str(os.getpid()) and "VmHWM" in fields:
+            peak = max(peak, float(fields["VmHWM"].split()[0]) / 1024)
+    return peak
+
+
+def timed(label, **kwargs):
+    started = time.perf_counter()
+    document = evaluate_recipes(**kwargs)
+    elapsed = time.perf_counter() - started
+    print(f"{label:<52s} {elapsed:8.1f} s   from_ledger={document['from_ledger']}", flush=True)
+    return elapsed, document
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--repeats", type=int, default=5)
+    parser.add_argument("--full-warm", action="store_true",
+                        help="also time a warm-cache rerun at 2,000 training images")
+    args = parser.parse_args(argv)
+    with tempfile.TemporaryDirectory(prefix="augplan-bench-") as tmp:
+        tmp = Path(tmp)
+        common = dict(recipes=RECIPES, repeats=args.repeats, size=SIZE, seed=0, workers=args.workers)
+
+        full = write_dataset(tmp / "full" / "DATA", 2000, 500)
+        t_cold, document = timed("2000 train + 500 val, cold cache", dataset=full,
+                                 cache_dir=tmp / "cache", ledger_path=tmp / "ledger.sqlite", **common)
+        t_ledger, _ = timed("rerun, served by the ledger", dataset=full,
+                            cache_dir=tmp / "cache", ledger_path=tmp / "ledger.sqlite", **common)
+        own, children = _peak_mb()
+        workers_peak = _worker_peak_mb()
+        print(f"peak RSS so far: self {own:.0f} MB, largest live worker {workers_peak:.0f} MB", flush=True)
+        if args.full_warm:
+            t_full_warm, _ = timed("rerun, warm feature cache, no ledger", dataset=full,
+                                   cache_dir=tmp / "cache", **common)
+
+        small = write_dataset(tmp / "small" / "DATA", 500, 500)
+        t_small, _ = timed("500 train + 500 val, cold cache", dataset=small,
+                           cache_dir=tmp / "cache-small", **common)
+        t_small_warm, _ = timed("500 train rerun, warm feature cache, no ledger", dataset=small,
+                                cache_dir=tmp / "cache-small", **common)
+        own, children = _peak_mb()
+        workers_peak = max(workers_peak, _worker_peak_mb())
+
+    print()
+    print(f"cold run, 2000 train (target < 180 s):     {t_cold:.1f} s")
+    print(f"rerun speed-up, ledger:                    {t_cold / max(t_ledger, 1e-9):.0f}x")
+    print(f"rerun speed-up, warm cache, no ledger:     {t_small / t_small_warm:.2f}x (500 train)")
+    if args.full_warm:
+        print(f"                                           {t_cold / t_full_warm:.2f}x (2000 train)")
+    print(f"peak RSS (target < 1536 MB):               self {own:.0f} MB, largest live worker "
+          f"{workers_peak:.0f} MB, largest reaped child {children:.0f} MB")
+    print(f"scaling 500 -> 2000 train images:          {t_cold / t_small:.2f}x time for 4x images")
+    print("baseline accuracy", document["baseline"]["accuracy"],
+          {e["name"]: (e["gain"], e["gain_ci"]) for e in document["recipes"]})
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
