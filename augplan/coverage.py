@@ -328,6 +328,11 @@ def shortcut_score(features, labels, *, groups=None, seed=0, folds=5):
     return shortcut_scores(features, labels, groups=groups, seed=seed, folds=folds)[0]
 
 
+def factor_columns(values, names):
+    """Columns of the named factors for a classifier: linear as they are, angles as (cos, sin)."""
+    return _factor_columns(values, names)
+
+
 def _factor_columns(values, names):
     # Linear factors as they are; angles as (cos, sin) so that 359 and 1
     # degrees are neighbours. An undefined angle (grey image, flat image)

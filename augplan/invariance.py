@@ -45,7 +45,9 @@ Wilson 95% lower bound of the share that lands outside exceeds its baseline
 by more than 0.10; otherwise it is *safe*. When the feature model is weak
 (not clearly better than chance) nothing is called safe: safe becomes
 unverified. A transform takes the worst verdict of its classes (breaks >
-unverified > safe), with the rates pooled over the magnitude grid. The safe
+unverified > safe), the rule applied both to the rates pooled over the
+magnitude grid and at each grid value (a range that breaks labels at one end
+breaks them in that share of draws). The safe
 limit applies the same rule at each grid value separately (worst class at
 that value) and reports the widest run of consecutive safe grid values
 around the identity magnitude (or the grid value nearest to it).
@@ -99,8 +101,11 @@ DECISION_RULE = (
     "images that land in another class's region (and are classified as that class) exceeds "
     "its held-out baseline by more than 0.10, is unverified when the same holds for the "
     "share that lands outside every "
-    "class's region, and is safe otherwise (unverified when the feature model is weak); a "
-    "transform takes its worst class verdict."
+    "class's region, and is safe otherwise (unverified when the feature model is weak); the "
+    "rule is applied to the rates pooled over the magnitude range and at each magnitude of it, "
+    "and a transform takes its worst class verdict. A lighting move into a class that lighting "
+    "alone singles out in the training data, while structure also separates the classes, is "
+    "unverified (a possible shortcut) unless a labelled field sample confirms lighting as the cue."
 )
 
 
@@ -419,7 +424,97 @@ def _write_evidence(evidence_dir, index, transform, verdict, examples, images, l
     return str(path)
 
 
-def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitudes=5, seed=0,
+# The lighting factor each lighting op changes (augplan.factors names). When
+# such a transform moves images into a class that this factor alone singles
+# out, while the two classes also differ in structure that lighting does not
+# touch, the proxy model may be following a lighting shortcut of the data
+# rather than the label. Hue, saturation and geometric moves are not excused
+# this way: colour, laterality and scale often define a class (see the
+# cautions), so they keep their verdict.
+LIGHTING_OP_FACTORS = {"brightness": ("brightness",), "contrast": ("contrast",)}
+
+
+def _separable_by_structure(images, labels, first, second, seed):
+    """Whether two classes differ in lighting-blind gradient structure alone.
+
+    Uses only the block-normalised oriented-gradient histograms of
+    `augplan.features.image_features` (Dalal & Triggs 2005), which a change
+    of exposure or contrast barely moves; separable means a cross-validated
+    balanced accuracy of at least 0.9 between the two classes.
+    """
+    from augplan.coverage import shortcut_scores
+    from augplan.features import FEATURE_BLOCKS, image_features
+
+    pair = np.isin(labels, [first, second])
+    gradients = image_features(images[pair])[:, FEATURE_BLOCKS["orientation"]]
+    overall, _ = shortcut_scores(gradients, labels[pair], seed=seed)
+    return overall is not None and overall >= 0.9
+
+
+def _singled_out(images, labels, classes, factor, seed):
+    """One-vs-rest cross-validated balanced accuracy of each class from one factor."""
+    from augplan.coverage import factor_columns, shortcut_scores
+    from augplan.factors import FACTORS
+
+    values = {factor: FACTORS[factor].function(images)}
+    names = np.array([classes[c] for c in labels])
+    return shortcut_scores(factor_columns(values, [factor]), names, seed=seed)[1]
+
+
+def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
+    """Turn ``breaks`` into ``unverified`` where the move follows a shortcut of the data.
+
+    A lighting transform breaks when its images land in another class B. If
+    the lighting factor it changes (`LIGHTING_OP_FACTORS`) singles out B by
+    itself in the training data (one-vs-rest balanced accuracy at least
+    ``ONE_VS_REST_THRESHOLD``) while the source classes and B also differ in
+    lighting-blind gradient structure, lighting is not what defines B: the
+    proxy model learned it as B's mark and its verdict cannot tell a changed
+    label from a broken shortcut.
+    A labelled field sample in which the factor still singles out B settles
+    it as a cue, and the verdict stays ``breaks``; otherwise a person must
+    look.
+    """
+    from augplan.coverage import ONE_VS_REST_THRESHOLD
+    from augplan.data import load_images
+
+    field_records = [r for r in dataset.split("field") if r.label in classes]
+    field_images = field_labels = None
+    for entry in report:
+        if entry["verdict"] != "breaks":
+            continue
+        destinations = {swap["to"] for swap in entry["swaps"] if swap["rate"] >= 0.1}
+        for factor in LIGHTING_OP_FACTORS.get(entry["op"], ()):
+            train_scores = _singled_out(images, labels, classes, factor, seed)
+            hits = sorted(b for b in destinations if (train_scores.get(b) or 0.0) >= ONE_VS_REST_THRESHOLD
+                          and all(_separable_by_structure(images, labels, classes.index(swap["from"]),
+                                                          classes.index(b), seed)
+                                  for swap in entry["swaps"] if swap["to"] == b and swap["rate"] >= 0.1))
+            if not hits:
+                continue
+            field_scores = {}
+            if field_records and len({r.label for r in field_records}) >= 2:
+                if field_images is None:
+                    field_images = load_images(field_records, size=size)
+                    field_labels = np.array([classes.index(r.label) for r in field_records])
+                field_scores = _singled_out(field_images, field_labels, classes, factor, seed)
+            unconfirmed = [b for b in hits if (field_scores.get(b) or 0.0) < ONE_VS_REST_THRESHOLD]
+            if not unconfirmed:
+                continue
+            target = unconfirmed[0]
+            entry["verdict"] = "unverified"
+            entry["shortcut"] = {"factor": factor, "class": target,
+                                 "train_score": round(float(train_scores[target]), 4),
+                                 "field_score": (round(float(field_scores[target]), 4)
+                                                 if field_scores.get(target) is not None else None)}
+            entry["note"] = (f"images move to {target}, which {factor} alone singles out in the training "
+                             f"data (one-vs-rest {train_scores[target]:.2f}): the proxy model may follow "
+                             f"that shortcut rather than the label; a person must look"
+                             + ("" if field_scores else ", or a labelled field sample can settle it"))
+            break
+
+
+def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitudes=7, seed=0,
                  workers=1, quiet=True, evidence_dir=None):
     """Check every transform of a recipe for label safety.
 
@@ -434,7 +529,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         At most this many training images per class (drawn with ``seed``).
     size : int, default 64
         Side of the squares images are read at.
-    magnitudes : int, default 5
+    magnitudes : int, default 7
         Grid values per magnitude range (both ends included).
     seed : int, default 0
     workers : int, default 1
@@ -504,8 +599,8 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         from augplan.features import FeatureModel
 
         model = FeatureModel(random_state=seed)
-    model.fit(images, np.array(label_names))
     features = model.featurize(images)
+    model.fit_features(features, np.array(label_names))
     cv_accuracy = float(model.cv_accuracy_)
     chance = float(getattr(model, "chance_", counts.max() / counts.sum()))
     # Fallback when the model does not judge itself: a quarter of the way
@@ -573,6 +668,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         left_n = dict.fromkeys(checked, 0)
         n_by_class = dict.fromkeys(checked, 0)
         per_magnitude, examples = [], []
+        worst_by_class = dict.fromkeys(checked, "safe")
         for value, pooled in entry_units:
             if (t_index, value) not in by_unit:
                 continue
@@ -586,6 +682,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
                 verdict = class_verdict(moved, left, len(dest), baseline_change[a], baseline_leave[a],
                                         weak=weak)
                 worst = max(worst, verdict, key=_RANK.get)
+                worst_by_class[a] = max(worst_by_class[a], verdict, key=_RANK.get)
                 m_moved, m_left = m_moved + moved, m_left + left
                 if pooled:
                     n_by_class[a] += len(dest)
@@ -599,8 +696,11 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
                                       "leave_rate": _rate(m_left, len(destinations))})
         class_entries, verdicts = {}, {}
         for a in checked:
-            verdicts[a] = class_verdict(moved_n[a], left_n[a], n_by_class[a],
-                                        baseline_change[a], baseline_leave[a], weak=weak)
+            # Pooled over the range, or at any single magnitude of it: a range
+            # that breaks labels at one end breaks them in that share of draws.
+            verdicts[a] = max(class_verdict(moved_n[a], left_n[a], n_by_class[a],
+                                            baseline_change[a], baseline_leave[a], weak=weak),
+                              worst_by_class[a], key=_RANK.get)
             class_entries[classes[a]] = {
                 "verdict": verdicts[a],
                 "change_rate": _rate(moved_n[a], n_by_class[a]),
@@ -648,6 +748,8 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
             "suggestion": _suggestion(transform, checked, verdicts, flows, classes),
             "evidence_sheet": sheet,
         })
+
+    _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
 
     return {
         "recipe": recipe.name,

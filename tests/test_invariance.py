@@ -246,7 +246,9 @@ def test_digits_safe_limit_of_a_full_turn_is_narrower(digits_report):
     assert entry["verdict"] != "safe"
     low, high = entry["safe_limit"]
     assert low <= 0.0 <= high and high - low < 360.0
-    assert [m["value"] for m in entry["magnitudes"]] == [-180.0, -90.0, 0.0, 90.0, 180.0]
+    values = [m["value"] for m in entry["magnitudes"]]
+    assert values[0] == -180.0 and values[-1] == 180.0 and 0.0 in values
+    assert len(values) == 7  # the default grid: both ends and the identity included
 
 
 def test_lfw_faces_survive_a_horizontal_flip(tmp_path):
@@ -369,3 +371,43 @@ def test_demo_draft_is_flagged_and_gentle_steps_pass():
     assert hue["verdict"] == "breaks"
     assert hue["swaps"][0]["from"] == "glaze-amber" and hue["swaps"][0]["to"] == "glaze-teal"
     assert [entry["verdict"] for entry in report["transforms"][2:]] == ["safe"] * 3
+
+
+# --------------------------------------------------------------------------
+# moves that follow a lighting shortcut (the demo scenario is the ground truth:
+# its cracked tiles were all photographed dim, the other classes in normal light)
+
+
+@pytest.fixture(scope="module")
+def small_demo(tmp_path_factory):
+    from augplan.demo import make_demo_dataset
+
+    root = tmp_path_factory.mktemp("demo-lighting")
+    make_demo_dataset(root, n_train=20, n_val=4, n_field=10)
+    return root
+
+
+DARKEN = Recipe(name="darken", transforms=(
+    Transform("brightness", {"factor": 0.35}, exclude=("hairline-crack",)),))
+
+
+def test_move_along_a_lighting_shortcut_is_unverified_not_breaks(small_demo):
+    entry = check_recipe(open_dataset(small_demo), DARKEN, seed=0)["transforms"][0]
+    assert any(swap["to"] == "hairline-crack" and swap["rate"] >= 0.1 for swap in entry["swaps"])
+    assert entry["verdict"] == "unverified"
+    assert entry["shortcut"] == {**entry["shortcut"], "factor": "brightness", "class": "hairline-crack"}
+    assert "shortcut" in entry["note"]
+
+
+def test_field_that_shares_the_lighting_keeps_breaks(small_demo, tmp_path):
+    # A labelled field where cracked tiles are dim too: lighting then carries the
+    # class where the model is deployed, and the move is a real class change.
+    import shutil
+
+    root = tmp_path / "data"
+    shutil.copytree(small_demo, root)
+    shutil.rmtree(root / "field")
+    shutil.copytree(root / "train", root / "field")
+    entry = check_recipe(open_dataset(root), DARKEN, seed=0)["transforms"][0]
+    assert entry["verdict"] == "breaks"
+    assert "shortcut" not in entry
