@@ -411,6 +411,9 @@ def main(argv=None):
     except BadInputError as error:
         print(f"augplan: error: {error}", file=sys.stderr)
         return ExitCode.BAD_INPUT
+    except BrokenPipeError:  # the reader of our output went away (e.g. `| head`)
+        sys.stdout = open(os.devnull, "w")
+        return ExitCode.OK
     except OSError as error:  # the user's files or folders: permissions, disk full, missing paths
         where = error.filename or "a file"
         print(f"augplan: error: {where}: {error.strerror or error}", file=sys.stderr)

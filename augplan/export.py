@@ -58,7 +58,7 @@ def _clip_to_limit(step, check_entry):
     return dataclasses.replace(step, params={**step.params, magnitude: clipped})
 
 
-def vet_transforms(recipe, check_result, *, approve=()):
+def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     """Apply the checker's verdicts to a recipe.
 
     Rules, in order, for transform ``i`` with verdict ``v``:
@@ -66,8 +66,12 @@ def vet_transforms(recipe, check_result, *, approve=()):
     - ``breaks``: rewritten with the checker's suggested ``relabel`` (when
       the step has none) or ``only`` scope when there is one; otherwise
       clipped to its safe limit when it has one; otherwise removed.
-    - ``unverified``: kept as it is when ``i`` is in ``approve``; otherwise
-      clipped to its safe limit when it has one; otherwise removed.
+    - ``unverified``: kept as it is when ``i`` is in ``approve``, or when
+      the checker traced it to a shortcut of the data (``shortcut``) that
+      the coverage analysis shows this recipe breaks (its factor is flagged
+      and no longer persists): removing it would keep the shortcut, and a
+      person signs it off from the evidence; otherwise clipped to its safe
+      limit when it has one; otherwise removed.
     - ``safe``: clipped to its safe limit when the limit is narrower than the
       range (a pooled verdict can be safe while the ends of the range are not).
 
@@ -89,6 +93,8 @@ def vet_transforms(recipe, check_result, *, approve=()):
     """
     approve = set(approve)
     entries = {entry["index"]: entry for entry in check_result["transforms"]}
+    broken_shortcuts = {row["factor"] for row in (coverage_result or {}).get("shortcuts", [])
+                        if row.get("flagged") and not row.get("persists")}
     kept, changes = [], []
     for index, step in enumerate(recipe.transforms):
         entry = entries[index]
@@ -106,6 +112,10 @@ def vet_transforms(recipe, check_result, *, approve=()):
             new_step = dataclasses.replace(step, only=only, exclude=None)
         elif verdict == "unverified" and index in approve:
             detail = "unverified, kept: approved by a person (--approve)"
+        elif verdict == "unverified" and (entry.get("shortcut") or {}).get("factor") in broken_shortcuts:
+            factor = entry["shortcut"]["factor"]
+            detail = (f"unverified, kept: it breaks the {factor} shortcut of the data, and the proxy "
+                      f"model's objection follows that shortcut; a person signs it off from the evidence")
         elif verdict in ("breaks", "unverified"):
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:

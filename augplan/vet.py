@@ -117,7 +117,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                                  evidence_dir=scratch / f"evidence-{number}")
             coverage = analyse_coverage(dataset, recipe, seed=seed, workers=workers, quiet=quiet,
                                         plots_dir=scratch / f"plots-{number}")
-            vetted, changes = vet_transforms(recipe, check, approve=approve)
+            vetted, changes = vet_transforms(recipe, check, approve=approve, coverage_result=coverage)
             unchanged = vetted.transforms == recipe.transforms
             if not unchanged:
                 vetted = vetted.__class__(name=_vetted_name(recipe), seed=vetted.seed, copies=vetted.copies,

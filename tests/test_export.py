@@ -97,3 +97,16 @@ def test_plain_recipe_is_not_vetted(tmp_path):
     result = verify_vetted(path)
     assert result["format_ok"] and not result["ok"]
     assert "not a vetted one" in result["messages"][0]
+
+
+def test_unverified_shortcut_move_is_kept_when_the_recipe_breaks_that_shortcut():
+    check = {"transforms": [_entry(0, "flip", "safe"), _entry(1, "hue", "safe"),
+                            _entry(2, "rotate", "safe"), _entry(3, "blur", "safe"),
+                            _entry(4, "noise", "safe")]}
+    check["transforms"][3].update(verdict="unverified", shortcut={"factor": "sharpness", "class": "x"})
+    cleared = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": False}]}
+    persisting = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": True}]}
+    vetted, changes = vet_transforms(RECIPE, check, coverage_result=cleared)
+    assert changes[3]["action"] == "keep" and "shortcut" in changes[3]["detail"]
+    vetted, changes = vet_transforms(RECIPE, check, coverage_result=persisting)
+    assert changes[3]["action"] == "remove"
