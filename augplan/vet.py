@@ -63,6 +63,11 @@ def _vetted_name(recipe):
     return f"{recipe.name}-vetted"
 
 
+def _field_gain(score):
+    field = score.get("field") or {}
+    return field.get("gain") if field.get("gain") is not None else float("-inf")
+
+
 def _verdict_sentence(recipe_entries, evaluation, best):
     changed = [entry for entry in recipe_entries if not entry["vetted"]["unchanged"]]
     parts = []
@@ -75,8 +80,18 @@ def _verdict_sentence(recipe_entries, evaluation, best):
     if best is not None:
         gain = best["gain"]
         low, high = best["gain_ci"]
-        parts.append(f"the recommended recipe is {best['name']} (validation gain {gain:+.3f}, "
-                     f"95% CI [{low:+.3f}, {high:+.3f}] over no augmentation)")
+        text = (f"the recommended recipe is {best['name']} (validation gain {gain:+.3f}, "
+                f"95% CI [{low:+.3f}, {high:+.3f}] over no augmentation")
+        field = best.get("field") or {}
+        if field.get("gain") is not None:
+            f_low, f_high = field["gain_ci"]
+            text += f"; on the labelled field sample {field['gain']:+.3f}, 95% CI [{f_low:+.3f}, {f_high:+.3f}]"
+        parts.append(text + ")")
+    accuracy = evaluation["baseline"].get("accuracy")
+    if accuracy is not None and accuracy >= 0.99:
+        parts.append(f"validation is saturated (no augmentation already scores {accuracy:.0%} there), "
+                     "so it cannot separate the recipes"
+                     + ("; the labelled field sample can" if (best or {}).get("field") else ""))
     return "; ".join(parts) + "."
 
 
@@ -138,12 +153,11 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                                       quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir)
         scores = {row["name"]: row for row in evaluation["recipes"]}
 
-        best_entry, best_vetted = None, None
         for entry, vetted in zip(entries, vetted_recipes):
-            score = scores[vetted.name]
-            entry["vetted"]["score"] = score
-            if best_entry is None or score["gain"] > best_entry["vetted"]["score"]["gain"]:
-                best_entry, best_vetted = entry, vetted
+            entry["vetted"]["score"] = scores[vetted.name]
+        # Best validation gain; a tie (a saturated validation split scores every
+        # recipe alike) goes to the better gain on the labelled field sample.
+        best_entry = max(entries, key=lambda e: (e["vetted"]["score"]["gain"], _field_gain(e["vetted"]["score"])))
 
         documents = {}
         for entry, vetted in zip(entries, vetted_recipes):
