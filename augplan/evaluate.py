@@ -15,8 +15,9 @@ augmented validation images in the output is zero by construction, and
 image it sees.
 
 Statistics (see `augplan.stats`): validation images are the sampling unit.
-Accuracy intervals and gain intervals are percentile bootstraps that resample
-validation images with all repeats of an image kept together; the McNemar
+Accuracy intervals are Wilson intervals with the validation images as n; gain
+intervals are paired percentile bootstraps that resample validation images
+with all repeats of an image kept together; the McNemar
 p-value pools (repeat, image) pairs; Holm adjusts across the recipes of one
 run.
 """
@@ -32,7 +33,7 @@ from augplan import stats
 from augplan.data import Dataset, fingerprint, load_images
 from augplan.errors import BadInputError
 from augplan.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
-from augplan.parallel import parallel_map
+from augplan.parallel import parallel_map, resolve_workers
 from augplan.recipe import Recipe, recipe_hash
 from augplan.transforms import apply_recipe
 
@@ -127,22 +128,8 @@ def _new_model(model, random_state):
 
 
 def _fit(model, features, targets):
-    """Fit ``model`` on raw features; return its predict-from-features function.
-
-    `FeatureModel.fit_features` also cross-validates (five extra fits) for
-    its trust check, which scoring does not use; when the model exposes its
-    estimator factory the evaluator fits the same pipeline (standardise, then
-    the estimator) once.
-    """
-    make_estimator = getattr(model, "_make_estimator", None)
-    if make_estimator is None:
-        return model.fit_features(features, targets).predict_features
-    from sklearn.preprocessing import StandardScaler
-
-    features = np.asarray(features, dtype=np.float64)
-    scaler = StandardScaler().fit(features)
-    estimator = make_estimator().fit(scaler.transform(features), targets)
-    return lambda F: estimator.predict(scaler.transform(np.asarray(F, dtype=np.float64)))
+    """Fit ``model`` on raw features (no trust check: scoring never reads it)."""
+    return model.fit_features(features, targets, cross_validate=False).predict_features
 
 
 def _train_and_predict(unit):
@@ -208,14 +195,21 @@ def _round(value):
     return None if value is None else round(float(value), _ROUND)
 
 
+def _round_p(value):
+    # Significant digits, so a tiny p-value never prints as 0.
+    return None if value is None else float(f"{float(value):.3g}")
+
+
 def _score(y_true, predictions, classes, rng):
     """Pooled metrics of ``predictions`` (repeats, n) against ``y_true`` (n,)."""
     repeats = predictions.shape[0]
     correct = predictions == y_true[None, :]
     summary = stats.summarise_predictions(np.tile(y_true, repeats), predictions.ravel(), classes)
-    # A bootstrap of the accuracy itself: the gain of `correct` over a model
-    # that is never right, resampling images with their repeats together.
-    accuracy, low, high = stats.paired_bootstrap_gain(np.zeros_like(correct), correct, rng)
+    # Wilson interval over the validation images (Wilson 1927): the mean
+    # accuracy of the repeats, with the validation sample's size as n. Unlike a
+    # bootstrap it does not collapse to a point when every image is right.
+    accuracy = float(correct.mean())
+    low, high = stats.wilson_interval(accuracy * y_true.size, y_true.size)
     return {
         "n_images": int(y_true.size),
         "accuracy": _round(accuracy),
@@ -230,7 +224,7 @@ def _score(y_true, predictions, classes, rng):
 def _compare(base_correct, new_correct, rng):
     gain, low, high = stats.paired_bootstrap_gain(base_correct, new_correct, rng)
     return {"gain": _round(gain), "gain_ci": [_round(low), _round(high)],
-            "p_value": _round(stats.mcnemar_exact(base_correct, new_correct))}
+            "p_value": _round_p(stats.mcnemar_exact(base_correct, new_correct))}
 
 
 def _per_class_gain(base_recall, new_recall):
@@ -259,8 +253,7 @@ def _check_inputs(dataset, recipes, repeats, size, seed, workers, confirm_fracti
     for flag, value, low in (("--repeats", repeats, 1), ("size", size, 8), ("--seed", seed, 0)):
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
             raise BadInputError(f"{flag} must be an integer of at least {low}; got {value!r}")
-    if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers == 0 or workers < -1:
-        raise BadInputError(f"--workers must be a positive integer or -1 (every core); got {workers!r}")
+    resolve_workers(workers)  # a count or a Cluster; raises BadInputError otherwise
     if confirm_fraction is not None:
         if (isinstance(confirm_fraction, bool) or not isinstance(confirm_fraction, (int, float))
                 or not 0.0 < float(confirm_fraction) < 1.0):
@@ -391,7 +384,7 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
         entry.update({k: val[k] for k in ("accuracy", "accuracy_ci", "balanced_accuracy", "macro_f1",
                                           "per_class_recall", "repeat_accuracy", "gain", "gain_ci",
                                           "p_value")})
-        entry["p_holm"] = _round(adjusted)
+        entry["p_holm"] = _round_p(adjusted)
         entry["per_class_gain"] = val["per_class_gain"]
         entry["flagged"] = bool(val["gain_ci"][1] < 0)
         entry["augmented_training_images"] = result["augmented_training_images"]
@@ -441,7 +434,7 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
         "baseline": baseline,
         "recipes": entries,
         "scored_on": scored_on,
-        "accuracy_interval": "95% percentile bootstrap over validation images, repeats pooled",
+        "accuracy_interval": "95% Wilson interval over validation images (mean accuracy of the repeats)",
         "augmented_validation_images": 0,
         "repeats": int(repeats),
         "seed": int(seed),

@@ -402,7 +402,7 @@ class FeatureModel:
         """Featurize ``images`` and fit; see `fit_features`. Returns self."""
         return self.fit_features(self.featurize(images), labels)
 
-    def fit_features(self, features, labels):
+    def fit_features(self, features, labels, *, cross_validate=True):
         """Fit scaler and estimator on raw features and measure cross-validated accuracy.
 
         Parameters
@@ -411,6 +411,9 @@ class FeatureModel:
             Raw features from `featurize` (or the same ``feature_fn``).
         labels : array_like, shape (N,)
             Class labels (strings or integers); at least two classes.
+        cross_validate : bool, default True
+            Measure ``cv_accuracy_`` (and ``weak_``). Scoring loops that fit
+            many models and never read them skip the extra fits.
 
         Returns
         -------
@@ -423,9 +426,9 @@ class FeatureModel:
         # and BLAS threads on top oversubscribe the cores and make small fits
         # many times slower on a busy machine.
         with threadpool_limits(limits=1, user_api="blas"):
-            return self._fit_features(features, labels)
+            return self._fit_features(features, labels, cross_validate)
 
-    def _fit_features(self, features, labels):
+    def _fit_features(self, features, labels, cross_validate=True):
         from sklearn.model_selection import StratifiedKFold, cross_val_predict
         from sklearn.pipeline import make_pipeline
         from sklearn.preprocessing import StandardScaler
@@ -449,7 +452,7 @@ class FeatureModel:
 
         self.classes_ = classes
         self.chance_ = float(counts.max() / counts.sum())
-        folds = _count_folds(labels)
+        folds = _count_folds(labels) if cross_validate else 0
         if folds >= 2:
             splitter = StratifiedKFold(n_splits=folds, shuffle=True, random_state=self.random_state)
             pipeline = make_pipeline(StandardScaler(), self._make_estimator())

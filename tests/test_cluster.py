@@ -100,10 +100,8 @@ def test_check_json_same_on_cluster(cluster, recipe, tmp_path):
 # evaluate.py's own input check (_check_inputs) accepts only an integer
 # --workers, so a Cluster stops there with exit 2. Remove this marker once it
 # validates workers with augplan.parallel.resolve_workers.
-EVALUATE_TAKES_CLUSTER = pytest.mark.xfail(strict=True, reason="evaluate._check_inputs rejects a Cluster")
 
 
-@EVALUATE_TAKES_CLUSTER
 def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path):
     local_code, local_out, local_err = _evaluate(tmp_path / "local", recipe)
     assert local_code in (0, 1), local_err
@@ -118,7 +116,6 @@ def _worker_pids(client):
     return client.run(os.getpid)
 
 
-@EVALUATE_TAKES_CLUSTER
 def test_evaluate_survives_a_killed_worker(cluster, recipe, tmp_path):
     local = _evaluate(tmp_path / "local", recipe, train=40)
     assert local[0] in (0, 1), local[2]
