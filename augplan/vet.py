@@ -178,6 +178,14 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                                "repeats": evaluation["repeats"]},
                 "seeds": {"analysis": seed, "recipe": vetted.seed},
             }
+            field = score.get("field") or {}
+            if field.get("gain") is not None:
+                evidence["field"] = {"gain": field["gain"], "gain_ci": field["gain_ci"],
+                                     "n_images": field.get("n_images")}
+            signoff = [f"{c['index']} {c['op']}: {c['detail']}" for c in entry["vetted"]["changes"]
+                       if c["verdict"] == "unverified" and c["action"] == "keep"]
+            if signoff:
+                evidence["needs_signoff"] = signoff
             documents[f"vetted-{entry['name']}.yaml"] = vetted_text(vetted, evidence)
         documents["vetted-recipe.yaml"] = documents[f"vetted-{best_entry['name']}.yaml"]
 
