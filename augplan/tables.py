@@ -1,15 +1,28 @@
 """Plain-text tables of the command outputs, sized for an 80-column terminal."""
 
-__all__ = ["format_table", "check_table", "coverage_table", "leaderboard_table", "history_table",
+import textwrap
+
+__all__ = ["format_table", "wrap", "check_table", "coverage_table", "leaderboard_table", "history_table",
            "format_range", "format_interval"]
 
 
-def format_table(header, rows, *, width=80):
+def _cut(text, limit):
+    return text if len(text) <= limit else text[:limit - 1] + "\u2026"
+
+
+def wrap(text, width=80):
+    """Free text folded to ``width`` columns, continuation lines indented."""
+    return textwrap.fill(text, width=width, subsequent_indent="  ", break_long_words=False,
+                         break_on_hyphens=False)
+
+
+def format_table(header, rows, *, width=80, max_cell=22):
     """Lay out ``rows`` under ``header`` in left-aligned columns.
 
-    The last column is cut with an ellipsis so no line is longer than ``width``.
+    Cells longer than ``max_cell`` (long class or recipe names) are cut with an
+    ellipsis, and so is any line still longer than ``width``.
     """
-    rows = [[str(cell) for cell in row] for row in rows]
+    rows = [[_cut(str(cell), max_cell) for cell in row] for row in rows]
     widths = [max(len(str(h)), *(len(row[i]) for row in rows)) if rows else len(str(h))
               for i, h in enumerate(header)]
     lines = []
@@ -72,7 +85,7 @@ def check_table(result):
             notes.append(f"#{t['index']} {t['op']}: {t['note']}")
     legend = ("changed: share of transformed images that land in another class;\n"
               "left: share outside every class's region (nothing in the data can judge them)")
-    return "\n".join([head, table, *notes, legend])
+    return "\n".join([wrap(head), table, *(wrap(note) for note in notes), legend])
 
 
 def coverage_table(result):
@@ -103,25 +116,43 @@ def coverage_table(result):
     parts.extend(result.get("messages", []))
     for s in result.get("suggestions", []):
         parts.append(f"suggestion: {s['op']} {format_range(s['range'])} ({s['reason']})")
-    return "\n".join(parts)
+    return "\n".join(part if "\n" in part else wrap(part) for part in parts)
+
+
+def _signed_interval(low, high):
+    return f"[{low:+.2f}, {high:+.2f}]"
+
+
+def _source_table(result, source):
+    """Baseline and recipes scored on a second source (confirmation split or field)."""
+    block = result.get(source)
+    if not block:
+        return []
+    base = block["baseline"]
+    rows = [["baseline", f"{base['accuracy']:.2f} {format_interval(*base['accuracy_ci'])}", "-"]]
+    for r in result["recipes"]:
+        entry = r.get(source)
+        if entry:
+            rows.append([r["name"], f"{entry['accuracy']:.2f} {format_interval(*entry['accuracy_ci'])}",
+                         f"{entry['gain']:+.2f} {_signed_interval(*entry['gain_ci'])}"])
+    title = {"field": "labelled field sample", "confirm": "confirmation split, scored once"}[source]
+    return ["", f"{title} ({block['n_images']} images, a separate source):",
+            format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]"], rows)]
 
 
 def leaderboard_table(result):
-    """The leaderboard of an ``evaluate`` result, baseline first."""
+    """The leaderboard of an ``evaluate`` result, baseline first, then other sources."""
     base = result["baseline"]
-    rows = [["baseline", f"{base['accuracy']:.3f} {format_interval(*base['accuracy_ci'], digits=3)}",
-             "-", "-", "-", ""]]
+    rows = [["baseline", f"{base['accuracy']:.2f} {format_interval(*base['accuracy_ci'])}", "-", "-", ""]]
     for r in sorted(result["recipes"], key=lambda r: -r["gain"]):
-        flags = "LOSES" if r["flagged"] else ""
-        rows.append([r["name"], f"{r['accuracy']:.3f} {format_interval(*r['accuracy_ci'], digits=3)}",
-                     f"{r['gain']:+.3f} {format_interval(*r['gain_ci'], digits=3)}",
-                     f"{r['p_value']:.3g}", f"{r['p_holm']:.3g}", flags])
-    head = f"scored on {result['scored_on']}: original images, {result['repeats']} repeats per recipe"
-    parts = [head, format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]", "p", "Holm p", ""], rows)]
-    for source in ("confirm", "field"):
-        block = result.get(source)
-        if block:
-            parts.append(f"{source}: {block.get('summary', block)}")
+        rows.append([r["name"], f"{r['accuracy']:.2f} {format_interval(*r['accuracy_ci'])}",
+                     f"{r['gain']:+.2f} {_signed_interval(*r['gain_ci'])}", f"{r['p_holm']:.2g}",
+                     "LOSES" if r["flagged"] else ""])
+    head = (f"scored on {result['scored_on']} ({base.get('n_images', '?')} original images), "
+            f"{result['repeats']} repeats per recipe")
+    parts = [head, format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]", "Holm p", ""], rows)]
+    parts += _source_table(result, "confirm")
+    parts += _source_table(result, "field")
     return "\n".join(parts)
 
 

@@ -1,0 +1,59 @@
+"""Plain-text tables: every line fits an 80-column terminal."""
+
+import pytest
+
+from augplan.tables import check_table, coverage_table, format_range, format_table, leaderboard_table
+
+LONG = "a-rather-long-class-name"
+
+CHECK = {
+    "recipe": "tiles", "model": {"cv_accuracy": 0.97, "chance": 0.2},
+    "transforms": [{"index": 0, "op": "brightness", "params": {"factor": [0.3, 1.3]},
+                    "verdict": "unverified", "change_rate": 0.25, "change_rate_ci": [0.22, 0.28],
+                    "leave_rate": 0.01, "safe_limit": [0.625, 1.3],
+                    "swaps": [{"from": LONG, "to": LONG + "-2", "rate": 0.35, "n": 89}] * 3,
+                    "suggestion": {"only": [LONG, LONG + "-3"]}, "note": "a person must look"}],
+}
+EVALUATION = {
+    "scored_on": "val", "repeats": 5,
+    "baseline": {"n_images": 75, "accuracy": 1.0, "accuracy_ci": [0.951, 1.0]},
+    "recipes": [{"name": LONG, "accuracy": 0.867, "accuracy_ci": [0.77, 0.93], "gain": -0.133,
+                 "gain_ci": [-0.207, -0.067], "p_holm": 3.8e-6, "flagged": True,
+                 "field": {"accuracy": 0.57, "accuracy_ci": [0.46, 0.66], "gain": -0.13,
+                           "gain_ci": [-0.22, -0.05]}}],
+    "field": {"n_images": 90, "baseline": {"accuracy": 0.7, "accuracy_ci": [0.6, 0.78]}},
+}
+COVERAGE = {
+    "recipe": "tiles",
+    "factors": {"brightness": {"original": {"std": 0.101, "p05": 0.177, "p95": 0.501},
+                               "augmented": {"std": 0.128, "p05": 0.139, "p95": 0.517},
+                               "field": {"coverage": 1.0}}},
+    "shortcuts": [{"factor": "brightness", "original": 0.44, "augmented": 0.24, "val": 0.44,
+                   "field": 0.14, "chance": 0.2, "flagged": True, "persists": False}],
+    "field_coverage": {"k": 5, "coverage_before": 0.89, "coverage_after": 0.96},
+}
+
+
+@pytest.mark.parametrize("text", [check_table(CHECK), leaderboard_table(EVALUATION),
+                                  coverage_table(COVERAGE)], ids=["check", "leaderboard", "coverage"])
+def test_table_lines_fit_80_columns(text):
+    assert max(len(line) for line in text.splitlines()) <= 80
+
+
+def test_leaderboard_flags_a_losing_recipe_and_shows_the_field():
+    text = leaderboard_table(EVALUATION)
+    assert "LOSES" in text and "labelled field sample (90 images" in text
+    assert "a-rather-long-class-n\u2026" in text  # long names are cut, not the flags
+
+
+def test_cells_are_aligned_under_their_header():
+    text = format_table(["a", "bb"], [["x", "y"], ["long", "z"]])
+    header, rule, *rows = text.splitlines()
+    assert header.index("bb") == rule.rindex(" ") + 1 == rows[1].index("z")
+
+
+@pytest.mark.parametrize("value,expected", [([-15.0, 15.0], "-15..15"), ([1.0, 1.0], "1"),
+                                            (None, "-"), ("horizontal", "horizontal")],
+                         ids=["range", "fixed", "none", "text"])
+def test_format_range(value, expected):
+    assert format_range(value) == expected
