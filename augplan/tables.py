@@ -72,8 +72,9 @@ def check_table(result):
     table = format_table(["#", "transform", "verdict", "changed [95% CI]", "left", "safe limit"], rows)
     notes = []
     for t in result["transforms"]:
-        if t["swaps"] and t["verdict"] != "safe":
-            notes.append(f"#{t['index']} {t['op']} moves {_swaps_text(t['swaps'])}")
+        swaps = [swap for swap in t["swaps"] if swap["rate"] >= 0.05]
+        if swaps and t["verdict"] != "safe":
+            notes.append(f"#{t['index']} {t['op']} moves {_swaps_text(swaps)}")
         if t.get("suggestion"):
             suggestion = t["suggestion"]
             if "relabel" in suggestion:
