@@ -1,0 +1,101 @@
+"""vet end to end on a small copy of the demo scenario (invented ground truth:
+mirror-image chevrons, glazes told apart only by hue, a dim-light class)."""
+
+import json
+import pickle
+from html.parser import HTMLParser
+
+import numpy as np
+import pytest
+
+import augplan
+from augplan.cli import main
+from augplan.demo import DEFAULT_RECIPE_DIR, make_demo_dataset
+
+
+@pytest.fixture(scope="module")
+def vetted(tmp_path_factory):
+    root = tmp_path_factory.mktemp("vet")
+    data = root / "data"
+    make_demo_dataset(data, n_train=14, n_val=6, n_field=8)
+    out = root / "out"
+    code = main(["vet", str(data), "--recipe", str(DEFAULT_RECIPE_DIR / "naive-draft.yaml"),
+                 "-o", str(out), "--repeats", "2", "--quiet", "--ledger", str(root / "ledger.sqlite")])
+    return code, out, data
+
+
+def _changes(out, name):
+    evidence = json.loads((out / "evidence.json").read_text())
+    entry = next(e for e in evidence["recipes"] if e["name"] == name)
+    return {c["index"]: c for c in entry["vetted"]["changes"]}, entry
+
+
+def test_vet_changes_the_naive_draft_and_exits_flagged(vetted):
+    code, out, _ = vetted
+    assert code == 1
+    assert {p.name for p in out.iterdir()} >= {"report.html", "evidence.json", "vetted-recipe.yaml",
+                                                "vetted-naive-draft.yaml"}
+
+
+def test_breaking_flip_is_relabelled_and_hue_shift_cut_back(vetted):
+    _, out, _ = vetted
+    changes, entry = _changes(out, "naive-draft")
+    assert changes[0]["op"] == "flip" and changes[0]["action"] == "relabel"
+    assert changes[4]["op"] == "hue" and changes[4]["action"] in ("clip", "remove")
+    steps = entry["vetted"]["recipe"]["transforms"]
+    flip = next(step for step in steps if step["op"] == "flip")
+    assert flip["relabel"] == {"chevron-left": "chevron-right", "chevron-right": "chevron-left"}
+    for step in steps:
+        if step["op"] == "hue":
+            assert max(abs(v) for v in np.atleast_1d(step["degrees"])) < 150
+
+
+def test_safe_transforms_are_kept(vetted):
+    _, out, _ = vetted
+    changes, _ = _changes(out, "naive-draft")
+    safe = [c for c in changes.values() if c["verdict"] == "safe"]
+    # Kept, or at most clipped to the measured safe limit: never removed.
+    assert safe and all(c["action"] in ("keep", "clip") for c in safe)
+
+
+def test_checksum_verifies_and_one_edited_byte_fails(vetted, tmp_path, capsys):
+    _, out, data = vetted
+    assert main(["verify", str(out / "vetted-recipe.yaml"), "--data", str(data)]) == 0
+    edited = tmp_path / "edited.yaml"
+    text = (out / "vetted-recipe.yaml").read_bytes()
+    position = text.index(b"copies: 4") + len("copies: ")
+    edited.write_bytes(text[:position] + b"5" + text[position + 1:])
+    assert main(["verify", str(edited)]) == 1
+    assert "does NOT match" in capsys.readouterr().out
+
+
+class _Links(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.references = []
+
+    def handle_starttag(self, tag, attrs):
+        self.references += [value for name, value in attrs if name in ("src", "href")]
+
+
+def test_report_is_self_contained_with_verdict_first(vetted):
+    _, out, _ = vetted
+    html = (out / "report.html").read_text()
+    parser = _Links()
+    parser.feed(html)  # html.parser of the standard library
+    assert all(ref.startswith(("data:image/png;base64,", "#")) for ref in parser.references)
+    verdict = json.loads((out / "evidence.json").read_text())["verdict"]
+    assert verdict.split(";")[0] in html
+    assert html.index(verdict.split(";")[0]) < html.index("<table")
+
+
+def test_load_recipe_on_the_vetted_recipe(vetted):
+    _, out, _ = vetted
+    aug = augplan.load_recipe(out / "vetted-recipe.yaml")
+    image = np.random.default_rng(0).integers(0, 256, (64, 64, 3), dtype=np.uint8)
+    first = aug.apply(image, "chevron-left", np.random.default_rng(3))
+    again = pickle.loads(pickle.dumps(aug)).apply(image, "chevron-left", np.random.default_rng(3))
+    assert np.array_equal(first[0], again[0]) and first[1] == again[1]
+    assert first[0].shape == image.shape and first[0].dtype == np.uint8
+    labels = {aug.apply(image, "chevron-left", np.random.default_rng(s))[1] for s in range(40)}
+    assert labels == {"chevron-left", "chevron-right"}  # the flip's relabel, applied with probability 0.5
