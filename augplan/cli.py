@@ -244,6 +244,16 @@ def _ensure_parent(path, dataset=None):
         ensure_outside_data(path, dataset)
 
 
+def _emit(console, args, result, table):
+    """Warnings on stderr, then the JSON document or the human table."""
+    for warning in result.get("warnings", []):
+        console.warn(warning)
+    if args.json:
+        console.emit_json(result)
+    else:
+        console.say(table(result))
+
+
 def _run_check(args, console):
     from .invariance import check_recipe
     from . import tables
@@ -257,12 +267,7 @@ def _run_check(args, console):
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, evidence_dir=args.evidence)
     result["leaks"] = leaks
-    for warning in result.get("warnings", []):
-        console.warn(warning)
-    if args.json:
-        console.emit_json(result)
-    else:
-        console.say(tables.check_table(result))
+    _emit(console, args, result, tables.check_table)
     flagged = any(t["verdict"] != "safe" for t in result["transforms"])
     return ExitCode.FLAGGED if flagged else ExitCode.OK
 
@@ -298,12 +303,7 @@ def _run_evaluate(args, console):
                               quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
                               cache_dir=_default_cache(args.data), confirm_fraction=args.confirm_fraction)
     result["leaks"] = leaks
-    for warning in result.get("warnings", []):
-        console.warn(warning)
-    if args.json:
-        console.emit_json(result)
-    else:
-        console.say(tables.leaderboard_table(result))
+    _emit(console, args, result, tables.leaderboard_table)
     return ExitCode.FLAGGED if any(r["flagged"] for r in result["recipes"]) else ExitCode.OK
 
 

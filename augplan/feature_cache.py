@@ -13,11 +13,11 @@ and seed, and are streamed instead.
 import hashlib
 import inspect
 import io
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
+
+from augplan.atomic import write_bytes_atomic
 
 __all__ = ["FeatureCache", "feature_settings_key", "default_cache_dir"]
 
@@ -61,27 +61,6 @@ def feature_settings_key(feature_fn, size):
     name = f"{getattr(feature_fn, '__module__', '?')}.{getattr(feature_fn, '__qualname__', repr(feature_fn))}"
     text = "|".join([name, _source_digest(feature_fn), f"size={int(size)}"])
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:24]
-
-
-def _write_without_sync(path, data):
-    """Atomic write (temporary file, then rename) without fsync.
-
-    `augplan.atomic.write_bytes_atomic` syncs every file, which costs several
-    milliseconds per row and dominated the cache's cost with thousands of
-    rows. A cache row lost in a power cut is only recomputed: a torn file
-    fails to load and `FeatureCache.get` treats it as a miss.
-    """
-    handle, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(handle, "wb") as tmp:
-            tmp.write(data)
-        os.replace(tmp_name, path)
-    except BaseException:
-        try:
-            os.unlink(tmp_name)
-        except FileNotFoundError:
-            pass
-        raise
 
 
 class FeatureCache:
@@ -145,7 +124,8 @@ class FeatureCache:
         path.parent.mkdir(parents=True, exist_ok=True)
         buffer = io.BytesIO()
         np.save(buffer, np.asarray(row, dtype=np.float32), allow_pickle=False)
-        _write_without_sync(path, buffer.getvalue())
+        # No fsync: a row lost in a power cut fails to load and is recomputed.
+        write_bytes_atomic(path, buffer.getvalue(), durable=False)
 
     def lookup(self, content_hashes):
         """Look up many rows at once.
