@@ -283,10 +283,7 @@ def _run_coverage(args, console):
     recipe = _read_recipes([args.recipe])[0]
     result = analyse_coverage(dataset, recipe, draws=args.draws, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, plots_dir=args.plots)
-    if args.json:
-        console.emit_json(result)
-    else:
-        console.say(tables.coverage_table(result))
+    _emit(console, args, result, tables.coverage_table)
     persists = any(s.get("flagged") and s.get("persists") for s in result["shortcuts"])
     return ExitCode.FLAGGED if persists else ExitCode.OK
 

@@ -158,8 +158,12 @@ def leaderboard_table(result):
 
 
 def history_table(rows):
-    """Past comparisons from the results ledger."""
+    """Past comparisons from the results ledger, newest last."""
     if not rows:
         return "no evaluations in the ledger yet"
-    header = list(rows[0].keys())
-    return format_table(header, [[row[key] for key in header] for row in rows])
+    table = [[row["date"][:16], row["fingerprint"], len(row["recipes"]), row["repeats"],
+              row["best_recipe"] or "-",
+              "-" if row["best_gain"] is None else f"{row['best_gain']:+.3f}",
+              "ledger" if row["from_ledger"] else ""]
+             for row in rows]
+    return format_table(["date", "data", "recipes", "repeats", "best recipe", "gain", "reused"], table)

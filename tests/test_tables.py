@@ -57,3 +57,15 @@ def test_cells_are_aligned_under_their_header():
                          ids=["range", "fixed", "none", "text"])
 def test_format_range(value, expected):
     assert format_range(value) == expected
+
+
+def test_history_table_fits_and_marks_reused_results():
+    from augplan.tables import history_table
+
+    rows = [{"date": "2026-12-01 22:33:10", "fingerprint": "053b80240e6f", "data": "/a/very/long/path" * 5,
+             "recipes": ["cautious", "naive-draft"], "best_recipe": "cautious", "best_gain": 0.0,
+             "seed": 0, "repeats": 2, "from_ledger": True}]
+    text = history_table(rows)
+    assert max(len(line) for line in text.splitlines()) <= 80
+    assert "ledger" in text.splitlines()[-1] and "+0.000" in text
+    assert history_table([]) == "no evaluations in the ledger yet"
