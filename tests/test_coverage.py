@@ -247,3 +247,21 @@ def test_a_factor_the_field_confirms_is_a_cue_not_a_shortcut(lighting_cue):
     assert row["original"] > 0.9 and row["field"] > 0.9
     assert row["field_confirms"] and not row["flagged"] and not row["persists"]
     assert any("cue that defines the class" in message for message in report["messages"])
+
+
+def test_demo_lighting_shortcut_is_shared_by_val_and_cleared_by_the_relighting_recipe(tmp_path):
+    # The demo scenario (augplan/demo.py) is invented ground truth: cracked
+    # tiles photographed dim in train and val, every class under wide lighting
+    # in the labelled field sample.
+    from augplan.demo import DEFAULT_RECIPE_DIR, make_demo_dataset
+    from augplan.recipe import read_recipe
+
+    make_demo_dataset(tmp_path, n_train=16, n_val=8, n_field=10)
+    dataset = open_dataset(tmp_path)
+    cautious = coverage.analyse_coverage(dataset, read_recipe(DEFAULT_RECIPE_DIR / "cautious.yaml"))
+    relit = coverage.analyse_coverage(dataset, read_recipe(DEFAULT_RECIPE_DIR / "light-and-pose.yaml"))
+    row = _row(cautious, "brightness")
+    assert row["flagged"] and row["class"] == "hairline-crack" and row["val_shares"] and row["persists"]
+    assert "brightness" in cautious["val_shares_shortcut"]
+    assert not _row(relit, "brightness")["persists"]
+    assert relit["field_coverage"]["coverage_after"] > relit["field_coverage"]["coverage_before"]
