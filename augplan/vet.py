@@ -5,6 +5,7 @@ interrupted run leaves the output folder without partial files.
 """
 
 import json
+import sys
 import tempfile
 from pathlib import Path
 
@@ -61,6 +62,11 @@ def _collect_figures(entries, scratch):
 
 def _vetted_name(recipe):
     return f"{recipe.name}-vetted"
+
+
+def _stage(quiet, text):
+    if not quiet:
+        print(f"augplan vet: {text}", file=sys.stderr, flush=True)
 
 
 def _field_gain(score):
@@ -128,6 +134,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         scratch = Path(scratch)
         entries, vetted_recipes = [], []
         for number, recipe in enumerate(recipes):
+            _stage(quiet, f"[{number + 1}/{len(recipes)}] {recipe.name}: label safety and coverage")
             check = check_recipe(dataset, recipe, sample=sample, seed=seed, workers=workers, quiet=quiet,
                                  evidence_dir=scratch / f"evidence-{number}")
             coverage = analyse_coverage(dataset, recipe, seed=seed, workers=workers, quiet=quiet,
@@ -148,6 +155,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                                        "changes": changes, "unchanged": unchanged, "recheck": rechecked}})
             vetted_recipes.append(vetted)
 
+        _stage(quiet, "scoring every recipe and its vetted form against no augmentation")
         to_score = list(recipes) + [v for v, e in zip(vetted_recipes, entries) if not e["vetted"]["unchanged"]]
         evaluation = evaluate_recipes(dataset, to_score, repeats=repeats, seed=seed, workers=workers,
                                       quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir)
