@@ -74,31 +74,33 @@ def _field_gain(score):
     return field.get("gain") if field.get("gain") is not None else float("-inf")
 
 
+def _gain_text(block):
+    low, high = block["gain_ci"]
+    return f"{block['gain']:+.2f} [95% CI {low:+.2f}, {high:+.2f}]"
+
+
 def _verdict_sentence(recipe_entries, evaluation, best):
-    changed = [entry for entry in recipe_entries if not entry["vetted"]["unchanged"]]
-    parts = []
-    if changed:
-        names = ", ".join(entry["name"] for entry in changed)
-        parts.append(f"augplan had to change {names} to make {'it' if len(changed) == 1 else 'them'} "
-                     "label-safe")
+    """The report's first line: what to use, how much it gains, what augplan changed."""
+    field = best.get("field") or {}
+    has_field = field.get("gain") is not None
+    helps = best["gain_ci"][0] > 0 or (has_field and field["gain_ci"][0] > 0)
+    loses = best["gain_ci"][1] < 0 and not (has_field and field["gain_ci"][0] > 0)
+    if loses:
+        lead = f"No recipe beats no augmentation; the least harmful is {best['name']}"
+    elif helps:
+        lead = f"Use {best['name']}"
     else:
-        parts.append("every transform of every recipe kept its labels")
-    if best is not None:
-        gain = best["gain"]
-        low, high = best["gain_ci"]
-        text = (f"the recommended recipe is {best['name']} (validation gain {gain:+.3f}, "
-                f"95% CI [{low:+.3f}, {high:+.3f}] over no augmentation")
-        field = best.get("field") or {}
-        if field.get("gain") is not None:
-            f_low, f_high = field["gain_ci"]
-            text += f"; on the labelled field sample {field['gain']:+.3f}, 95% CI [{f_low:+.3f}, {f_high:+.3f}]"
-        parts.append(text + ")")
+        lead = f"No recipe shows a clear gain; the best is {best['name']}"
+    scores = (f"gain over no augmentation {_gain_text(field)} on the labelled field sample and "
+              f"{_gain_text(best)} on validation" if has_field
+              else f"validation gain over no augmentation {_gain_text(best)}")
     accuracy = evaluation["baseline"].get("accuracy")
     if accuracy is not None and accuracy >= 0.99:
-        parts.append(f"validation is saturated (no augmentation already scores {accuracy:.0%} there), "
-                     "so it cannot separate the recipes"
-                     + ("; the labelled field sample can" if (best or {}).get("field") else ""))
-    return "; ".join(parts) + "."
+        scores += f", which is saturated ({accuracy:.0%} without augmentation)"
+    changed = [entry["name"] for entry in recipe_entries if not entry["vetted"]["unchanged"]]
+    tail = (f"augplan changed {', '.join(changed)} to make {'it' if len(changed) == 1 else 'them'} label-safe"
+            if changed else "every transform kept its labels")
+    return f"{lead}: {scores}; {tail}."
 
 
 def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5, sample=None, seed=0,

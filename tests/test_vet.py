@@ -99,3 +99,20 @@ def test_load_recipe_on_the_vetted_recipe(vetted):
     assert first[0].shape == image.shape and first[0].dtype == np.uint8
     labels = {aug.apply(image, "chevron-left", np.random.default_rng(s))[1] for s in range(40)}
     assert labels == {"chevron-left", "chevron-right"}  # the flip's relabel, applied with probability 0.5
+
+
+@pytest.mark.parametrize("gain_ci,field_ci,start", [
+    ((0.01, 0.05), None, "Use best-one:"),
+    ((-0.02, 0.03), None, "No recipe shows a clear gain"),
+    ((-0.09, -0.01), None, "No recipe beats no augmentation"),
+    ((0.0, 0.0), (0.2, 0.4), "Use best-one:"),
+], ids=["val-gain", "unclear", "loses", "field-gain"])
+def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
+    from augplan.vet import _verdict_sentence
+
+    best = {"name": "best-one", "gain": sum(gain_ci) / 2, "gain_ci": list(gain_ci)}
+    if field_ci:
+        best["field"] = {"gain": sum(field_ci) / 2, "gain_ci": list(field_ci)}
+    entries = [{"name": "draft", "vetted": {"unchanged": False}}]
+    sentence = _verdict_sentence(entries, {"baseline": {"accuracy": 0.9}}, best)
+    assert sentence.startswith(start) and "augplan changed draft" in sentence
