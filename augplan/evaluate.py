@@ -535,25 +535,32 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     assemble = dict(repeats=repeats, seed=seed, confirm_source=confirm_source,
                     n_unlabelled_field=n_unlabelled, confirm_ignored=confirm_ignored)
 
-    stored = None
+    stored_baseline, stored = None, {}
     if ledger_path is not None:
-        stored = _ledger.lookup_results(ledger_path, recipe_hashes=hashes, **ledger_keys)
-    if stored is not None:
-        base_scores, results = stored
-        document = _assemble(dataset, base_scores, results, from_ledger=True, **assemble)
+        stored_baseline, stored = _ledger.lookup_stored(ledger_path, recipe_hashes=hashes, **ledger_keys)
+    missing = [(recipe, h) for recipe, h in zip(recipes, hashes) if h not in stored]
+    if not missing:
+        base_scores = stored_baseline
     else:
+        # Only the recipes the ledger lacks are trained; stored ones were scored
+        # against the same deterministic baseline (same data, settings, seed,
+        # repeats), so their results stand beside the new ones.
         root = Path(dataset.root).resolve()
         cache_root = Path(cache_dir) if cache_dir is not None else default_cache_dir(root)
         if cache_root.resolve() == root or root in cache_root.resolve().parents:
             raise BadInputError(f"{cache_root}: the feature cache must not live inside the data "
                                 f"folder {root}; the data folder is never written to")
         cache = FeatureCache(cache_root, feature_settings_key(model.feature_fn, size))
-        base_scores, results = _compute(dataset, recipes, hashes, model, repeats=repeats, size=size,
-                                        seed=seed, workers=workers, quiet=quiet, cache=cache,
-                                        splits=splits)
+        base_scores, computed = _compute(dataset, [r for r, _ in missing], [h for _, h in missing], model,
+                                         repeats=repeats, size=size, seed=seed, workers=workers,
+                                         quiet=quiet, cache=cache, splits=splits)
         if ledger_path is not None:
-            _ledger.store_results(ledger_path, baseline=base_scores, results=results, **ledger_keys)
-        document = _assemble(dataset, base_scores, results, from_ledger=False, **assemble)
+            _ledger.store_results(ledger_path, baseline=base_scores, results=computed, **ledger_keys)
+        stored.update({result["recipe_hash"]: result for result in computed})
+    results = [stored[h] for h in hashes]
+    document = _assemble(dataset, base_scores, results, from_ledger=not missing, **assemble)
+    document["reused_from_ledger"] = [r.name for r, h in zip(recipes, hashes)
+                                      if h not in {m for _, m in missing}]
 
     if ledger_path is not None:
         best = max(document["recipes"], key=lambda e: e["gain"])

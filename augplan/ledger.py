@@ -16,7 +16,7 @@ from pathlib import Path
 
 from augplan.errors import BadInputError
 
-__all__ = ["lookup_results", "store_results", "record_run", "list_history"]
+__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS evaluations (
@@ -68,6 +68,33 @@ def _now():
     return datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M:%S")
 
 
+def lookup_stored(ledger_path, *, fingerprint, settings_key, seed, repeats, recipe_hashes):
+    """Whatever is stored for the recipes of a comparison.
+
+    Returns
+    -------
+    baseline : dict or None
+        The baseline stored with any of them (it depends only on the keys).
+    results : dict
+        ``{recipe_hash: result}`` for the recipes found.
+    """
+    connection = _connect(ledger_path, create=False)
+    if connection is None:
+        return None, {}
+    baseline, results = None, {}
+    with closing(connection):
+        for recipe_hash in recipe_hashes:
+            row = connection.execute(
+                "SELECT result_json, baseline_json FROM evaluations WHERE recipe_hash=? AND "
+                "fingerprint=? AND settings_key=? AND seed=? AND repeats=?",
+                (recipe_hash, fingerprint, settings_key, int(seed), int(repeats)),
+            ).fetchone()
+            if row is not None:
+                results[recipe_hash] = json.loads(row[0])
+                baseline = baseline if baseline is not None else json.loads(row[1])
+    return baseline, results
+
+
 def lookup_results(ledger_path, *, fingerprint, settings_key, seed, repeats, recipe_hashes):
     """Stored results for every recipe of a comparison, or ``None``.
 
@@ -89,24 +116,11 @@ def lookup_results(ledger_path, *, fingerprint, settings_key, seed, repeats, rec
         ``recipe_hashes``, only when every recipe is stored under the same
         keys; ``None`` otherwise (the comparison is then computed afresh).
     """
-    connection = _connect(ledger_path, create=False)
-    if connection is None:
+    baseline, found = lookup_stored(ledger_path, fingerprint=fingerprint, settings_key=settings_key,
+                                    seed=seed, repeats=repeats, recipe_hashes=recipe_hashes)
+    if len(found) < len(set(recipe_hashes)):
         return None
-    baseline = None
-    results = []
-    with closing(connection):
-        for recipe_hash in recipe_hashes:
-            row = connection.execute(
-                "SELECT result_json, baseline_json FROM evaluations WHERE recipe_hash=? AND "
-                "fingerprint=? AND settings_key=? AND seed=? AND repeats=?",
-                (recipe_hash, fingerprint, settings_key, int(seed), int(repeats)),
-            ).fetchone()
-            if row is None:
-                return None
-            results.append(json.loads(row[0]))
-            if baseline is None:
-                baseline = json.loads(row[1])
-    return baseline, results
+    return baseline, [found[h] for h in recipe_hashes]
 
 
 def store_results(ledger_path, *, fingerprint, settings_key, seed, repeats, baseline, results):

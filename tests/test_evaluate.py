@@ -172,7 +172,7 @@ def test_ledger_reuses_stored_results_and_lists_history(digits_data, cache_dir, 
                               ledger_path=path)
     reused = time.perf_counter() - started
     assert first["from_ledger"] is False and second["from_ledger"] is True
-    assert {**first, "from_ledger": True} == second
+    assert {**first, "from_ledger": True, "reused_from_ledger": ["affine-ledger"]} == second
     assert reused < computed / 5
     # A different seed is a different key: computed afresh.
     third = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=1,
@@ -250,3 +250,16 @@ def test_cache_inside_data_folder_is_refused(digits_data):
     with pytest.raises(BadInputError, match="inside the data folder"):
         evaluate_recipes(digits_data, [FLIPS], size=SIZE, repeats=1,
                          cache_dir=digits_data.root / ".cache")
+
+
+def test_ledger_reuses_the_recipes_it_has_and_trains_only_the_new_one(digits_data, cache_dir, tmp_path):
+    path = tmp_path / "partial.sqlite"
+    kept = Recipe(name="affine-kept", copies=2, transforms=SMALL_AFFINE.transforms)
+    added = Recipe(name="flips-added", copies=2, transforms=FLIPS.transforms)
+    evaluate_recipes(digits_data, [kept], repeats=2, size=SIZE, cache_dir=cache_dir, ledger_path=path)
+    partial = evaluate_recipes(digits_data, [kept, added], repeats=2, size=SIZE, cache_dir=cache_dir,
+                               ledger_path=path)
+    fresh = evaluate_recipes(digits_data, [kept, added], repeats=2, size=SIZE, cache_dir=cache_dir)
+    assert partial["from_ledger"] is False and partial["reused_from_ledger"] == ["affine-kept"]
+    # Reused and newly trained results are exactly those of a run without a ledger.
+    assert partial["recipes"] == fresh["recipes"] and partial["baseline"] == fresh["baseline"]
