@@ -503,6 +503,9 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
                 continue
             target = unconfirmed[0]
             entry["verdict"] = "unverified"
+            # A class scope drawn from shortcut-driven verdicts would keep the shortcut.
+            if entry["suggestion"] and "only" in entry["suggestion"]:
+                entry["suggestion"] = None
             entry["shortcut"] = {"factor": factor, "class": target,
                                  "train_score": round(float(train_scores[target]), 4),
                                  "field_score": (round(float(field_scores[target]), 4)
