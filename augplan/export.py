@@ -53,8 +53,8 @@ def _clip_to_limit(step, check_entry):
     low, high = _intersect(step.params[magnitude], limit)
     # Round inward to 3 decimals: the clipped range never exceeds what was measured safe.
     clipped = (math.ceil(low * 1000 - 1e-9) / 1000, math.floor(high * 1000 + 1e-9) / 1000)
-    if clipped[0] > clipped[1]:
-        return None
+    if clipped[0] >= clipped[1]:
+        return None  # nothing but (at most) a single value is safe: the step is removed
     return dataclasses.replace(step, params={**step.params, magnitude: clipped})
 
 

@@ -110,3 +110,11 @@ def test_unverified_shortcut_move_is_kept_when_the_recipe_breaks_that_shortcut()
     assert changes[3]["action"] == "keep" and "shortcut" in changes[3]["detail"]
     vetted, changes = vet_transforms(RECIPE, check, coverage_result=persisting)
     assert changes[3]["action"] == "remove"
+
+
+def test_a_safe_limit_of_one_value_removes_the_step():
+    check = {"transforms": [_entry(i, step.op, "safe") for i, step in enumerate(RECIPE.transforms)]}
+    check["transforms"][1].update(verdict="breaks", safe_limit=[0.0, 0.0])
+    vetted, changes = vet_transforms(RECIPE, check)
+    assert changes[1]["action"] == "remove"
+    assert "hue" not in [step.op for step in vetted.transforms]
