@@ -159,14 +159,26 @@ class _Console:
         self.quiet = quiet
 
     def say(self, text=""):
-        print(text, file=sys.stderr if self.as_json else sys.stdout)
+        self._write(sys.stderr if self.as_json else sys.stdout, f"{text}\n")
 
     def warn(self, text):
         if not self.quiet:
             print(f"warning: {text}", file=sys.stderr)
 
     def emit_json(self, document):
-        sys.stdout.write(json.dumps(document, indent=2, sort_keys=False, allow_nan=False) + "\n")
+        self._write(sys.stdout, json.dumps(document, indent=2, sort_keys=False, allow_nan=False) + "\n")
+
+    @staticmethod
+    def _write(stream, text):
+        try:
+            stream.write(text)
+            stream.flush()
+        except BrokenPipeError:
+            # The reader went away (e.g. `| head`): stop writing there, quietly.
+            # Only our own output is handled here; a broken pipe anywhere else
+            # (a worker connection) is a real error.
+            if stream is sys.stdout:
+                sys.stdout = open(os.devnull, "w")
 
 
 def _open_data(args, *, field=None):
@@ -408,9 +420,6 @@ def main(argv=None):
     except BadInputError as error:
         print(f"augplan: error: {error}", file=sys.stderr)
         return ExitCode.BAD_INPUT
-    except BrokenPipeError:  # the reader of our output went away (e.g. `| head`)
-        sys.stdout = open(os.devnull, "w")
-        return ExitCode.OK
     except OSError as error:  # the user's files or folders: permissions, disk full, missing paths
         where = error.filename or "a file"
         print(f"augplan: error: {where}: {error.strerror or error}", file=sys.stderr)
