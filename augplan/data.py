@@ -763,11 +763,18 @@ def _confirm_luminance(path):
     return relative_luminance(np.asarray(image))
 
 
-def _structurally_similar(first, second, threshold=NEAR_DUPLICATE_SSIM):
-    """Whether two images' SSIM (Wang et al. 2004) reaches ``threshold``."""
+def _structurally_similar(first, second, luminance, threshold=NEAR_DUPLICATE_SSIM):
+    """Whether two images' SSIM (Wang et al. 2004) reaches ``threshold``.
+
+    ``luminance`` caches each decoded 64 x 64 luminance by path, so an image
+    that takes part in many candidate pairs is read once.
+    """
     from skimage.metrics import structural_similarity
 
-    score = structural_similarity(_confirm_luminance(first), _confirm_luminance(second), data_range=1.0)
+    for path in (first, second):
+        if path not in luminance:
+            luminance[path] = _confirm_luminance(path)
+    score = structural_similarity(luminance[first], luminance[second], data_range=1.0)
     return score >= threshold
 
 
@@ -842,6 +849,7 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
         textured = np.array([spread >= FLAT_SPREAD for _, spread in results])
         splits = np.array([_SPLIT_ORDER[r.split] for r in records])
         chunk = 1024  # bounds the distance matrix to chunk x N at a time
+        luminance = {}  # 16 kB per image that takes part in a candidate pair
         for start in range(0, len(records), chunk):
             stop = min(start + chunk, len(records))
             distances = hamming_matrix(hashes[start:stop], hashes)
@@ -850,7 +858,8 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
                                     & textured[start:stop, None] & textured[None, :])
             for row, col in zip(rows.tolist(), cols.tolist()):
                 first, second = records[start + row], records[col]
-                if first.sha256 == second.sha256 or not _structurally_similar(first.path, second.path):
+                if first.sha256 == second.sha256 or not _structurally_similar(first.path, second.path,
+                                                                              luminance):
                     continue
                 near.append({"kind": "near", "a": first.relpath, "b": second.relpath,
                              "splits": [first.split, second.split],
