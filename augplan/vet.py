@@ -4,6 +4,7 @@ Every output is computed first and written last, each file atomically, so an
 interrupted run leaves the output folder without partial files.
 """
 
+import dataclasses
 import json
 import sys
 import tempfile
@@ -58,6 +59,20 @@ def _collect_figures(entries, scratch):
                 figures[name] = Path(plot).read_bytes()
                 plots[position] = f"figures/{name}"
     return figures
+
+
+def _drop_unsafe_rewrites(vetted, changes, rechecked):
+    """Remove relabelled or scoped steps whose re-check is not safe; update ``changes``."""
+    kept = [change for change in changes if change["action"] != "remove"]
+    verdicts = {t["index"]: t["verdict"] for t in rechecked["transforms"]}
+    steps = []
+    for position, (change, step) in enumerate(zip(kept, vetted.transforms)):
+        if change["action"] in ("relabel", "scope") and verdicts[position] != "safe":
+            change["detail"] += f"; removed: re-checked as rewritten, it is still {verdicts[position]}"
+            change["action"] = "remove"
+            continue
+        steps.append(step)
+    return dataclasses.replace(vetted, transforms=tuple(steps))
 
 
 def _vetted_name(recipe):
@@ -142,15 +157,16 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             coverage = analyse_coverage(dataset, recipe, seed=seed, workers=workers, quiet=quiet,
                                         plots_dir=scratch / f"plots-{number}")
             vetted, changes = vet_transforms(recipe, check, approve=approve, coverage_result=coverage)
-            unchanged = vetted.transforms == recipe.transforms
-            if not unchanged:
-                vetted = vetted.__class__(name=_vetted_name(recipe), seed=vetted.seed, copies=vetted.copies,
-                                          fill=vetted.fill, transforms=vetted.transforms)
             rechecked = None
             if any(change["action"] in ("relabel", "scope") for change in changes):
-                # A rewrite was suggested by the checker but not itself measured: measure it.
+                # A rewrite was suggested by the checker but not itself measured:
+                # measure it, and drop a rewritten step that is still not safe.
                 rechecked = check_recipe(dataset, vetted, sample=sample, seed=seed, workers=workers,
                                          quiet=quiet)
+                vetted = _drop_unsafe_rewrites(vetted, changes, rechecked)
+            unchanged = vetted.transforms == recipe.transforms
+            if not unchanged:
+                vetted = dataclasses.replace(vetted, name=_vetted_name(recipe))
             entries.append({"name": recipe.name, "source": recipe.source, "recipe": recipe_to_dict(recipe),
                             "recipe_hash": recipe_hash(recipe), "check": check, "coverage": coverage,
                             "vetted": {"name": vetted.name, "recipe": recipe_to_dict(vetted),

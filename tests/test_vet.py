@@ -116,3 +116,17 @@ def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
     entries = [{"name": "draft", "vetted": {"unchanged": False}}]
     sentence = _verdict_sentence(entries, {"baseline": {"accuracy": 0.9}}, best)
     assert sentence.startswith(start) and "augplan changed draft" in sentence
+
+
+def test_a_rewrite_that_still_breaks_after_the_recheck_is_removed():
+    from augplan.recipe import parse_recipe
+    from augplan.vet import _drop_unsafe_rewrites
+
+    vetted = parse_recipe("name: v\ntransforms:\n  - op: flip\n  - op: rotate\n    degrees: [-5, 5]\n")
+    changes = [{"index": 0, "op": "hue", "action": "remove", "detail": "removed: breaks", "verdict": "breaks"},
+               {"index": 1, "op": "flip", "action": "relabel", "detail": "label follows", "verdict": "breaks"},
+               {"index": 2, "op": "rotate", "action": "keep", "detail": "", "verdict": "safe"}]
+    rechecked = {"transforms": [{"index": 0, "verdict": "breaks"}, {"index": 1, "verdict": "safe"}]}
+    result = _drop_unsafe_rewrites(vetted, changes, rechecked)
+    assert [step.op for step in result.transforms] == ["rotate"]
+    assert changes[1]["action"] == "remove" and "still breaks" in changes[1]["detail"]
