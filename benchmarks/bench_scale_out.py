@@ -25,13 +25,11 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-from PIL import Image
 
-from augplan.data import open_dataset
 from augplan.evaluate import evaluate_recipes
 from augplan.parallel import Cluster
 from augplan.recipe import Recipe, Transform
+from bench_evaluate import write_dataset  # the same invented bar-angle images
 
 SIZE = 64
 CLASSES = 10
@@ -47,27 +45,6 @@ RECIPES = [
     Recipe(name="soft", transforms=(Transform("blur", {"sigma": (0.0, 1.0)}),)),
     Recipe(name="scale", transforms=(Transform("zoom", {"factor": (0.9, 1.15)}),)),
 ]
-
-
-def _image(label, rng):
-    """A bar whose angle codes the class, on a noisy, randomly tinted ground (invented data)."""
-    y, x = np.mgrid[0:SIZE, 0:SIZE] / (SIZE - 1) - 0.5
-    angle = np.pi * label / CLASSES + rng.normal(0, 0.08)
-    bar = np.abs(x * np.sin(angle) - y * np.cos(angle) - rng.normal(0, 0.05)) < 0.07
-    ground = rng.uniform(0.2, 0.6) + rng.normal(0, 0.05, (SIZE, SIZE))
-    image = (ground[..., None] * rng.uniform(0.8, 1.2, 3) + 0.4 * bar[..., None]) * 255
-    return np.clip(image, 0, 255).astype(np.uint8)
-
-
-def write_dataset(root, n_train, n_val, seed=SEED):
-    rng = np.random.default_rng(seed)
-    for split, total in (("train", n_train), ("val", n_val)):
-        for index in range(total):
-            label = index % CLASSES
-            folder = root / split / f"c{label}"
-            folder.mkdir(parents=True, exist_ok=True)
-            Image.fromarray(_image(label, rng)).save(folder / f"{index:05d}.png")
-    return open_dataset(root)
 
 
 def _timed(dataset, workers, cache_dir):
