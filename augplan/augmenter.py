@@ -1,7 +1,9 @@
 """The training-side API: a recipe as a callable augmenter for any framework."""
 
 import numpy as np
+from PIL import Image
 
+from .colour import check_rgb_image
 from .recipe import Recipe, read_recipe_document
 from .transforms import apply_recipe
 
@@ -67,22 +69,13 @@ class Augmenter:
         if not isinstance(rng, np.random.Generator):
             raise TypeError(f"rng must be a numpy.random.Generator or None; got {type(rng).__name__}")
         pil_image = None
-        if not isinstance(image, np.ndarray):
-            try:
-                from PIL import Image
-            except ImportError:  # pragma: no cover - Pillow is a dependency
-                Image = None
-            if Image is not None and isinstance(image, Image.Image):
-                pil_image, image = image, np.asarray(image.convert("RGB"))
-            else:
-                raise TypeError(f"image must be a numpy array or a PIL image; got {type(image).__name__}")
-        if image.ndim != 3 or image.shape[2] != 3 or image.dtype != np.uint8:
-            raise ValueError(f"image must be an (H, W, 3) uint8 array; got shape {image.shape}, "
-                             f"dtype {image.dtype}")
+        if isinstance(image, Image.Image):
+            pil_image, image = image, np.asarray(image.convert("RGB"))
+        elif not isinstance(image, np.ndarray):
+            raise TypeError(f"image must be a numpy array or a PIL image; got {type(image).__name__}")
+        check_rgb_image(image)
         augmented, new_label = apply_recipe(image, self.recipe, rng, label)
         if pil_image is not None:
-            from PIL import Image
-
             augmented = Image.fromarray(augmented, mode="RGB")
         return augmented, new_label
 

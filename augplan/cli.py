@@ -409,10 +409,8 @@ def main(argv=None):
         if args.command is None:
             _build_parser().print_help(sys.stderr)
             return ExitCode.BAD_INPUT
-        if getattr(args, "workers", 1) == 0 or getattr(args, "workers", 1) < -1:
-            raise BadInputError(f"--workers must be a positive number or -1 (every core); got {args.workers}")
-        if getattr(args, "cluster", None):
-            _execution(args)  # a bad address or a missing Dask stops here, before any data is read
+        if hasattr(args, "workers"):
+            _execution(args)  # a bad count or address, or a missing Dask, stops here before any data is read
         console = _Console(getattr(args, "json", False), args.quiet)
         return _COMMANDS[args.command](args, console)
     except SystemExit as stop:  # --help and --version
