@@ -176,6 +176,33 @@ def test_shift_matches_skimage_warp(fraction, astronaut):
     assert interior_mad(ours, ref, 24) < 1.0
 
 
+@pytest.mark.parametrize("fill", ["reflect", "edge", "constant"])
+@pytest.mark.parametrize("op, params", [("zoom", {"factor": 0.7}), ("zoom", {"factor": 1.45}),
+                                        ("shift", {"fraction": (0.13, -0.21)})], ids=str)
+def test_axis_aligned_warps_match_scipy_affine_transform(op, params, fill, astronaut):
+    # scipy.ndimage.affine_transform (order 1, modes reflect / nearest /
+    # grid-constant), computed in float64, is the reference for zoom and shift
+    # at every pixel, borders included: ours must be it rounded to the nearest
+    # code (float32 arithmetic: within 0.5 code plus 1e-3).
+    from scipy import ndimage
+
+    image = astronaut[:96, :80]  # not square: rows and columns must not be swapped
+    h, w = image.shape[:2]
+    if op == "zoom":
+        matrix, translation = np.eye(2) / params["factor"], np.zeros(2)
+    else:
+        fx, fy = params["fraction"]
+        matrix, translation = np.eye(2), np.array([-fy * h, -fx * w])
+    centre = np.array([(h - 1) / 2, (w - 1) / 2])
+    offset = centre - matrix @ centre + translation
+    mode = {"reflect": "reflect", "edge": "nearest", "constant": "grid-constant"}[fill]
+    reference = np.stack([ndimage.affine_transform(image[..., k].astype(np.float64), matrix, offset,
+                                                   order=1, mode=mode, prefilter=False)
+                          for k in range(3)], axis=-1)
+    ours = OPS[op].function(image, {**params, "fill": fill}, rng())
+    assert np.abs(ours - reference).max() <= 0.5 + 1e-3
+
+
 def test_shift_whole_pixels_moves_right_and_down(astronaut):
     out = shift(astronaut, {"fraction": (0.125, 0.25), "fill": "edge"}, rng())  # 16 right, 32 down
     assert np.array_equal(out[32:, 16:], astronaut[:-32, :-16])
