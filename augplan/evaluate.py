@@ -128,8 +128,13 @@ def _new_model(model, random_state):
 
 
 def _fit(model, features, targets):
-    """Fit ``model`` on raw features (no trust check: scoring never reads it)."""
-    return model.fit_features(features, targets, cross_validate=False).predict_features
+    """Fit ``model`` on raw features; returns its label predictor.
+
+    No trust check (scoring never reads it), and a single-precision solver:
+    only predicted labels are used here.
+    """
+    return model.fit_features(features, targets, cross_validate=False,
+                              solver_dtype=np.float32).predict_features
 
 
 def _train_and_predict(unit):

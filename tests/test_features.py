@@ -229,6 +229,27 @@ def test_default_model_learns_digits(digits, digit_features):
     np.testing.assert_array_equal(model.predict(images[:20]), model.predict_features(digit_features[:20]))
 
 
+def test_single_precision_solver_predicts_like_double(digits, digit_features):
+    # scikit-learn's digits (UCI optdigits): trained on 400 images, the
+    # float32 solver must label the other 200 as the float64 one does on at
+    # least 99% of them (measured: all); a wrong label order or scaling
+    # would disagree on most.
+    _, labels = digits
+    train, held_out = slice(0, 400), slice(400, 600)
+    double = FeatureModel().fit_features(digit_features[train], labels[train], cross_validate=False)
+    single = FeatureModel().fit_features(digit_features[train], labels[train], cross_validate=False,
+                                         solver_dtype=np.float32)
+    assert single.estimator_.coef_.dtype == np.float32
+    agreement = np.mean(single.predict_features(digit_features[held_out])
+                        == double.predict_features(digit_features[held_out]))
+    assert agreement >= 0.99
+
+
+def test_solver_dtype_must_be_a_float_type(digit_features):
+    with pytest.raises(ValueError, match="solver_dtype"):
+        FeatureModel().fit_features(digit_features[:40], np.arange(40) % 2, solver_dtype=np.int32)
+
+
 def test_weak_on_random_labels(digit_features):
     labels = np.random.default_rng(1).integers(0, 2, size=200)
     model = FeatureModel().fit_features(digit_features[:200], labels)
