@@ -58,12 +58,16 @@ def _positive_int(text):
     return value
 
 
-def _workers(parser):
+def _workers(parser, *, ship_images=True):
     parser.add_argument("--workers", type=int, default=1,
                         help="parallel worker processes (default 1; -1 uses every core)")
     parser.add_argument("--cluster", metavar="ADDRESS", default=os.environ.get("AUGPLAN_CLUSTER") or None,
                         help="run the heavy work on the Dask scheduler at tcp://HOST:PORT instead "
                              "(default: $AUGPLAN_CLUSTER; needs pip install 'augplan[cluster]')")
+    if ship_images:
+        parser.add_argument("--ship-images", action="store_true",
+                            help="send the image files' bytes to the workers with the work, for "
+                                 "workers that cannot see the data folder (files held in memory)")
 
 
 def _execution(args):
@@ -145,7 +149,7 @@ def _build_parser():
 
     p = commands.add_parser("demo", help="vet the bundled demo scenario")
     _common(p, data=False)
-    _workers(p)
+    _workers(p, ship_images=False)
     p.add_argument("-o", "--output", type=Path, default=Path("augplan-demo-output"),
                    help="output folder (default ./augplan-demo-output, replaced)")
     return parser
@@ -188,7 +192,8 @@ def _open_data(args, *, field=None):
     manifest = None
     if data.is_file() and data.suffix.lower() == ".csv":
         manifest, data = data, data.parent
-    return open_dataset(data, strict=args.strict, manifest=manifest, seed=args.seed, field=field)
+    dataset = open_dataset(data, strict=args.strict, manifest=manifest, seed=args.seed, field=field)
+    return dataset.with_image_bytes() if getattr(args, "ship_images", False) else dataset
 
 
 def _read_recipes(paths):

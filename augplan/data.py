@@ -31,7 +31,7 @@ import io
 import os
 import unicodedata
 import warnings
-from dataclasses import dataclass, field as dataclass_field
+from dataclasses import dataclass, field as dataclass_field, replace
 from pathlib import Path, PurePosixPath
 
 import numpy as np
@@ -88,6 +88,10 @@ class ImageRecord:
         One of ``"train"``, ``"val"``, ``"test"``, ``"field"``.
     sha256 : str
         Hex digest of the file bytes.
+    data : bytes or None
+        The encoded file itself, when the record was made to carry it
+        (`Dataset.with_image_bytes`); readers then decode these bytes instead
+        of opening ``path``. Not part of equality or hashing.
     """
 
     path: Path
@@ -95,6 +99,7 @@ class ImageRecord:
     label: str | None
     split: str
     sha256: str
+    data: bytes | None = dataclass_field(default=None, repr=False, compare=False)
 
 
 @dataclass
@@ -130,6 +135,36 @@ class Dataset:
         if name not in SPLITS:
             raise ValueError(f"split must be one of {SPLITS}; got {name!r}")
         return [record for record in self.records if record.split == name]
+
+    def with_image_bytes(self):
+        """A copy whose records carry their encoded files (``record.data``).
+
+        Work units then ship image bytes to worker processes or cluster
+        machines, which need no access to the data folder. The bytes of every
+        file are held in memory (the size of the files on disk; decoded
+        arrays are never held for the whole set).
+
+        Returns
+        -------
+        Dataset
+
+        Raises
+        ------
+        BadInputError
+            A file cannot be read, or its bytes no longer match the hash taken
+            when the data set was opened (it changed in between).
+        """
+        records = []
+        for record in self.records:
+            try:
+                data = record.path.read_bytes()
+            except OSError as error:
+                raise BadInputError(f"{record.path}: cannot read the image ({error.strerror or error})") from None
+            if hashlib.sha256(data).hexdigest() != record.sha256:
+                raise BadInputError(f"{record.path}: the file changed after the data set was opened; "
+                                    "run the command again")
+            records.append(replace(record, data=data))
+        return replace(self, records=records)
 
 
 # --------------------------------------------------------------------------
@@ -218,18 +253,18 @@ def _to_rgb_array(image):
     return np.array(image.convert("RGB"), dtype=np.uint8)
 
 
-def _decode(path, *, max_side=None, draft_size=None):
-    """Open ``path`` and return its RGB uint8 array.
+def _decode(path, *, max_side=None, draft_size=None, data=None):
+    """Open ``path`` (or decode ``data``, its bytes) and return its RGB uint8 array.
 
     ``max_side`` bounds the longer side of the result; ``draft_size`` asks
     the JPEG decoder for at least that (width, height). Both keep huge
-    JPEGs from ever being decoded at full size.
+    JPEGs from ever being decoded at full size. Messages name ``path``.
     """
     path = Path(path)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("error", Image.DecompressionBombWarning)
-            with Image.open(path) as image:
+            with Image.open(path if data is None else io.BytesIO(data)) as image:
                 if image.format == "JPEG":
                     width, height = image.size
                     request = draft_size
@@ -318,7 +353,8 @@ def load_images(records, size=64):
     Parameters
     ----------
     records : sequence of ImageRecord or path
-        Images to read, in order.
+        Images to read, in order. A record that carries its bytes
+        (``record.data``) is decoded from them; its file is not opened.
     size : int, default 64
         Side of the output squares.
 
@@ -338,8 +374,10 @@ def load_images(records, size=64):
     records = list(records)
     batch = np.empty((len(records), size, size, 3), dtype=np.uint8)
     for index, record in enumerate(records):
-        path = record.path if isinstance(record, ImageRecord) else Path(record)
-        array = _decode(path, draft_size=(size, size))
+        if isinstance(record, ImageRecord):
+            array = _decode(record.path, draft_size=(size, size), data=record.data)
+        else:
+            array = _decode(Path(record), draft_size=(size, size))
         if array.shape[:2] != (size, size):
             array = _resize(array, (size, size))
         batch[index] = array

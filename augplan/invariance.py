@@ -302,6 +302,33 @@ def _probabilities(model, features, classes):
     return proba[:, order]
 
 
+# The checked sample, decoded, in the process that last needed it: every
+# work unit of one check reads the same images, so a worker decodes them once
+# rather than once per unit. Keyed by the images' hashes and side, so another
+# check (or another data set) never sees a stale sample.
+_DECODED_SAMPLE = {}
+
+
+def _sample_key(records, size):
+    import hashlib
+
+    digest = hashlib.sha256(str(int(size)).encode())
+    for record in records:
+        digest.update(record.sha256.encode())
+    return digest.hexdigest()
+
+
+def _decoded_sample(context):
+    """The checked images, decoded from the records' paths or carried bytes."""
+    from augplan.data import load_images
+
+    key = context["sample_key"]
+    if key not in _DECODED_SAMPLE:
+        _DECODED_SAMPLE.clear()
+        _DECODED_SAMPLE[key] = load_images(context["records"], size=context["size"])
+    return _DECODED_SAMPLE[key]
+
+
 def _run_unit(context, unit):
     """Transform, featurise and locate the in-scope images of one (transform, magnitude)."""
     from augplan.transforms import OPS, params_at
@@ -309,7 +336,7 @@ def _run_unit(context, unit):
     transform_index, magnitude, rng = unit
     transform = context["transforms"][transform_index]
     sources = context["scope"][transform_index]
-    images = context["images"]
+    images = _decoded_sample(context)
     function = OPS[transform.op].function
     params = params_at(transform, 0.0 if magnitude is None else magnitude, context["fill"])
     moved_images = np.empty((len(sources),) + images.shape[1:], dtype=np.uint8)
@@ -649,12 +676,20 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
                 shortcuts[(t_index, value)] = (base_dest[scope[t_index]], [])
     unit_rngs = unit_root.spawn(len(units))
     work = [(t, v, r) for (t, v), r in zip(units, unit_rngs)]
-    context = {"transforms": transforms, "scope": scope, "images": images, "fill": recipe.fill,
+    # Units carry the records (paths, or bytes with --ship-images), never the
+    # decoded images; this process's copy serves units run in it.
+    context = {"transforms": transforms, "scope": scope, "records": records, "size": size,
+               "sample_key": _sample_key(records, size), "fill": recipe.fill,
                "model": model, "classes": classes, "geometry": geometry,
                "evidence": evidence_dir is not None, "expected": expected, "labels": labels}
     work = [item for item in work if len(scope[item[0]])]
-    results = parallel_map(functools.partial(_run_unit, context), work, workers=workers,
-                           desc="checking transforms", quiet=quiet)
+    _DECODED_SAMPLE.clear()
+    _DECODED_SAMPLE[context["sample_key"]] = images
+    try:
+        results = parallel_map(functools.partial(_run_unit, context), work, workers=workers,
+                               desc="checking transforms", quiet=quiet)
+    finally:
+        _DECODED_SAMPLE.clear()
     by_unit = {(t, v): result for (t, v, _), result in zip(work, results)}
     by_unit.update(shortcuts)
 

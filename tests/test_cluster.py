@@ -97,11 +97,6 @@ def test_check_json_same_on_cluster(cluster, recipe, tmp_path):
     assert json.loads(out)["transforms"]
 
 
-# evaluate.py's own input check (_check_inputs) accepts only an integer
-# --workers, so a Cluster stops there with exit 2. Remove this marker once it
-# validates workers with augplan.parallel.resolve_workers.
-
-
 def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path):
     local_code, local_out, local_err = _evaluate(tmp_path / "local", recipe)
     assert local_code in (0, 1), local_err
@@ -110,6 +105,40 @@ def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path):
     assert min(document["recipes"][0]["repeat_accuracy"]) < 1.0  # the comparison is not trivially equal
     code, out, err = _evaluate(tmp_path / "cluster", recipe, "--cluster", cluster.scheduler_address)
     assert (code, out) == (local_code, local_out), err
+
+
+def test_shipped_images_need_no_shared_folder(cluster, recipe, tmp_path):
+    # --ship-images: the records carry their files' bytes, so the run on the
+    # cluster gives the local answer even after the data folder is gone.
+    from augplan.data import open_dataset
+    from augplan.evaluate import evaluate_recipes
+    from augplan.recipe import read_recipe
+
+    recipes = [read_recipe(recipe)]
+    options = dict(repeats=2, seed=3, size=16)
+    local = evaluate_recipes(open_dataset(_fresh_data(tmp_path / "local")), recipes,
+                             cache_dir=tmp_path / "local-cache", **options)
+    shipped = open_dataset(_fresh_data(tmp_path / "shipped")).with_image_bytes()
+    (tmp_path / "shipped" / "DATA").rename(tmp_path / "out-of-reach")
+    remote = evaluate_recipes(shipped, recipes, workers=Cluster(cluster.scheduler_address),
+                              cache_dir=tmp_path / "remote-cache", **options)
+    assert json.dumps(remote["recipes"]) == json.dumps(local["recipes"])
+    assert remote["baseline"] == local["baseline"]
+
+
+def test_check_with_shipped_images_needs_no_shared_folder(cluster, recipe, tmp_path):
+    # The checker's units carry records, not decoded images; with the bytes
+    # on board the cluster run needs no data folder and gives the local answer.
+    from augplan.data import open_dataset
+    from augplan.invariance import check_recipe
+    from augplan.recipe import read_recipe
+
+    options = dict(seed=3, size=16)
+    local = check_recipe(open_dataset(_fresh_data(tmp_path / "local")), read_recipe(recipe), **options)
+    shipped = open_dataset(_fresh_data(tmp_path / "shipped")).with_image_bytes()
+    (tmp_path / "shipped" / "DATA").rename(tmp_path / "out-of-reach")
+    remote = check_recipe(shipped, read_recipe(recipe), workers=Cluster(cluster.scheduler_address), **options)
+    assert json.dumps(remote, sort_keys=True) == json.dumps(local, sort_keys=True)
 
 
 def _worker_pids(client):

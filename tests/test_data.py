@@ -234,6 +234,31 @@ def test_load_images_decode_failure_names_file(tmp_path):
         load_images(dataset.split("train"), size=4)
 
 
+def test_records_carrying_bytes_read_without_the_files(tmp_path):
+    # --ship-images: workers decode the bytes the record carries, so the
+    # data folder may be out of their reach. Reference: the same records read
+    # from their files before the folder went away.
+    root = _make_layout(tmp_path / "DATA")
+    dataset = open_dataset(root)
+    from_files = load_images(dataset.records, size=4)
+    shipped = dataset.with_image_bytes()
+    assert [r.data for r in shipped.records] == [r.path.read_bytes() for r in dataset.records]
+    assert shipped.records == dataset.records  # the bytes are not part of a record's identity
+    assert all(r.data is None for r in dataset.records)  # the opened data set is left as it was
+    root.rename(tmp_path / "moved")
+    np.testing.assert_array_equal(load_images(shipped.records, size=4), from_files)
+    with pytest.raises(BadInputError, match="not found"):
+        load_images(dataset.records[:1], size=4)
+
+
+def test_file_changed_before_shipping_is_named(tmp_path):
+    dataset = open_dataset(_make_layout(tmp_path))
+    victim = dataset.split("val")[1]
+    _save(victim.path, _solid((1, 2, 3)))
+    with pytest.raises(BadInputError, match=f"{victim.path}: the file changed"):
+        dataset.with_image_bytes()
+
+
 # --------------------------------------------------------------------------
 # Layout
 

@@ -2,6 +2,7 @@
 worker and cluster settings checked at the boundary, Dask optional."""
 
 import functools
+import json
 import sys
 
 import numpy as np
@@ -142,3 +143,22 @@ def test_cli_empty_environment_cluster_runs_locally(monkeypatch, run_cli, tiny_d
                      "--ledger", tmp_path / "ledger.sqlite")
     assert result.code in (0, 1), result.err
     assert result.out.lstrip().startswith("{")
+
+
+@pytest.mark.parametrize("command", ["check", "coverage", "evaluate"])
+def test_ship_images_gives_the_same_json(command, run_cli, tmp_path):
+    # The flag changes how images reach the workers (bytes, not paths), never
+    # the answer: two local processes with it, in-process without it.
+    from conftest import TINY_RECIPE, write_tiny_dataset
+
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text(TINY_RECIPE, encoding="utf-8")
+    outputs = []
+    for name, extra in (("paths", []), ("bytes", ["--ship-images", "--workers", "2"])):
+        data = write_tiny_dataset(tmp_path / name / "DATA", train=6, val=4)
+        ledger = ["--ledger", tmp_path / name / "ledger.sqlite"] if command == "evaluate" else []
+        result = run_cli(command, data, "--recipe", recipe, "--seed", "2", "--quiet", "--json", *ledger, *extra)
+        assert result.code in (0, 1), result.err
+        outputs.append(json.loads(result.out))
+    paths, shipped = outputs
+    assert shipped == paths
