@@ -7,7 +7,10 @@ no ledger, rerun time served by the ledger (target for a rerun: >= 3x
 faster), peak memory of this process and its worker processes (target
 < 1.5 GB), and how the time scales from 500 to 2,000 training images.
 
-Run: ``.venv/bin/python benchmarks/bench_evaluate.py [--workers 2]``
+Run: ``.venv/bin/python benchmarks/bench_evaluate.py [--workers 2]``; with
+``--breakdown`` it prints instead, per recipe, the time of augmentation,
+featurisation and the fit (with its solver iterations) at 500 and 2,000
+training images, in one process.
 """
 
 import argparse
@@ -93,6 +96,46 @@ def _worker_peak_mb():
     return peak
 
 
+def breakdown(dataset, sizes=(500, 2000), copies=4):
+    """Where one repeat's time goes, per recipe, as the training set grows.
+
+    Augmentation and featurisation are timed per image (linear work shows a
+    flat figure); the fit prints its seconds and the solver's iterations,
+    which grow with the training set when the augmented classes overlap.
+    """
+    from augplan.data import load_images
+    from augplan.features import FeatureModel, image_features
+    from augplan.transforms import apply_recipe
+
+    # File names are the drawing order, which cycles through the classes, so
+    # every prefix of this order is balanced.
+    train = sorted(dataset.split("train"), key=lambda record: Path(record.relpath).name)
+    originals = load_images(train[:max(sizes)], SIZE)
+    labels = np.array([r.label for r in train[:max(sizes)]])
+    print(f"{'train':>5s}  {'recipe':<13s} {'augment ms/draw':>15s} {'features ms/image':>17s} "
+          f"{'fit s':>6s} {'iterations':>10s}")
+    for n in sizes:
+        base = image_features(originals[:n])
+        for recipe in RECIPES:
+            rng = np.random.default_rng(0)
+            draws = np.empty((copies * n, SIZE, SIZE, 3), np.uint8)
+            started = time.perf_counter()
+            for i in range(copies * n):
+                draws[i], _ = apply_recipe(originals[i % n], recipe, rng, labels[i % n])
+            augment = time.perf_counter() - started
+            started = time.perf_counter()
+            features = np.concatenate([base, image_features(draws)])
+            featurise = time.perf_counter() - started
+            targets = np.concatenate([labels[:n]] * (copies + 1))
+            started = time.perf_counter()
+            model = FeatureModel(random_state=0).fit_features(features, targets, cross_validate=False,
+                                                              solver_dtype=np.float32)
+            fit = time.perf_counter() - started
+            print(f"{n:5d}  {recipe.name:<13s} {1e3 * augment / (copies * n):15.3f} "
+                  f"{1e3 * featurise / (copies * n):17.3f} {fit:6.2f} {int(model.estimator_.n_iter_[0]):10d}",
+                  flush=True)
+
+
 def timed(label, **kwargs):
     started = time.perf_counter()
     document = evaluate_recipes(**kwargs)
@@ -107,9 +150,14 @@ def main(argv=None):
     parser.add_argument("--repeats", type=int, default=5)
     parser.add_argument("--full-warm", action="store_true",
                         help="also time a warm-cache rerun at 2,000 training images")
+    parser.add_argument("--breakdown", action="store_true",
+                        help="only print where one repeat's time goes at 500 and 2,000 images")
     args = parser.parse_args(argv)
     with tempfile.TemporaryDirectory(prefix="augplan-bench-") as tmp:
         tmp = Path(tmp)
+        if args.breakdown:
+            breakdown(write_dataset(tmp / "DATA", 2000, 10))
+            return 0
         common = dict(recipes=RECIPES, repeats=args.repeats, size=SIZE, seed=0, workers=args.workers)
 
         full = write_dataset(tmp / "full" / "DATA", 2000, 500)
