@@ -162,3 +162,26 @@ def test_ship_images_gives_the_same_json(command, run_cli, tmp_path):
         outputs.append(json.loads(result.out))
     paths, shipped = outputs
     assert shipped == paths
+
+
+def _allocator_tuned(_):
+    from augplan import parallel
+
+    return parallel._reuse_freed_memory.cache_info().currsize == 1 and parallel._reuse_freed_memory()
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="glibc's mallopt is Linux-only")
+def test_worker_processes_keep_freed_memory_for_reuse():
+    # mallopt returns 1 when glibc accepts a setting (glibc manual, "Malloc
+    # Tunable Parameters"); every worker process has made the call before its
+    # first unit ran.
+    assert parallel_map(_allocator_tuned, range(4), workers=2) == [True] * 4
+
+
+def test_the_callers_allocator_is_left_alone(monkeypatch):
+    from augplan import parallel
+
+    calls = []
+    monkeypatch.setattr(parallel, "_reuse_freed_memory", lambda: calls.append(1))
+    assert parallel_map(abs, [-1, -2], workers=1) == [1, 2]
+    assert calls == []
