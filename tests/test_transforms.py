@@ -178,18 +178,24 @@ def test_shift_matches_skimage_warp(fraction, astronaut):
 
 @pytest.mark.parametrize("fill", ["reflect", "edge", "constant"])
 @pytest.mark.parametrize("op, params", [("zoom", {"factor": 0.7}), ("zoom", {"factor": 1.45}),
-                                        ("shift", {"fraction": (0.13, -0.21)})], ids=str)
-def test_axis_aligned_warps_match_scipy_affine_transform(op, params, fill, astronaut):
+                                        ("shift", {"fraction": (0.13, -0.21)}),
+                                        ("rotate", {"degrees": 33.0}), ("rotate", {"degrees": -150.0})],
+                         ids=str)
+def test_warps_match_scipy_affine_transform(op, params, fill, astronaut):
     # scipy.ndimage.affine_transform (order 1, modes reflect / nearest /
-    # grid-constant), computed in float64, is the reference for zoom and shift
-    # at every pixel, borders included: ours must be it rounded to the nearest
-    # code (float32 arithmetic: within 0.5 code plus 1e-3).
+    # grid-constant), computed in float64, is the reference for every
+    # geometric op at every pixel, borders included: ours must be it rounded
+    # to the nearest code (float32 arithmetic: within 0.5 code plus 1e-3).
     from scipy import ndimage
 
     image = astronaut[:96, :80]  # not square: rows and columns must not be swapped
     h, w = image.shape[:2]
     if op == "zoom":
         matrix, translation = np.eye(2) / params["factor"], np.zeros(2)
+    elif op == "rotate":
+        theta = np.radians(params["degrees"])  # inverse map of a counterclockwise turn, rows down
+        matrix = np.array([[np.cos(theta), np.sin(theta)], [-np.sin(theta), np.cos(theta)]])
+        translation = np.zeros(2)
     else:
         fx, fy = params["fraction"]
         matrix, translation = np.eye(2), np.array([-fy * h, -fx * w])
