@@ -63,6 +63,7 @@ References
 from __future__ import annotations
 
 import functools
+import hashlib
 import math
 from pathlib import Path
 
@@ -310,8 +311,6 @@ _DECODED_SAMPLE = {}
 
 
 def _sample_key(records, size):
-    import hashlib
-
     digest = hashlib.sha256(str(int(size)).encode())
     for record in records:
         digest.update(record.sha256.encode())
@@ -323,10 +322,12 @@ def _decoded_sample(context):
     from augplan.data import load_images
 
     key = context["sample_key"]
-    if key not in _DECODED_SAMPLE:
+    images = _DECODED_SAMPLE.get(key)
+    if images is None:
+        images = load_images(context["records"], size=context["size"])
         _DECODED_SAMPLE.clear()
-        _DECODED_SAMPLE[key] = load_images(context["records"], size=context["size"])
-    return _DECODED_SAMPLE[key]
+        _DECODED_SAMPLE[key] = images
+    return images
 
 
 def _run_unit(context, unit):
