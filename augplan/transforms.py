@@ -180,11 +180,11 @@ def _linear_taps(scale, offset, n_out, n_in, mode):
     reads from outside the image are 0 in ``"grid-constant"`` mode.
     """
     position = scale * np.arange(n_out, dtype=np.float64) + offset
-    lower = np.floor(position)
-    upper_weight = (position - lower).astype(np.float32)
-    lower = lower.astype(np.intp)
-    lower, lower_real = _fold_indices(lower, n_in, mode)
-    upper, upper_real = _fold_indices(np.floor(position).astype(np.intp) + 1, n_in, mode)
+    floor = np.floor(position)
+    upper_weight = (position - floor).astype(np.float32)
+    floor = floor.astype(np.intp)
+    lower, lower_real = _fold_indices(floor, n_in, mode)
+    upper, upper_real = _fold_indices(floor + 1, n_in, mode)
     lower_weight = (1.0 - upper_weight) * lower_real
     upper_weight = upper_weight * upper_real
     return lower, upper, lower_weight, upper_weight
