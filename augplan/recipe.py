@@ -47,7 +47,10 @@ from augplan.errors import BadInputError
 
 __all__ = [
     "FILLS",
+    "MAX_COPIES",
+    "MAX_NAME_BYTES",
     "MAX_RECIPE_BYTES",
+    "MAX_SEED",
     "OP_FIELDS",
     "RECIPE_SCHEMA_PATH",
     "FrozenMap",
@@ -60,6 +63,7 @@ __all__ = [
     "read_recipe",
     "read_recipe_document",
     "recipe_hash",
+    "magnitude_bounds",
     "recipe_to_dict",
     "write_recipe",
 ]
@@ -104,30 +108,64 @@ class _Bound:
 
     def describe(self):
         if self.minimum is not None and self.maximum is not None:
+            if self.exclusive_minimum:
+                return f"> {_number_text(self.minimum)} and <= {_number_text(self.maximum)}"
             return f"between {_number_text(self.minimum)} and {_number_text(self.maximum)}"
         if self.minimum is not None:
             return f"{'>' if self.exclusive_minimum else '>='} {_number_text(self.minimum)}"
         return ""
 
 
-_ANY = _Bound()
-_POSITIVE = _Bound(minimum=0.0, exclusive_minimum=True)
-_NON_NEGATIVE = _Bound(minimum=0.0)
+# Sane bounds: every value inside them is a meaningful augmentation that the
+# engine computes without overflow; values outside are typing slips (1e308)
+# or would wipe the image out. Common practice, no source: a full turn either
+# way, half the hue wheel either way, a tenfold zoom or tone change, a blur of
+# 20 pixels, noise as large as the whole 0..1 range.
+_TURN = _Bound(minimum=-360.0, maximum=360.0)
+_HALF_WHEEL = _Bound(minimum=-180.0, maximum=180.0)
+_ZOOM = _Bound(minimum=0.1, maximum=10.0)
+_TONE = _Bound(minimum=0.0, maximum=10.0, exclusive_minimum=True)
+_SATURATION = _Bound(minimum=0.0, maximum=10.0)
 _UNIT = _Bound(minimum=-1.0, maximum=1.0)
+_BLUR = _Bound(minimum=0.0, maximum=20.0)
+_NOISE = _Bound(minimum=0.0, maximum=1.0)
 
 #: op name -> (magnitude field or None, bound on each end of its range)
 _OP_RULES = {
     "flip": (None, None),
-    "rotate": ("degrees", _ANY),
-    "zoom": ("factor", _POSITIVE),
+    "rotate": ("degrees", _TURN),
+    "zoom": ("factor", _ZOOM),
     "shift": ("fraction", _UNIT),
-    "brightness": ("factor", _POSITIVE),
-    "contrast": ("factor", _POSITIVE),
-    "saturation": ("factor", _NON_NEGATIVE),
-    "hue": ("degrees", _ANY),
-    "blur": ("sigma", _NON_NEGATIVE),
-    "noise": ("sigma", _NON_NEGATIVE),
+    "brightness": ("factor", _TONE),
+    "contrast": ("factor", _TONE),
+    "saturation": ("factor", _SATURATION),
+    "hue": ("degrees", _HALF_WHEEL),
+    "blur": ("sigma", _BLUR),
+    "noise": ("sigma", _NOISE),
 }
+
+#: Largest ``copies``: a thousand augmented copies of every training image is
+#: far past any use and keeps memory bounded (common practice, no source).
+MAX_COPIES = 1000
+#: Longest recipe name in UTF-8 bytes; names become parts of file names
+#: (``vetted-<name>.yaml``), which most file systems cap at 255 bytes.
+MAX_NAME_BYTES = 100
+_FILE_SAFE_NAME = re.compile(r'[^./\\:*?"<>|\x00-\x1f\x7f][^/\\:*?"<>|\x00-\x1f\x7f]*')
+
+#: Largest seed: seeds are stored as SQLite's signed 64-bit integers.
+MAX_SEED = 2**63 - 1
+
+def magnitude_bounds(op):
+    """``(field, minimum, maximum, exclusive_minimum)`` of an op's magnitude range.
+
+    ``field`` is None for an op without a magnitude (flip), and so are the
+    bounds. The shipped JSON Schema states the same bounds.
+    """
+    field_name, bound = _OP_RULES[op]
+    if field_name is None:
+        return (None, None, None, False)
+    return (field_name, bound.minimum, bound.maximum, bound.exclusive_minimum)
+
 
 #: op name -> the op's own fields (besides ``op`` and the common fields).
 OP_FIELDS = {op: (("axis",) if magnitude is None else (magnitude,))
@@ -387,6 +425,21 @@ def _describe(value):
     return text
 
 
+def recipe_name_fault(name):
+    """What is wrong with ``name`` as a recipe name, or None when it is fine.
+
+    Names become parts of file names (``vetted-<name>.yaml``), so a name
+    that is no file name is refused when the recipe is read, not when the
+    last file of a long run is written.
+    """
+    if not isinstance(name, str) or not name.strip():
+        return "must be a non-empty text"
+    if len(name.encode("utf-8", "surrogatepass")) > MAX_NAME_BYTES or not _FILE_SAFE_NAME.fullmatch(name):
+        return (f"must serve as a file name: at most {MAX_NAME_BYTES} bytes in UTF-8, none of "
+                "/ \\ : * ? \" < > | or control characters, not starting with '.'")
+    return None
+
+
 def _is_number(value):
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
@@ -427,10 +480,11 @@ class _Checker:
             self.fail(self.first_line, "the recipe has no 'name' field; add one, "
                       "for example 'name: my-recipe' (it is used in reports).")
         name = data["name"]
-        if not isinstance(name, str) or not name.strip():
-            self.top_field_fail("name", "must be a non-empty text", name)
-        seed = self.integer("seed", data.get("seed", 0), minimum=0)
-        copies = self.integer("copies", data.get("copies", 4), minimum=1)
+        fault = recipe_name_fault(name)
+        if fault is not None:
+            self.top_field_fail("name", fault, name)
+        seed = self.integer("seed", data.get("seed", 0), minimum=0, maximum=MAX_SEED)
+        copies = self.integer("copies", data.get("copies", 4), minimum=1, maximum=MAX_COPIES)
         fill = data.get("fill", "reflect")
         if fill not in FILLS:
             self.top_field_fail("fill", f"must be one of {', '.join(FILLS)}", fill)
@@ -451,11 +505,11 @@ class _Checker:
         self.fail(self.top_lines.get(key, self.first_line),
                   f"the '{key}' field {allowed}; got {_describe(value)}.")
 
-    def integer(self, key, value, minimum):
+    def integer(self, key, value, minimum, maximum):
         # Integral floats (7.0) pass, as in JSON Schema's "integer" type.
         if not _is_number(value) or not math.isfinite(value) or value != int(value) \
-                or value < minimum:
-            self.top_field_fail(key, f"must be a whole number >= {minimum}", value)
+                or not minimum <= value <= maximum:
+            self.top_field_fail(key, f"must be a whole number >= {minimum} and <= {maximum}", value)
         return int(value)
 
     # -- one transform ----------------------------------------------------
@@ -554,6 +608,17 @@ class _Checker:
         pairs = [(self._class_name(k), self._class_name(v)) for k, v in value.items()]
         if any(k is None or v is None for k, v in pairs):
             field_fail("relabel", wanted, value)
+        for source, target in pairs:
+            if source == target:
+                field_fail("relabel", f"must move each class to another; '{source}' maps to itself "
+                           "(leave it out)", value)
+        targets = [target for _, target in pairs]
+        for target in targets:
+            sources = [source for source, other in pairs if other == target]
+            if len(sources) > 1:
+                # Two classes into one would merge them: the label can no longer follow the image.
+                field_fail("relabel", f"must be one-to-one; {' and '.join(map(repr, sources))} "
+                           f"both map to {target!r}", value)
         return dict(pairs)
 
 

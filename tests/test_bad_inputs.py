@@ -270,9 +270,9 @@ RECIPE_CASES = [
     ("recipe-probability-negative",
      "name: t\ntransforms:\n  - op: flip\n    axis: horizontal\n    probability: -0.1\n",
      ["bad.yaml", "probability", "-0.1"]),
-    ("recipe-zoom-zero", "name: t\ntransforms:\n  - op: zoom\n    factor: 0\n", ["bad.yaml", "factor", "> 0"]),
+    ("recipe-zoom-zero", "name: t\ntransforms:\n  - op: zoom\n    factor: 0\n", ["bad.yaml", "factor", "between 0.1"]),
     ("recipe-zoom-negative", "name: t\ntransforms:\n  - op: zoom\n    factor: [-1, 1.2]\n",
-     ["bad.yaml", "factor", "> 0"]),
+     ["bad.yaml", "factor", "between 0.1"]),
     ("recipe-nan", "name: t\ntransforms:\n  - op: rotate\n    degrees: [.nan, 3]\n", ["bad.yaml", "degrees", "nan"]),
     ("recipe-infinite", "name: t\ntransforms:\n  - op: brightness\n    factor: [0.5, .inf]\n",
      ["bad.yaml", "factor", "inf"]),
@@ -283,6 +283,29 @@ RECIPE_CASES = [
     ("recipe-no-name", "transforms: []\n", ["bad.yaml", "name"]),
     ("recipe-bad-axis", "name: t\ntransforms:\n  - op: flip\n    axis: diagonal\n", ["bad.yaml", "axis", "diagonal"]),
     ("recipe-bad-fill", "name: t\nfill: wrap\n", ["bad.yaml", "fill", "wrap"]),
+    # sane bounds per field: values the engine cannot compute are refused by the checker
+    ("recipe-huge-degrees", "name: t\ntransforms:\n  - op: rotate\n    degrees: [-1e308, 1e308]\n",
+     ["bad.yaml line 4", "degrees", "between -360 and 360"]),
+    ("recipe-huge-blur", "name: t\ntransforms:\n  - op: blur\n    sigma: 1e308\n",
+     ["bad.yaml line 4", "sigma", "between 0 and 20"]),
+    ("recipe-tiny-zoom", "name: t\ntransforms:\n  - op: zoom\n    factor: 1e-300\n",
+     ["bad.yaml line 4", "factor", "between 0.1 and 10"]),
+    ("recipe-huge-noise", "name: t\ntransforms:\n  - op: noise\n    sigma: 1e308\n",
+     ["bad.yaml line 4", "sigma", "between 0 and 1"]),
+    ("recipe-huge-hue", "name: t\ntransforms:\n  - op: hue\n    degrees: [-400, 10]\n",
+     ["bad.yaml line 4", "degrees", "between -180 and 180"]),
+    ("recipe-billion-copies", "name: t\ncopies: 1000000000\n", ["bad.yaml line 2", "copies", "<= 1000"]),
+    ("recipe-huge-seed", "name: t\nseed: 1180591620717411303424\n", ["bad.yaml line 2", "seed", "<="]),
+    # names become file names (vet writes vetted-<name>.yaml): refused when read
+    ("recipe-name-with-slash", "name: a/b\n", ["bad.yaml line 1", "'name'", "file name", "a/b"]),
+    ("recipe-name-300-characters", f"name: {'n' * 300}\n", ["bad.yaml line 1", "'name'", "100 bytes"]),
+    ("recipe-name-leading-dot", "name: .hidden\n", ["bad.yaml line 1", "'name'", "'.'"]),
+    # relabel is one-to-one: two classes into one would merge them
+    ("recipe-relabel-two-into-one",
+     "name: t\ntransforms:\n  - op: flip\n    relabel: {alpha: beta, gamma: beta}\n",
+     ["bad.yaml line 4", "relabel", "one-to-one", "'alpha' and 'gamma'"]),
+    ("recipe-relabel-to-itself", "name: t\ntransforms:\n  - op: flip\n    relabel: {alpha: alpha}\n",
+     ["bad.yaml line 4", "relabel", "itself"]),
 ]
 
 
