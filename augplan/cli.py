@@ -196,10 +196,13 @@ def _open_data(args, *, field=None):
     return dataset.with_image_bytes() if getattr(args, "ship_images", False) else dataset
 
 
-def _read_recipes(paths):
-    from .recipe import read_recipe
+def _read_recipes(paths, dataset):
+    """Read each recipe and check its class names against the data's classes."""
+    from .recipe import check_recipe_classes, read_recipe
 
     recipes = [read_recipe(path) for path in paths]
+    for recipe in recipes:
+        check_recipe_classes(recipe, dataset.classes)
     names = [recipe.name for recipe in recipes]
     repeated = sorted({name for name in names if names.count(name) > 1})
     if repeated:
@@ -243,7 +246,7 @@ def _run_preview(args, console):
     dataset = _open_data(args)
     _report_dataset(console, dataset)
     _ensure_parent(args.output, dataset)
-    recipe = read_recipe(args.recipe)
+    recipe = _read_recipes([args.recipe], dataset)[0]
     sheet = preview_sheet(dataset, recipe, per_class=args.per_class, draws=args.draws,
                           rng=np.random.default_rng(args.seed))
     save_png(sheet, args.output)
@@ -280,7 +283,7 @@ def _run_check(args, console):
     if args.evidence is not None:
         _ensure_parent(args.evidence, dataset)
     leaks = _report_leaks(console, dataset)
-    recipe = _read_recipes([args.recipe])[0]
+    recipe = _read_recipes([args.recipe], dataset)[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, evidence_dir=args.evidence)
     result["leaks"] = leaks
@@ -297,7 +300,7 @@ def _run_coverage(args, console):
     _report_dataset(console, dataset)
     if args.plots is not None:
         _ensure_parent(args.plots, dataset)
-    recipe = _read_recipes([args.recipe])[0]
+    recipe = _read_recipes([args.recipe], dataset)[0]
     result = analyse_coverage(dataset, recipe, draws=args.draws, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, plots_dir=args.plots)
     _emit(console, args, result, tables.coverage_table)
@@ -312,7 +315,7 @@ def _run_evaluate(args, console):
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
     leaks = _report_leaks(console, dataset)
-    recipes = _read_recipes(args.recipe)
+    recipes = _read_recipes(args.recipe, dataset)
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
                               cache_dir=_default_cache(args.data), confirm_fraction=args.confirm_fraction)
@@ -348,7 +351,7 @@ def _run_vet(args, console):
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
-    recipes = _read_recipes(args.recipe)
+    recipes = _read_recipes(args.recipe, dataset)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
                           repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),

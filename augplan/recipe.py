@@ -57,6 +57,7 @@ __all__ = [
     "Recipe",
     "RecipeError",
     "Transform",
+    "check_recipe_classes",
     "dump_recipe",
     "parse_recipe",
     "parse_recipe_document",
@@ -241,6 +242,9 @@ class Transform:
         ``{class: new_class}``: the label follows the image when the step runs.
     line : int or None
         Line of the step in its source file; not part of equality.
+    field_lines : Mapping or None
+        Line of each of the step's fields in its source file; not part of
+        equality.
     """
 
     op: str
@@ -250,6 +254,7 @@ class Transform:
     exclude: tuple | None = None
     relabel: Mapping | None = None
     line: int | None = field(default=None, compare=False)
+    field_lines: Mapping | None = field(default=None, compare=False, repr=False)
 
     def __post_init__(self):
         # Normalise programmatic construction (dicts, lists, scalar ranges) to
@@ -266,6 +271,8 @@ class Transform:
                 object.__setattr__(self, name, tuple(value))
         if self.relabel is not None:
             object.__setattr__(self, "relabel", FrozenMap(self.relabel))
+        if self.field_lines is not None:
+            object.__setattr__(self, "field_lines", FrozenMap(self.field_lines))
 
     def applies_to(self, label):
         """Whether the step's class scope includes ``label``.
@@ -564,7 +571,7 @@ class _Checker:
         exclude = self.classes(item["except"], "except", field_fail) if "except" in item else None
         relabel = self.relabel(item["relabel"], field_fail) if "relabel" in item else None
         return Transform(op=op, params=params, probability=float(probability), only=only,
-                         exclude=exclude, relabel=relabel, line=line)
+                         exclude=exclude, relabel=relabel, line=line, field_lines=lines)
 
     @staticmethod
     def magnitude(value, bound, key, field_fail):
@@ -734,6 +741,40 @@ def read_recipe(path):
         than `MAX_RECIPE_BYTES` (refused before it is read).
     """
     return read_recipe_document(path)[0]
+
+
+def check_recipe_classes(recipe, classes):
+    """Refuse class names in ``only``/``except``/``relabel`` that the data lacks.
+
+    Parameters
+    ----------
+    recipe : Recipe
+    classes : sequence of str
+        The data set's training classes.
+
+    Raises
+    ------
+    RecipeError
+        Naming the recipe file, the transform's line, the unknown class and
+        the closest class name of the data.
+    """
+    classes = tuple(classes)
+    source = recipe.source or f"recipe '{recipe.name}'"
+    for number, step in enumerate(recipe.transforms, start=1):
+        named = [("only", name) for name in step.only or ()]
+        named += [("except", name) for name in step.exclude or ()]
+        for source_class, target_class in (step.relabel or {}).items():
+            named += [("relabel", source_class), ("relabel", target_class)]
+        for key, name in named:
+            if name in classes:
+                continue
+            line = (step.field_lines or {}).get(key, step.line)
+            where = f"{source} line {line}" if line is not None else source
+            closest = difflib.get_close_matches(str(name), classes, n=1, cutoff=0.0)
+            hint = f"the closest class is '{closest[0]}'; " if closest else ""
+            raise RecipeError(
+                f"{where}: the '{key}' field of transform {number} ({step.op}) names the class "
+                f"{name!r}, which the data lacks; {hint}the data's classes: {', '.join(classes)}.")
 
 
 def _range_out(pair):
