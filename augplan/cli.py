@@ -27,11 +27,15 @@ class ExitCode(IntEnum):
     INTERRUPTED = 130
 
 
+class _UsageError(BadInputError):
+    """A command-line usage fault; its text already starts with the command's name."""
+
+
 class _Parser(argparse.ArgumentParser):
     """An argument parser that raises instead of exiting, so main() returns codes."""
 
     def error(self, message):
-        raise BadInputError(f"{self.prog}: {message} (see '{self.prog} --help')")
+        raise _UsageError(f"{self.prog}: error: {message} (see '{self.prog} --help')")
 
 
 def _common(parser, *, data=True, json_flag=True):
@@ -40,12 +44,34 @@ def _common(parser, *, data=True, json_flag=True):
                             help="data folder (train/<class>/..., val/<class>/...) or a CSV manifest")
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
-    parser.add_argument("--seed", type=int, default=0, help="seed of the analysis (default 0)")
+    parser.add_argument("--seed", type=_seed, default=0, help="seed of the analysis (default 0)")
     parser.add_argument("--quiet", action="store_true", help="no progress bars, no warnings on stderr")
     if json_flag:
         parser.add_argument("--json", action="store_true",
                             help="print one JSON document on stdout; human text goes to stderr")
     parser.add_argument("--traceback", action="store_true", help="show the traceback of an unexpected error")
+
+
+def _seed(text):
+    """The one validation of --seed, shared by every command."""
+    from .recipe import MAX_SEED
+
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED}; got {text!r}") from None
+    if not 0 <= value <= MAX_SEED:
+        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED}; got {value}")
+    return value
+
+
+def _recipe_name(text):
+    from .recipe import recipe_name_fault
+
+    fault = recipe_name_fault(text)
+    if fault is not None:
+        raise argparse.ArgumentTypeError(f"a recipe name {fault}; got {text!r}")
+    return text
 
 
 def _positive_int(text):
@@ -122,7 +148,7 @@ def _build_parser():
     _common(p, json_flag=False)
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
     p.add_argument("-o", "--output", required=True, type=Path, help="recipe YAML to write")
-    p.add_argument("--name", default="draft", help="name of the drafted recipe (default 'draft')")
+    p.add_argument("--name", type=_recipe_name, default="draft", help="name of the drafted recipe (default 'draft')")
 
     p = commands.add_parser("vet", help="the whole job: check, coverage, evaluate, report, vetted export")
     _common(p)
@@ -240,7 +266,6 @@ def _default_cache(data):
 
 def _run_preview(args, console):
     from .sheets import preview_sheet, save_png
-    from .recipe import read_recipe
     import numpy as np
 
     dataset = _open_data(args)
@@ -423,6 +448,9 @@ def main(argv=None):
         return _COMMANDS[args.command](args, console)
     except SystemExit as stop:  # --help and --version
         return ExitCode.OK if stop.code in (0, None) else ExitCode.BAD_INPUT
+    except _UsageError as error:
+        print(error, file=sys.stderr)
+        return ExitCode.BAD_INPUT
     except BadInputError as error:
         print(f"augplan: error: {error}", file=sys.stderr)
         return ExitCode.BAD_INPUT
