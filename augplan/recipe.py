@@ -44,6 +44,7 @@ import yaml
 
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
+from augplan.files import UnreadableFileError, read_regular_file
 
 __all__ = [
     "FILLS",
@@ -705,20 +706,9 @@ def read_recipe_document(path, *, extra_fields=()):
     path = Path(path)
     source = str(path)
     try:
-        size = path.stat().st_size
-    except FileNotFoundError:
-        raise RecipeError(f"{source}: recipe file not found.") from None
-    except OSError as error:
-        raise RecipeError(f"{source}: cannot read the recipe ({error.strerror}).") from None
-    if path.is_dir():
-        raise RecipeError(f"{source}: is a folder; expected a recipe YAML file.")
-    if size > MAX_RECIPE_BYTES:
-        raise RecipeError(f"{source}: {size} bytes is too large for a recipe "
-                          f"(at most {MAX_RECIPE_BYTES} bytes); is this the right file?")
-    try:
-        raw = path.read_bytes()
-    except OSError as error:
-        raise RecipeError(f"{source}: cannot read the recipe ({error.strerror}).") from None
+        raw = read_regular_file(path, limit=MAX_RECIPE_BYTES, what="recipe")
+    except UnreadableFileError as error:
+        raise RecipeError(f"{source}: {error.reason}.") from None
     return parse_recipe_document(_decode(raw, source), source=source, extra_fields=extra_fields)
 
 

@@ -128,16 +128,16 @@ def _class_symlink_loop(ctx):
 
 def _unreadable(ctx):
     # Tests run as root, where chmod 000 does not stop reading: permission
-    # denial is simulated by making Path.read_bytes raise for one file.
+    # denial is simulated by making os.open raise for one file.
     target = ctx.image("train/alpha/locked.png")
-    real_read = Path.read_bytes
+    real_open = os.open
 
-    def read_bytes(self):
-        if self.name == target.name:
-            raise PermissionError(13, "Permission denied", str(self))
-        return real_read(self)
+    def os_open(path, *args, **kwargs):
+        if Path(path).name == target.name:
+            raise PermissionError(13, "Permission denied", str(path))
+        return real_open(path, *args, **kwargs)
 
-    ctx.monkeypatch.setattr(Path, "read_bytes", read_bytes)
+    ctx.monkeypatch.setattr(os, "open", os_open)
     return ctx.preview()
 
 
@@ -313,6 +313,55 @@ def _recipe_case(text):
     return lambda ctx: ctx.recipe_text(text)
 
 
+def _class_case(step, command="preview"):
+    """A recipe whose scope or relabel names ``step``'s classes, run through ``command``."""
+    def build(ctx):
+        path = ctx.tmp / "scoped.yaml"
+        path.write_text(f"name: scoped\ncopies: 1\ntransforms:\n  - op: flip\n    {step}\n", encoding="utf-8")
+        if command == "preview":
+            return ctx.preview(recipe=path)
+        extra = {"evaluate": ["--repeats", "1"], "vet": ["-o", ctx.tmp / "vetted", "--repeats", "1"]}
+        return [command, ctx.data, "--recipe", path, "--quiet", *extra.get(command, [])]
+    return build
+
+
+def _recipe_fifo(ctx):
+    os.mkfifo(ctx.tmp / "fifo.yaml")
+    return ctx.preview(recipe=ctx.tmp / "fifo.yaml")
+
+
+def _recipe_dev_zero(ctx):
+    os.symlink("/dev/zero", ctx.tmp / "zero.yaml")
+    return ctx.preview(recipe=ctx.tmp / "zero.yaml")
+
+
+def _image_link_to_dev_zero(ctx):
+    os.symlink("/dev/zero", ctx.data / "train" / "alpha" / "zero.png")
+    return ctx.preview()
+
+
+def _image_link_to_fifo(ctx):
+    os.mkfifo(ctx.tmp / "pipe")
+    os.symlink(ctx.tmp / "pipe", ctx.data / "train" / "alpha" / "pipe.png")
+    return ctx.preview()
+
+
+def _image_fifo(ctx):
+    os.mkfifo(ctx.data / "train" / "alpha" / "fifo.png")
+    return ctx.preview()
+
+
+def _folder_symlink_out(ctx):
+    outside = ctx.image("../outside-folder-link.png")
+    os.symlink(outside, ctx.data / "train" / "alpha" / "link.png")
+    return ctx.preview()
+
+
+def _folder_symlink_inside(ctx):
+    os.symlink(ctx.data / "train" / "alpha" / "00.png", ctx.data / "train" / "alpha" / "same.png")
+    return ctx.preview("--strict")
+
+
 # --------------------------------------------------------------------------
 # CSV manifests
 
@@ -354,6 +403,14 @@ def _manifest_symlink_out(ctx):
     ctx.image("../outside-link.png")
     os.symlink(ctx.tmp / "outside-link.png", ctx.data / "train" / "alpha" / "link.png")
     return _manifest(ctx, "\n".join(_manifest_rows(ctx) + ["train/alpha/link.png,alpha,train"]) + "\n")
+
+
+def _manifest_nul_byte(ctx):
+    return _manifest(ctx, "\n".join(_manifest_rows(ctx) + ["train/alpha/0\x000.png,alpha,train"]) + "\n")
+
+
+def _manifest_huge_field(ctx):
+    return _manifest(ctx, "\n".join(_manifest_rows(ctx) + ['"' + "x" * 140_000 + '",alpha,train']) + "\n")
 
 
 def _manifest_unknown_split(ctx):
@@ -404,6 +461,17 @@ def _evaluate_repeats_zero(ctx):
 
 def _seed_not_a_number(ctx):
     return ctx.preview("--seed", "seven")
+
+
+def _seed_for(command, value):
+    def build(ctx):
+        if command == "preview":
+            return ctx.preview("--seed", value)
+        extra = {"draft": ["-o", ctx.tmp / "draft.yaml"], "vet": ["--recipe", ctx.recipe, "-o", ctx.tmp / "v"],
+                 "check": ["--recipe", ctx.recipe], "coverage": ["--recipe", ctx.recipe],
+                 "evaluate": ["--recipe", ctx.recipe]}
+        return [command, ctx.data, *extra[command], "--seed", value]
+    return build
 
 
 def _unknown_command(ctx):
@@ -460,6 +528,25 @@ CASES = [
     pytest.param(_manifest_symlink_out, ERROR, ["manifest.csv", "link.png", "outside the data folder"],
                  id="manifest-symlink-escapes"),
     pytest.param(_manifest_unknown_split, ERROR, ["manifest.csv", "holdout"], id="manifest-unknown-split"),
+    pytest.param(_manifest_nul_byte, ERROR, ["manifest.csv line", "NUL"], id="manifest-nul-byte"),
+    pytest.param(_manifest_huge_field, ERROR, ["manifest.csv line", "field larger"], id="manifest-field-over-limit"),
+    # files that are not what they seem: only regular files are read
+    pytest.param(_recipe_fifo, ERROR, ["fifo.yaml", "FIFO", "regular file"], id="recipe-is-a-fifo"),
+    pytest.param(_recipe_dev_zero, ERROR, ["zero.yaml", "device", "regular file"], id="recipe-is-dev-zero"),
+    pytest.param(_image_link_to_dev_zero, SKIP, ["zero.png", "outside the data folder"], id="image-link-to-dev-zero"),
+    pytest.param(_image_link_to_fifo, SKIP, ["pipe.png", "outside the data folder"], id="image-link-to-fifo"),
+    pytest.param(_image_fifo, SKIP, ["fifo.png", "FIFO", "regular file"], id="image-is-a-fifo"),
+    # one rule for folders and manifests: links are followed only within the data folder
+    pytest.param(_folder_symlink_out, SKIP, ["link.png", "outside the data folder"], id="folder-symlink-escapes"),
+    pytest.param(_folder_symlink_inside, ACCEPT, [], id="folder-symlink-within-data"),
+    # class names in only/except/relabel must be classes of the data
+    pytest.param(_class_case("only: [alphaa]"), ERROR,
+                 ["scoped.yaml line 5", "'only'", "alphaa", "closest class is 'alpha'"], id="only-misspelt-class"),
+    pytest.param(_class_case("except: [gamma]"), ERROR, ["scoped.yaml line 5", "'except'", "gamma", "lacks"],
+                 id="except-unknown-class"),
+    *[pytest.param(_class_case("relabel: {alpha: ghost, ghost: alpha}", command), ERROR,
+                   ["scoped.yaml line 5", "'relabel'", "ghost", "lacks"], id=f"relabel-ghost-class-{command}")
+      for command in ("preview", "check", "coverage", "evaluate", "vet")],
     # flags and outputs
     pytest.param(_strict_non_image, ERROR, ["readme.txt", "strict"], id="strict-non-image"),
     pytest.param(_output_in_missing_folder, ERROR, ["missing", "does not exist"], id="output-in-missing-folder"),
@@ -471,6 +558,11 @@ CASES = [
     pytest.param(_check_sample_zero, ERROR, ["--sample", "0"], id="check-sample-zero"),
     pytest.param(_evaluate_repeats_zero, ERROR, ["--repeats", "0"], id="evaluate-repeats-zero"),
     pytest.param(_seed_not_a_number, ERROR, ["--seed", "seven"], id="seed-not-a-number"),
+    *[pytest.param(_seed_for(command, value), ERROR, ["--seed", value], id=f"{command}-seed-{label}")
+      for command in ("preview", "check", "coverage", "evaluate", "draft", "vet")
+      for value, label in (("-1", "negative"), (str(2**70), "2-to-the-70"))],
+    pytest.param(lambda c: ["draft", c.data, "-o", c.tmp / "d.yaml", "--name", "a/b"], ERROR,
+                 ["--name", "file name", "a/b"], id="draft-name-not-file-safe"),
     pytest.param(_unknown_command, ERROR, ["frobnicate", "invalid choice"], id="unknown-command"),
     pytest.param(_ledger_not_sqlite, ERROR, ["recipe.yaml", "ledger"], id="history-ledger-not-sqlite"),
     pytest.param(_same_recipe_twice, ERROR, ["tiny", "more than once"], id="evaluate-same-recipe-twice"),
