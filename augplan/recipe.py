@@ -154,8 +154,9 @@ MAX_COPIES = 1000
 MAX_NAME_BYTES = 100
 _FILE_SAFE_NAME = re.compile(r'[^./\\:*?"<>|\x00-\x1f\x7f][^/\\:*?"<>|\x00-\x1f\x7f]*')
 
-#: Largest seed: seeds are stored as SQLite's signed 64-bit integers.
-MAX_SEED = 2**63 - 1
+#: Largest seed: seeds reach scikit-learn's ``random_state``, which takes
+#: 0 .. 2**32 - 1 (and SQLite's 64-bit integers store them).
+MAX_SEED = 2**32 - 1
 
 def magnitude_bounds(op):
     """``(field, minimum, maximum, exclusive_minimum)`` of an op's magnitude range.

@@ -590,6 +590,17 @@ def test_bad_input(build, expect, needles, tmp_path, monkeypatch, run_cli):
         assert needle in result.err, f"{needle!r} not in stderr: {result.err}"
 
 
+def test_largest_seed_runs_check(tmp_path, run_cli):
+    # The largest seed --seed accepts reaches every seeded library call.
+    from augplan.recipe import MAX_SEED
+
+    data = write_tiny_dataset(tmp_path / "DATA")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("name: tiny\ncopies: 1\ntransforms:\n  - op: flip\n", encoding="utf-8")
+    result = run_cli("check", data, "--recipe", recipe, "--seed", MAX_SEED, "--sample", "3", "--quiet")
+    assert result.code in (0, 1), result.err
+
+
 def test_exif_orientation_is_applied_on_read(tmp_path):
     # A 24 x 16 (H x W) image tagged Orientation 6 displays as 16 x 24.
     from augplan.data import read_image
