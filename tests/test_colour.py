@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from skimage.color import rgb2hsv
 
-from augplan.colour import (
+from augplan.imaging.colour import (
     SRGB_TO_LINEAR_LUT,
     check_rgb_image,
     encode_linear_to_uint8,

@@ -10,7 +10,7 @@ import skimage.color
 import skimage.data
 import skimage.transform
 
-from augplan import factors
+from augplan.measure import factors
 
 
 def _srgb_decode(code):

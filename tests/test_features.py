@@ -5,8 +5,8 @@ import numpy as np
 import pytest
 from skimage import data, feature, transform
 
-from augplan.colour import relative_luminance
-from augplan.features import (
+from augplan.imaging.colour import relative_luminance
+from augplan.measure.features import (
     FEATURE_BLOCKS,
     FEATURE_LENGTH,
     MIN_IMAGE_SIDE,

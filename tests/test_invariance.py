@@ -13,11 +13,11 @@ import numpy as np
 import pytest
 from PIL import Image, ImageDraw
 
-from augplan.data import open_dataset
+from augplan.data.dataset import open_dataset
 from augplan.errors import BadInputError
-from augplan.invariance import (DECISION_RULE, check_recipe, class_distances, class_verdict,
+from augplan.check.check import (DECISION_RULE, check_recipe, class_distances, class_verdict,
                                 locate, safe_limit)
-from augplan.recipe import Recipe, Transform
+from augplan.recipe.parse import Recipe, Transform
 
 
 @pytest.fixture(scope="module", autouse=True)

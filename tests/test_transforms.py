@@ -9,9 +9,9 @@ from skimage import data
 from skimage import filters as skfilters
 from skimage import transform as sktransform
 
-from augplan.colour import relative_luminance
-from augplan.recipe import Recipe, Transform
-from augplan.transforms import (
+from augplan.imaging.colour import relative_luminance
+from augplan.recipe.parse import Recipe, Transform
+from augplan.augment.transforms import (
     OPS,
     apply_recipe,
     blur,
