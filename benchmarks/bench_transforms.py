@@ -27,10 +27,10 @@ import cv2
 import numpy as np
 from skimage import data
 
-from augplan import transforms
-from augplan.augmenter import Augmenter
-from augplan.colour import SRGB_TO_LINEAR_LUT, encode_linear_image, linear_tone_lut, mean_relative_luminance
-from augplan.recipe import parse_recipe
+from augplan.augment import transforms
+from augplan.augment.augmenter import Augmenter
+from augplan.imaging.colour import SRGB_TO_LINEAR_LUT, encode_linear_image, linear_tone_lut, mean_relative_luminance
+from augplan.recipe.parse import parse_recipe
 
 FIVE_OP_RECIPE = """
 name: five-op

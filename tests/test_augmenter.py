@@ -8,8 +8,8 @@ import pytest
 from PIL import Image
 
 from augplan import load_recipe
-from augplan.augmenter import Augmenter
-from augplan.recipe import parse_recipe
+from augplan.augment.augmenter import Augmenter
+from augplan.recipe.parse import parse_recipe
 
 RECIPE_TEXT = """
 name: loader
@@ -124,7 +124,7 @@ def test_apply_batch_refuses_mismatched_labels(aug):
 
 
 def test_augmenter_and_apply_recipe_give_the_same_bytes(aug, image):
-    from augplan.transforms import apply_recipe
+    from augplan.augment.transforms import apply_recipe
 
     ours, label = aug.apply(image, "left", np.random.default_rng(12))
     theirs, their_label = apply_recipe(image, aug.recipe, np.random.default_rng(12), "left")

@@ -12,7 +12,7 @@ primitives are the fastest on a CPU: each geometric op is one
 with a 256-entry table built per call; hue goes through ``cv2.cvtColor`` to
 HSV and back in float32; blur is OpenCV's Gaussian kernel
 (``cv2.getGaussianKernel``) applied separably by ``cv2.sepFilter2D``. Colour
-maths comes from :mod:`augplan.colour`. Consecutive geometric ops are not
+maths comes from :mod:`augplan.imaging.colour`. Consecutive geometric ops are not
 merged into one warp: each op reads its own input's border (the fill of a
 rotation after a shift comes from the shifted image), and merging would change
 that, so every op warps once.
@@ -67,7 +67,7 @@ OpenCV border modes (`FILLS`):
 
 References
 ----------
-.. [1] IEC 61966-2-1:1999, the sRGB transfer function (via augplan.colour).
+.. [1] IEC 61966-2-1:1999, the sRGB transfer function (via augplan.imaging.colour).
 .. [2] ITU-R BT.709-6, item 3.2, relative luminance coefficients.
 .. [3] A. R. Smith, "Color gamut transform pairs", SIGGRAPH '78, 1978 (HSV).
 .. [4] OpenCV, "Geometric Image Transformations" (warpAffine) and "Image
@@ -83,7 +83,7 @@ from typing import Callable
 import cv2
 import numpy as np
 
-from augplan.colour import (
+from augplan.imaging.colour import (
     BT709_COEFFICIENTS,
     SRGB_TO_LINEAR_LUT,
     check_image,
@@ -422,7 +422,7 @@ def saturation(image, params, rng=None):
     ``L' = Y + factor * (L - Y)``: 0 gives greyscale, 1 the identity, > 1
     more saturated colour (clipped at the gamut edge). Decoded with a float
     ``cv2.LUT``, blended by ``cv2.transform`` and ``cv2.addWeighted``,
-    re-encoded through `augplan.colour.encode_linear_image`. Grey images come
+    re-encoded through `augplan.imaging.colour.encode_linear_image`. Grey images come
     back unchanged.
 
     References

@@ -3,9 +3,9 @@
 import numpy as np
 from PIL import Image
 
-from .colour import check_image
-from .recipe import Recipe, read_recipe_document
-from .transforms import compile_recipe, run_plan
+from augplan.imaging.colour import check_image
+from augplan.recipe.parse import Recipe, read_recipe_document
+from augplan.augment.transforms import compile_recipe, run_plan
 
 __all__ = ["Augmenter", "load_recipe"]
 
@@ -18,8 +18,8 @@ class Augmenter:
     thread-safe: every call takes its randomness from the generator passed
     in. Images are uint8 RGB ``(H, W, 3)`` or grey ``(H, W)`` / ``(H, W, 1)``
     and come back in their own shape; the pixel work is OpenCV's (see
-    `augplan.transforms`). The draws are those of
-    `augplan.transforms.apply_recipe`, so the same generator gives the same
+    `augplan.augment.transforms`). The draws are those of
+    `augplan.augment.transforms.apply_recipe`, so the same generator gives the same
     bytes through either.
 
     Parameters
@@ -29,7 +29,7 @@ class Augmenter:
     Examples
     --------
     >>> import numpy as np
-    >>> from augplan.recipe import parse_recipe
+    >>> from augplan.recipe.parse import parse_recipe
     >>> aug = Augmenter(parse_recipe("name: demo\\ntransforms:\\n  - op: flip\\n"))
     >>> image = np.zeros((4, 6, 3), dtype=np.uint8); image[:, 0] = 255
     >>> aug(image, rng=np.random.default_rng(0))[:, -1, 0].tolist()

@@ -46,11 +46,11 @@ import scipy.spatial
 import scipy.stats
 
 from augplan.atomic import write_bytes_atomic
-from augplan.data import Dataset, load_images
+from augplan.data.dataset import Dataset, load_images
 from augplan.errors import BadInputError
-from augplan.factors import FACTORS, measure_factors
+from augplan.measure.factors import FACTORS, measure_factors
 from augplan.parallel import parallel_map
-from augplan.transforms import apply_op_batch, augment_batch
+from augplan.augment.transforms import apply_op_batch, augment_batch
 
 __all__ = [
     "K_NEIGHBOURS",
@@ -496,7 +496,7 @@ def _class_centres(values, labels, factor):
 
 def _blur_sigma_for(ratio, sample_images):
     """Smallest blur sigma whose median sharpness ratio falls to ``ratio``."""
-    from augplan.factors import sharpness
+    from augplan.measure.factors import sharpness
 
     base = sharpness(sample_images)
     for sigma in (0.25, 0.5, 0.75, 1.0, 1.5, 2.0, 3.0, 4.0):

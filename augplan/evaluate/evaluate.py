@@ -6,7 +6,7 @@ per repeat with fresh draws and a fresh model seed; the baseline trains on
 the originals alone. Every model is scored on original validation images.
 
 Why validation can never be augmented: the only function that calls
-the transform engine (`augplan.transforms.augment_batch`) is `_train_one` (run by `_train_and_predict`); it receives
+the transform engine (`augplan.augment.transforms.augment_batch`) is `_train_one` (run by `_train_and_predict`); it receives
 training records and the *feature rows* of the evaluation images, never an
 evaluation image. Evaluation images (val, test, field) are read and
 featurised by `_featurize_originals`, which takes no recipe. So the count of
@@ -28,14 +28,14 @@ from pathlib import Path
 
 import numpy as np
 
-from augplan import ledger as _ledger
-from augplan import stats
-from augplan.data import Dataset, fingerprint, load_images
+from augplan.evaluate import ledger as _ledger
+from augplan.measure import stats
+from augplan.data.dataset import Dataset, fingerprint, load_images
 from augplan.errors import BadInputError
-from augplan.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
+from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 from augplan.parallel import parallel_map, resolve_workers, single_threaded
-from augplan.recipe import Recipe, recipe_hash
-from augplan.transforms import augment_batch
+from augplan.recipe.parse import Recipe, recipe_hash
+from augplan.augment.transforms import augment_batch
 
 __all__ = ["evaluate_recipes", "MANY_RECIPES_WARNING_LIMIT"]
 
@@ -289,7 +289,7 @@ def _file_digest(*modules):
 
 def _settings_key(model, size, confirm_fraction, dataset):
     """Key of everything besides data, seed and repeats that shapes a result."""
-    import augplan.transforms as transforms_module
+    import augplan.augment.transforms as transforms_module
     import sys
 
     estimator = getattr(model, "estimator", None)
@@ -498,7 +498,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     """
     recipes = _check_inputs(dataset, recipes, repeats, size, seed, workers, confirm_fraction)
     if model is None:
-        from augplan.features import FeatureModel
+        from augplan.measure.features import FeatureModel
 
         model = FeatureModel()
     repeats, size, seed = int(repeats), int(size), int(seed)
