@@ -141,7 +141,7 @@ def test_p_value_and_interval_agree_on_every_digits_recipe(comparison):
 
 def test_p_value_and_interval_agree_on_every_demo_recipe(tmp_path):
     from augplan.demo import DEFAULT_DEMO_DIR, DEFAULT_RECIPE_DIR, DEMO_RECIPES
-    from augplan.recipe import read_recipe
+    from augplan.recipe.parse import read_recipe
 
     if not DEFAULT_DEMO_DIR.is_dir():
         pytest.skip("demo_images/ is not part of this installation")
