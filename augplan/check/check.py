@@ -224,7 +224,7 @@ def class_verdict(moved, left, n, baseline_change, baseline_leave, margin=MARGIN
     str
         ``"breaks"``, ``"unverified"`` or ``"safe"``.
     """
-    from augplan.stats import wilson_interval
+    from augplan.measure.stats import wilson_interval
 
     if n == 0:
         return "safe"
@@ -319,7 +319,7 @@ def _sample_key(records, size):
 
 def _decoded_sample(context):
     """The checked images, decoded from the records' paths or carried bytes."""
-    from augplan.data import load_images
+    from augplan.data.dataset import load_images
 
     key = context["sample_key"]
     images = _DECODED_SAMPLE.get(key)
@@ -332,17 +332,14 @@ def _decoded_sample(context):
 
 def _run_unit(context, unit):
     """Transform, featurise and locate the in-scope images of one (transform, magnitude)."""
-    from augplan.transforms import OPS, params_at
+    from augplan.augment.transforms import apply_op_batch, params_at
 
     transform_index, magnitude, rng = unit
     transform = context["transforms"][transform_index]
     sources = context["scope"][transform_index]
     images = _decoded_sample(context)
-    function = OPS[transform.op].function
     params = params_at(transform, 0.0 if magnitude is None else magnitude, context["fill"])
-    moved_images = np.empty((len(sources),) + images.shape[1:], dtype=np.uint8)
-    for row, source in enumerate(sources):
-        moved_images[row] = function(images[source], params, rng)
+    moved_images = apply_op_batch(images[sources], transform.op, params, rng)
     model = context["model"]
     features = model.featurize(moved_images)
     proba = _probabilities(model, features, context["classes"])
@@ -395,7 +392,7 @@ def _rate(count, n):
 
 
 def _interval(count, n):
-    from augplan.stats import wilson_interval
+    from augplan.measure.stats import wilson_interval
 
     low, high = wilson_interval(count, n)
     return [round(low, 4), round(high, 4)]
@@ -438,7 +435,7 @@ def _suggestion(transform, checked, verdicts, flows, classes):
 
 def _write_evidence(evidence_dir, index, transform, verdict, examples, images, labels, classes):
     """Contact sheet of moved and outside images: one row per image, original then transformed."""
-    from augplan.sheets import contact_sheet, save_png
+    from augplan.render.sheets import contact_sheet, save_png
 
     rows, row_labels = [], []
     for source, destination, moved in examples:
@@ -470,8 +467,8 @@ def _separable_by_structure(images, labels, first, second, seed):
     of exposure or contrast barely moves; separable means a cross-validated
     balanced accuracy of at least 0.9 between the two classes.
     """
-    from augplan.coverage import shortcut_scores
-    from augplan.features import FEATURE_BLOCKS, image_features
+    from augplan.coverage.coverage import shortcut_scores
+    from augplan.measure.features import FEATURE_BLOCKS, image_features
 
     pair = np.isin(labels, [first, second])
     gradients = image_features(images[pair])[:, FEATURE_BLOCKS["orientation"]]
@@ -481,8 +478,8 @@ def _separable_by_structure(images, labels, first, second, seed):
 
 def _singled_out(images, labels, classes, factor, seed):
     """One-vs-rest cross-validated balanced accuracy of each class from one factor."""
-    from augplan.coverage import factor_columns, shortcut_scores
-    from augplan.factors import FACTORS
+    from augplan.coverage.coverage import factor_columns, shortcut_scores
+    from augplan.measure.factors import FACTORS
 
     values = {factor: FACTORS[factor].function(images)}
     names = np.array([classes[c] for c in labels])
@@ -503,8 +500,8 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
     it as a cue, and the verdict stays ``breaks``; otherwise a person must
     look.
     """
-    from augplan.coverage import ONE_VS_REST_THRESHOLD
-    from augplan.data import load_images
+    from augplan.coverage.coverage import ONE_VS_REST_THRESHOLD
+    from augplan.data.dataset import load_images
 
     field_records = [r for r in dataset.split("field") if r.label in classes]
     field_images = field_labels = None
@@ -587,8 +584,8 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         Fewer than two classes with at least 3 training images, an unusable
         ``sample``, ``magnitudes`` or ``evidence_dir``.
     """
-    from augplan.data import load_images
-    from augplan.transforms import OPS, magnitude_grid
+    from augplan.data.dataset import load_images
+    from augplan.augment.transforms import OPS, magnitude_grid
 
     if sample is not None and (isinstance(sample, bool) or int(sample) != sample or sample < MIN_PER_CLASS):
         raise BadInputError(f"--sample must be an integer of at least {MIN_PER_CLASS}; got {sample!r}.")
@@ -627,7 +624,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     images = load_images(records, size=size)
     label_names = [classes[c] for c in labels]
     if model is None:
-        from augplan.features import FeatureModel
+        from augplan.measure.features import FeatureModel
 
         model = FeatureModel(random_state=seed)
     features = model.featurize(images)

@@ -46,11 +46,11 @@ import scipy.spatial
 import scipy.stats
 
 from augplan.atomic import write_bytes_atomic
-from augplan.data import Dataset, load_images
+from augplan.data.dataset import Dataset, load_images
 from augplan.errors import BadInputError
-from augplan.factors import FACTORS, measure_factors
+from augplan.measure.factors import FACTORS, measure_factors
 from augplan.parallel import parallel_map
-from augplan.transforms import OPS, apply_recipe
+from augplan.augment.transforms import apply_op_batch, augment_batch
 
 __all__ = [
     "K_NEIGHBOURS",
@@ -449,12 +449,7 @@ def _measure_augmented(item):
     records, size, recipe, generators, draws = item
     images = load_images(records, size=size)
     original = measure_factors(images)
-    augmented = np.empty((len(records) * draws,) + images.shape[1:], dtype=np.uint8)
-    labels = []
-    for i, (record, rng) in enumerate(zip(records, generators)):
-        for d in range(draws):
-            augmented[i * draws + d], label = apply_recipe(images[i], recipe, rng, record.label)
-            labels.append(label)
+    augmented, labels = augment_batch(images, recipe, generators, [r.label for r in records], draws)
     return original, measure_factors(augmented), labels
 
 
@@ -501,12 +496,11 @@ def _class_centres(values, labels, factor):
 
 def _blur_sigma_for(ratio, sample_images):
     """Smallest blur sigma whose median sharpness ratio falls to ``ratio``."""
-    from augplan.factors import sharpness
+    from augplan.measure.factors import sharpness
 
     base = sharpness(sample_images)
-    blur = OPS["blur"].function
     for sigma in (0.25, 0.5, 0.75, 1.0, 1.5, 2.0, 3.0, 4.0):
-        blurred = np.stack([blur(image, {"sigma": sigma}, None) for image in sample_images])
+        blurred = apply_op_batch(sample_images, "blur", {"sigma": sigma}, None)
         if np.median(sharpness(blurred) / np.maximum(base, 1e-12)) <= ratio:
             return sigma
     return 4.0
