@@ -474,6 +474,58 @@ def _seed_for(command, value):
     return build
 
 
+def _ledger_inside_data(command):
+    def build(ctx):
+        extra = ["-o", ctx.tmp / "vetted"] if command == "vet" else []
+        return [command, ctx.data, "--recipe", ctx.recipe, "--repeats", "1", "--quiet", *extra,
+                "--ledger", ctx.data / "val" / "ledger.sqlite"]
+    return build
+
+
+def _cache_inside_data(ctx):
+    return ["evaluate", ctx.data, "--recipe", ctx.recipe, "--repeats", "1", "--quiet",
+            "--cache", ctx.data / "features"]
+
+
+def _preview_over_recipe(ctx):
+    return ["preview", ctx.data, "--recipe", ctx.recipe, "-o", ctx.recipe, "--per-class", "1", "--draws", "1"]
+
+
+def _preview_into_folder(ctx):
+    return ["preview", ctx.data, "--recipe", ctx.recipe, "-o", ctx.out, "--per-class", "1", "--draws", "1"]
+
+
+def _foreign_ledger(ctx):
+    import sqlite3
+
+    path = ctx.tmp / "contacts.sqlite"
+    with sqlite3.connect(path) as connection:
+        connection.execute("CREATE TABLE people (name TEXT)")
+    return ["history", "--ledger", path]
+
+
+def _damaged_ledger(ctx):
+    from augplan.evaluate import ledger
+
+    path = ctx.tmp / "ledger.sqlite"
+    ledger.store_results(path, fingerprint="f" * 64, settings_key="s" * 24, seed=0, repeats=1,
+                         baseline={}, results=[{"recipe_hash": f"{n:064x}", "name": "x" * 3000}
+                                               for n in range(40)])
+    data = bytearray(path.read_bytes())
+    data[4096:8192] = b"\xff" * 4096  # the second page overwritten
+    path.write_bytes(bytes(data))
+    return ["history", "--ledger", path]
+
+
+def _newer_ledger(ctx):
+    import sqlite3
+
+    path = ctx.tmp / "ledger.sqlite"
+    with sqlite3.connect(path) as connection:
+        connection.execute("PRAGMA user_version = 99")
+    return ["history", "--ledger", path]
+
+
 def _unknown_command(ctx):
     return ["frobnicate", ctx.data]
 
@@ -564,6 +616,18 @@ CASES = [
     pytest.param(lambda c: ["draft", c.data, "-o", c.tmp / "d.yaml", "--name", "a/b"], ERROR,
                  ["--name", "file name", "a/b"], id="draft-name-not-file-safe"),
     pytest.param(_unknown_command, ERROR, ["frobnicate", "invalid choice"], id="unknown-command"),
+    # where augplan writes: never into the data, never over an input
+    *[pytest.param(_ledger_inside_data(command), ERROR, ["ledger.sqlite", "inside the data folder"],
+                   id=f"{command}-ledger-inside-data") for command in ("evaluate", "vet")],
+    pytest.param(_cache_inside_data, ERROR, ["features", "inside the data folder"], id="evaluate-cache-inside-data"),
+    pytest.param(_preview_over_recipe, ERROR, ["recipe.yaml", "no output may replace an input"],
+                 id="preview-output-is-the-recipe"),
+    pytest.param(_preview_into_folder, ERROR, ["out", "is a folder"], id="preview-output-is-a-folder"),
+    # damaged stores
+    pytest.param(_foreign_ledger, ERROR, ["contacts.sqlite", "another program", "--ledger"], id="ledger-of-another-program"),
+    pytest.param(_damaged_ledger, ERROR, ["ledger.sqlite", "--ledger", "move this file away"], id="ledger-damaged-pages"),
+    pytest.param(_newer_ledger, ERROR, ["ledger.sqlite", "schema version 99"], id="ledger-newer-schema"),
+    pytest.param(lambda c: ["verify", c.out], ERROR, ["out", "is a folder"], id="verify-a-folder"),
     pytest.param(_ledger_not_sqlite, ERROR, ["recipe.yaml", "ledger"], id="history-ledger-not-sqlite"),
     pytest.param(_same_recipe_twice, ERROR, ["tiny", "more than once"], id="evaluate-same-recipe-twice"),
 ]
