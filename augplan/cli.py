@@ -270,7 +270,7 @@ def _run_preview(args, console):
 
     dataset = _open_data(args)
     _report_dataset(console, dataset)
-    _ensure_parent(args.output, dataset)
+    _ensure_parent(args.output, dataset, inputs=[args.recipe])
     recipe = _read_recipes([args.recipe], dataset)[0]
     sheet = preview_sheet(dataset, recipe, per_class=args.per_class, draws=args.draws,
                           rng=np.random.default_rng(args.seed))
@@ -279,7 +279,7 @@ def _run_preview(args, console):
     return ExitCode.OK
 
 
-def _ensure_parent(path, dataset=None):
+def _ensure_parent(path, dataset=None, inputs=()):
     parent = Path(path).resolve().parent
     if not parent.is_dir():
         raise BadInputError(f"{path}: the folder {parent} does not exist")
