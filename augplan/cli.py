@@ -96,6 +96,11 @@ def _workers(parser, *, ship_images=True):
                                  "workers that cannot see the data folder (files held in memory)")
 
 
+def _cache_flag(parser):
+    parser.add_argument("--cache", type=Path, default=None, metavar="DIR",
+                        help="feature cache of the original images (default .augplan/features beside DATA)")
+
+
 def _execution(args):
     """The cluster when --cluster (or AUGPLAN_CLUSTER) names one, else the worker count."""
     from augplan.parallel import resolve_workers
@@ -142,6 +147,7 @@ def _build_parser():
                    help="carve this share of val out as a confirmation split scored once")
     p.add_argument("--ledger", type=Path, default=None,
                    help="results ledger (default .augplan/ledger.sqlite beside DATA)")
+    _cache_flag(p)
     p.add_argument("--field", type=Path, default=None, help="labelled field sample folder (default DATA/field)")
 
     p = commands.add_parser("draft", help="propose a candidate recipe from the data")
@@ -160,7 +166,9 @@ def _build_parser():
     p.add_argument("--approve", default="", help="indices of unverified transforms to keep, e.g. 3,5")
     p.add_argument("--repeats", type=_positive_int, default=5, help="evaluation repeats (default 5)")
     p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class for check")
-    p.add_argument("--ledger", type=Path, default=None, help="results ledger path")
+    p.add_argument("--ledger", type=Path, default=None,
+                   help="results ledger (default .augplan/ledger.sqlite beside DATA)")
+    _cache_flag(p)
 
     p = commands.add_parser("verify", help="check a vetted recipe's checksum and validity")
     _common(p, data=False)
@@ -256,12 +264,30 @@ def _report_leaks(console, dataset):
     return leaks
 
 
-def _default_ledger(data):
-    return Path(data).resolve().parent / ".augplan" / "ledger.sqlite"
+def _stores(args, dataset, console):
+    """The results ledger and feature cache of a run: outside the data folder.
 
+    Both default to ``.augplan/`` beside the data folder (for a manifest, the
+    folder it lies in). A cache folder that cannot be created (read-only
+    storage) turns the disk cache off with a warning instead of failing.
+    """
+    from augplan.data.dataset import ensure_outside_data
+    from augplan.evaluate.feature_cache import default_cache_dir
+    from augplan.evaluate.ledger import default_ledger_path
 
-def _default_cache(data):
-    return Path(data).resolve().parent / ".augplan" / "features"
+    ledger = args.ledger or default_ledger_path(dataset.root)
+    cache = args.cache or default_cache_dir(dataset.root)
+    ensure_outside_data(ledger, dataset)
+    ensure_outside_data(cache, dataset)
+    try:
+        Path(cache).mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        if args.cache is not None:
+            raise
+        console.warn(f"{cache}: cannot hold the feature cache ({error.strerror}); features are computed "
+                     "afresh each run. Pass --cache DIR to keep them.")
+        cache = False
+    return ledger, cache
 
 
 def _run_preview(args, console):
@@ -283,6 +309,10 @@ def _ensure_parent(path, dataset=None, inputs=()):
     parent = Path(path).resolve().parent
     if not parent.is_dir():
         raise BadInputError(f"{path}: the folder {parent} does not exist")
+    for given in inputs:
+        if Path(path).exists() and Path(given).exists() and os.path.samefile(path, given):
+            raise BadInputError(f"{path}: is the input {given}; no output may replace an input. "
+                                "Choose another output file.")
     if dataset is not None:
         from augplan.data.dataset import ensure_outside_data
 
@@ -341,9 +371,10 @@ def _run_evaluate(args, console):
     _report_dataset(console, dataset)
     leaks = _report_leaks(console, dataset)
     recipes = _read_recipes(args.recipe, dataset)
+    ledger, cache = _stores(args, dataset, console)
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
-                              quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
-                              cache_dir=_default_cache(args.data), confirm_fraction=args.confirm_fraction)
+                              quiet=args.quiet, ledger_path=ledger, cache_dir=cache,
+                              confirm_fraction=args.confirm_fraction)
     result["leaks"] = leaks
     _emit(console, args, result, tables.leaderboard_table)
     return ExitCode.FLAGGED if any(r["flagged"] for r in result["recipes"]) else ExitCode.OK
@@ -377,10 +408,10 @@ def _run_vet(args, console):
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
     recipes = _read_recipes(args.recipe, dataset)
+    ledger, cache = _stores(args, dataset, console)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
                           repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
-                          quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
-                          cache_dir=_default_cache(args.data))
+                          quiet=args.quiet, ledger_path=ledger, cache_dir=cache)
     if args.json:
         console.emit_json(summary)
     console.say(summary["verdict"])
@@ -401,12 +432,13 @@ def _run_verify(args, console):
 
 
 def _run_history(args, console):
-    from augplan.evaluate.ledger import list_history
+    from augplan.evaluate.ledger import default_ledger_path, list_history
     from augplan.data.dataset import fingerprint, open_dataset
     from augplan.render import text as tables
 
-    ledger = args.ledger or (_default_ledger(args.data) if args.data else Path(".augplan/ledger.sqlite"))
-    data_fingerprint = fingerprint(open_dataset(args.data)) if args.data else None
+    dataset = open_dataset(args.data) if args.data else None
+    ledger = args.ledger or (default_ledger_path(dataset.root) if dataset else Path(".augplan/ledger.sqlite"))
+    data_fingerprint = fingerprint(dataset) if dataset else None
     rows = list_history(ledger, fingerprint=data_fingerprint)
     if args.json:
         console.emit_json({"ledger": str(ledger), "evaluations": rows})

@@ -490,8 +490,8 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     ledger_path : str or Path, optional
         SQLite results ledger; results stored under the same keys are reused.
         ``None``: no ledger.
-    cache_dir : str or Path, optional
-        Folder of the feature cache of original images; default
+    cache_dir : str or Path or False, optional
+        ``False`` turns the disk cache off. Folder of the feature cache of original images; default
         ``<data parent>/.augplan/features``. Never inside the data folder.
     confirm_fraction : float, optional
         Without ``DATA/test/``, the share of each validation class set aside
@@ -564,8 +564,9 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
         # against the same deterministic baseline (same data, settings, seed,
         # repeats), so their results stand beside the new ones.
         root = Path(dataset.root).resolve()
-        cache_root = Path(cache_dir) if cache_dir is not None else default_cache_dir(root)
-        if cache_root.resolve() == root or root in cache_root.resolve().parents:
+        cache_root = None if cache_dir is False else (
+            Path(cache_dir) if cache_dir is not None else default_cache_dir(root))
+        if cache_root is not None and (cache_root.resolve() == root or root in cache_root.resolve().parents):
             raise BadInputError(f"{cache_root}: the feature cache must not live inside the data "
                                 f"folder {root}; the data folder is never written to")
         cache = FeatureCache(cache_root, feature_settings_key(model.feature_fn, size))

@@ -16,7 +16,7 @@ from pathlib import Path
 
 from augplan.errors import BadInputError
 
-__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history"]
+__all__ = ["default_ledger_path", "lookup_stored", "lookup_results", "store_results", "record_run", "list_history"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS evaluations (
@@ -45,6 +45,25 @@ CREATE TABLE IF NOT EXISTS runs (
     from_ledger INTEGER NOT NULL
 );
 """
+
+
+def default_ledger_path(data_root):
+    """Default ledger: ``<parent of the data folder>/.augplan/ledger.sqlite``.
+
+    The data folder itself is never written to.
+    """
+    return Path(data_root).resolve().parent / ".augplan" / "ledger.sqlite"
+
+
+#: Schema version, kept in SQLite's ``user_version``; a ledger of another
+#: version (or another program's database) is refused, never altered.
+LEDGER_VERSION = 1
+_TABLES = {"evaluations", "runs"}
+
+
+def _unusable(path, problem):
+    return BadInputError(f"{path}: {problem}; pass another --ledger path, or move this file away "
+                         "to start a new ledger.")
 
 
 def _connect(ledger_path, *, create):
