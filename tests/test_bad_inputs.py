@@ -656,13 +656,57 @@ def test_bad_input(build, expect, needles, tmp_path, monkeypatch, run_cli):
 
 def test_largest_seed_runs_check(tmp_path, run_cli):
     # The largest seed --seed accepts reaches every seeded library call.
-    from augplan.recipe import MAX_SEED
+    from augplan.recipe.parse import MAX_SEED
 
     data = write_tiny_dataset(tmp_path / "DATA")
     recipe = tmp_path / "recipe.yaml"
     recipe.write_text("name: tiny\ncopies: 1\ntransforms:\n  - op: flip\n", encoding="utf-8")
     result = run_cli("check", data, "--recipe", recipe, "--seed", MAX_SEED, "--sample", "3", "--quiet")
     assert result.code in (0, 1), result.err
+
+
+@pytest.mark.parametrize("evidence", ["[1, 2]", "just words", "7"])
+def test_verify_evidence_that_is_not_a_mapping_fails_plainly(evidence, tmp_path, run_cli):
+    path = tmp_path / "vetted.yaml"
+    path.write_text(f"name: v\ntransforms: []\nevidence: {evidence}\nchecksum: abc\n", encoding="utf-8")
+    result = run_cli("verify", path)
+    assert "Traceback" not in result.err and "internal error" not in result.err
+    assert result.code == 1
+    assert "must be a mapping" in result.out
+
+
+def test_preview_over_the_recipe_leaves_the_recipe(tmp_path, run_cli):
+    data = write_tiny_dataset(tmp_path / "DATA")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("name: tiny\ntransforms: []\n", encoding="utf-8")
+    run_cli("preview", data, "--recipe", recipe, "-o", recipe)
+    assert recipe.read_text(encoding="utf-8") == "name: tiny\ntransforms: []\n"
+
+
+def test_foreign_sqlite_file_is_left_as_it_was(tmp_path, run_cli):
+    import hashlib
+    import sqlite3
+
+    path = tmp_path / "contacts.sqlite"
+    with sqlite3.connect(path) as connection:
+        connection.execute("CREATE TABLE people (name TEXT)")
+    before = hashlib.sha256(path.read_bytes()).hexdigest()
+    assert run_cli("history", "--ledger", path).code == 2
+    assert hashlib.sha256(path.read_bytes()).hexdigest() == before
+
+
+def test_unwritable_cache_place_warns_and_evaluates(tmp_path, run_cli):
+    # A file where the default .augplan/ folder would go stands in for read-only
+    # storage beside the data: the run goes on without a disk cache.
+    data = write_tiny_dataset(tmp_path / "DATA")
+    (tmp_path / ".augplan").write_text("in the way\n")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("name: tiny\ncopies: 1\ntransforms:\n  - op: flip\n", encoding="utf-8")
+    result = run_cli("evaluate", data, "--recipe", recipe, "--repeats", "1", "--json",
+                     "--ledger", tmp_path / "elsewhere" / "ledger.sqlite")
+    assert result.code in (0, 1), result.err
+    assert ".augplan" in result.err and "--cache" in result.err
+    assert (tmp_path / "elsewhere" / "ledger.sqlite").is_file()
 
 
 def test_exif_orientation_is_applied_on_read(tmp_path):
@@ -689,3 +733,20 @@ def test_verify_missing_file_never_passes(tmp_path, run_cli):
     assert result.code != 0
     assert "Traceback" not in result.err
     assert "no-such-vetted.yaml" in result.out + result.err
+
+
+@pytest.mark.parametrize("damage", [np.full(7, np.nan, np.float32), np.zeros(7, np.float32)],
+                         ids=["all-nan", "wrong-length"])
+def test_damaged_cache_entry_is_recomputed_with_a_warning(tmp_path, run_cli, damage):
+    data = write_tiny_dataset(tmp_path / "DATA")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("name: tiny\ncopies: 1\ntransforms:\n  - op: flip\n", encoding="utf-8")
+    argv = ["evaluate", data, "--recipe", recipe, "--repeats", "1", "--json", "--cache", tmp_path / "cache"]
+    assert run_cli(*argv, "--ledger", tmp_path / "one.sqlite").code in (0, 1)
+    entry = next((tmp_path / "cache").rglob("*.npy"))
+    good = np.load(entry)
+    np.save(entry, damage)
+    result = run_cli(*argv, "--ledger", tmp_path / "two.sqlite")
+    assert result.code in (0, 1), result.err
+    assert "damaged feature-cache" in result.err
+    assert np.array_equal(np.load(entry), good)  # recomputed and rewritten
