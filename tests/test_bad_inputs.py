@@ -3,7 +3,7 @@
 Each case asserts one of three outcomes:
 
 - ``error``: exit 2 and a message on stderr naming the file (or flag) and the fault;
-- ``skip``: the documented skip (DESIGN.md: files that are not images are listed
+- ``skip``: the documented skip (README, "Data layout": files that are not images are listed
   and skipped), exit 0/1 and a warning on stderr naming the file and the fault;
 - ``accept``: the input is valid (run with ``--strict``, so any skip would be exit 2).
 

@@ -575,7 +575,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     Returns
     -------
     dict
-        The ``check --json`` document (see DESIGN.md); ``decision_rule``
+        The ``check --json`` document (docs/architecture.md, "Results"); ``decision_rule``
         states the rule in the module docstring. Beyond the contract fields,
         ``baseline`` holds each class's held-out rates, and each transform
         carries ``n`` (images judged, pooled) and ``magnitudes`` (value,

@@ -1,6 +1,6 @@
 """Does a recipe widen the nuisance factors, cover the field, and break shortcuts?
 
-`analyse_coverage` returns the ``coverage --json`` document of DESIGN.md:
+`analyse_coverage` returns the ``coverage --json`` document (docs/architecture.md, "Results"):
 
 - widening: each factor of `augplan.factors.FACTORS` on the original
   training images and on the augmented training set (the originals plus

@@ -41,7 +41,6 @@ from augplan.errors import BadInputError
 
 __all__ = [
     "ImageRecord",
-    "ensure_outside_data",
     "Dataset",
     "SPLITS",
     "NEAR_DUPLICATE_BITS",
@@ -922,17 +921,3 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
     exact.sort(key=lambda d: (d["a"], d["b"]))
     near.sort(key=lambda d: (d["a"], d["b"]))
     return exact + near
-
-
-def ensure_outside_data(path, dataset):
-    """Raise `BadInputError` when ``path`` lies inside the data folder.
-
-    augplan never writes into the data it reads; every output path passes
-    through here first.
-    """
-    try:
-        Path(path).resolve().relative_to(Path(dataset.root).resolve())
-    except ValueError:
-        return
-    raise BadInputError(f"{path}: lies inside the data folder {dataset.root}; augplan never writes into "
-                        "the data. Choose an output outside it.")

@@ -35,6 +35,7 @@ from augplan.errors import BadInputError
 from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 from augplan.parallel import parallel_map, resolve_workers
 from augplan.recipe.parse import Recipe, recipe_hash
+from augplan.workspace import ensure_outside_data
 from augplan.augment.transforms import apply_recipe
 
 __all__ = ["evaluate_recipes", "MANY_RECIPES_WARNING_LIMIT"]
@@ -488,7 +489,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     Returns
     -------
     dict
-        The ``evaluate --json`` document (see DESIGN.md).
+        The ``evaluate --json`` document (docs/architecture.md, "Results").
 
     Raises
     ------
@@ -552,9 +553,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
         # repeats), so their results stand beside the new ones.
         root = Path(dataset.root).resolve()
         cache_root = Path(cache_dir) if cache_dir is not None else default_cache_dir(root)
-        if cache_root.resolve() == root or root in cache_root.resolve().parents:
-            raise BadInputError(f"{cache_root}: the feature cache must not live inside the data "
-                                f"folder {root}; the data folder is never written to")
+        ensure_outside_data(cache_root, root, what="feature cache")
         cache = FeatureCache(cache_root, feature_settings_key(model.feature_fn, size))
         base_scores, computed = _compute(dataset, [r for r, _ in missing], [h for _, h in missing], model,
                                          repeats=repeats, size=size, seed=seed, workers=workers,
