@@ -16,6 +16,7 @@ from sklearn.utils.validation import check_is_fitted
 
 from augplan.measure.features import image_features
 from augplan.measure.stats import wilson_interval
+from augplan.parallel import single_threaded
 from augplan.thresholds import MAX_FOLDS, beyond_chance
 
 __all__ = ["FeatureModel"]
@@ -170,12 +171,10 @@ class FeatureModel(ClassifierMixin, BaseEstimator):
         FeatureModel
             self.
         """
-        from threadpoolctl import threadpool_limits
-
         # One BLAS thread: augplan parallelises with processes (parallel_map),
         # and BLAS threads on top oversubscribe the cores and make small fits
         # many times slower on a busy machine.
-        with threadpool_limits(limits=1, user_api="blas"):
+        with single_threaded():
             return self._fit_features(features, labels)
 
     def _checked_inputs(self, features, labels):
