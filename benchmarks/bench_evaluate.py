@@ -106,7 +106,8 @@ def breakdown(dataset, sizes=(500, 2000), copies=4):
     which grow with the training set when the augmented classes overlap.
     """
     from augplan.data.dataset import load_images
-    from augplan.measure.features import FeatureModel, image_features
+    from augplan.measure.features import image_features
+    from augplan.measure.model import FeatureModel
     from augplan.augment.transforms import apply_recipe
 
     # File names are the drawing order, which cycles through the classes, so
@@ -134,8 +135,8 @@ def breakdown(dataset, sizes=(500, 2000), copies=4):
             featurise = time.perf_counter() - started
             targets = np.concatenate([labels[:n]] * (copies + 1))
             started = time.perf_counter()
-            model = FeatureModel(random_state=0).fit_features(features, targets, cross_validate=False,
-                                                              solver_dtype=np.float32)
+            model = FeatureModel(random_state=0, cross_validate=False,
+                                 solver_dtype=np.float32).fit_features(features, targets)
             fit = time.perf_counter() - started
             print(f"{n:5d}  {recipe.name:<13s} {1e3 * augment / (copies * n):15.3f} "
                   f"{1e3 * featurise / (copies * n):17.3f} {fit:6.2f} {int(model.estimator_.n_iter_[0]):10d}",
