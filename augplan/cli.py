@@ -13,12 +13,13 @@ from pathlib import Path
 
 from augplan import __version__
 from augplan.errors import BadInputError
+from augplan.workspace import default_feature_cache, default_ledger
 
 __all__ = ["ExitCode", "main"]
 
 
 class ExitCode(IntEnum):
-    """Exit codes of every command (see DESIGN.md)."""
+    """Exit codes of every command (README, "Commands")."""
 
     OK = 0          # done, everything passed
     FLAGGED = 1     # done, something was flagged
@@ -45,6 +46,10 @@ def _common(parser, *, data=True, json_flag=True):
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
     parser.add_argument("--seed", type=_seed, default=0, help="seed of the analysis (default 0)")
+    if data:
+        parser.add_argument("--split-seed", type=_seed, default=0,
+                            help="seed of the stratified validation split made when DATA has no val/ "
+                                 "(default 0); apart from --seed so the data stay the same across analyses")
     parser.add_argument("--quiet", action="store_true", help="no progress bars, no warnings on stderr")
     if json_flag:
         parser.add_argument("--json", action="store_true",
@@ -222,11 +227,8 @@ class _Console:
 def _open_data(args, *, field=None):
     from augplan.data.dataset import open_dataset
 
-    data = Path(args.data)
-    manifest = None
-    if data.is_file() and data.suffix.lower() == ".csv":
-        manifest, data = data, data.parent
-    dataset = open_dataset(data, strict=args.strict, manifest=manifest, seed=args.seed, field=field)
+    # open_dataset reads a .csv path as a manifest.
+    dataset = open_dataset(args.data, strict=args.strict, seed=args.split_seed, field=field)
     return dataset.with_image_bytes() if getattr(args, "ship_images", False) else dataset
 
 
@@ -271,14 +273,12 @@ def _stores(args, dataset, console):
     folder it lies in). A cache folder that cannot be created (read-only
     storage) turns the disk cache off with a warning instead of failing.
     """
-    from augplan.data.dataset import ensure_outside_data
-    from augplan.evaluate.feature_cache import default_cache_dir
-    from augplan.evaluate.ledger import default_ledger_path
+    from augplan.workspace import ensure_outside_data
 
-    ledger = args.ledger or default_ledger_path(dataset.root)
-    cache = args.cache or default_cache_dir(dataset.root)
-    ensure_outside_data(ledger, dataset)
-    ensure_outside_data(cache, dataset)
+    ledger = args.ledger or default_ledger(dataset.root)
+    cache = args.cache or default_feature_cache(dataset.root)
+    ensure_outside_data(ledger, dataset.root, what="results ledger")
+    ensure_outside_data(cache, dataset.root, what="feature cache")
     try:
         Path(cache).mkdir(parents=True, exist_ok=True)
     except OSError as error:
@@ -314,9 +314,9 @@ def _ensure_parent(path, dataset=None, inputs=()):
             raise BadInputError(f"{path}: is the input {given}; no output may replace an input. "
                                 "Choose another output file.")
     if dataset is not None:
-        from augplan.data.dataset import ensure_outside_data
+        from augplan.workspace import ensure_outside_data
 
-        ensure_outside_data(path, dataset)
+        ensure_outside_data(path, dataset.root)
 
 
 def _emit(console, args, result, table):
@@ -432,12 +432,12 @@ def _run_verify(args, console):
 
 
 def _run_history(args, console):
-    from augplan.evaluate.ledger import default_ledger_path, list_history
+    from augplan.evaluate.ledger import list_history
     from augplan.data.dataset import fingerprint, open_dataset
     from augplan.render import text as tables
 
     dataset = open_dataset(args.data) if args.data else None
-    ledger = args.ledger or (default_ledger_path(dataset.root) if dataset else Path(".augplan/ledger.sqlite"))
+    ledger = args.ledger or default_ledger(dataset.root if dataset else None)
     data_fingerprint = fingerprint(dataset) if dataset else None
     rows = list_history(ledger, fingerprint=data_fingerprint)
     if args.json:

@@ -16,7 +16,7 @@ from pathlib import Path
 
 from augplan.errors import BadInputError
 
-__all__ = ["default_ledger_path", "lookup_stored", "lookup_results", "store_results", "record_run", "list_history"]
+__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS evaluations (
@@ -45,14 +45,6 @@ CREATE TABLE IF NOT EXISTS runs (
     from_ledger INTEGER NOT NULL
 );
 """
-
-
-def default_ledger_path(data_root):
-    """Default ledger: ``<parent of the data folder>/.augplan/ledger.sqlite``.
-
-    The data folder itself is never written to.
-    """
-    return Path(data_root).resolve().parent / ".augplan" / "ledger.sqlite"
 
 
 #: Schema version, kept in SQLite's ``user_version``; a ledger of another

@@ -16,8 +16,9 @@ from augplan import __version__
 from augplan.atomic import write_bytes_atomic
 from augplan.cautions import CAUTIONS
 from augplan.coverage.coverage import analyse_coverage
-from augplan.data.dataset import ensure_outside_data, find_duplicates, fingerprint
+from augplan.data.dataset import find_duplicates, fingerprint
 from augplan.errors import BadInputError
+from augplan.workspace import ensure_outside_data
 from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
@@ -208,7 +209,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     """
     from augplan.render.html import render_report
 
-    ensure_outside_data(out_dir, dataset)
+    ensure_outside_data(out_dir, dataset.root)
     out_dir = prepare_output(out_dir, force=force, replace=replace)
     for recipe in recipes:
         if recipe.source is not None and _inside(Path(recipe.source), out_dir):
