@@ -11,6 +11,7 @@ Run: ``.venv/bin/python benchmarks/bench_coverage.py [--n 2000] [--workers 2]``
 """
 
 import argparse
+import dataclasses
 import tempfile
 import time
 from pathlib import Path
@@ -90,7 +91,8 @@ def main():
             Image.fromarray(image).save(target / f"{i:05d}.png", compress_level=1)
         dataset = open_dataset(root)
         start = time.perf_counter()
-        result = analyse_coverage(dataset, RECIPE, draws=args.draws, size=args.size,
+        # Coverage measures the recipe's own copies.
+        result = analyse_coverage(dataset, dataclasses.replace(RECIPE, copies=args.draws), size=args.size,
                                   workers=args.workers)
         elapsed = time.perf_counter() - start
     n = result["n_images"]
