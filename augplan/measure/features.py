@@ -175,6 +175,8 @@ def _orientation_features(images):
     gy[:, 1:-1, :] = grey[:, 2:, :] - grey[:, :-2, :]
     gy[:, 0, :] = grey[:, 1, :] - grey[:, 0, :]
     gy[:, -1, :] = grey[:, -1, :] - grey[:, -2, :]
+    # np.hypot, not cv2.magnitude: the latter's last bit depended on where
+    # the arrays sat in memory, and features must be the same bytes each run.
     magnitude = np.hypot(gx, gy)
     # Unsigned orientation in bin units: atan2 gives (-pi, pi]; adding half a
     # turn to negative angles folds it onto [0, pi] (a float modulo would be
