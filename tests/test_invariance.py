@@ -8,6 +8,7 @@ truth drawn here, where the right verdict is known by construction.
 """
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -413,3 +414,22 @@ def test_field_that_shares_the_lighting_keeps_breaks(small_demo, tmp_path):
     entry = check_recipe(open_dataset(root), DARKEN, seed=0)["transforms"][0]
     assert entry["verdict"] == "breaks"
     assert "shortcut" not in entry
+
+
+def test_evidence_sheet_heading_carries_the_final_verdict(small_demo, tmp_path, monkeypatch):
+    # The shortcut pass turns this move's "breaks" into "unverified"; the sheet
+    # of the images that moved must say the same.
+    import augplan.check.check as check_module
+
+    headings = {}
+    real_write = check_module._write_evidence
+
+    def spy(evidence_dir, index, transform, verdict, *rest):
+        headings[index] = verdict
+        return real_write(evidence_dir, index, transform, verdict, *rest)
+
+    monkeypatch.setattr(check_module, "_write_evidence", spy)
+    entry = check_recipe(open_dataset(small_demo), DARKEN, seed=0, evidence_dir=tmp_path)["transforms"][0]
+    assert entry["verdict"] == "unverified"
+    assert headings == {0: "unverified"}
+    assert Path(entry["evidence_sheet"]).is_file()

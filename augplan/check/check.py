@@ -691,7 +691,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     by_unit = {(t, v): result for (t, v, _), result in zip(work, results)}
     by_unit.update(shortcuts)
 
-    report = []
+    report, evidence = [], {}
     for t_index, transform in enumerate(transforms):
         spec = OPS[transform.op]
         sources = scope[t_index]
@@ -761,12 +761,10 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         if not checked:
             warnings.append(f"transform {t_index} ({transform.op}) applies to no class of the data; "
                             f"nothing to check")
-        sheet = None
         if evidence_dir is not None and overall != "safe":
             picked = _round_robin(examples, EVIDENCE_IMAGES)
             if picked:
-                sheet = _write_evidence(evidence_dir, t_index, transform, overall, picked, images,
-                                        labels, classes)
+                evidence[t_index] = (transform, picked)
         report.append({
             "index": t_index,
             "op": transform.op,
@@ -782,10 +780,16 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
             "magnitudes": per_magnitude,
             "safe_limit": limit,
             "suggestion": _suggestion(transform, checked, verdicts, flows, classes),
-            "evidence_sheet": sheet,
+            "evidence_sheet": None,
         })
 
     _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
+    # Sheets are drawn after the shortcut pass, so their heading carries the final verdict.
+    for entry in report:
+        if entry["index"] in evidence:
+            transform, picked = evidence[entry["index"]]
+            entry["evidence_sheet"] = _write_evidence(evidence_dir, entry["index"], transform, entry["verdict"],
+                                                      picked, images, labels, classes)
 
     return CheckResult.from_json({
         "recipe": recipe.name,

@@ -538,6 +538,10 @@ def _coverage_section(entry, number, base_dir):
                 flags.append("shortcut")
             if s.get("persists"):
                 flags.append("survives the recipe")
+            elif s.get("link") == "weakened":
+                flags.append("weakened, not broken, by the recipe")
+            elif s.get("link") == "broken":
+                flags.append("broken by the recipe")
             if s.get("combined"):
                 flags.append("all factors together, for information")
             rows.append([_e(s.get("factor", "?")), _score_cell(s.get("original")), _score_cell(s.get("augmented")),

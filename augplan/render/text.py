@@ -106,7 +106,9 @@ def coverage_table(result):
     widening = format_table(["factor", "std orig", "std aug", "5-95% orig", "5-95% aug", "field in"], rows)
     rows = []
     for s in result["shortcuts"]:
-        flag = "FLAGGED" if s["flagged"] and s.get("persists") else ("cleared" if s["flagged"] else "")
+        link = s.get("link")
+        flag = ("" if not s["flagged"] else "cleared" if link == "broken"
+                else "weakened" if link == "weakened" else "FLAGGED")
         # A score is None where the audit could not be run (a class with one image).
         rows.append([s["factor"], *(_score_text(s.get(key)) for key in ("original", "augmented", "val", "field")),
                      f"{s['chance']:.2f}", flag])

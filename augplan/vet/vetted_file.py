@@ -70,7 +70,7 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     - ``unverified``: kept as it is when ``i`` is in ``approve``, or when
       the checker traced it to a shortcut of the data (``shortcut``) that
       the coverage analysis shows this recipe breaks (its factor is flagged
-      and no longer persists): removing it would keep the shortcut, and a
+      and no longer persists: the recipe weakens or breaks its link): removing it would keep the shortcut, and a
       person signs it off from the evidence; otherwise clipped to its safe
       limit when it has one; otherwise removed.
     - ``safe``: clipped to its safe limit when the limit is narrower than the
@@ -94,8 +94,10 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     """
     approve = set(approve)
     entries = {entry["index"]: entry for entry in check_result["transforms"]}
-    broken_shortcuts = {row["factor"] for row in (coverage_result or {}).get("shortcuts", [])
-                        if row.get("flagged") and not row.get("persists")}
+    # The recipe's link to each shortcut it weakens or breaks (coverage's rule names which).
+    loosened = {row["factor"]: ("breaks" if row.get("link") == "broken" else "weakens")
+                for row in (coverage_result or {}).get("shortcuts", [])
+                if row.get("flagged") and not row.get("persists")}
     kept, changes = [], []
     for index, step in enumerate(recipe.transforms):
         entry = entries[index]
@@ -113,9 +115,10 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
             new_step = dataclasses.replace(step, only=only, exclude=None)
         elif verdict == "unverified" and index in approve:
             detail = "unverified, kept: approved by a person (--approve)"
-        elif verdict == "unverified" and (entry.get("shortcut") or {}).get("factor") in broken_shortcuts:
+        elif verdict == "unverified" and (entry.get("shortcut") or {}).get("factor") in loosened:
             factor = entry["shortcut"]["factor"]
-            detail = (f"unverified, kept: it breaks the {factor} shortcut of the data, and the proxy "
+            detail = (f"unverified, kept: the recipe {loosened[factor]} the {factor} shortcut of the data "
+                      "(coverage's link rule), and the proxy "
                       f"model's objection follows that shortcut; a person signs it off from the evidence")
         elif verdict in ("breaks", "unverified"):
             clipped = _clip_to_limit(step, entry)
