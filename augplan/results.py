@@ -140,8 +140,8 @@ class CoverageResult(_Result):
 
     @property
     def flagged(self):
-        """A shortcut is flagged and persists after augmentation."""
-        return any(row["flagged"] and row["persists"] for row in self.shortcuts)
+        """A shortcut is flagged and the recipe does not break its link (the words' rule, SHORTCUT_RULE)."""
+        return any(row["flagged"] and row.get("link") != "broken" for row in self.shortcuts)
 
 
 @dataclass(frozen=True, eq=False)

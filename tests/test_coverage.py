@@ -278,8 +278,10 @@ def test_demo_lighting_shortcut_is_shared_by_val_and_cleared_by_the_relighting_r
     (0.22, 20, 0.2, "weakened"),
 ], ids=["five-classes-0.55", "two-classes-0.90", "near-chance-many", "near-chance-few"])
 def test_the_link_is_broken_only_within_a_margin_of_chance(augmented, n, chance, expected):
+    from augplan.measure.shortcuts import link_of
+
     row = {"augmented": augmented, "persists": False}
-    link = coverage._link(row, {}, None, chance, n)
+    link = link_of(row, {}, None, chance, n)
     assert link["link"] == expected
     low, high = link["augmented_ci"]
     assert low <= augmented <= high
@@ -291,10 +293,14 @@ def test_the_link_is_broken_only_within_a_margin_of_chance(augmented, n, chance,
 
 
 def test_a_persisting_shortcut_keeps_its_word():
-    assert coverage._link({"augmented": 0.95, "persists": True}, {}, None, 0.5, 100)["link"] == "persists"
+    from augplan.measure.shortcuts import link_of
+
+    assert link_of({"augmented": 0.95, "persists": True}, {}, None, 0.5, 100)["link"] == "persists"
 
 
 def test_the_link_of_a_one_class_shortcut_is_judged_against_one_vs_rest_chance():
+    from augplan.measure.shortcuts import link_of
+
     row = {"augmented": 0.21, "persists": False}
     by_class = {"augmented": {"crack": 0.80}}
-    assert coverage._link(row, by_class, "crack", 0.2, 400)["link"] == "weakened"
+    assert link_of(row, by_class, "crack", 0.2, 400)["link"] == "weakened"
