@@ -118,6 +118,43 @@ def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
     assert sentence.startswith(start) and "augplan changed draft" in sentence
 
 
+def _changes(*pairs):
+    return [{"index": i, "op": "rotate", "verdict": verdict, "action": action, "detail": ""}
+            for i, (verdict, action) in enumerate(pairs)]
+
+
+@pytest.mark.parametrize("changes, unchanged, says, never", [
+    (_changes(("safe", "keep"), ("unverified", "keep"), ("unverified", "keep")), True,
+     "2 kept transforms are unverified and need a person's sign-off", "kept its labels"),
+    (_changes(("breaks", "remove"), ("unverified", "keep")), False,
+     "1 kept transform is unverified", "label-safe"),
+    (_changes(("safe", "keep"), ("safe", "keep")), True, "every transform kept its labels", "sign-off"),
+], ids=["approved-unverified", "changed-and-unverified", "all-safe"])
+def test_verdict_sentence_claims_no_more_than_the_verdicts(changes, unchanged, says, never):
+    from augplan.vet.job import _verdict_sentence
+
+    best = {"name": "r", "gain": 0.02, "gain_ci": [0.01, 0.03]}
+    entries = [{"name": "r", "vetted": {"unchanged": unchanged, "changes": changes}}]
+    sentence = _verdict_sentence(entries, {"baseline": {"accuracy": 0.9}}, best)
+    assert says in sentence and never not in sentence
+
+
+@pytest.mark.parametrize("changes, says, never", [
+    (_changes(("safe", "keep"), ("safe", "keep")), "every transform kept as written", "removed"),
+    (_changes(("breaks", "remove"), ("safe", "clip")), "2 transforms relabelled, scoped, clipped or removed",
+     "sign-off"),
+    (_changes(("unverified", "keep")), "1 kept transform is unverified", "clipped or removed"),
+], ids=["nothing-broke", "two-changed", "unverified-kept"])
+def test_vetted_file_header_says_what_vetting_did(changes, says, never):
+    from augplan.recipe.parse import parse_recipe
+    from augplan.vet.vetted_file import vetted_text
+
+    text = vetted_text(parse_recipe("name: v\n"), {"n": 1}, changes=changes)
+    header = "".join(line for line in text.splitlines(keepends=True) if line.startswith("#"))
+    assert says in header and never not in header
+    assert "Transforms that broke labels" not in header
+
+
 def test_a_rewrite_that_still_breaks_after_the_recheck_is_removed():
     from augplan.recipe.parse import parse_recipe
     from augplan.vet.job import _drop_unsafe_rewrites

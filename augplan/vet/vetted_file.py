@@ -151,13 +151,32 @@ def vetted_checksum(recipe, evidence):
     return hashlib.sha256(_canonical(document).encode("ascii")).hexdigest()
 
 
-def vetted_text(recipe, evidence):
-    """The vetted recipe file's YAML text: recipe body, evidence, checksum."""
+def _header(changes):
+    """The file's opening comment: what vetting did, in words the changes bear out."""
+    if changes is None:
+        lines = ["# Vetted by augplan; what changed is in the evidence block."]
+    else:
+        altered = sum(1 for c in changes if c["action"] != "keep")
+        signoff = sum(1 for c in changes if c["action"] == "keep" and c["verdict"] == "unverified")
+        lines = [f"# Vetted by augplan: {altered} transform{'s' if altered != 1 else ''} relabelled, scoped, "
+                 "clipped or removed by the label-safety check." if altered else
+                 "# Vetted by augplan: every transform kept as written."]
+        if signoff:
+            lines.append(f"# {signoff} kept transform{'s are' if signoff != 1 else ' is'} unverified and "
+                         "need a person's sign-off (needs_signoff).")
+    return "\n".join(lines + ["# See the evidence block. Editing any value invalidates the checksum",
+                              "# ('augplan verify' tells)."]) + "\n"
+
+
+def vetted_text(recipe, evidence, *, changes=None):
+    """The vetted recipe file's YAML text: a header, recipe body, evidence, checksum.
+
+    ``changes`` (the per-transform changes of `vet_transforms`) word the
+    header; the checksum covers body and evidence only.
+    """
     evidence = json.loads(_canonical(evidence))  # plain types only, so the YAML round-trips
     body = recipe_to_dict(recipe)
-    header = ("# Vetted by augplan. Transforms that broke labels were removed or rewritten;\n"
-              "# see the evidence block. Editing any value invalidates the checksum\n"
-              "# ('augplan verify' tells).\n")
+    header = _header(changes)
     text = yaml.safe_dump(body, sort_keys=False, default_flow_style=None, allow_unicode=True, width=100)
     text += yaml.safe_dump({"evidence": evidence}, sort_keys=True, default_flow_style=False,
                            allow_unicode=True, width=100)
