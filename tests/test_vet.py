@@ -118,17 +118,17 @@ def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
     assert sentence.startswith(start) and "augplan changed draft" in sentence
 
 
-def _changes(*pairs):
+def _change_list(*pairs):
     return [{"index": i, "op": "rotate", "verdict": verdict, "action": action, "detail": ""}
             for i, (verdict, action) in enumerate(pairs)]
 
 
 @pytest.mark.parametrize("changes, unchanged, says, never", [
-    (_changes(("safe", "keep"), ("unverified", "keep"), ("unverified", "keep")), True,
+    (_change_list(("safe", "keep"), ("unverified", "keep"), ("unverified", "keep")), True,
      "2 kept transforms are unverified and need a person's sign-off", "kept its labels"),
-    (_changes(("breaks", "remove"), ("unverified", "keep")), False,
+    (_change_list(("breaks", "remove"), ("unverified", "keep")), False,
      "1 kept transform is unverified", "label-safe"),
-    (_changes(("safe", "keep"), ("safe", "keep")), True, "every transform kept its labels", "sign-off"),
+    (_change_list(("safe", "keep"), ("safe", "keep")), True, "every transform kept its labels", "sign-off"),
 ], ids=["approved-unverified", "changed-and-unverified", "all-safe"])
 def test_verdict_sentence_claims_no_more_than_the_verdicts(changes, unchanged, says, never):
     from augplan.vet.job import _verdict_sentence
@@ -140,10 +140,10 @@ def test_verdict_sentence_claims_no_more_than_the_verdicts(changes, unchanged, s
 
 
 @pytest.mark.parametrize("changes, says, never", [
-    (_changes(("safe", "keep"), ("safe", "keep")), "every transform kept as written", "removed"),
-    (_changes(("breaks", "remove"), ("safe", "clip")), "2 transforms relabelled, scoped, clipped or removed",
+    (_change_list(("safe", "keep"), ("safe", "keep")), "every transform kept as written", "removed"),
+    (_change_list(("breaks", "remove"), ("safe", "clip")), "2 transforms relabelled, scoped, clipped or removed",
      "sign-off"),
-    (_changes(("unverified", "keep")), "1 kept transform is unverified", "clipped or removed"),
+    (_change_list(("unverified", "keep")), "1 kept transform is unverified", "clipped or removed"),
 ], ids=["nothing-broke", "two-changed", "unverified-kept"])
 def test_vetted_file_header_says_what_vetting_did(changes, says, never):
     from augplan.recipe.parse import parse_recipe

@@ -22,6 +22,8 @@ import math
 import re
 from pathlib import Path
 
+from augplan.results import range_text
+
 __all__ = ["render_report", "embed_png"]
 
 _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
@@ -315,7 +317,7 @@ def _swaps_text(swaps, limit=2):
         return _DASH
     parts = []
     for swap in swaps[:limit]:
-        n = f", n={swap['n']}" if _is_number(swap.get("n")) else ""
+        n = f", {swap['n']} images moved" if _is_number(swap.get("n")) else ""
         parts.append(f"<span class=\"swap\">{_e(swap.get('from', '?'))} \u2192 {_e(swap.get('to', '?'))} "
                      f"{_percent(swap.get('rate'))}{n}</span>")
     more = f"<br><span class=\"note\">and {len(swaps) - limit} more</span>" if len(swaps) > limit else ""
@@ -326,8 +328,8 @@ def _limit_text(transform):
     pair = transform.get("safe_limit")
     if isinstance(pair, (list, tuple)) and len(pair) == 2:
         if pair[0] == pair[1]:
-            return f"{_number(pair[0])} only (no change is safe)"
-        return f"{_number(pair[0])} to {_number(pair[1])}"
+            return f"{range_text(pair)} only (no change is safe)"
+        return range_text(pair)
     if transform.get("magnitudes"):
         return "no safe magnitude"
     return _DASH

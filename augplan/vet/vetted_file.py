@@ -20,7 +20,7 @@ import yaml
 from augplan import __version__
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
-from augplan.results import VerifyResult
+from augplan.results import VerifyResult, range_text
 from augplan.recipe.parse import RecipeError, read_recipe_document, recipe_to_dict
 
 __all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
@@ -32,10 +32,6 @@ def creation_date():
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
     seconds = int(epoch) if epoch and epoch.isdigit() else time.time()
     return time.strftime("%Y-%m-%d", time.gmtime(seconds))
-
-
-def _range_text(pair):
-    return f"[{pair[0]:.3g}, {pair[1]:.3g}]"
 
 
 def _intersect(range_pair, limit):
@@ -124,14 +120,14 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {_range_text(entry['safe_limit'])}"
+                detail = f"clipped to the safe limit {range_text(entry['safe_limit'])}"
             else:
                 action, new_step, detail = "remove", None, f"removed: {verdict}"
         else:
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {_range_text(entry['safe_limit'])}"
+                detail = f"clipped to the safe limit {range_text(entry['safe_limit'])}"
         if new_step is not None:
             kept.append(new_step)
         changes.append({"index": index, "op": step.op, "verdict": verdict, "action": action,
