@@ -51,6 +51,7 @@ from augplan.colour import relative_luminance, rgb_to_hsv
 __all__ = [
     "image_features",
     "FeatureModel",
+    "is_weak",
     "FEATURE_BLOCKS",
     "FEATURE_LENGTH",
     "MIN_IMAGE_SIDE",
@@ -289,6 +290,19 @@ def _count_folds(labels):
     return int(min(5, counts.min()))
 
 
+def is_weak(cv_accuracy, cv_low, chance):
+    """Whether a cross-validated accuracy is not clearly better than chance.
+
+    Weak when the accuracy is not finite, closes less than half of the gap
+    between chance and perfect (common practice, no source for the one-half),
+    or its lower 95% Wilson bound ``cv_low`` is at or below chance (the
+    margin could be luck on a small set). See `FeatureModel`'s ``weak_``.
+    """
+    cv_accuracy = float(cv_accuracy)
+    return bool(not np.isfinite(cv_accuracy) or cv_accuracy < chance + 0.5 * (1.0 - chance)
+                or cv_low <= chance)
+
+
 class FeatureModel:
     """Features plus a standardised scikit-learn classifier, with a trust check.
 
@@ -473,11 +487,7 @@ class FeatureModel:
             self.cv_predictions_ = None
             self.cv_accuracy_ = float("nan")
             self.cv_accuracy_ci_ = (0.0, 1.0)
-        self.weak_ = bool(
-            folds < 2
-            or self.cv_accuracy_ < self.chance_ + 0.5 * (1.0 - self.chance_)
-            or self.cv_accuracy_ci_[0] <= self.chance_
-        )
+        self.weak_ = is_weak(self.cv_accuracy_, self.cv_accuracy_ci_[0], self.chance_) or folds < 2
         self.scaler_ = StandardScaler().fit(features)
         scaled = self.scaler_.transform(features).astype(solver_dtype, copy=False)
         self.estimator_ = self._make_estimator().fit(scaled, labels)
