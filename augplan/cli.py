@@ -11,8 +11,8 @@ import traceback
 from enum import IntEnum
 from pathlib import Path
 
-from . import __version__
-from .errors import BadInputError
+from augplan import __version__
+from augplan.errors import BadInputError
 
 __all__ = ["ExitCode", "main"]
 
@@ -72,7 +72,7 @@ def _workers(parser, *, ship_images=True):
 
 def _execution(args):
     """The cluster when --cluster (or AUGPLAN_CLUSTER) names one, else the worker count."""
-    from .parallel import resolve_workers
+    from augplan.parallel import resolve_workers
 
     return resolve_workers(args.workers, getattr(args, "cluster", None))
 
@@ -186,7 +186,7 @@ class _Console:
 
 
 def _open_data(args, *, field=None):
-    from .data import open_dataset
+    from augplan.data.dataset import open_dataset
 
     data = Path(args.data)
     manifest = None
@@ -197,7 +197,7 @@ def _open_data(args, *, field=None):
 
 
 def _read_recipes(paths):
-    from .recipe import read_recipe
+    from augplan.recipe.parse import read_recipe
 
     recipes = [read_recipe(path) for path in paths]
     names = [recipe.name for recipe in recipes]
@@ -216,7 +216,7 @@ def _report_dataset(console, dataset):
 
 
 def _report_leaks(console, dataset):
-    from .data import find_duplicates
+    from augplan.data.dataset import find_duplicates
 
     leaks = find_duplicates(dataset)
     for leak in leaks[:20]:
@@ -236,8 +236,8 @@ def _default_cache(data):
 
 
 def _run_preview(args, console):
-    from .sheets import preview_sheet, save_png
-    from .recipe import read_recipe
+    from augplan.render.sheets import preview_sheet, save_png
+    from augplan.recipe.parse import read_recipe
     import numpy as np
 
     dataset = _open_data(args)
@@ -256,7 +256,7 @@ def _ensure_parent(path, dataset=None):
     if not parent.is_dir():
         raise BadInputError(f"{path}: the folder {parent} does not exist")
     if dataset is not None:
-        from .data import ensure_outside_data
+        from augplan.data.dataset import ensure_outside_data
 
         ensure_outside_data(path, dataset)
 
@@ -272,8 +272,8 @@ def _emit(console, args, result, table):
 
 
 def _run_check(args, console):
-    from .invariance import check_recipe
-    from . import tables
+    from augplan.check.check import check_recipe
+    from augplan.render import text as tables
 
     dataset = _open_data(args)
     _report_dataset(console, dataset)
@@ -290,8 +290,8 @@ def _run_check(args, console):
 
 
 def _run_coverage(args, console):
-    from .coverage import analyse_coverage
-    from . import tables
+    from augplan.coverage.coverage import analyse_coverage
+    from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
@@ -306,8 +306,8 @@ def _run_coverage(args, console):
 
 
 def _run_evaluate(args, console):
-    from .evaluate import evaluate_recipes
-    from . import tables
+    from augplan.evaluate.evaluate import evaluate_recipes
+    from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
@@ -322,8 +322,8 @@ def _run_evaluate(args, console):
 
 
 def _run_draft(args, console):
-    from .draft import draft_recipe_text
-    from .atomic import write_text_atomic
+    from augplan.coverage.draft import draft_recipe_text
+    from augplan.atomic import write_text_atomic
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
@@ -344,7 +344,7 @@ def _parse_approve(text):
 
 
 def _run_vet(args, console):
-    from .vet import vet_recipes
+    from augplan.vet.job import vet_recipes
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
@@ -362,7 +362,7 @@ def _run_vet(args, console):
 
 
 def _run_verify(args, console):
-    from .export import verify_vetted
+    from augplan.vet.vetted_file import verify_vetted
 
     result = verify_vetted(args.vetted, data=args.data)
     if args.json:
@@ -373,9 +373,9 @@ def _run_verify(args, console):
 
 
 def _run_history(args, console):
-    from .ledger import list_history
-    from .data import fingerprint, open_dataset
-    from . import tables
+    from augplan.evaluate.ledger import list_history
+    from augplan.data.dataset import fingerprint, open_dataset
+    from augplan.render import text as tables
 
     ledger = args.ledger or (_default_ledger(args.data) if args.data else Path(".augplan/ledger.sqlite"))
     data_fingerprint = fingerprint(open_dataset(args.data)) if args.data else None
@@ -388,7 +388,7 @@ def _run_history(args, console):
 
 
 def _run_demo(args, console):
-    from .demo import run_demo
+    from augplan.demo import run_demo
 
     summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     if args.json:

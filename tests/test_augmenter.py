@@ -8,8 +8,8 @@ import pytest
 from PIL import Image
 
 from augplan import load_recipe
-from augplan.augmenter import Augmenter
-from augplan.recipe import parse_recipe
+from augplan.augment.augmenter import Augmenter
+from augplan.recipe.parse import parse_recipe
 
 RECIPE_TEXT = """
 name: loader

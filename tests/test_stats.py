@@ -2,7 +2,7 @@ import numpy as np
 import pytest
 from scipy import stats as scipy_stats
 
-from augplan.stats import (
+from augplan.measure.stats import (
     holm,
     mcnemar_exact,
     paired_bootstrap_gain,

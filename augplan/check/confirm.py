@@ -1,6 +1,6 @@
 """Confirmation of label safety: does training with a transform teach wrong labels?
 
-The checker's screen (`augplan.invariance`) asks where transformed images
+The checker's screen (`augplan.check.check`) asks where transformed images
 land; a transform it does not clear is confirmed here by what matters to a
 user. The same proxy model is trained twice on the same cross-validation
 folds with the same seed, once on the original images and once with the
@@ -50,7 +50,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from augplan.stats import paired_bootstrap_gain
+from augplan.measure.stats import paired_bootstrap_gain
 
 __all__ = [
     "MIN_EVIDENCE",

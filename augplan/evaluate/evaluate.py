@@ -28,14 +28,14 @@ from pathlib import Path
 
 import numpy as np
 
-from augplan import ledger as _ledger
-from augplan import stats
-from augplan.data import Dataset, fingerprint, load_images
+from augplan.evaluate import ledger as _ledger
+from augplan.measure import stats
+from augplan.data.dataset import Dataset, fingerprint, load_images
 from augplan.errors import BadInputError
-from augplan.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
+from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 from augplan.parallel import parallel_map, resolve_workers
-from augplan.recipe import Recipe, recipe_hash
-from augplan.transforms import apply_recipe
+from augplan.recipe.parse import Recipe, recipe_hash
+from augplan.augment.transforms import apply_recipe
 
 __all__ = ["evaluate_recipes", "MANY_RECIPES_WARNING_LIMIT"]
 
@@ -301,7 +301,7 @@ def _file_digest(*modules):
 
 def _settings_key(model, size, confirm_fraction, dataset):
     """Key of everything besides data, seed and repeats that shapes a result."""
-    import augplan.transforms as transforms_module
+    import augplan.augment.transforms as transforms_module
     import sys
 
     estimator = getattr(model, "estimator", None)
@@ -510,7 +510,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     """
     recipes = _check_inputs(dataset, recipes, repeats, size, seed, workers, confirm_fraction)
     if model is None:
-        from augplan.features import FeatureModel
+        from augplan.measure.features import FeatureModel
 
         model = FeatureModel()
     repeats, size, seed = int(repeats), int(size), int(seed)

@@ -10,16 +10,16 @@ import sys
 import tempfile
 from pathlib import Path
 
-from . import __version__
-from .atomic import write_bytes_atomic, write_text_atomic
-from .cautions import CAUTIONS
-from .coverage import analyse_coverage
-from .data import ensure_outside_data, find_duplicates, fingerprint
-from .errors import BadInputError
-from .evaluate import evaluate_recipes
-from .export import creation_date, vet_transforms, vetted_text
-from .invariance import check_recipe
-from .recipe import recipe_hash, recipe_to_dict
+from augplan import __version__
+from augplan.atomic import write_bytes_atomic, write_text_atomic
+from augplan.cautions import CAUTIONS
+from augplan.coverage.coverage import analyse_coverage
+from augplan.data.dataset import ensure_outside_data, find_duplicates, fingerprint
+from augplan.errors import BadInputError
+from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
+from augplan.check.check import check_recipe
+from augplan.recipe.parse import recipe_hash, recipe_to_dict
 
 __all__ = ["vet_recipes", "prepare_output"]
 
@@ -139,7 +139,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     dict
         ``{"verdict", "report", "vetted_recipe", "evidence", "unchanged", "best"}``.
     """
-    from .report import render_report
+    from augplan.render.html import render_report
 
     ensure_outside_data(out_dir, dataset)
     out_dir = prepare_output(out_dir, force=force)

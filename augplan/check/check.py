@@ -14,7 +14,7 @@ Screen
    and ``t_c`` the 95th percentile of ``d_c`` over ``c``'s held-out
    originals; ``r_c = d_c / t_c`` is at most 1 inside the region.
 3. Each transform runs with probability 1 on every image in its scope at
-   each value of `augplan.transforms.magnitude_grid` (a flip once). A
+   each value of `augplan.augment.transforms.magnitude_grid` (a flip once). A
    transformed image *moves* to ``B`` when its out-of-fold prediction is
    ``B`` and ``B``'s region holds it; it is *outside* when no region vouches
    for its expected class (`locate`).
@@ -33,7 +33,7 @@ trained on the same folds with the same seed, once on the originals and once
 with the transform applied to every image in its scope (probability 1, one
 magnitude per image drawn from the grid across the range, labels after any
 ``relabel``); both predict the held-out *original* images of each fold.
-`augplan.confirm` compares them per image with bootstrap intervals over
+`augplan.check.confirm` compares them per image with bootstrap intervals over
 images: a named confusion ``A -> B`` that rises beyond its margin, with its
 interval clear of zero and beyond the pair's own baseline confusion, breaks;
 no class's recall falling and no confusion rising by as much as the
@@ -69,7 +69,7 @@ from scipy.spatial.distance import cdist
 from sklearn.decomposition import PCA
 from sklearn.preprocessing import StandardScaler
 
-from augplan.confirm import (MIN_EVIDENCE, PAIR_MARGIN, RECALL_MARGIN, TOO_FEW, class_verdict,
+from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, RECALL_MARGIN, TOO_FEW, class_verdict,
                              compare_predictions, pair_breaks)
 from augplan.errors import BadInputError
 from augplan.parallel import parallel_map
@@ -151,7 +151,7 @@ def screen_clears(moved, left, n, baseline_change, baseline_leave, margin=MARGIN
         True when ``n >= MIN_EVIDENCE`` and the upper Wilson 95% bounds of
         both shares are at most their baseline plus ``margin``.
     """
-    from augplan.stats import wilson_interval
+    from augplan.measure.stats import wilson_interval
 
     if n < MIN_EVIDENCE:
         return False
@@ -324,7 +324,7 @@ def _sample_key(records, size):
 
 def _decoded_sample(context):
     """The checked images, decoded from the records' paths or carried bytes."""
-    from augplan.data import load_images
+    from augplan.data.dataset import load_images
 
     key = context["sample_key"]
     images = _DECODED_SAMPLE.get(key)
@@ -362,7 +362,7 @@ def _out_of_fold_proba(models, features, folds, n_classes):
 
 def _screen_unit(context, unit):
     """Transform, featurise and locate the in-scope images of one (transform, magnitude)."""
-    from augplan.transforms import OPS, params_at
+    from augplan.augment.transforms import OPS, params_at
 
     transform_index, magnitude, rng, keep_rows = unit
     transform = context["transforms"][transform_index]
@@ -477,8 +477,8 @@ def _fit_baseline(images, labels, n_classes, template, seed, workers, quiet):
     """Fold models, out-of-fold predictions and regions of the original images."""
     from sklearn.model_selection import StratifiedKFold
 
-    from augplan.features import is_weak
-    from augplan.stats import wilson_interval
+    from augplan.measure.features import is_weak
+    from augplan.measure.stats import wilson_interval
 
     features = template.featurize(images)
     counts = np.bincount(labels, minlength=n_classes)
@@ -518,7 +518,7 @@ class _Plan:
 
 def _plan_transform(transform, classes, labels, magnitudes, rng):
     """Scope, expected class per class, grid values and, per range, one grid value per image."""
-    from augplan.transforms import OPS, magnitude_grid
+    from augplan.augment.transforms import OPS, magnitude_grid
 
     spec = OPS[transform.op]
     checked = [c for c in range(len(classes)) if transform.applies_to(classes[c])]
@@ -543,7 +543,7 @@ def _plan_transform(transform, classes, labels, magnitudes, rng):
 
 def _run_screen(context, images, plans, baseline, unit_root, workers, quiet):
     """Screen results ``{(transform, value position): (destinations, examples, kept rows)}``."""
-    from augplan.transforms import OPS
+    from augplan.augment.transforms import OPS
 
     work, known = [], {}
     for t_index, plan in enumerate(plans):
@@ -576,7 +576,7 @@ def _run_screen(context, images, plans, baseline, unit_root, workers, quiet):
 
 def _screen_transform(plan, results, t_index, labels, baseline, n_classes):
     """Per-magnitude screen rows, per-class screen counts and whether the screen clears."""
-    from augplan.stats import wilson_interval
+    from augplan.measure.stats import wilson_interval
 
     source_labels = labels[plan.scope]
     checked = sorted(set(source_labels.tolist()))
@@ -679,7 +679,7 @@ def _swap_rows(pairs, classes):
 
 def _can_swap_classes(transform):
     """Whether the op can give an image another class's look as a whole (mirror, turn, hue)."""
-    from augplan.transforms import OPS
+    from augplan.augment.transforms import OPS
 
     if transform.op in SWAPPING_OPS:
         return True
@@ -761,7 +761,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     dataset : augplan.data.Dataset
         Only its ``train`` split is used.
     recipe : augplan.recipe.Recipe
-    model : augplan.features.FeatureModel, optional
+    model : augplan.measure.features.FeatureModel, optional
         An unfitted model to use instead of the default one, in both stages.
     sample : int, optional
         At most this many training images per class (drawn with ``seed``).
@@ -794,7 +794,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         Fewer than two classes with at least 3 training images, an unusable
         ``sample``, ``magnitudes`` or ``evidence_dir``.
     """
-    from augplan.data import load_images
+    from augplan.data.dataset import load_images
 
     evidence_dir = _options(sample, magnitudes, evidence_dir)
     sample_rng, unit_root, draw_rng, boot_rng = np.random.default_rng(seed).spawn(4)
@@ -802,7 +802,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     records, labels, classes = _checked_sample(dataset, sample, sample_rng, warnings)
     images = load_images(records, size=size)
     if model is None:
-        from augplan.features import FeatureModel
+        from augplan.measure.features import FeatureModel
 
         model = FeatureModel(random_state=seed)
     baseline = _fit_baseline(images, labels, len(classes), model, seed, workers, quiet)
@@ -898,7 +898,7 @@ def _rate(count, n):
 
 
 def _interval(count, n):
-    from augplan.stats import wilson_interval
+    from augplan.measure.stats import wilson_interval
 
     low, high = wilson_interval(count, n)
     return [round(low, 4), round(high, 4)]
@@ -913,7 +913,7 @@ def _json_params(transform):
 
 def _write_evidence(evidence_dir, index, transform, verdict, examples, images, labels, classes):
     """Contact sheet of moved and outside images: one row per image, original then transformed."""
-    from augplan.sheets import contact_sheet, save_png
+    from augplan.render.sheets import contact_sheet, save_png
 
     rows, row_labels = [], []
     for source, destination, moved in examples:
@@ -927,7 +927,7 @@ def _write_evidence(evidence_dir, index, transform, verdict, examples, images, l
     return str(path)
 
 
-# The lighting factor each lighting op changes (augplan.factors names). When
+# The lighting factor each lighting op changes (augplan.measure.factors names). When
 # such a transform moves images into a class that this factor alone singles
 # out, while the two classes also differ in structure that lighting does not
 # touch, the proxy model may be following a lighting shortcut of the data
@@ -941,12 +941,12 @@ def _separable_by_structure(images, labels, first, second, seed):
     """Whether two classes differ in lighting-blind gradient structure alone.
 
     Uses only the block-normalised oriented-gradient histograms of
-    `augplan.features.image_features` (Dalal & Triggs 2005), which a change
+    `augplan.measure.features.image_features` (Dalal & Triggs 2005), which a change
     of exposure or contrast barely moves; separable means a cross-validated
     balanced accuracy of at least 0.9 between the two classes.
     """
-    from augplan.coverage import shortcut_scores
-    from augplan.features import FEATURE_BLOCKS, image_features
+    from augplan.coverage.coverage import shortcut_scores
+    from augplan.measure.features import FEATURE_BLOCKS, image_features
 
     pair = np.isin(labels, [first, second])
     gradients = image_features(images[pair])[:, FEATURE_BLOCKS["orientation"]]
@@ -956,8 +956,8 @@ def _separable_by_structure(images, labels, first, second, seed):
 
 def _singled_out(images, labels, classes, factor, seed):
     """One-vs-rest cross-validated balanced accuracy of each class from one factor."""
-    from augplan.coverage import factor_columns, shortcut_scores
-    from augplan.factors import FACTORS
+    from augplan.coverage.coverage import factor_columns, shortcut_scores
+    from augplan.measure.factors import FACTORS
 
     values = {factor: FACTORS[factor].function(images)}
     names = np.array([classes[c] for c in labels])
@@ -978,8 +978,8 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
     it as a cue, and the verdict stays ``breaks``; otherwise a person must
     look.
     """
-    from augplan.coverage import ONE_VS_REST_THRESHOLD
-    from augplan.data import load_images
+    from augplan.coverage.coverage import ONE_VS_REST_THRESHOLD
+    from augplan.data.dataset import load_images
 
     field_records = [r for r in dataset.split("field") if r.label in classes]
     field_images = field_labels = None

@@ -3,9 +3,9 @@
 import numpy as np
 from PIL import Image
 
-from .colour import check_rgb_image
-from .recipe import Recipe, read_recipe_document
-from .transforms import apply_recipe
+from augplan.imaging.colour import check_rgb_image
+from augplan.recipe.parse import Recipe, read_recipe_document
+from augplan.augment.transforms import apply_recipe
 
 __all__ = ["Augmenter", "load_recipe"]
 
@@ -24,7 +24,7 @@ class Augmenter:
     Examples
     --------
     >>> import numpy as np
-    >>> from augplan.recipe import parse_recipe
+    >>> from augplan.recipe.parse import parse_recipe
     >>> aug = Augmenter(parse_recipe("name: demo\\ntransforms:\\n  - op: flip\\n"))
     >>> image = np.zeros((4, 6, 3), dtype=np.uint8); image[:, 0] = 255
     >>> aug(image, rng=np.random.default_rng(0))[:, -1, 0].tolist()
