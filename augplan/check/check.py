@@ -602,16 +602,20 @@ def _screen_transform(plan, results, t_index, labels, baseline, n_classes):
                "leave_rate_ci": _interval(worst["outside"], n) if worst else [0.0, 1.0], "n": n}
     magnitudes = [{"value": r["value"], "change_rate": _rate(r["moved"], r["n"]),
                    "leave_rate": _rate(r["outside"], r["n"])} for r in rows if r["value"] is not None]
-    return cleared, checked, summary, magnitudes
+    counts = {a: int(np.sum(source_labels == a)) for a in checked}
+    summary["screen_swaps"] = _screen_flows(plan, results, t_index, labels, baseline, range(len(plan.values)))
+    return cleared, checked, summary, magnitudes, counts
 
 
-def _training_set(plan, results, t_index, range_index, baseline, labels):
-    """Features, labels and folds the augmented model trains on for one range of one transform.
+def _training_set(plan, results, t_index, range_index, baseline, labels, mode):
+    """Features, labels and folds one augmented model trains on, for one range of one transform.
 
-    The originals plus one transformed copy of each image in scope (the
-    transform applied with probability 1 to the copy), as training with a
-    recipe adds its copies to the originals. A copy belongs to its source's
-    fold, so no image is ever predicted by a model that saw a copy of it.
+    ``mode`` ``"replace"``: every image in scope is replaced by its
+    transformed copy (the transform with probability 1), so a transform that
+    gives class A's images B's look teaches the model that B's look means A.
+    ``"add"``: the originals plus one transformed copy of each image in scope,
+    as a recipe's copies join the originals in training. A copy sits in its
+    source's fold, so no image is predicted by a model that saw a copy of it.
     """
     draws = plan.draws[range_index]
     copies = np.empty((len(plan.scope), baseline.features.shape[1]), dtype=np.float32)
@@ -620,31 +624,85 @@ def _training_set(plan, results, t_index, range_index, baseline, labels):
         picked = np.flatnonzero(draws == position)
         # ``kept`` holds the rows of ``kept_rows`` in order; find each picked row there.
         copies[picked] = results[(t_index, position)][2][np.searchsorted(kept_rows, picked)]
-    features = np.concatenate([baseline.features.astype(np.float32), copies])
-    train_labels = np.concatenate([labels, plan.expected[labels[plan.scope]]])
-    folds = np.concatenate([baseline.folds, baseline.folds[plan.scope]])
-    return features, train_labels, folds
+    copy_labels = plan.expected[labels[plan.scope]]
+    features = baseline.features.astype(np.float32)
+    if mode == "replace":
+        features[plan.scope] = copies
+        train_labels = labels.copy()
+        train_labels[plan.scope] = copy_labels
+        return features, train_labels, baseline.folds
+    return (np.concatenate([features, copies]), np.concatenate([labels, copy_labels]),
+            np.concatenate([baseline.folds, baseline.folds[plan.scope]]))
+
+
+MODES = ("replace", "add")
 
 
 def _run_confirmation(context, jobs, plans, screen, baseline, labels, workers, quiet):
-    """Augmented out-of-fold predictions ``{(transform, range): predictions}`` for each job."""
-    units = [_training_set(plans[t], screen, t, r, baseline, labels) for t, r in jobs]
-    results = parallel_map(functools.partial(_confirm_unit, context), units, workers=workers,
+    """Out-of-fold predictions ``{(transform, range): {mode: predictions}}`` for each job."""
+    units = [(job, mode) for job in jobs for mode in MODES]
+    sets = [_training_set(plans[t], screen, t, r, baseline, labels, mode) for (t, r), mode in units]
+    results = parallel_map(functools.partial(_confirm_unit, context), sets, workers=workers,
                            desc="confirming by training", quiet=quiet)
-    return dict(zip(jobs, results))
+    out = {job: {} for job in jobs}
+    for (job, mode), predictions in zip(units, results):
+        out[job][mode] = predictions
+    return out
 
 
-def _judge(labels, base_pred, aug_pred, n_classes, checked, weak, rng):
-    """Confirmation verdict of one training set: (verdict, class entries, passing and other pairs)."""
-    changes, pairs = compare_predictions(labels, base_pred, aug_pred, n_classes, rng)
-    passing = [p for p in pairs if pair_breaks(p)]
+def _screen_flows(plan, results, t_index, labels, baseline, positions):
+    """Moves the screen saw: ``{(a, b): (share, moved, n)}`` at the grid value where most of a moved to b.
+
+    Among the grid values at ``positions``; only flows whose lower Wilson 95%
+    bound exceeds the share of a's held-out originals that land in b count.
+    """
+    from augplan.measure.stats import wilson_interval
+
+    source_labels = labels[plan.scope]
+    flows = {}
+    for a in sorted(set(source_labels.tolist())):
+        base = baseline.dest[labels == a]
+        for position in positions:
+            dest = results[(t_index, position)][0][source_labels == a]
+            counts = np.bincount(dest[dest >= 0], minlength=len(baseline.change))
+            for b in np.flatnonzero(counts):
+                share = counts[b] / len(dest)
+                if (b != plan.expected[a] and share > flows.get((a, int(b)), (0.0,))[0]
+                        and wilson_interval(int(counts[b]), len(dest))[0] > np.mean(base == b)):
+                    flows[(a, int(b))] = (float(share), int(counts[b]), len(dest))
+    return flows
+
+
+def _witnessed(plan, results, t_index, range_index, labels, baseline, n_classes):
+    """``W[a, b]``: within the range, the screen saw a's transformed images land in b (`_screen_flows`)."""
+    positions = sorted({plan.values.index(v) for v in plan.ranges[range_index]})
+    seen = np.zeros((n_classes, n_classes), dtype=bool)
+    for a, b in _screen_flows(plan, results, t_index, labels, baseline, positions):
+        seen[a, b] = True
+    return seen
+
+
+def _judge(labels, base_pred, predictions, n_classes, checked, weak, seen, rng):
+    """Confirmation verdict of one range: (verdict, class entries, passing and other pairs).
+
+    A pair breaks when the model trained on replaced images shows a rise of
+    the confusion ``B -> A`` that passes `pair_breaks` and the screen saw
+    A's transformed images land in B (``seen[A, B]``): two witnesses, so a
+    proxy that merely fails on a look it was not trained on (a domain
+    shift) cannot call a label changed. Safety is judged on the model
+    trained with the originals plus copies, as a recipe is used.
+    """
+    rng_replace, rng_add = rng.spawn(2)
+    _, replaced = compare_predictions(labels, base_pred, predictions["replace"], n_classes, rng_replace)
+    changes, pairs = compare_predictions(labels, base_pred, predictions["add"], n_classes, rng_add)
+    counts = np.bincount(labels, minlength=n_classes)
+    passing = [p for p in replaced if pair_breaks(p) and seen[p.target, p.source]
+               and counts[p.target] >= MIN_EVIDENCE]
     culprits = {p.target for p in passing}
     verdicts = {}
     for change in changes:
         own = class_verdict(change, [p for p in pairs if p.source == change.index])
-        if own == "safe" and weak:
-            own = "unverified"
-        verdicts[change.index] = own
+        verdicts[change.index] = "unverified" if own in ("safe", "breaks") and weak else own
     if passing:
         overall = "breaks"
     elif all(v == "safe" for v in verdicts.values()):
@@ -653,26 +711,33 @@ def _judge(labels, base_pred, aug_pred, n_classes, checked, weak, rng):
         overall = "unverified"
     entries = {}
     for change in changes:
-        if change.index not in checked:
-            continue
-        verdict = "breaks" if change.index in culprits else verdicts[change.index]
-        verdict = "unverified" if verdict == "breaks" and change.index not in culprits else verdict
-        entries[change.index] = {"verdict": verdict, "n": change.n,
-                                 "recall_base": round(change.recall_base, 4),
-                                 "recall_augmented": round(change.recall_augmented, 4),
-                                 "recall_fall": round(change.fall, 4),
-                                 "recall_fall_ci": [round(change.low, 4), round(change.high, 4)]}
-    others = [p for p in pairs if not pair_breaks(p) and p.rise > 0]
-    return overall, entries, passing, others
+        if change.index in checked:
+            verdict = "breaks" if change.index in culprits else verdicts[change.index]
+            entries[change.index] = {
+                "verdict": "unverified" if verdict == "breaks" and change.index not in culprits else verdict,
+                "n": change.n, "recall_base": round(change.recall_base, 4),
+                "recall_augmented": round(change.recall_augmented, 4), "recall_fall": round(change.fall, 4),
+                "recall_fall_ci": [round(change.low, 4), round(change.high, 4)]}
+    shown = {(p.source, p.target) for p in passing}
+    others = [p for p in replaced if (p.source, p.target) not in shown and p.rise > 0]
+    return overall, entries, passing, [(p, bool(seen[p.target, p.source])) for p in others]
 
 
 def _swap_rows(pairs, classes):
     """Swaps in the transform's direction: a rise of the confusion ``B -> A`` on originals
-    means ``A``'s transformed images took ``B``'s look (``from`` A ``to`` B)."""
-    rows = [{"from": classes[p.target], "to": classes[p.source],
-             "confusion": f"{classes[p.source]} -> {classes[p.target]}", "rate": round(p.rise, 4),
-             "rate_ci": [round(p.low, 4), round(p.high, 4)], "base_rate": round(p.base, 4),
-             "augmented_rate": round(p.augmented, 4), "moved": p.moved, "n": p.n} for p in pairs]
+    means ``A``'s transformed images took ``B``'s look (``from`` A ``to`` B).
+
+    ``pairs`` holds PairChange items, or ``(PairChange, witnessed)`` for
+    the pairs that do not pass, with whether the screen saw the move.
+    """
+    rows = []
+    for item in pairs:
+        p, witnessed = item if isinstance(item, tuple) else (item, True)
+        rows.append({"from": classes[p.target], "to": classes[p.source],
+                     "confusion": f"{classes[p.source]} -> {classes[p.target]}", "rate": round(p.rise, 4),
+                     "rate_ci": [round(p.low, 4), round(p.high, 4)], "base_rate": round(p.base, 4),
+                     "augmented_rate": round(p.augmented, 4), "moved": p.moved, "n": p.n,
+                     "witnessed": witnessed})
     rows.sort(key=lambda s: (-s["rate"], s["from"], s["to"]))
     return rows
 
@@ -745,6 +810,22 @@ def _options(sample, magnitudes, evidence_dir):
     return evidence_dir
 
 
+class _Clock:
+    """Wall time of each stage into a caller's dict (or nowhere)."""
+
+    def __init__(self, timings):
+        import time
+
+        self._now, self.timings = time.perf_counter, timings
+        self._start = self._now()
+
+    def lap(self, stage):
+        now = self._now()
+        if self.timings is not None:
+            self.timings[stage] = now - self._start
+        self._start = now
+
+
 def _confirm_jobs(plans, cleared):
     """(transform, range) pairs to train: the whole range of each uncleared transform, then its limits."""
     whole = [(t, 0) for t, plan in enumerate(plans) if len(plan.scope) and not cleared[t]]
@@ -752,8 +833,27 @@ def _confirm_jobs(plans, cleared):
     return whole, nested
 
 
+def _confirm_all(context, plans, screen, screened, baseline, labels, n_classes, boot_rng, workers, quiet,
+                 clock):
+    """Judge every uncleared transform over its whole range, then the nested ranges of those not safe."""
+    whole, nested = _confirm_jobs(plans, [s[0] for s in screened])
+    boot = dict(zip(whole + nested, boot_rng.spawn(len(whole) + len(nested))))
+
+    def judge(jobs):
+        trained = _run_confirmation(context, jobs, plans, screen, baseline, labels, workers, quiet)
+        return {job: _judge(labels, baseline.predictions, trained[job], n_classes, screened[job[0]][1],
+                            baseline.weak, _witnessed(plans[job[0]], screen, *job, labels, baseline, n_classes),
+                            boot[job]) for job in jobs}
+
+    judged = judge(whole)
+    clock.lap("confirmation")
+    judged.update(judge([job for job in nested if judged[(job[0], 0)][0] != "safe"]))
+    clock.lap("safe limits")
+    return judged
+
+
 def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitudes=7, seed=0,
-                 workers=1, quiet=True, evidence_dir=None):
+                 workers=1, quiet=True, evidence_dir=None, timings=None):
     """Check every transform of a recipe for label safety (screen, then confirmation).
 
     Parameters
@@ -777,6 +877,10 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     evidence_dir : str or Path, optional
         Folder for a contact sheet of moved and outside images of each
         transform that breaks or is unverified.
+    timings : dict, optional
+        Filled with the wall time in seconds of each stage (``"baseline"``,
+        ``"screen"``, ``"confirmation"``, ``"safe limits"``); kept out of the
+        document so that it stays the same for the same seed.
 
     Returns
     -------
@@ -797,6 +901,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     from augplan.data.dataset import load_images
 
     evidence_dir = _options(sample, magnitudes, evidence_dir)
+    clock = _Clock(timings)
     sample_rng, unit_root, draw_rng, boot_rng = np.random.default_rng(seed).spawn(4)
     warnings = []
     records, labels, classes = _checked_sample(dataset, sample, sample_rng, warnings)
@@ -809,6 +914,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     if baseline.weak:
         warnings.append(f"the feature model is weak (cross-validated accuracy {baseline.cv_accuracy:.2f}, "
                         f"chance {baseline.chance:.2f}); nothing is called safe")
+    clock.lap("baseline")
     transforms = list(recipe.transforms)
     plans = [_plan_transform(t, classes, labels, magnitudes, rng)
              for t, rng in zip(transforms, draw_rng.spawn(len(transforms)))]
@@ -820,21 +926,20 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
                "n_folds": len(baseline.models)}
     screen = _run_screen(context, images, plans, baseline, unit_root, workers, quiet)
     screened = [_screen_transform(plan, screen, t, labels, baseline, len(classes)) if len(plan.scope)
-                else (False, [], None, []) for t, plan in enumerate(plans)]
-    whole, nested = _confirm_jobs(plans, [s[0] for s in screened])
-    trained = _run_confirmation(context, whole, plans, screen, baseline, labels, workers, quiet)
-    boot = dict(zip(whole + nested, boot_rng.spawn(len(whole) + len(nested))))
-    judged = {job: _judge(labels, baseline.predictions, trained[job], len(classes), screened[job[0]][1],
-                          baseline.weak, boot[job]) for job in whole}
-    nested = [job for job in nested if judged[(job[0], 0)][0] != "safe"]
-    trained.update(_run_confirmation(context, nested, plans, screen, baseline, labels, workers, quiet))
-    judged.update({job: _judge(labels, baseline.predictions, trained[job], len(classes),
-                               screened[job[0]][1], baseline.weak, boot[job]) for job in nested})
+                else (False, [], None, [], {}) for t, plan in enumerate(plans)]
+    clock.lap("screen")
+    judged = _confirm_all(context, plans, screen, screened, baseline, labels, len(classes), boot_rng,
+                          workers, quiet, clock)
     report = [_entry(t, transforms[t], plans[t], screened[t], judged, classes, warnings)
               for t in range(len(transforms))]
     if evidence_dir is not None:
         _attach_evidence(report, screen, plans, evidence_dir, transforms, images, labels, classes)
     _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
+    return _document(recipe, baseline, labels, classes, report, warnings)
+
+
+def _document(recipe, baseline, labels, classes, report, warnings):
+    """The ``check --json`` document."""
     return {
         "recipe": recipe.name,
         "model": {"cv_accuracy": round(baseline.cv_accuracy, 4), "chance": round(baseline.chance, 4),
@@ -852,20 +957,24 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
 
 def _entry(t_index, transform, plan, screened, judged, classes, warnings):
     """The JSON entry of one transform from its screen and confirmation results."""
-    cleared, checked, summary, magnitudes = screened
+    cleared, checked, summary, magnitudes, counts = screened
     if not checked:
         warnings.append(f"transform {t_index} ({transform.op}) applies to no class of the data; "
                         f"nothing to check")
-    entry = {"index": t_index, "op": transform.op, "params": _json_params(transform),
-             **(summary or {"change_rate": 0.0, "change_rate_ci": [0.0, 1.0], "leave_rate": 0.0,
-                            "leave_rate_ci": [0.0, 1.0], "n": 0}),
-             "magnitudes": magnitudes, "evidence_sheet": None}
+    summary = dict(summary or {"change_rate": 0.0, "change_rate_ci": [0.0, 1.0], "leave_rate": 0.0,
+                               "leave_rate_ci": [0.0, 1.0], "n": 0, "screen_swaps": {}})
+    flows = summary.pop("screen_swaps")
+    screen_swaps = sorted(({"from": classes[a], "to": classes[b], "rate": round(share, 4), "moved": moved, "n": n}
+                           for (a, b), (share, moved, n) in flows.items()),
+                          key=lambda s: (-s["rate"], s["from"], s["to"]))
+    entry = {"index": t_index, "op": transform.op, "params": _json_params(transform), **summary,
+             "magnitudes": magnitudes, "screen_swaps": screen_swaps, "evidence_sheet": None}
     if not checked:
         entry.update(verdict="safe", decided_by="screen", swaps=[], other_swaps=[], classes={},
                      safe_limit=None, suggestion=None)
     elif cleared:
         entry.update(verdict="safe", decided_by="screen", swaps=[], other_swaps=[],
-                     classes={classes[a]: {"verdict": "safe"} for a in checked},
+                     classes={classes[a]: {"verdict": "safe", "n": counts[a]} for a in checked},
                      safe_limit=_safe_limit(plan, ["safe"]), suggestion=None)
     else:
         verdict, entries, passing, others = judged[(t_index, 0)]
@@ -965,9 +1074,10 @@ def _singled_out(images, labels, classes, factor, seed):
 
 
 def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
-    """Turn ``breaks`` into ``unverified`` where the move follows a shortcut of the data.
+    """Mark moves that follow a shortcut of the data; ``breaks`` becomes ``unverified``.
 
-    A lighting transform breaks when its images land in another class B. If
+    A lighting transform that is not safe may move its images into another
+    class B (a confirmed swap, or a move the screen saw). If
     the lighting factor it changes (`LIGHTING_OP_FACTORS`) singles out B by
     itself in the training data (one-vs-rest balanced accuracy at least
     ``ONE_VS_REST_THRESHOLD``) while the source classes and B also differ in
@@ -975,7 +1085,7 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
     proxy model learned it as B's mark and its verdict cannot tell a changed
     label from a broken shortcut.
     A labelled field sample in which the factor still singles out B settles
-    it as a cue, and the verdict stays ``breaks``; otherwise a person must
+    it as a cue, and the verdict stays as confirmed; otherwise a person must
     look.
     """
     from augplan.coverage.coverage import ONE_VS_REST_THRESHOLD
@@ -984,15 +1094,16 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
     field_records = [r for r in dataset.split("field") if r.label in classes]
     field_images = field_labels = None
     for entry in report:
-        if entry["verdict"] != "breaks":
+        if entry["verdict"] == "safe":
             continue
-        destinations = {swap["to"] for swap in entry["swaps"] if swap["rate"] >= 0.1}
+        moves = [swap for swap in entry["swaps"] + entry["screen_swaps"] if swap["rate"] >= 0.1]
+        destinations = {swap["to"] for swap in moves}
         for factor in LIGHTING_OP_FACTORS.get(entry["op"], ()):
             train_scores = _singled_out(images, labels, classes, factor, seed)
             hits = sorted(b for b in destinations if (train_scores.get(b) or 0.0) >= ONE_VS_REST_THRESHOLD
                           and all(_separable_by_structure(images, labels, classes.index(swap["from"]),
                                                           classes.index(b), seed)
-                                  for swap in entry["swaps"] if swap["to"] == b and swap["rate"] >= 0.1))
+                                  for swap in moves if swap["to"] == b))
             if not hits:
                 continue
             field_scores = {}

@@ -111,8 +111,12 @@ class ClassChange:
 
 
 def pair_breaks(pair):
-    """Whether one confusion rise passes the module's rule for a label change."""
-    return pair.rise > PAIR_MARGIN and pair.low > 0.0 and pair.rise > pair.base
+    """Whether one confusion rise passes the module's rule for a label change.
+
+    The confused class needs at least ``MIN_EVIDENCE`` images: fewer are too
+    few to judge, never a break.
+    """
+    return pair.n >= MIN_EVIDENCE and pair.rise > PAIR_MARGIN and pair.low > 0.0 and pair.rise > pair.base
 
 
 def _paired(base_hits, new_hits, rng):
