@@ -6,6 +6,7 @@ a temporary DATA layout with 15 training images per class, 30 validation
 images and 10 labelled field images per class.
 """
 
+import dataclasses
 import hashlib
 import json
 import time
@@ -125,6 +126,37 @@ def test_document_shape_and_consistency(comparison):
     assert all(entry["confirm"] is None for entry in comparison["recipes"])
 
 
+def _tells_one_story(block):
+    """The stated rule: p < 0.05 exactly when the 95% gain interval excludes zero."""
+    low, high = block["gain_ci"]
+    return (block["p_value"] < 0.05) == (low > 0 or high < 0) and low <= block["gain"] <= high
+
+
+def test_p_value_and_interval_agree_on_every_digits_recipe(comparison):
+    # UCI optdigits via scikit-learn: validation and the labelled field sample.
+    assert "p < 0.05 exactly when the 95% interval excludes zero" in comparison["gain_test"]
+    for entry in comparison["recipes"]:
+        assert _tells_one_story(entry), entry["name"]
+        assert _tells_one_story(entry["field"]), entry["name"]
+
+
+def test_p_value_and_interval_agree_on_every_demo_recipe(tmp_path):
+    from augplan.demo import DEFAULT_DEMO_DIR, DEFAULT_RECIPE_DIR, DEMO_RECIPES
+    from augplan.recipe.parse import read_recipe
+
+    if not DEFAULT_DEMO_DIR.is_dir():
+        pytest.skip("demo_images/ is not part of this installation")
+    recipes = [read_recipe(DEFAULT_RECIPE_DIR / name) for name in DEMO_RECIPES]
+    document = evaluate_recipes(open_dataset(DEFAULT_DEMO_DIR), recipes, repeats=2, cache_dir=tmp_path)
+    assert [e["name"] for e in document["recipes"]] == ["naive-draft", "cautious", "light-and-pose"]
+    for entry in document["recipes"]:
+        assert _tells_one_story(entry), entry["name"]
+        assert _tells_one_story(entry["field"]), entry["name"]
+    # 75 validation images: with the image as the unit no p-value can fall
+    # below the sign-flip test's floor of 1/10,000 (the old pooled test gave 2^-50).
+    assert min(e["p_value"] for e in document["recipes"]) >= 1e-4
+
+
 def test_validation_images_never_reach_a_transform(digits_data, cache_dir, monkeypatch):
     seen = []
     real = transforms.OPS["rotate"]
@@ -133,9 +165,12 @@ def test_validation_images_never_reach_a_transform(digits_data, cache_dir, monke
         seen.append(hashlib.sha256(np.ascontiguousarray(image).tobytes()).hexdigest())
         return real.function(image, params, rng)
 
-    monkeypatch.setitem(transforms.OPS, "rotate", transforms.OpSpec(
-        "rotate", recording_rotate, real.magnitude, real.identity,
-        log_scale=real.log_scale, geometric=real.geometric))
+    def recording_kernel(image, degrees, border, rng):  # the recipe runner's entry
+        seen.append(hashlib.sha256(np.ascontiguousarray(image).tobytes()).hexdigest())
+        return real.kernel(image, degrees, border, rng)
+
+    monkeypatch.setitem(transforms.OPS, "rotate", dataclasses.replace(
+        real, function=recording_rotate, kernel=recording_kernel))
     recipe = Recipe(name="recorded", copies=1, transforms=(Transform("rotate", {"degrees": (-5.0, 5.0)}),))
     document = evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, cache_dir=cache_dir)
 

@@ -28,17 +28,23 @@ Screen
 
 Confirmation
 ------------
-Every transform the screen does not clear is confirmed: the same proxy is
-trained on the same folds with the same seed, once on the originals and once
-with the transform applied to every image in its scope (probability 1, one
-magnitude per image drawn from the grid across the range, labels after any
-``relabel``); both predict the held-out *original* images of each fold.
-`augplan.check.confirm` compares them per image with bootstrap intervals over
-images: a named confusion ``A -> B`` that rises beyond its margin, with its
-interval clear of zero and beyond the pair's own baseline confusion, breaks;
-no class's recall falling and no confusion rising by as much as the
-equivalence margin (upper bounds) is safe; anything else is unverified. A class with fewer than ``MIN_EVIDENCE`` images is "too few
-images to judge". When the feature model is weak nothing is called safe.
+Every transform the screen does not clear is confirmed by training. On the
+same folds with the same seed the proxy is trained on the originals, on the
+training images with those in scope *replaced* by their transformed copies
+(the transform with probability 1, one magnitude per image drawn from the
+grid across the range, labels after any ``relabel``), and on the originals
+*plus* those copies; each predicts the held-out *original* images of its
+fold. `augplan.check.confirm` compares them per image with sign-flip test
+intervals over images. A swap ``A -> B`` breaks when, for the replaced
+model, the confusion ``B -> A`` on originals rises beyond its margin, with
+its interval clear of zero and beyond the pair's own baseline confusion,
+*and* the screen saw A's transformed images land in B (two witnesses: a
+proxy that merely fails on a look it was never trained on cannot call a
+label changed). It is safe when, for the originals-plus-copies model, no
+class's recall falls and no confusion rises by as much as the equivalence
+margin (upper bounds); anything else is unverified. A class with fewer than
+``MIN_EVIDENCE`` images is "too few images to judge". When the feature
+model is weak nothing is called safe.
 
 The safe limit applies the confirmation rule to ranges nested around the
 identity magnitude (the grid values within one, two, ... steps of it) and
@@ -51,8 +57,8 @@ References
    statistical inference", JASA 22(158), 209-212, 1927.
 .. [2] T. M. Cover and P. E. Hart, "Nearest neighbor pattern
    classification", IEEE Trans. Information Theory 13(1), 21-27, 1967.
-.. [3] B. Efron and R. J. Tibshirani, "An Introduction to the Bootstrap",
-   Chapman & Hall, 1993, chapter 13.
+.. [3] M. D. Ernst, "Permutation methods: a basis for exact inference",
+   Statistical Science 19(4), 676-685, 2004.
 """
 
 from __future__ import annotations
@@ -113,12 +119,15 @@ DECISION_RULE = (
     f"{MIN_EVIDENCE} images and the upper Wilson 95% bounds of the shares of its transformed "
     "images that land in another class or outside every class stay within "
     f"{MARGIN:.2f} of the same shares for its held-out originals. Confirmation, for every "
-    "transform the screen does not clear: the proxy is trained on the same folds with the "
-    "transform applied (probability 1, across the range) and without it, and both predict the "
-    "held-out original images. It breaks when a named confusion A -> B rises by more than "
-    f"{PAIR_MARGIN:.2f} with its bootstrap interval over images above zero and by more than "
+    "transform the screen does not clear: the proxy is trained on the same folds without the "
+    "transform, with the images in scope replaced by transformed copies (probability 1, across "
+    "the range), and with the originals plus those copies, and each predicts the held-out "
+    "original images. A swap A -> B breaks when, for the replaced model, the confusion B -> A "
+    f"rises by more than {PAIR_MARGIN:.2f} with its sign-flip test interval over images above "
+    "zero and by more than "
     "the pair's own baseline confusion (a label change is specific; a capacity loss is spread "
-    "over pairs the model already confuses); it is safe when the upper bound of every class's "
+    "over pairs the model already confuses), and the screen saw A's transformed images land in "
+    "B; it is safe when, for the originals-plus-copies model, the upper bound of every class's "
     f"recall fall and of every confusion rise are below {RECALL_MARGIN:.2f} (an equivalence "
     "test); otherwise it is unverified. Bounds are one-sided "
     f"95% bounds. A class with fewer than {MIN_EVIDENCE} "
@@ -362,17 +371,14 @@ def _out_of_fold_proba(models, features, folds, n_classes):
 
 def _screen_unit(context, unit):
     """Transform, featurise and locate the in-scope images of one (transform, magnitude)."""
-    from augplan.augment.transforms import OPS, params_at
+    from augplan.augment.transforms import apply_op_batch, params_at
 
     transform_index, magnitude, rng, keep_rows = unit
     transform = context["transforms"][transform_index]
     sources = context["scope"][transform_index]
     images = _decoded_sample(context)
-    function = OPS[transform.op].function
     params = params_at(transform, 0.0 if magnitude is None else magnitude, context["fill"])
-    moved_images = np.empty((len(sources),) + images.shape[1:], dtype=np.uint8)
-    for row, source in enumerate(sources):
-        moved_images[row] = function(images[source], params, rng)
+    moved_images = apply_op_batch(images[sources], transform.op, params, rng)
     features = context["template"].featurize(moved_images)
     proba = _out_of_fold_proba(context["models"], features, context["folds"][sources], context["n_classes"])
     ratios = context["geometry"].ratios(features, sources)

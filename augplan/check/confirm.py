@@ -13,9 +13,10 @@ Decision rule
 For every class ``A`` with at least ``MIN_EVIDENCE`` images and every other
 class ``B``, the confusion ``A -> B`` is the share of ``A``'s held-out
 originals predicted as ``B``; its *rise* is the augmented model's share
-minus the base model's, with a percentile bootstrap interval over ``A``'s
-images (paired: one resample serves both models) whose bounds are one-sided
-95% bounds (the 90% two-sided interval of Schuirmann's two one-sided tests).
+minus the base model's, with an interval over ``A``'s images that inverts
+a paired sign-flip test (each image one unit, both models on it), whose
+bounds are one-sided 95% bounds (the 90% two-sided interval of Schuirmann's
+two one-sided tests).
 
 - A pair **breaks** when its rise exceeds ``PAIR_MARGIN`` (0.10), its
   interval lies above zero, and the rise exceeds the pair's own baseline
@@ -36,8 +37,8 @@ far beyond that pair's baseline confusion.
 
 References
 ----------
-.. [1] B. Efron and R. J. Tibshirani, "An Introduction to the Bootstrap",
-   Chapman & Hall, 1993, chapter 13 (percentile intervals).
+.. [1] M. D. Ernst, "Permutation methods: a basis for exact inference",
+   Statistical Science 19(4), 676-685, 2004 (test inversion).
 .. [2] D. J. Schuirmann, "A comparison of the two one-sided tests procedure
    and the power approach for assessing the equivalence of average
    bioavailability", J. Pharmacokinetics and Biopharmaceutics 15(6),
@@ -50,7 +51,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from augplan.measure.stats import paired_bootstrap_gain
+from augplan.measure.stats import paired_gain_test
 
 __all__ = [
     "MIN_EVIDENCE",
@@ -75,8 +76,8 @@ RECALL_MARGIN = 0.15
 # Fewest images of a class for any verdict about it (common practice, no
 # source: below ten a single image moves a share by more than the margin).
 MIN_EVIDENCE = 10
-N_RESAMPLES = 2000
-# Two-sided level of the bootstrap intervals: each bound is a one-sided 95%
+N_RESAMPLES = 1999
+# Two-sided level of the intervals: each bound is a one-sided 95%
 # bound, as in Schuirmann's two one-sided tests of equivalence.
 CONFIDENCE = 0.90
 TOO_FEW = "too few images to judge"
@@ -99,7 +100,7 @@ class PairChange:
 
 @dataclass(frozen=True)
 class ClassChange:
-    """Recall of one class under both models, with the bootstrap interval of its fall."""
+    """Recall of one class under both models, with the interval of its fall."""
 
     index: int
     n: int
@@ -120,11 +121,17 @@ def pair_breaks(pair):
 
 
 def _paired(base_hits, new_hits, rng):
-    """Mean paired difference (new - base) of two 0/1 vectors with its bootstrap interval."""
+    """Mean paired difference (new - base) of two 0/1 vectors with its interval.
+
+    The interval inverts the sign-flip test over images
+    (`augplan.measure.stats.paired_gain_test`), so it excludes zero exactly
+    when that test rejects no change.
+    """
     if np.array_equal(base_hits, new_hits):
         value = float(np.mean(new_hits) - np.mean(base_hits))
         return value, value, value
-    return paired_bootstrap_gain(base_hits, new_hits, rng, n_resamples=N_RESAMPLES, confidence=CONFIDENCE)
+    result = paired_gain_test(base_hits, new_hits, rng, n_resamples=N_RESAMPLES, confidence=CONFIDENCE)
+    return result.gain, result.low, result.high
 
 
 def compare_predictions(labels, base_pred, augmented_pred, n_classes, rng):
@@ -137,7 +144,7 @@ def compare_predictions(labels, base_pred, augmented_pred, n_classes, rng):
         predictions of it (class indices ``0 .. n_classes - 1``).
     n_classes : int
     rng : numpy.random.Generator
-        Source of the bootstrap resamples.
+        Source of the sign patterns of the paired tests.
 
     Returns
     -------
@@ -149,8 +156,8 @@ def compare_predictions(labels, base_pred, augmented_pred, n_classes, rng):
 
     References
     ----------
-    .. [1] B. Efron and R. J. Tibshirani, "An Introduction to the Bootstrap",
-       Chapman & Hall, 1993, chapter 13.
+    .. [1] M. D. Ernst, "Permutation methods: a basis for exact inference",
+       Statistical Science 19(4), 676-685, 2004.
     """
     labels, base_pred, augmented_pred = (np.asarray(a) for a in (labels, base_pred, augmented_pred))
     if not (labels.shape == base_pred.shape == augmented_pred.shape) or labels.ndim != 1:

@@ -3,27 +3,30 @@
 Everything here works on plain numpy arrays. Correctness arrays are boolean
 (or 0/1) with one entry per validation image, optionally stacked over
 training repeats as ``(repeats, n_images)``. The validation images are the
-sampling unit: bootstrap resampling draws images (columns), never single
-entries, so the repeats of one image stay together and both arms of a
-comparison see the same resampled images.
+sampling unit: repeats of one image are averaged into one per-image value
+before any test, so a comparison has as many observations as images, never
+images times repeats. The gain's p-value and its interval come from one
+sign-flip permutation test over the per-image differences (the interval is
+the set of shifts it does not reject), so ``p < 0.05`` exactly when the 95%
+interval excludes zero.
 
 Randomness arrives only as a ``numpy.random.Generator``.
 """
+
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats
 
 __all__ = [
     "wilson_interval",
-    "paired_bootstrap_gain",
-    "mcnemar_exact",
+    "GainTest",
+    "per_image_difference",
+    "sign_flip_test",
+    "paired_gain_test",
     "holm",
     "summarise_predictions",
 ]
-
-# Upper bound on the number of resampled indices held in memory at once by
-# the bootstrap (an int64 array of this many entries is 32 MB).
-_BOOTSTRAP_CHUNK_ENTRIES = 4_000_000
 
 
 def _check_confidence(confidence):
@@ -123,115 +126,223 @@ def _paired_correctness(correct_base, correct_new):
     return np.atleast_2d(base).astype(bool), np.atleast_2d(new).astype(bool)
 
 
-def paired_bootstrap_gain(correct_base, correct_new, rng, n_resamples=2000, confidence=0.95):
-    """Accuracy gain of a new model over a base model with a paired bootstrap interval.
+# Random sign patterns of the Monte Carlo sign-flip test; with the +1
+# correction the smallest p-value is 1e-4 and the test keeps its level
+# exactly (Phipson & Smyth 2010). Up to _EXACT_MAX_IMAGES images every one
+# of the 2**n patterns is used instead (2**13 = 8192 < 10,000).
+SIGN_FLIP_RESAMPLES = 9999
+_EXACT_MAX_IMAGES = 13
+
+# Upper bound on the number of sign entries held in memory at once.
+_SIGN_CHUNK_ENTRIES = 4_000_000
+
+
+@dataclass(frozen=True)
+class GainTest:
+    """A paired comparison over images: the gain, its interval, its p-value.
+
+    Attributes
+    ----------
+    gain : float
+        Mean over images of the per-image difference.
+    low, high : float
+        Confidence interval of the gain: every shift the test does not reject.
+    p_value : float
+        Two-sided p-value of no gain. ``p_value < 1 - confidence`` exactly
+        when the interval excludes zero (``low > 0`` or ``high < 0``).
+    n_images : int
+        Number of images (the sampling units).
+    exact : bool
+        True when every sign pattern was used, False for random patterns.
+    """
+
+    gain: float
+    low: float
+    high: float
+    p_value: float
+    n_images: int
+    exact: bool
+
+
+def per_image_difference(correct_base, correct_new):
+    """Per-image gain: mean correctness over repeats, new minus base.
 
     Parameters
     ----------
     correct_base, correct_new : array_like of bool, shape (n_images,) or (repeats, n_images)
-        Per-image correctness of the base and new model on the same
-        validation images, in the same column order; rows are independent
-        training repeats (pooled).
-    rng : numpy.random.Generator
-        Source of the resampling indices.
-    n_resamples : int, default 2000
-        Number of bootstrap resamples.
-    confidence : float, default 0.95
-        Two-sided confidence level in (0, 1).
+        Correctness of two arms on the same images, in the same column order;
+        rows are training repeats.
 
     Returns
     -------
-    gain : float
-        Mean accuracy of the new model minus that of the base model, over all
-        repeats and images.
-    low, high : float
-        Percentile bootstrap interval of the gain [1]_.
+    numpy.ndarray of float, shape (n_images,)
+        Values in [-1, 1], multiples of ``1 / repeats``.
+    """
+    base, new = _paired_correctness(correct_base, correct_new)
+    return new.mean(axis=0) - base.mean(axis=0)
+
+
+def _sign_patterns(n, rng, n_resamples):
+    """Chunks of sign patterns (rows of +1/-1) and whether they are all of them."""
+    if n <= _EXACT_MAX_IMAGES:
+        codes = np.arange(2 ** n)[:, None] >> np.arange(n)[None, :]
+        return [(1 - 2 * (codes & 1)).astype(np.int8)], True
+    chunk = max(1, _SIGN_CHUNK_ENTRIES // n)
+    blocks = []
+    for start in range(0, n_resamples, chunk):
+        rows = min(chunk, n_resamples - start)
+        blocks.append((2 * rng.integers(0, 2, size=(rows, n), dtype=np.int8) - 1).astype(np.int8))
+    return blocks, False
+
+
+def sign_flip_test(differences, rng, n_resamples=SIGN_FLIP_RESAMPLES, confidence=0.95):
+    """Sign-flip permutation test of a mean difference, and the interval it implies.
+
+    Parameters
+    ----------
+    differences : array_like of float, shape (n,)
+        One paired difference per sampling unit (here: per validation image).
+    rng : numpy.random.Generator
+        Source of the random sign patterns (unused when ``n <= 13``).
+    n_resamples : int, default 9999
+        Random sign patterns when ``n > 13``.
+    confidence : float, default 0.95
+        Level of the interval; the test's level is ``1 - confidence``.
+
+    Returns
+    -------
+    GainTest
 
     Raises
     ------
     ValueError
-        On mismatched shapes, non-boolean values, no images, a bad
-        ``n_resamples`` or ``confidence``, or an ``rng`` that is not a
-        ``numpy.random.Generator``.
+        No differences, non-finite values, a bad ``n_resamples`` or
+        ``confidence``, or an ``rng`` that is not a ``numpy.random.Generator``.
 
     Notes
     -----
-    Each resample draws ``n_images`` validation images with replacement and
-    uses the same draw for both models (paired), so image difficulty cancels
-    out. Every repeat has the same number of images, so the pooled gain is
-    the mean over images of the per-image gain averaged over repeats; the
-    resampling works on that per-image vector. Resamples are drawn in
-    chunks to bound memory; the result depends only on ``rng``'s state.
+    Under no gain, the sign of each image's difference is as likely + as -
+    (the two arms are exchangeable image by image). The statistic is
+    :math:`|\\sum_i d_i|`; its null distribution comes from the sums
+    :math:`\\sum_i s_i d_i` over sign patterns :math:`s`: all :math:`2^n` of
+    them for ``n <= 13`` (exact, as ``scipy.stats.permutation_test``
+    enumerates them), otherwise ``n_resamples`` random ones with
+    :math:`p = (1 + k) / (1 + B)`, which keeps the level exact [2]_.
+
+    The interval is the set of shifts :math:`\\theta` that the same test,
+    on the same sign patterns, does not reject for :math:`d_i - \\theta`
+    (test inversion [1]_). For each pattern the shifts it counts for form a
+    closed interval around the mean, so the set is one interval whose ends
+    are order statistics of those per-pattern ends. Zero lies in it exactly
+    when the test of no gain does not reject: **p < 1 - confidence exactly
+    when the interval excludes zero**.
 
     References
     ----------
-    .. [1] B. Efron and R. J. Tibshirani, "An Introduction to the Bootstrap",
-       Chapman & Hall, 1993, chapter 13 (percentile intervals).
+    .. [1] M. D. Ernst, "Permutation methods: a basis for exact inference",
+       Statistical Science 19(4), 676-685, 2004 (sections 2 and 5).
+    .. [2] B. Phipson and G. K. Smyth, "Permutation p-values should never be
+       zero", Statistical Applications in Genetics and Molecular Biology
+       9(1), article 39, 2010.
+
+    Examples
+    --------
+    >>> result = sign_flip_test([0.2, 0.4, 0.0, 0.2, -0.2, 0.6], np.random.default_rng(0))
+    >>> round(result.gain, 4), round(result.p_value, 4), result.exact
+    (0.2, 0.25, True)
     """
     if not isinstance(rng, np.random.Generator):
         raise ValueError(f"rng must be a numpy.random.Generator; got {type(rng).__name__}.")
-    confidence = _check_confidence(confidence)
-    n_resamples = int(n_resamples)
-    if n_resamples < 1:
-        raise ValueError(f"n_resamples must be a positive integer; got {n_resamples}.")
-    base, new = _paired_correctness(correct_base, correct_new)
-    per_image = new.mean(axis=0) - base.mean(axis=0)
-    n_images = per_image.size
-    gain = float(per_image.mean())
-    chunk = max(1, _BOOTSTRAP_CHUNK_ENTRIES // n_images)
-    resampled = np.empty(n_resamples)
-    for start in range(0, n_resamples, chunk):
-        stop = min(start + chunk, n_resamples)
-        indices = rng.integers(0, n_images, size=(stop - start, n_images))
-        resampled[start:stop] = per_image[indices].mean(axis=1)
-    alpha = 1.0 - confidence
-    low, high = np.percentile(resampled, [100.0 * alpha / 2.0, 100.0 * (1.0 - alpha / 2.0)])
-    return gain, float(low), float(high)
+    # Rounded so that 1 - 0.95 is the 0.05 every reader compares against.
+    alpha = round(1.0 - _check_confidence(confidence), 12)
+    if isinstance(n_resamples, bool) or int(n_resamples) != n_resamples or int(n_resamples) < 1:
+        raise ValueError(f"n_resamples must be a positive integer; got {n_resamples!r}.")
+    d = np.asarray(differences, dtype=float)
+    if d.ndim != 1 or d.size == 0:
+        raise ValueError(f"differences must be a non-empty 1-D array; got shape {d.shape}.")
+    if not np.all(np.isfinite(d)):
+        raise ValueError("differences must be finite numbers; got NaN or infinity.")
+    n = d.size
+    total = float(d.sum())
+    # Sums of differences agree to rounding only; the tolerance is far below
+    # any real gap for differences on a grid of 1/repeats.
+    tolerance = 1e-9 * max(1.0, float(np.abs(d).sum())) ** 2
+    blocks, exact = _sign_patterns(n, rng, int(n_resamples))
+    lows, highs = [], []
+    for signs in blocks:
+        a = signs.astype(float) @ d          # sum_i s_i d_i
+        c = signs.sum(axis=1).astype(float)  # sum_i s_i
+        # |a - c t| >= |total - n t| is q(t) = (c^2 - n^2) t^2 - 2 (a c - total n) t
+        # + (a^2 - total^2) >= 0, a closed interval around total / n.
+        lead = c * c - n * n
+        half = a * c - total * n
+        const = a * a - total * total
+        degenerate = np.abs(c) == n          # all signs equal: always as extreme
+        safe = np.where(degenerate, -1.0, lead)
+        root = np.sqrt(np.maximum(half * half - safe * const, 0.0))
+        low = np.where(degenerate, -np.inf, (half + root) / safe)
+        high = np.where(degenerate, np.inf, (half - root) / safe)
+        # Zero's membership is decided on q(0) itself, so rounding in the
+        # roots can never split the p-value from the interval.
+        counts_zero = const >= -tolerance
+        low = np.where(counts_zero, np.minimum(low, 0.0), low)
+        high = np.where(counts_zero, np.maximum(high, 0.0), high)
+        outside = ~counts_zero & (low <= 0.0) & (high >= 0.0)
+        tiny = np.nextafter(0.0, 1.0)
+        if total > 0:
+            low = np.where(outside, tiny, low)
+        elif total < 0:
+            high = np.where(outside, -tiny, high)
+        lows.append(low)
+        highs.append(high)
+    lows, highs = np.concatenate(lows), np.concatenate(highs)
+    extra = 0 if exact else 1
+    patterns = lows.size
+    at_zero = int(np.count_nonzero((lows <= 0.0) & (highs >= 0.0)))
+    p_value = (extra + at_zero) / (extra + patterns)
+    # Fewest counted patterns whose p-value reaches alpha, by the same float
+    # expression as the p-value itself.
+    needed = max(0, int(np.floor(alpha * (extra + patterns))) - extra - 2)
+    while needed <= patterns and (extra + needed) / (extra + patterns) < alpha:
+        needed += 1
+    if needed <= 0:
+        interval_low, interval_high = -np.inf, np.inf
+    else:
+        interval_low = float(np.sort(lows)[needed - 1])
+        interval_high = float(np.sort(highs)[::-1][needed - 1])
+    return GainTest(gain=total / n, low=interval_low, high=interval_high, p_value=float(min(1.0, p_value)),
+                    n_images=int(n), exact=bool(exact))
 
 
-def mcnemar_exact(correct_base, correct_new):
-    """Exact (binomial) McNemar test that two models have the same accuracy.
+def paired_gain_test(correct_base, correct_new, rng, n_resamples=SIGN_FLIP_RESAMPLES, confidence=0.95):
+    """Accuracy gain of a new arm over a base arm, with the image as the unit.
 
     Parameters
     ----------
     correct_base, correct_new : array_like of bool, shape (n_images,) or (repeats, n_images)
-        Per-image correctness of the two models on the same images.
+        Correctness of the two arms on the same images; rows are training
+        repeats, which are averaged per image (repeats of one image are not
+        independent observations).
+    rng : numpy.random.Generator
+    n_resamples, confidence
+        As in `sign_flip_test`.
 
     Returns
     -------
-    float
-        Two-sided p-value ``min(1, 2 * P(X <= min(b, c)))`` with
-        ``X ~ Binomial(b + c, 1/2)``, where ``b`` counts pairs only the base
-        model got right and ``c`` pairs only the new model got right. 1.0
-        when there are no discordant pairs.
-
-    Notes
-    -----
-    Repeats are pooled: every (repeat, image) entry counts as one pair. The
-    repeats share images, so the pairs are not fully independent and the
-    p-value is somewhat optimistic when repeats > 1; the paired bootstrap,
-    which resamples whole images, does not have this problem.
-
-    References
-    ----------
-    .. [1] Q. McNemar, "Note on the sampling error of the difference between
-       correlated proportions or percentages", Psychometrika 12(2), 153-157,
-       1947.
-    .. [2] M. W. Fagerland, S. Lydersen and P. Laake, "The McNemar test for
-       binary matched-pairs data: mid-p and asymptotic are better than exact
-       conditional", BMC Medical Research Methodology 13, 91, 2013.
+    GainTest
+        The gain is the mean accuracy of the new arm minus that of the base
+        arm over all repeats and images; interval and p-value come from
+        `sign_flip_test` on the per-image differences, bounded to [-1, 1].
     """
-    base, new = _paired_correctness(correct_base, correct_new)
-    only_base = int(np.count_nonzero(base & ~new))
-    only_new = int(np.count_nonzero(new & ~base))
-    discordant = only_base + only_new
-    if discordant == 0:
-        return 1.0
-    # Binomial CDF at 1/2 via the regularised incomplete beta; exact for
-    # integer counts and stable for large totals.
-    smaller = min(only_base, only_new)
-    tail = float(stats.binom.cdf(smaller, discordant, 0.5))
-    return min(1.0, 2.0 * tail)
+    differences = per_image_difference(correct_base, correct_new)
+    # Exact arithmetic: on the grid of 1/repeats the differences times the
+    # number of repeats are whole numbers, so ties are decided exactly.
+    repeats = np.atleast_2d(np.asarray(correct_base)).shape[0]
+    whole = np.rint(differences * repeats)
+    result = sign_flip_test(whole, rng, n_resamples=n_resamples, confidence=confidence)
+    return GainTest(gain=float(differences.mean()), low=max(-1.0, result.low / repeats),
+                    high=min(1.0, result.high / repeats), p_value=result.p_value,
+                    n_images=result.n_images, exact=result.exact)
 
 
 def holm(p_values):

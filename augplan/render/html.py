@@ -666,7 +666,7 @@ def _leaderboard(evidence):
                      _p(row.get("p_holm")), _e(", ".join(flags)) or _DASH])
         row_classes.append("best" if row.get("name") == best_name else "")
     out.append(_table(["rank", "recipe", "validation accuracy [95% CI]",
-                       "gain, percentage points [95% CI]", "p (McNemar)", "p (Holm)", "flags"],
+                       "gain, percentage points [95% CI]", "p (sign-flip, per image)", "p (Holm)", "flags"],
                       rows, numeric=(0, 2, 3, 4, 5), row_classes=row_classes))
 
     facts = []
