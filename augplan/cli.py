@@ -13,12 +13,13 @@ from pathlib import Path
 
 from augplan import __version__
 from augplan.errors import BadInputError
+from augplan.workspace import default_feature_cache, default_ledger
 
 __all__ = ["ExitCode", "main"]
 
 
 class ExitCode(IntEnum):
-    """Exit codes of every command (see DESIGN.md)."""
+    """Exit codes of every command (README, "Commands")."""
 
     OK = 0          # done, everything passed
     FLAGGED = 1     # done, something was flagged
@@ -41,6 +42,10 @@ def _common(parser, *, data=True, json_flag=True):
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
     parser.add_argument("--seed", type=int, default=0, help="seed of the analysis (default 0)")
+    if data:
+        parser.add_argument("--split-seed", type=int, default=0,
+                            help="seed of the stratified validation split made when DATA has no val/ "
+                                 "(default 0); apart from --seed so the data stay the same across analyses")
     parser.add_argument("--quiet", action="store_true", help="no progress bars, no warnings on stderr")
     if json_flag:
         parser.add_argument("--json", action="store_true",
@@ -188,11 +193,8 @@ class _Console:
 def _open_data(args, *, field=None):
     from augplan.data.dataset import open_dataset
 
-    data = Path(args.data)
-    manifest = None
-    if data.is_file() and data.suffix.lower() == ".csv":
-        manifest, data = data, data.parent
-    dataset = open_dataset(data, strict=args.strict, manifest=manifest, seed=args.seed, field=field)
+    # open_dataset reads a .csv path as a manifest.
+    dataset = open_dataset(args.data, strict=args.strict, seed=args.split_seed, field=field)
     return dataset.with_image_bytes() if getattr(args, "ship_images", False) else dataset
 
 
@@ -227,14 +229,6 @@ def _report_leaks(console, dataset):
     return leaks
 
 
-def _default_ledger(data):
-    return Path(data).resolve().parent / ".augplan" / "ledger.sqlite"
-
-
-def _default_cache(data):
-    return Path(data).resolve().parent / ".augplan" / "features"
-
-
 def _run_preview(args, console):
     from augplan.render.sheets import preview_sheet, save_png
     from augplan.recipe.parse import read_recipe
@@ -256,9 +250,9 @@ def _ensure_parent(path, dataset=None):
     if not parent.is_dir():
         raise BadInputError(f"{path}: the folder {parent} does not exist")
     if dataset is not None:
-        from augplan.data.dataset import ensure_outside_data
+        from augplan.workspace import ensure_outside_data
 
-        ensure_outside_data(path, dataset)
+        ensure_outside_data(path, dataset.root)
 
 
 def _emit(console, args, result, table):
@@ -314,8 +308,8 @@ def _run_evaluate(args, console):
     leaks = _report_leaks(console, dataset)
     recipes = _read_recipes(args.recipe)
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
-                              quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
-                              cache_dir=_default_cache(args.data), confirm_fraction=args.confirm_fraction)
+                              quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
+                              cache_dir=default_feature_cache(dataset.root), confirm_fraction=args.confirm_fraction)
     result["leaks"] = leaks
     _emit(console, args, result, tables.leaderboard_table)
     return ExitCode.FLAGGED if any(r["flagged"] for r in result["recipes"]) else ExitCode.OK
@@ -351,8 +345,8 @@ def _run_vet(args, console):
     recipes = _read_recipes(args.recipe)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
                           repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
-                          quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
-                          cache_dir=_default_cache(args.data))
+                          quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
+                          cache_dir=default_feature_cache(dataset.root))
     if args.json:
         console.emit_json(summary)
     console.say(summary["verdict"])
@@ -377,8 +371,9 @@ def _run_history(args, console):
     from augplan.data.dataset import fingerprint, open_dataset
     from augplan.render import text as tables
 
-    ledger = args.ledger or (_default_ledger(args.data) if args.data else Path(".augplan/ledger.sqlite"))
-    data_fingerprint = fingerprint(open_dataset(args.data)) if args.data else None
+    dataset = open_dataset(args.data) if args.data else None
+    ledger = args.ledger or default_ledger(dataset.root if dataset else None)
+    data_fingerprint = fingerprint(dataset) if dataset else None
     rows = list_history(ledger, fingerprint=data_fingerprint)
     if args.json:
         console.emit_json({"ledger": str(ledger), "evaluations": rows})

@@ -63,7 +63,6 @@ References
 
 from __future__ import annotations
 
-import copy
 import functools
 import hashlib
 import math
@@ -78,6 +77,8 @@ from sklearn.preprocessing import StandardScaler
 from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, RECALL_MARGIN, TOO_FEW, class_verdict,
                              compare_predictions, pair_breaks)
 from augplan.errors import BadInputError
+from augplan.thresholds import (MAX_FOLDS, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
+                                REGION_PERCENTILE, SCREEN_MARGIN, TURN_DEGREES)
 from augplan.parallel import parallel_map
 
 __all__ = [
@@ -89,19 +90,13 @@ __all__ = [
     "nested_ranges",
 ]
 
-# Neighbours averaged for the distance to a class (Cover & Hart's k-NN idea).
-NEIGHBOURS = 5
-# Percentile of held-out own-class distances that bounds a class's region.
-TYPICAL_PERCENTILE = 95.0
-# Excess over the held-out baseline that the screen tolerates in the upper
-# bound of a moved or outside share (common practice, no source).
-MARGIN = 0.10
-VARIANCE_KEPT = 0.95
-# Fewest training images for a class to take part at all (a region and a
-# place in every fold need at least this many).
-MIN_PER_CLASS = 3
-# Cross-validation folds of the screen and the confirmation (at most).
-FOLDS = 5
+# The numbers of the rule live in augplan.thresholds, with their sources.
+NEIGHBOURS = REGION_NEIGHBOURS
+TYPICAL_PERCENTILE = REGION_PERCENTILE
+MARGIN = SCREEN_MARGIN
+VARIANCE_KEPT = PCA_VARIANCE_KEPT
+MIN_PER_CLASS = MIN_IMAGES_PER_CLASS
+FOLDS = MAX_FOLDS
 EVIDENCE_IMAGES = 8
 OUTSIDE = -1
 _RANK = {"safe": 0, TOO_FEW: 1, "unverified": 1, "breaks": 2}
@@ -109,9 +104,6 @@ _RANK = {"safe": 0, TOO_FEW: 1, "unverified": 1, "breaks": 2}
 # turn of the image, a hue turn), so that a relabel can undo the swap.
 # Rotations, zooms and shifts only widen a class: never relabelled.
 SWAPPING_OPS = ("flip", "hue")
-# A rotation by a fixed angle at least this large is a turn (common
-# practice, no source).
-TURN_DEGREES = 45.0
 
 DECISION_RULE = (
     "Two stages. Screen: with out-of-fold predictions of the proxy model, the transform is "
@@ -346,12 +338,14 @@ def _decoded_sample(context):
 
 def _fit_fold(template, features, labels, folds, fold):
     """The template model fitted on every fold but ``fold`` (labels only are read later)."""
-    model = copy.deepcopy(template)
-    train = folds != fold
+    from sklearn.base import clone
+
     # Single precision: the checker reads predicted labels and the argmax of
-    # probabilities, which float32 solver products leave unchanged.
-    return model.fit_features(features[train], labels[train], cross_validate=False,
-                              solver_dtype=np.float32)
+    # probabilities, which float32 solver products leave unchanged; the folds
+    # are the checker's own, so the model's cross-validation is not run.
+    model = clone(template).set_params(cross_validate=False, solver_dtype=np.float32)
+    train = folds != fold
+    return model.fit_features(features[train], labels[train])
 
 
 def _fit_fold_unit(context, fold):
@@ -483,7 +477,7 @@ def _fit_baseline(images, labels, n_classes, template, seed, workers, quiet):
     """Fold models, out-of-fold predictions and regions of the original images."""
     from sklearn.model_selection import StratifiedKFold
 
-    from augplan.measure.features import is_weak
+    from augplan.measure.model import is_weak
     from augplan.measure.stats import wilson_interval
 
     features = template.featurize(images)
@@ -867,7 +861,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     dataset : augplan.data.Dataset
         Only its ``train`` split is used.
     recipe : augplan.recipe.Recipe
-    model : augplan.measure.features.FeatureModel, optional
+    model : augplan.measure.model.FeatureModel, optional
         An unfitted model to use instead of the default one, in both stages.
     sample : int, optional
         At most this many training images per class (drawn with ``seed``).
@@ -913,7 +907,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     records, labels, classes = _checked_sample(dataset, sample, sample_rng, warnings)
     images = load_images(records, size=size)
     if model is None:
-        from augplan.measure.features import FeatureModel
+        from augplan.measure.model import FeatureModel
 
         model = FeatureModel(random_state=seed)
     baseline = _fit_baseline(images, labels, len(classes), model, seed, workers, quiet)
@@ -1094,7 +1088,7 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
     it as a cue, and the verdict stays as confirmed; otherwise a person must
     look.
     """
-    from augplan.coverage.coverage import ONE_VS_REST_THRESHOLD
+    from augplan.thresholds import ONE_VS_REST_THRESHOLD
     from augplan.data.dataset import load_images
 
     field_records = [r for r in dataset.split("field") if r.label in classes]

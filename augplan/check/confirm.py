@@ -52,6 +52,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from augplan.measure.stats import paired_gain_test
+from augplan.thresholds import CONFIRM_CONFIDENCE, EQUIVALENCE_MARGIN, MIN_EVIDENCE, PAIR_MARGIN
 
 __all__ = [
     "MIN_EVIDENCE",
@@ -65,21 +66,10 @@ __all__ = [
     "class_verdict",
 ]
 
-# Rise of one confusion A -> B that counts as a label change (common
-# practice, no source: ten points of one class is what a user notices in a
-# confusion matrix), and the equivalence margin that a class's recall fall
-# and every confusion rise must stay under, by their upper bounds, to be
-# safe (common practice, no source: a small linear proxy loses a few points
-# to any widening it cannot represent, so the margin leaves room for that).
-PAIR_MARGIN = 0.10
-RECALL_MARGIN = 0.15
-# Fewest images of a class for any verdict about it (common practice, no
-# source: below ten a single image moves a share by more than the margin).
-MIN_EVIDENCE = 10
+# The numbers of the rule live in augplan.thresholds, with their sources.
+RECALL_MARGIN = EQUIVALENCE_MARGIN
 N_RESAMPLES = 1999
-# Two-sided level of the intervals: each bound is a one-sided 95%
-# bound, as in Schuirmann's two one-sided tests of equivalence.
-CONFIDENCE = 0.90
+CONFIDENCE = CONFIRM_CONFIDENCE
 TOO_FEW = "too few images to judge"
 
 

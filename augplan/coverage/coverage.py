@@ -1,6 +1,6 @@
 """Does a recipe widen the nuisance factors, cover the field, and break shortcuts?
 
-`analyse_coverage` returns the ``coverage --json`` document of DESIGN.md:
+`analyse_coverage` returns the ``coverage --json`` document (docs/architecture.md, "Results"):
 
 - widening: each factor of `augplan.factors.FACTORS` on the original
   training images and on the augmented training set (the originals plus
@@ -48,6 +48,8 @@ import scipy.stats
 from augplan.atomic import write_bytes_atomic
 from augplan.data.dataset import Dataset, load_images
 from augplan.errors import BadInputError
+from augplan.thresholds import (CHANCE_GAP_SHARE, COVERAGE_FLOOR, ONE_VS_REST_THRESHOLD, beyond_chance,
+                                COVERAGE_NEIGHBOURS as K_NEIGHBOURS)
 from augplan.measure.factors import FACTORS, measure_factors
 from augplan.parallel import parallel_map
 from augplan.augment.transforms import apply_op_batch, augment_batch
@@ -68,28 +70,19 @@ __all__ = [
     "write_factor_plots",
 ]
 
-K_NEIGHBOURS = 5
-# A factor is poorly covered when fewer field images than this share lie in
-# the augmented 1-99% range (common practice, no source).
-COVERAGE_FLOOR = 0.9
 HISTOGRAM_BINS = 24
 # Cap on each sample entering the k-nearest-neighbour step.
 KNN_LIMIT = 5000
 _CHUNK = 32
 ALL_FACTORS = "all factors"
 
-# With more than two classes, a factor that tells one class from all the
-# others this well is flagged even when the overall score is low; stricter
-# than the two-class 0.75 because every class gets a try (common practice,
-# no source).
-ONE_VS_REST_THRESHOLD = 0.9
-
 SHORTCUT_RULE = (
     "A factor is flagged as a shortcut when its cross-validated balanced accuracy "
-    "on the original training set reaches chance + 0.5 x (1 - chance), halfway from "
-    "chance to perfect (0.75 for two classes), or, with more than two classes, when "
+    f"on the original training set reaches chance + {CHANCE_GAP_SHARE:g} x (1 - chance), "
+    f"{'halfway' if CHANCE_GAP_SHARE == 0.5 else f'{CHANCE_GAP_SHARE:.0%} of the way'} from "
+    f"chance to perfect ({beyond_chance(0.5):g} for two classes), or, with more than two classes, when "
     "it tells one class from the rest with a one-vs-rest balanced accuracy of at "
-    "least 0.9; it persists when the augmented training set still meets the same "
+    f"least {ONE_VS_REST_THRESHOLD:g}; it persists when the augmented training set still meets the same "
     "test, and the validation split shares it when val meets it. When a labelled "
     "field sample also meets the test, the factor is a cue that defines the class "
     "there and is not flagged. The all-factors "
@@ -253,8 +246,7 @@ def naeem_density_coverage(reference, sample, k=K_NEIGHBOURS):
 
 def shortcut_threshold(n_classes):
     """Balanced accuracy at which a factor counts as a shortcut (see SHORTCUT_RULE)."""
-    chance = 1.0 / n_classes
-    return chance + 0.5 * (1.0 - chance)
+    return beyond_chance(1.0 / n_classes)
 
 
 def shortcut_scores(features, labels, *, groups=None, seed=0, folds=5):

@@ -14,8 +14,9 @@ from augplan import __version__
 from augplan.atomic import write_bytes_atomic, write_text_atomic
 from augplan.cautions import CAUTIONS
 from augplan.coverage.coverage import analyse_coverage
-from augplan.data.dataset import ensure_outside_data, find_duplicates, fingerprint
+from augplan.data.dataset import find_duplicates, fingerprint
 from augplan.errors import BadInputError
+from augplan.workspace import ensure_outside_data
 from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
@@ -156,7 +157,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     """
     from augplan.render.html import render_report
 
-    ensure_outside_data(out_dir, dataset)
+    ensure_outside_data(out_dir, dataset.root)
     out_dir = prepare_output(out_dir, force=force)
     data_fingerprint = fingerprint(dataset)
     leaks = find_duplicates(dataset)
