@@ -80,6 +80,7 @@ from augplan.errors import BadInputError
 from augplan.thresholds import (MAX_FOLDS, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
                                 REGION_PERCENTILE, SCREEN_MARGIN, TURN_DEGREES)
 from augplan.parallel import parallel_map
+from augplan.results import CheckResult
 
 __all__ = [
     "DECISION_RULE",
@@ -939,8 +940,8 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
 
 
 def _document(recipe, baseline, labels, classes, report, warnings):
-    """The ``check --json`` document."""
-    return {
+    """The ``check --json`` document, typed."""
+    return CheckResult.from_json({
         "recipe": recipe.name,
         "model": {"cv_accuracy": round(baseline.cv_accuracy, 4), "chance": round(baseline.chance, 4),
                   "weak": baseline.weak, "folds": len(baseline.models)},
@@ -952,7 +953,7 @@ def _document(recipe, baseline, labels, classes, report, warnings):
         "warnings": warnings,
         "decision_rule": DECISION_RULE,
         "n_images": int(len(labels)),
-    }
+    })
 
 
 def _entry(t_index, transform, plan, screened, judged, classes, warnings):
@@ -1054,7 +1055,7 @@ def _separable_by_structure(images, labels, first, second, seed):
     of exposure or contrast barely moves; separable means a cross-validated
     balanced accuracy of at least 0.9 between the two classes.
     """
-    from augplan.coverage.coverage import shortcut_scores
+    from augplan.measure.shortcuts import shortcut_scores
     from augplan.measure.features import FEATURE_BLOCKS, image_features
 
     pair = np.isin(labels, [first, second])
@@ -1065,7 +1066,7 @@ def _separable_by_structure(images, labels, first, second, seed):
 
 def _singled_out(images, labels, classes, factor, seed):
     """One-vs-rest cross-validated balanced accuracy of each class from one factor."""
-    from augplan.coverage.coverage import factor_columns, shortcut_scores
+    from augplan.measure.shortcuts import factor_columns, shortcut_scores
     from augplan.measure.factors import FACTORS
 
     values = {factor: FACTORS[factor].function(images)}
