@@ -4,6 +4,7 @@ Nothing here computes anything the library cannot compute on its own.
 """
 
 import argparse
+import dataclasses
 import json
 import os
 import sys
@@ -110,7 +111,6 @@ def _build_parser():
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
     p.add_argument("--plots", type=Path, default=None, help="folder for one histogram PNG per factor")
-    p.add_argument("--draws", type=_positive_int, default=4, help="augmented draws per training image (default 4)")
 
     p = commands.add_parser("evaluate", help="score recipes against a no-augmentation baseline")
     _common(p)
@@ -256,13 +256,14 @@ def _ensure_parent(path, dataset=None):
 
 
 def _emit(console, args, result, table):
-    """Warnings on stderr, then the JSON document or the human table."""
-    for warning in result.get("warnings", []):
+    """Warnings on stderr, then the JSON document or the human table; the exit code."""
+    for warning in getattr(result, "warnings", ()):
         console.warn(warning)
     if args.json:
-        console.emit_json(result)
+        console.emit_json(result.to_json())
     else:
         console.say(table(result))
+    return ExitCode.FLAGGED if result.flagged else ExitCode.OK
 
 
 def _run_check(args, console):
@@ -277,10 +278,7 @@ def _run_check(args, console):
     recipe = _read_recipes([args.recipe])[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, evidence_dir=args.evidence)
-    result["leaks"] = leaks
-    _emit(console, args, result, tables.check_table)
-    flagged = any(t["verdict"] != "safe" for t in result["transforms"])
-    return ExitCode.FLAGGED if flagged else ExitCode.OK
+    return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.check_table)
 
 
 def _run_coverage(args, console):
@@ -292,11 +290,12 @@ def _run_coverage(args, console):
     if args.plots is not None:
         _ensure_parent(args.plots, dataset)
     recipe = _read_recipes([args.recipe])[0]
-    result = analyse_coverage(dataset, recipe, draws=args.draws, seed=args.seed, workers=_execution(args),
-                              quiet=args.quiet, plots_dir=args.plots)
-    _emit(console, args, result, tables.coverage_table)
-    persists = any(s.get("flagged") and s.get("persists") for s in result["shortcuts"])
-    return ExitCode.FLAGGED if persists else ExitCode.OK
+    result = analyse_coverage(dataset, recipe, seed=args.seed, workers=_execution(args), quiet=args.quiet)
+    if args.plots is not None:
+        from augplan.render.plots import with_factor_plots
+
+        result = with_factor_plots(result, args.plots)
+    return _emit(console, args, result, tables.coverage_table)
 
 
 def _run_evaluate(args, console):
@@ -310,9 +309,7 @@ def _run_evaluate(args, console):
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
                               cache_dir=default_feature_cache(dataset.root), confirm_fraction=args.confirm_fraction)
-    result["leaks"] = leaks
-    _emit(console, args, result, tables.leaderboard_table)
-    return ExitCode.FLAGGED if any(r["flagged"] for r in result["recipes"]) else ExitCode.OK
+    return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.leaderboard_table)
 
 
 def _run_draft(args, console):
@@ -347,12 +344,16 @@ def _run_vet(args, console):
                           repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
                           cache_dir=default_feature_cache(dataset.root))
+    _say_vetted(console, args, summary)
+    return ExitCode.FLAGGED if summary.flagged else ExitCode.OK
+
+
+def _say_vetted(console, args, summary):
     if args.json:
-        console.emit_json(summary)
-    console.say(summary["verdict"])
-    console.say(f"report: {summary['report']}")
-    console.say(f"vetted recipe: {summary['vetted_recipe']}")
-    return ExitCode.OK if summary["unchanged"] else ExitCode.FLAGGED
+        console.emit_json(summary.to_json())
+    console.say(summary.verdict)
+    console.say(f"report: {summary.report}")
+    console.say(f"vetted recipe: {summary.vetted_recipe}")
 
 
 def _run_verify(args, console):
@@ -360,25 +361,24 @@ def _run_verify(args, console):
 
     result = verify_vetted(args.vetted, data=args.data)
     if args.json:
-        console.emit_json(result)
-    for line in result["messages"]:
+        console.emit_json(result.to_json())
+    for line in result.messages:
         console.say(line)
-    return ExitCode.OK if result["ok"] else ExitCode.FLAGGED
+    return ExitCode.FLAGGED if result.flagged else ExitCode.OK
 
 
 def _run_history(args, console):
-    from augplan.evaluate.ledger import list_history
+    from augplan.evaluate.ledger import history
     from augplan.data.dataset import fingerprint, open_dataset
     from augplan.render import text as tables
 
     dataset = open_dataset(args.data) if args.data else None
     ledger = args.ledger or default_ledger(dataset.root if dataset else None)
-    data_fingerprint = fingerprint(dataset) if dataset else None
-    rows = list_history(ledger, fingerprint=data_fingerprint)
+    result = history(ledger, fingerprint=fingerprint(dataset) if dataset else None)
     if args.json:
-        console.emit_json({"ledger": str(ledger), "evaluations": rows})
+        console.emit_json(result.to_json())
     else:
-        console.say(tables.history_table(rows))
+        console.say(tables.history_table(result.evaluations))
     return ExitCode.OK
 
 
@@ -386,11 +386,7 @@ def _run_demo(args, console):
     from augplan.demo import run_demo
 
     summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet)
-    if args.json:
-        console.emit_json(summary)
-    console.say(summary["verdict"])
-    console.say(f"report: {summary['report']}")
-    console.say(f"vetted recipe: {summary['vetted_recipe']}")
+    _say_vetted(console, args, summary)
     return ExitCode.OK
 
 

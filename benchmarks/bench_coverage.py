@@ -114,7 +114,8 @@ def main():
                 keep = set(r.relpath for r in train[:n]) | {r.relpath for r in dataset.records if r.split != "train"}
                 subset = dataclasses.replace(dataset, records=[r for r in dataset.records if r.relpath in keep])
             start = time.perf_counter()
-            result = analyse_coverage(subset, RECIPE, draws=args.draws, size=args.size, workers=args.workers)
+            result = analyse_coverage(subset, dataclasses.replace(RECIPE, copies=args.draws), size=args.size,
+                                      workers=args.workers)
             times[n] = time.perf_counter() - start
             counts = result["n_images"]
             print(f"analyse_coverage: {counts['train']} train images x (1 + {args.draws} draws) = "

@@ -12,6 +12,7 @@ from augplan.imaging.colour import encode_linear_to_uint8
 from augplan.data.dataset import open_dataset
 from augplan.measure.factors import FACTORS
 from augplan.recipe.parse import parse_recipe
+from augplan.render.plots import with_factor_plots
 
 
 # ------------------------------------------------------------ circular maths
@@ -166,8 +167,8 @@ def reports(lighting_shortcut, tmp_path_factory):
     plots = tmp_path_factory.mktemp("plots")
     return {
         "none": coverage.analyse_coverage(lighting_shortcut, NO_AUGMENTATION, size=32),
-        "relight": coverage.analyse_coverage(lighting_shortcut, BREAK_LIGHTING, size=32,
-                                             plots_dir=plots),
+        "relight": with_factor_plots(coverage.analyse_coverage(lighting_shortcut, BREAK_LIGHTING, size=32),
+                                     plots),
     }
 
 

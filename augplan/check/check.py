@@ -76,6 +76,7 @@ from augplan.errors import BadInputError
 from augplan.thresholds import (BREAK_MARGIN, CONFIDENCE, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
                                 REGION_PERCENTILE, beyond_chance)
 from augplan.parallel import parallel_map
+from augplan.results import CheckResult
 
 __all__ = [
     "DECISION_RULE",
@@ -466,7 +467,7 @@ def _separable_by_structure(images, labels, first, second, seed):
     of exposure or contrast barely moves; separable means a cross-validated
     balanced accuracy of at least 0.9 between the two classes.
     """
-    from augplan.coverage.coverage import shortcut_scores
+    from augplan.measure.shortcuts import shortcut_scores
     from augplan.measure.features import FEATURE_BLOCKS, image_features
 
     pair = np.isin(labels, [first, second])
@@ -477,7 +478,7 @@ def _separable_by_structure(images, labels, first, second, seed):
 
 def _singled_out(images, labels, classes, factor, seed):
     """One-vs-rest cross-validated balanced accuracy of each class from one factor."""
-    from augplan.coverage.coverage import factor_columns, shortcut_scores
+    from augplan.measure.shortcuts import factor_columns, shortcut_scores
     from augplan.measure.factors import FACTORS
 
     values = {factor: FACTORS[factor].function(images)}
@@ -786,7 +787,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
 
     _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
 
-    return {
+    return CheckResult.from_json({
         "recipe": recipe.name,
         "model": {"cv_accuracy": round(cv_accuracy, 4) if math.isfinite(cv_accuracy) else None,
                   "chance": round(chance, 4), "weak": weak},
@@ -797,7 +798,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         "warnings": warnings,
         "decision_rule": DECISION_RULE,
         "n_images": int(len(labels)),
-    }
+    })
 
 
 def _round_robin(groups, limit):

@@ -38,6 +38,7 @@ from augplan.errors import BadInputError
 from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 from augplan.parallel import parallel_map, resolve_workers, single_threaded
 from augplan.recipe.parse import Recipe, recipe_hash
+from augplan.results import EvaluateResult
 from augplan.thresholds import MANY_RECIPES_WARNING_LIMIT
 from augplan.workspace import ensure_outside_data
 from augplan.augment.transforms import augment_batch
@@ -579,4 +580,4 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
         _ledger.record_run(ledger_path, data_root=dataset.root,
                            recipe_names=[r.name for r in recipes], best_recipe=best["name"],
                            best_gain=best["gain"], from_ledger=document["from_ledger"], **ledger_keys)
-    return document
+    return EvaluateResult.from_json(document)

@@ -16,7 +16,7 @@ from pathlib import Path
 
 from augplan.errors import BadInputError
 
-__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history"]
+__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history", "history"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS evaluations (
@@ -199,3 +199,17 @@ def list_history(ledger_path, fingerprint=None):
          "from_ledger": bool(from_ledger)}
         for created, fp, data_root, names, best_recipe, best_gain, seed, repeats, from_ledger in rows
     ]
+
+
+def history(ledger_path, fingerprint=None):
+    """The ``history --json`` result: the ledger's path and its past comparisons.
+
+    Parameters are those of `list_history`.
+
+    Returns
+    -------
+    augplan.results.HistoryResult
+    """
+    from augplan.results import HistoryResult
+
+    return HistoryResult(ledger=str(ledger_path), evaluations=list_history(ledger_path, fingerprint=fingerprint))

@@ -21,6 +21,7 @@ from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
 from augplan.recipe.parse import recipe_hash, recipe_to_dict
+from augplan.results import VetResult
 
 __all__ = ["vet_recipes", "prepare_output"]
 
@@ -137,10 +138,11 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
 
     Returns
     -------
-    dict
-        ``{"verdict", "report", "vetted_recipe", "evidence", "unchanged", "best"}``.
+    augplan.results.VetResult
+        ``verdict``, ``report``, ``vetted_recipe``, ``evidence``, ``unchanged``, ``best``.
     """
     from augplan.render.html import render_report
+    from augplan.render.plots import with_factor_plots
 
     ensure_outside_data(out_dir, dataset.root)
     out_dir = prepare_output(out_dir, force=force)
@@ -155,8 +157,8 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             _stage(quiet, f"[{number + 1}/{len(recipes)}] {recipe.name}: label safety and coverage")
             check = check_recipe(dataset, recipe, sample=sample, seed=seed, workers=workers, quiet=quiet,
                                  evidence_dir=scratch / f"evidence-{number}")
-            coverage = analyse_coverage(dataset, recipe, seed=seed, workers=workers, quiet=quiet,
-                                        plots_dir=scratch / f"plots-{number}")
+            coverage = with_factor_plots(analyse_coverage(dataset, recipe, seed=seed, workers=workers,
+                                                          quiet=quiet), scratch / f"plots-{number}")
             vetted, changes = vet_transforms(recipe, check, approve=approve, coverage_result=coverage)
             rechecked = None
             if any(change["action"] in ("relabel", "scope") for change in changes):
@@ -240,6 +242,6 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         write_text_atomic(out_dir / "report.html", html)
 
     unchanged = all(entry["vetted"]["unchanged"] for entry in entries)
-    return {"verdict": verdict, "report": str(out_dir / "report.html"),
-            "vetted_recipe": str(out_dir / "vetted-recipe.yaml"), "evidence": str(out_dir / "evidence.json"),
-            "unchanged": unchanged, "best": best_entry["name"]}
+    return VetResult(verdict=verdict, report=str(out_dir / "report.html"),
+                     vetted_recipe=str(out_dir / "vetted-recipe.yaml"), evidence=str(out_dir / "evidence.json"),
+                     unchanged=unchanged, best=best_entry["name"])
