@@ -34,6 +34,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Callable
 
+import cv2
 import numpy as np
 from skimage.filters import threshold_otsu
 
@@ -62,6 +63,9 @@ __all__ = [
 # Images processed together inside measure_factors: bounds the float32
 # temporaries to a few tens of MB at 128 x 128.
 _CHUNK = 128
+
+# Rows give rg = R - G and yb = (R + G) / 2 - B (Hasler and Suesstrunk).
+_OPPONENT = np.array([[1.0, -1.0, 0.0], [0.5, 0.5, -1.0]], dtype=np.float32)
 
 
 def check_batch(images, *, name="images"):
@@ -134,7 +138,9 @@ def brightness(images):
 
 
 def _contrast_of(lum):
-    return lum.std(axis=(1, 2), dtype=np.float64)
+    # cv2.meanStdDev accumulates the float32 pixels in float64, like
+    # numpy's std with dtype float64, in one pass per image.
+    return np.array([cv2.meanStdDev(image)[1][0, 0] for image in lum], dtype=np.float64)
 
 
 def rms_contrast(images):
@@ -186,15 +192,15 @@ def colourfulness(images):
        images", Proc. SPIE 5007, 2003, equation (3) and table 2.
     """
     images = check_batch(images)
-    out = np.empty(images.shape[0], dtype=np.float64)
-    for start in range(0, images.shape[0], _CHUNK):
-        block = images[start:start + _CHUNK].astype(np.float32)
-        red, green, blue = block[..., 0], block[..., 1], block[..., 2]
-        rg = red - green
-        yb = 0.5 * (red + green) - blue
-        sigma = np.sqrt(rg.var(axis=(1, 2), dtype=np.float64) + yb.var(axis=(1, 2), dtype=np.float64))
-        mu = np.hypot(rg.mean(axis=(1, 2), dtype=np.float64), yb.mean(axis=(1, 2), dtype=np.float64))
-        out[start:start + _CHUNK] = sigma + 0.3 * mu
+    n, height, width = images.shape[:3]
+    out = np.empty(n, dtype=np.float64)
+    for start in range(0, n, _CHUNK):
+        block = images[start:start + _CHUNK].astype(np.float32).reshape(-1, width, 3)
+        # One cv2.transform gives the rg and yb planes in float32.
+        opponent = cv2.transform(block, _OPPONENT).reshape(-1, height, width, 2)
+        for i, planes in enumerate(opponent):
+            mean, std = cv2.meanStdDev(planes)
+            out[start + i] = np.hypot(std[0, 0], std[1, 0]) + 0.3 * np.hypot(mean[0, 0], mean[1, 0])
     return out
 
 
@@ -224,19 +230,21 @@ def hue(images):
     .. [2] A. R. Smith, "Color gamut transform pairs", SIGGRAPH '78 (HSV).
     """
     images = check_batch(images)
-    out = np.empty(images.shape[0], dtype=np.float64)
-    n_pixels = images.shape[1] * images.shape[2]
-    for start in range(0, images.shape[0], _CHUNK):
-        block = images[start:start + _CHUNK].astype(np.float32)
-        block *= np.float32(1.0 / 255.0)
-        hsv = rgb_to_hsv(block)
-        angle = hsv[..., 0] * np.float32(2.0 * np.pi)
-        weight = hsv[..., 1]
-        c = (weight * np.cos(angle)).sum(axis=(1, 2), dtype=np.float64)
-        s = (weight * np.sin(angle)).sum(axis=(1, 2), dtype=np.float64)
+    n, height, width = images.shape[:3]
+    out = np.empty(n, dtype=np.float64)
+    for start in range(0, n, _CHUNK):
+        block = images[start:start + _CHUNK].astype(np.float32).reshape(-1, width, 3)
+        # OpenCV's float RGB -> HSV is the same hexcone model (hue in
+        # degrees, saturation in [0, 1], both independent of the 0-255
+        # scale); cv2.polarToCart forms s cos(h) and s sin(h) in one pass.
+        hsv = cv2.cvtColor(block, cv2.COLOR_RGB2HSV)
+        c, s = cv2.polarToCart(np.ascontiguousarray(hsv[..., 1]), np.ascontiguousarray(hsv[..., 0]),
+                               angleInDegrees=True)
+        c = c.reshape(-1, height * width).sum(axis=1, dtype=np.float64)
+        s = s.reshape(-1, height * width).sum(axis=1, dtype=np.float64)
         degrees = np.degrees(np.arctan2(s, c)) % 360.0
         # A resultant this short is float noise: the image has no mean hue.
-        degrees[np.hypot(c, s) < 1e-6 * n_pixels] = np.nan
+        degrees[np.hypot(c, s) < 1e-6 * height * width] = np.nan
         out[start:start + _CHUNK] = degrees
     return out
 
@@ -245,13 +253,13 @@ def hue(images):
 
 
 def _sharpness_of(lum):
-    # scipy.ndimage.laplace's stencil with its default 'reflect' border,
-    # which is numpy's 'symmetric' padding, done for the whole batch at once.
-    padded = np.pad(lum, ((0, 0), (1, 1), (1, 1)), mode="symmetric")
-    centre = padded[:, 1:-1, 1:-1]
-    laplacian = (padded[:, :-2, 1:-1] + padded[:, 2:, 1:-1]
-                 + padded[:, 1:-1, :-2] + padded[:, 1:-1, 2:] - 4.0 * centre)
-    return laplacian.var(axis=(1, 2), dtype=np.float64)
+    # ksize=1 is scipy.ndimage.laplace's 5-point stencil, and BORDER_REFLECT
+    # its default 'reflect' border (the edge pixel repeated).
+    out = np.empty(lum.shape[0], dtype=np.float64)
+    for i, image in enumerate(lum):
+        laplacian = cv2.Laplacian(image, cv2.CV_32F, ksize=1, borderType=cv2.BORDER_REFLECT)
+        out[i] = cv2.meanStdDev(laplacian)[1][0, 0] ** 2
+    return out
 
 
 def sharpness(images):
@@ -280,22 +288,23 @@ def sharpness(images):
 # -------------------------------------------------------------------- pose
 
 
-def _structure_tensor(lum):
-    # Sobel derivatives on the interior only, so the border adds no
+def _structure_tensor(image):
+    # Sobel derivatives kept on the interior only, so the border adds no
     # artificial edges; x points right and y points up (row index down),
-    # making angles counterclockwise like the rotate op.
-    dx = lum[:, :, 2:] - lum[:, :, :-2]
-    gx = dx[:, :-2] + 2.0 * dx[:, 1:-1] + dx[:, 2:]
-    dy = lum[:, :-2, :] - lum[:, 2:, :]
-    gy = dy[:, :, :-2] + 2.0 * dy[:, :, 1:-1] + dy[:, :, 2:]
-    jxx = (gx * gx).mean(axis=(1, 2), dtype=np.float64)
-    jyy = (gy * gy).mean(axis=(1, 2), dtype=np.float64)
-    jxy = (gx * gy).mean(axis=(1, 2), dtype=np.float64)
+    # making angles counterclockwise like the rotate op. cv2.Sobel's y
+    # derivative points down, hence the sign of jxy.
+    gx = cv2.Sobel(image, cv2.CV_32F, 1, 0, ksize=3)[1:-1, 1:-1]
+    down = cv2.Sobel(image, cv2.CV_32F, 0, 1, ksize=3)[1:-1, 1:-1]
+    n = gx.size
+    jxx = cv2.norm(gx, cv2.NORM_L2SQR) / n
+    jyy = cv2.norm(down, cv2.NORM_L2SQR) / n
+    jxy = -cv2.sumElems(cv2.multiply(gx, down))[0] / n
     return jxx, jyy, jxy
 
 
 def _pose_of(lum):
-    jxx, jyy, jxy = _structure_tensor(lum)
+    tensors = np.array([_structure_tensor(image) for image in lum], dtype=np.float64).reshape(-1, 3)
+    jxx, jyy, jxy = tensors.T
     angle = (0.5 * np.degrees(np.arctan2(2.0 * jxy, jxx - jyy))) % 180.0
     anisotropy = np.hypot(jxx - jyy, 2.0 * jxy)
     trace = jxx + jyy
@@ -303,9 +312,11 @@ def _pose_of(lum):
     coherence_value = np.where(flat, 0.0, anisotropy / np.where(flat, 1.0, trace))
     # A flat or perfectly isotropic image has no dominant orientation.
     angle = np.where(flat | (coherence_value < 1e-9), np.nan, angle)
-    mirrored = lum[:, :, ::-1]
-    spread = np.abs(lum - lum.mean(axis=(1, 2), keepdims=True)).mean(axis=(1, 2), dtype=np.float64)
-    difference = np.abs(lum - mirrored).mean(axis=(1, 2), dtype=np.float64)
+    n_pixels = lum.shape[1] * lum.shape[2]
+    spread = np.array([cv2.norm(image - image.mean(dtype=np.float32), cv2.NORM_L1) for image in lum],
+                      dtype=np.float64) / n_pixels
+    difference = np.array([cv2.norm(image, cv2.flip(image, 1), cv2.NORM_L1) for image in lum],
+                          dtype=np.float64) / n_pixels
     # |a - b| <= |a - m| + |b - m|, so the ratio lies in [0, 1].
     asym = np.where(spread <= 1e-12, 0.0, difference / np.where(spread <= 1e-12, 1.0, 2.0 * spread))
     return {"orientation": angle, "coherence": coherence_value, "asymmetry": asym}
