@@ -65,6 +65,9 @@ __all__ = [
 _CHUNK = 128
 
 # Rows give rg = R - G and yb = (R + G) / 2 - B (Hasler and Suesstrunk).
+# Histogram bins of the Otsu threshold: skimage.filters.threshold_otsu's default.
+_OTSU_BINS = 256
+
 _OPPONENT = np.array([[1.0, -1.0, 0.0], [0.5, 0.5, -1.0]], dtype=np.float32)
 
 
@@ -375,6 +378,47 @@ def asymmetry(images):
 # ----------------------------------------------------------------- framing
 
 
+def _otsu_thresholds(lum):
+    # skimage.filters.threshold_otsu on each float32 image at once: the same
+    # 256 bins of numpy.histogram (edges from numpy.linspace between the
+    # image's extremes, bin k holding edges[k] <= v < edges[k + 1], the last
+    # bin closed) and the same float32 cumulative sums, so the thresholds
+    # agree to the bit. Images must not be uniform.
+    n = lum.shape[0]
+    flat = lum.reshape(n, -1)
+    low, high = flat.min(axis=1), flat.max(axis=1)
+    edges = np.stack([np.linspace(a, b, _OTSU_BINS + 1, endpoint=True, dtype=lum.dtype)
+                      for a, b in zip(low, high)])
+    scale = (high - low)[:, None]
+    position = ((flat - low[:, None]) / scale) * np.float32(_OTSU_BINS)
+    whole = np.trunc(position)
+    index = whole.astype(np.int32)
+    index[index == _OTSU_BINS] -= 1
+    # numpy corrects the computed bin against the edges; only pixels within
+    # rounding reach of an edge can move (a wide bound on the float32 error
+    # of the position and of linspace's edges, in units of a bin).
+    reach = 1e-3 + _OTSU_BINS * 16 * np.finfo(lum.dtype).eps * np.maximum(abs(low), abs(high)) / scale[:, 0]
+    whole -= position
+    whole += np.float32(0.5)
+    near = np.nonzero(np.abs(whole) > (np.float32(0.5) - reach)[:, None])
+    edge_index = index[near]
+    value = flat[near]
+    edge_index[value < edges[near[0], edge_index]] -= 1
+    edge_index[(value >= edges[near[0], edge_index + 1]) & (edge_index != _OTSU_BINS - 1)] += 1
+    index[near] = edge_index
+    bins = index.astype(np.uint8).reshape(lum.shape)
+    # cv2.calcHist counts in float32, exact up to 2**24 pixels a bin.
+    counts = np.stack([cv2.calcHist([image], [0], None, [_OTSU_BINS], [0, _OTSU_BINS]).ravel()
+                       for image in bins])
+    centres = (edges[:, :-1] + edges[:, 1:]) / 2.0
+    weight1 = np.cumsum(counts, axis=1)
+    weight2 = np.cumsum(counts[:, ::-1], axis=1)[:, ::-1]
+    mean1 = np.cumsum(counts * centres, axis=1) / weight1
+    mean2 = (np.cumsum((counts * centres)[:, ::-1], axis=1) / weight2[:, ::-1])[:, ::-1]
+    between = weight1[:, :-1] * weight2[:, 1:] * (mean1[:, :-1] - mean2[:, 1:]) ** 2
+    return centres[np.arange(n), np.argmax(between, axis=1)]
+
+
 def _framing_of(lum):
     n, height, width = lum.shape
     cols = (np.arange(width, dtype=np.float64) + 0.5) / width
@@ -382,22 +426,21 @@ def _framing_of(lum):
     x = np.full(n, 0.5)
     y = np.full(n, 0.5)
     fraction = np.zeros(n)
-    border = np.zeros((height, width), dtype=bool)
-    border[0, :] = border[-1, :] = border[:, 0] = border[:, -1] = True
-    for i in range(n):
-        image = lum[i]
-        if image.min() == image.max():
-            continue
-        bright = image > threshold_otsu(image)
-        # Polarity: the side of the threshold that holds most of the border
-        # ring is background (objects are framed, backgrounds touch edges).
-        foreground = ~bright if bright[border].mean() > 0.5 else bright
-        count = foreground.sum()
-        if count == 0:
-            continue
-        fraction[i] = count / foreground.size
-        x[i] = foreground.sum(axis=0) @ cols / count
-        y[i] = foreground.sum(axis=1) @ rows / count
+    varied = lum.min(axis=(1, 2)) != lum.max(axis=(1, 2))
+    if not varied.any():
+        return {"centroid_x": x, "centroid_y": y, "area": fraction}
+    images = lum[varied]
+    bright = images > _otsu_thresholds(images)[:, None, None]
+    ring = np.concatenate([bright[:, 0, :], bright[:, -1, :], bright[:, 1:-1, 0], bright[:, 1:-1, -1]], axis=1)
+    # Polarity: the side of the threshold that holds most of the border
+    # ring is background (objects are framed, backgrounds touch edges).
+    foreground = bright ^ (ring.mean(axis=1) > 0.5)[:, None, None]
+    count = foreground.sum(axis=(1, 2))
+    some = count > 0
+    safe = np.where(some, count, 1)
+    fraction[varied] = count / (height * width)
+    x[varied] = np.where(some, foreground.sum(axis=1) @ cols / safe, 0.5)
+    y[varied] = np.where(some, foreground.sum(axis=2) @ rows / safe, 0.5)
     return {"centroid_x": x, "centroid_y": y, "area": fraction}
 
 
@@ -422,7 +465,8 @@ def framing_factors(images):
     form the bright side. Polarity rule: if more than half of the
     one-pixel border ring is bright, the background is bright and the
     foreground is the dark side; otherwise the foreground is the bright
-    side. Loops over images (one threshold each).
+    side. The thresholds of a batch are computed together, bit for bit
+    those of ``threshold_otsu`` on each image.
 
     References
     ----------
