@@ -476,7 +476,7 @@ def _run_demo(args, console):
 
     summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     _say_vetted(console, args, summary)
-    return ExitCode.OK
+    return ExitCode.FLAGGED if summary.flagged else ExitCode.OK  # as vet exits
 
 
 _COMMANDS = {
