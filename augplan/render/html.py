@@ -391,7 +391,7 @@ def _check_section(entry, number, base_dir):
     if rows:
         out.append(_table(
             ["#", "transform", "verdict", "moved to another class<br>(95% CI)",
-             "left every class<br>(95% CI)", "main swaps", "safe limit", "what vetting did"],
+             "outside every class<br>(95% CI)", "main swaps", "safe limit", "what vetting did"],
             rows, numeric=(0, 3, 4), row_classes=row_classes, wide=True))
     else:
         out.append('<p class="note">The check recorded no transforms.</p>')

@@ -69,7 +69,7 @@ def check_table(result):
     model = result["model"]
     head = (f"recipe {result['recipe']}: proxy model cross-validated accuracy "
             f"{model['cv_accuracy']:.2f} (chance {model.get('chance', float('nan')):.2f})")
-    table = format_table(["#", "transform", "verdict", "changed [95% CI]", "left", "safe limit"], rows)
+    table = format_table(["#", "transform", "verdict", "moved [95% CI]", "outside", "safe limit"], rows)
     notes = []
     for t in result["transforms"]:
         swaps = [swap for swap in t["swaps"] if swap["rate"] >= 0.05]
@@ -84,8 +84,8 @@ def check_table(result):
                 notes.append(f"#{t['index']} {t['op']}: safe only for: {', '.join(suggestion['only'])}")
         if t.get("note"):
             notes.append(f"#{t['index']} {t['op']}: {t['note']}")
-    legend = ("changed: share of transformed images that land in another class;\n"
-              "left: share outside every class's region (nothing in the data can judge them)")
+    legend = ("moved: share of transformed images that land in another class's region;\n"
+              "outside: share outside every class's region (nothing in the data can judge them)")
     return "\n".join([wrap(head), table, *(wrap(note) for note in notes), legend])
 
 
