@@ -76,7 +76,7 @@ def stage_times(dataset, recipe, size=64, magnitudes=7):
     """Seconds of each stage of a check, done directly in this process."""
     from augplan.augment.transforms import apply_op_batch, magnitude_grid, params_at
     from augplan.data.dataset import load_images
-    from augplan.measure.features import FeatureModel
+    from augplan.measure.model import FeatureModel
 
     records = dataset.split("train")
     labels = np.array([r.label for r in records])
