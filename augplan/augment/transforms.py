@@ -87,6 +87,7 @@ from augplan.imaging.colour import (
     BT709_COEFFICIENTS,
     SRGB_TO_LINEAR_LUT,
     check_image,
+    check_rgb_batch,
     encode_linear_image,
     linear_tone_lut,
     mean_relative_luminance,
@@ -790,12 +791,7 @@ _POINTWISE = frozenset({"brightness", "saturation", "hue", "noise"})
 
 
 def _check_batch(images):
-    if not isinstance(images, np.ndarray) or images.dtype != np.uint8 or images.ndim != 4 \
-            or images.shape[-1] != 3 or 0 in images.shape[1:3]:
-        raise ValueError("images must be a uint8 batch of RGB images with shape (N, H, W, 3); got "
-                         f"{type(images).__name__} of shape {getattr(images, 'shape', None)} and dtype "
-                         f"{getattr(images, 'dtype', None)}")
-    return images
+    return check_rgb_batch(images)
 
 
 def apply_op_batch(images, op, params, rng):

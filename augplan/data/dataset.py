@@ -38,6 +38,7 @@ import numpy as np
 from PIL import Image, ImageOps
 
 from augplan.errors import BadInputError
+from augplan.imaging.colour import unit_to_uint8
 from augplan.thresholds import NEAR_DUPLICATE_BITS, NEAR_DUPLICATE_SSIM
 
 __all__ = [
@@ -236,7 +237,7 @@ def _to_rgb_array(image):
     if mode == "F":
         values = np.nan_to_num(np.asarray(image, dtype=np.float64), nan=0.0, posinf=0.0, neginf=0.0)
         if values.min() >= 0.0 and values.max() <= 1.0:
-            return _grey_to_rgb(np.rint(values * 255.0).astype(np.uint8))
+            return _grey_to_rgb(unit_to_uint8(values))
         return _grey_to_rgb(_min_max(values))
     return np.array(image.convert("RGB"), dtype=np.uint8)
 
