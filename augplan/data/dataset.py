@@ -47,6 +47,7 @@ __all__ = [
     "SPLITS",
     "NEAR_DUPLICATE_BITS",
     "open_dataset",
+    "stratified_choice",
     "read_image",
     "load_images",
     "fingerprint",
@@ -568,28 +569,45 @@ def _read_manifest(manifest, root, scanner):
 # Validation split
 
 
-def _stratified_val(records, val_fraction, seed):
-    """Move a ``val_fraction`` share of each class's training images to val.
+def stratified_choice(records, fraction, rng):
+    """The relative paths of a ``fraction`` share of each class's records, drawn with ``rng``.
 
-    Each class with at least two images gives ``round(fraction * n)`` images,
-    at least one and never all; single-image classes stay whole in train.
+    The one stratified split of augplan (the stand-in validation split, the
+    evaluator's confirmation split). Each class with at least two records
+    gives ``round(fraction * n)`` of them, at least one and never all; a
+    single-record class gives none. Classes are visited in sorted order and
+    each class's records in ``relpath`` order, so the draw depends only on
+    the records and ``rng``.
+
+    Parameters
+    ----------
+    records : sequence of ImageRecord
+    fraction : float
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    set of str
     """
-    rng = np.random.default_rng(seed)
     by_class = {}
-    for index, record in enumerate(records):
-        if record.split == "train":
-            by_class.setdefault(record.label, []).append(index)
-    to_val = set()
+    for record in records:
+        by_class.setdefault(record.label, []).append(record)
+    chosen = set()
     for label in sorted(by_class):
-        indices = sorted(by_class[label], key=lambda i: records[i].relpath)
-        n = len(indices)
+        group = sorted(by_class[label], key=lambda r: r.relpath)
+        n = len(group)
         if n < 2:
             continue
-        n_val = min(n - 1, max(1, int(round(val_fraction * n))))
-        chosen = rng.permutation(n)[:n_val]
-        to_val.update(indices[i] for i in chosen)
-    return [ImageRecord(r.path, r.relpath, r.label, "val", r.sha256) if i in to_val else r
-            for i, r in enumerate(records)]
+        n_take = min(n - 1, max(1, int(round(fraction * n))))
+        chosen.update(group[i].relpath for i in rng.permutation(n)[:n_take])
+    return chosen
+
+
+def _stratified_val(records, val_fraction, seed):
+    """Move a ``val_fraction`` share of each class's training images to val (see `stratified_choice`)."""
+    to_val = stratified_choice([r for r in records if r.split == "train"], val_fraction, np.random.default_rng(seed))
+    return [ImageRecord(r.path, r.relpath, r.label, "val", r.sha256) if r.split == "train" and r.relpath in to_val
+            else r for r in records]
 
 
 # --------------------------------------------------------------------------

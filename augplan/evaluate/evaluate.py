@@ -33,7 +33,7 @@ import numpy as np
 
 from augplan.evaluate import ledger as _ledger
 from augplan.measure import stats
-from augplan.data.dataset import Dataset, fingerprint, load_images
+from augplan.data.dataset import Dataset, fingerprint, load_images, stratified_choice
 from augplan.errors import BadInputError
 from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 from augplan.parallel import parallel_map, resolve_workers, single_threaded
@@ -285,16 +285,7 @@ def _carve_confirmation(val_records, fraction, seed):
     Every class keeps at least one validation image; a class with a single
     validation image gives none.
     """
-    rng = np.random.default_rng(_seed_sequence(seed, 0, _PURPOSE_SPLIT))
-    by_class = {}
-    for record in val_records:
-        by_class.setdefault(record.label, []).append(record)
-    chosen = set()
-    for label in sorted(by_class):
-        group = sorted(by_class[label], key=lambda r: r.relpath)
-        n_take = min(len(group) - 1, max(1, int(round(fraction * len(group)))))
-        if n_take > 0:
-            chosen.update(group[i].relpath for i in rng.permutation(len(group))[:n_take])
+    chosen = stratified_choice(val_records, fraction, np.random.default_rng(_seed_sequence(seed, 0, _PURPOSE_SPLIT)))
     keep = [r for r in val_records if r.relpath not in chosen]
     confirm = [r for r in val_records if r.relpath in chosen]
     return keep, confirm
