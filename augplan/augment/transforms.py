@@ -142,15 +142,8 @@ class OpSpec:
         ``(H, W, 3)`` image with a concrete magnitude ``value`` (flip: the
         axis name; shift: ``(fx, fy)``) and an OpenCV border mode (geometric
         ops); no checks, for the recipe runner's fast path.
-    magnitude : str or None
-        The range field (``"degrees"``, ``"factor"``, ``"fraction"``,
-        ``"sigma"``); None for flip.
-    identity : float or None
-        Magnitude that leaves the image unchanged (0 or 1); None for flip.
-    log_scale : bool
-        Ranges are sampled uniformly in log space (multiplicative factors).
-    geometric : bool
-        Uses the recipe's ``fill``.
+    magnitude, identity, log_scale, geometric
+        Copied from the op table, `augplan.recipe.ops.OpRule`.
     """
 
     name: str
