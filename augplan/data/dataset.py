@@ -614,6 +614,24 @@ def _stratified_val(records, val_fraction, seed):
 # Opening a data set
 
 
+def _training_classes(records, source):
+    """The sorted training classes; at least two, and every other split's class among them."""
+    classes = tuple(sorted({r.label for r in records if r.split == "train"}))
+    if not classes:
+        raise BadInputError(f"{source}: no training images found; expected "
+                            "train/<class>/<images> with at least two classes")
+    if len(classes) < 2:
+        raise BadInputError(f"{source}: only one training class ({classes[0]!r}); "
+                            "a classifier needs at least two")
+    for split in ("val", "test", "field"):
+        unknown = sorted({r.label for r in records if r.split == split and r.label is not None}
+                         - set(classes))
+        if unknown:
+            raise BadInputError(f"{source}: {split} has class(es) {', '.join(map(repr, unknown))} "
+                                f"that train lacks; train classes: {', '.join(classes)}")
+    return classes
+
+
 def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, seed=0, field=None):
     """Open a data set folder (or CSV manifest) and list its images.
 
@@ -679,20 +697,7 @@ def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, seed=0,
         records, has_val = _scan_folders(root, scanner, field)
         source = str(root)
 
-    classes = tuple(sorted({r.label for r in records if r.split == "train"}))
-    if not classes:
-        raise BadInputError(f"{source}: no training images found; expected "
-                            "train/<class>/<images> with at least two classes")
-    if len(classes) < 2:
-        raise BadInputError(f"{source}: only one training class ({classes[0]!r}); "
-                            "a classifier needs at least two")
-    for split in ("val", "test", "field"):
-        unknown = sorted({r.label for r in records if r.split == split and r.label is not None}
-                         - set(classes))
-        if unknown:
-            raise BadInputError(f"{source}: {split} has class(es) {', '.join(map(repr, unknown))} "
-                                f"that train lacks; train classes: {', '.join(classes)}")
-
+    classes = _training_classes(records, source)
     val_from_train, split_seed = False, None
     if has_val:
         if not any(r.split == "val" for r in records):
@@ -844,6 +849,20 @@ def _hash_file(path):
 _SPLIT_ORDER = {name: i for i, name in enumerate(SPLITS)}
 
 
+def _exact_duplicates(records):
+    """Pairs of records in different splits with the same file bytes (sha256)."""
+    exact, by_digest = [], {}
+    for record in records:
+        by_digest.setdefault(record.sha256, []).append(record)
+    for group in by_digest.values():
+        for i, first in enumerate(group):
+            for second in group[i + 1:]:
+                if first.split != second.split:
+                    exact.append({"kind": "exact", "a": first.relpath, "b": second.relpath,
+                                  "splits": [first.split, second.split], "distance": 0})
+    return exact
+
+
 def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
     """Images shared between splits: exact copies and near copies.
 
@@ -890,16 +909,7 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
     from augplan.parallel import parallel_map
 
     records = sorted(dataset.records, key=lambda r: (_SPLIT_ORDER[r.split], r.relpath))
-    exact, near = [], []
-    by_digest = {}
-    for record in records:
-        by_digest.setdefault(record.sha256, []).append(record)
-    for group in by_digest.values():
-        for i, first in enumerate(group):
-            for second in group[i + 1:]:
-                if first.split != second.split:
-                    exact.append({"kind": "exact", "a": first.relpath, "b": second.relpath,
-                                  "splits": [first.split, second.split], "distance": 0})
+    exact, near = _exact_duplicates(records), []
     if near_threshold >= 0 and len(records) > 1:
         results = parallel_map(_hash_file, [r.path for r in records], workers=workers,
                                desc="hashing images")
