@@ -7,7 +7,9 @@ import argparse
 import dataclasses
 import json
 import os
+import signal
 import sys
+import threading
 import traceback
 from enum import IntEnum
 from pathlib import Path
@@ -27,13 +29,18 @@ class ExitCode(IntEnum):
     BAD_INPUT = 2   # bad input or usage
     INTERNAL = 3    # a bug in augplan: please report it
     INTERRUPTED = 130
+    TERMINATED = 143  # 128 + SIGTERM, as a shell reports it
+
+
+class _UsageError(BadInputError):
+    """A command-line usage fault; its text already starts with the command's name."""
 
 
 class _Parser(argparse.ArgumentParser):
     """An argument parser that raises instead of exiting, so main() returns codes."""
 
     def error(self, message):
-        raise BadInputError(f"{self.prog}: {message} (see '{self.prog} --help')")
+        raise _UsageError(f"{self.prog}: error: {message} (see '{self.prog} --help')")
 
 
 def _common(parser, *, data=True, json_flag=True):
@@ -42,9 +49,9 @@ def _common(parser, *, data=True, json_flag=True):
                             help="data folder (train/<class>/..., val/<class>/...) or a CSV manifest")
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
-    parser.add_argument("--seed", type=int, default=0, help="seed of the analysis (default 0)")
+    parser.add_argument("--seed", type=_seed, default=0, help="seed of the analysis (default 0)")
     if data:
-        parser.add_argument("--split-seed", type=int, default=0,
+        parser.add_argument("--split-seed", type=_seed, default=0,
                             help="seed of the stratified validation split made when DATA has no val/ "
                                  "(default 0); apart from --seed so the data stay the same across analyses")
     parser.add_argument("--quiet", action="store_true", help="no progress bars, no warnings on stderr")
@@ -52,6 +59,28 @@ def _common(parser, *, data=True, json_flag=True):
         parser.add_argument("--json", action="store_true",
                             help="print one JSON document on stdout; human text goes to stderr")
     parser.add_argument("--traceback", action="store_true", help="show the traceback of an unexpected error")
+
+
+def _seed(text):
+    """The one validation of --seed, shared by every command."""
+    from augplan.recipe.parse import MAX_SEED
+
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED}; got {text!r}") from None
+    if not 0 <= value <= MAX_SEED:
+        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED}; got {value}")
+    return value
+
+
+def _recipe_name(text):
+    from augplan.recipe.parse import recipe_name_fault
+
+    fault = recipe_name_fault(text)
+    if fault is not None:
+        raise argparse.ArgumentTypeError(f"a recipe name {fault}; got {text!r}")
+    return text
 
 
 def _positive_int(text):
@@ -76,6 +105,11 @@ def _workers(parser, *, ship_images=True):
                                  "workers that cannot see the data folder (files held in memory)")
 
 
+def _cache_flag(parser):
+    parser.add_argument("--cache", type=Path, default=None, metavar="DIR",
+                        help="feature cache of the original images (default .augplan/features beside DATA)")
+
+
 def _execution(args):
     """The cluster when --cluster (or AUGPLAN_CLUSTER) names one, else the worker count."""
     from augplan.parallel import resolve_workers
@@ -92,7 +126,7 @@ def _build_parser():
 
     p = commands.add_parser("preview", help="contact sheet of originals and augmented draws per class")
     _common(p, json_flag=False)
-    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
+    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("-o", "--output", required=True, type=Path, help="PNG file to write")
     p.add_argument("--per-class", type=_positive_int, default=3, help="images per class (default 3)")
     p.add_argument("--draws", type=_positive_int, default=5, help="augmented draws per image (default 5)")
@@ -100,7 +134,7 @@ def _build_parser():
     p = commands.add_parser("check", help="label safety of each transform")
     _common(p)
     _workers(p)
-    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
+    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class")
     p.add_argument("--evidence", type=Path, default=None,
                    help="folder for contact sheets of the images that moved")
@@ -108,38 +142,43 @@ def _build_parser():
     p = commands.add_parser("coverage", help="nuisance widening, field coverage, shortcut audit")
     _common(p)
     _workers(p)
-    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
+    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
     p.add_argument("--plots", type=Path, default=None, help="folder for one histogram PNG per factor")
 
     p = commands.add_parser("evaluate", help="score recipes against a no-augmentation baseline")
     _common(p)
     _workers(p)
-    p.add_argument("--recipe", required=True, type=Path, action="append", help="recipe YAML (repeatable)")
+    p.add_argument("--recipe", required=True, type=Path, action="append",
+                   help="recipe YAML (repeatable; '-': standard input)")
     p.add_argument("--repeats", type=_positive_int, default=5, help="independent draws and model seeds (default 5)")
     p.add_argument("--confirm-fraction", type=float, default=None,
                    help="carve this share of val out as a confirmation split scored once")
     p.add_argument("--ledger", type=Path, default=None,
                    help="results ledger (default .augplan/ledger.sqlite beside DATA)")
+    _cache_flag(p)
     p.add_argument("--field", type=Path, default=None, help="labelled field sample folder (default DATA/field)")
 
     p = commands.add_parser("draft", help="propose a candidate recipe from the data")
     _common(p, json_flag=False)
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
-    p.add_argument("-o", "--output", required=True, type=Path, help="recipe YAML to write")
-    p.add_argument("--name", default="draft", help="name of the drafted recipe (default 'draft')")
+    p.add_argument("-o", "--output", required=True, type=Path, help="recipe YAML to write ('-': standard output)")
+    p.add_argument("--name", type=_recipe_name, default="draft", help="name of the drafted recipe (default 'draft')")
 
     p = commands.add_parser("vet", help="the whole job: check, coverage, evaluate, report, vetted export")
     _common(p)
     _workers(p)
-    p.add_argument("--recipe", required=True, type=Path, action="append", help="recipe YAML (repeatable)")
+    p.add_argument("--recipe", required=True, type=Path, action="append",
+                   help="recipe YAML (repeatable; '-': standard input)")
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
     p.add_argument("-o", "--output", required=True, type=Path, help="output folder")
     p.add_argument("--force", action="store_true", help="write into an existing non-empty output folder")
     p.add_argument("--approve", default="", help="indices of unverified transforms to keep, e.g. 3,5")
     p.add_argument("--repeats", type=_positive_int, default=5, help="evaluation repeats (default 5)")
     p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class for check")
-    p.add_argument("--ledger", type=Path, default=None, help="results ledger path")
+    p.add_argument("--ledger", type=Path, default=None,
+                   help="results ledger (default .augplan/ledger.sqlite beside DATA)")
+    _cache_flag(p)
 
     p = commands.add_parser("verify", help="check a vetted recipe's checksum and validity")
     _common(p, data=False)
@@ -198,10 +237,17 @@ def _open_data(args, *, field=None):
     return dataset.with_image_bytes() if getattr(args, "ship_images", False) else dataset
 
 
-def _read_recipes(paths):
-    from augplan.recipe.parse import read_recipe
+def _read_recipes(paths, dataset):
+    """Read each recipe and check its class names against the data's classes."""
+    from augplan.recipe.parse import MAX_RECIPE_BYTES, check_recipe_classes, parse_recipe, read_recipe
 
-    recipes = [read_recipe(path) for path in paths]
+    if sum(str(path) == "-" for path in paths) > 1:
+        raise BadInputError("--recipe -: standard input can hold only one recipe")
+    # "-" reads standard input, bounded as a file is.
+    recipes = [parse_recipe(sys.stdin.buffer.read(MAX_RECIPE_BYTES + 1), source="<stdin>")
+               if str(path) == "-" else read_recipe(path) for path in paths]
+    for recipe in recipes:
+        check_recipe_classes(recipe, dataset.classes)
     names = [recipe.name for recipe in recipes]
     repeated = sorted({name for name in names if names.count(name) > 1})
     if repeated:
@@ -229,15 +275,38 @@ def _report_leaks(console, dataset):
     return leaks
 
 
+def _stores(args, dataset, console):
+    """The results ledger and feature cache of a run: outside the data folder.
+
+    Both default to ``.augplan/`` beside the data folder (for a manifest, the
+    folder it lies in). A cache folder that cannot be created (read-only
+    storage) turns the disk cache off with a warning instead of failing.
+    """
+    from augplan.workspace import ensure_outside_data
+
+    ledger = args.ledger or default_ledger(dataset.root)
+    cache = args.cache or default_feature_cache(dataset.root)
+    ensure_outside_data(ledger, dataset.root, what="results ledger")
+    ensure_outside_data(cache, dataset.root, what="feature cache")
+    try:
+        Path(cache).mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        if args.cache is not None:
+            raise
+        console.warn(f"{cache}: cannot hold the feature cache ({error.strerror}); features are computed "
+                     "afresh each run. Pass --cache DIR to keep them.")
+        cache = False
+    return ledger, cache
+
+
 def _run_preview(args, console):
     from augplan.render.sheets import preview_sheet, save_png
-    from augplan.recipe.parse import read_recipe
     import numpy as np
 
     dataset = _open_data(args)
     _report_dataset(console, dataset)
-    _ensure_parent(args.output, dataset)
-    recipe = read_recipe(args.recipe)
+    _ensure_parent(args.output, dataset, inputs=[args.recipe])
+    recipe = _read_recipes([args.recipe], dataset)[0]
     sheet = preview_sheet(dataset, recipe, per_class=args.per_class, draws=args.draws,
                           rng=np.random.default_rng(args.seed))
     save_png(sheet, args.output)
@@ -245,10 +314,14 @@ def _run_preview(args, console):
     return ExitCode.OK
 
 
-def _ensure_parent(path, dataset=None):
+def _ensure_parent(path, dataset=None, inputs=()):
     parent = Path(path).resolve().parent
     if not parent.is_dir():
         raise BadInputError(f"{path}: the folder {parent} does not exist")
+    for given in inputs:
+        if Path(path).exists() and Path(given).exists() and os.path.samefile(path, given):
+            raise BadInputError(f"{path}: is the input {given}; no output may replace an input. "
+                                "Choose another output file.")
     if dataset is not None:
         from augplan.workspace import ensure_outside_data
 
@@ -275,7 +348,7 @@ def _run_check(args, console):
     if args.evidence is not None:
         _ensure_parent(args.evidence, dataset)
     leaks = _report_leaks(console, dataset)
-    recipe = _read_recipes([args.recipe])[0]
+    recipe = _read_recipes([args.recipe], dataset)[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, evidence_dir=args.evidence)
     return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.check_table)
@@ -289,7 +362,7 @@ def _run_coverage(args, console):
     _report_dataset(console, dataset)
     if args.plots is not None:
         _ensure_parent(args.plots, dataset)
-    recipe = _read_recipes([args.recipe])[0]
+    recipe = _read_recipes([args.recipe], dataset)[0]
     result = analyse_coverage(dataset, recipe, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     if args.plots is not None:
         from augplan.render.plots import with_factor_plots
@@ -305,10 +378,11 @@ def _run_evaluate(args, console):
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
     leaks = _report_leaks(console, dataset)
-    recipes = _read_recipes(args.recipe)
+    recipes = _read_recipes(args.recipe, dataset)
+    ledger, cache = _stores(args, dataset, console)
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
-                              quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
-                              cache_dir=default_feature_cache(dataset.root), confirm_fraction=args.confirm_fraction)
+                              quiet=args.quiet, ledger_path=ledger, cache_dir=cache,
+                              confirm_fraction=args.confirm_fraction)
     return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.leaderboard_table)
 
 
@@ -318,8 +392,15 @@ def _run_draft(args, console):
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
-    _ensure_parent(args.output, dataset)
+    to_stdout = str(args.output) == "-"
+    if not to_stdout:
+        _ensure_parent(args.output, dataset)
     text = draft_recipe_text(dataset, name=args.name, seed=args.seed, quiet=args.quiet)
+    if to_stdout:  # "-" writes standard output; the note goes to stderr
+        console._write(sys.stdout, text)
+        print("augplan: drafted a recipe on standard output; run 'augplan check' on it before use",
+              file=sys.stderr)
+        return ExitCode.OK
     write_text_atomic(args.output, text)
     console.say(f"wrote {args.output}; run 'augplan check' on it before use")
     return ExitCode.OK
@@ -339,11 +420,11 @@ def _run_vet(args, console):
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
-    recipes = _read_recipes(args.recipe)
+    recipes = _read_recipes(args.recipe, dataset)
+    ledger, cache = _stores(args, dataset, console)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
                           repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
-                          quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
-                          cache_dir=default_feature_cache(dataset.root))
+                          quiet=args.quiet, ledger_path=ledger, cache_dir=cache)
     _say_vetted(console, args, summary)
     return ExitCode.FLAGGED if summary.flagged else ExitCode.OK
 
@@ -396,8 +477,27 @@ _COMMANDS = {
 }
 
 
+class _Terminated(BaseException):
+    """SIGTERM arrived: unwound like Ctrl-C, so every output in progress is removed."""
+
+
+def _on_sigterm(signum, frame):
+    raise _Terminated()
+
+
 def main(argv=None):
     """Run augplan with ``argv`` (default ``sys.argv[1:]``) and return the exit code."""
+    previous = None
+    if threading.current_thread() is threading.main_thread():
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    try:
+        return _main(argv)
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+def _main(argv):
     argv = sys.argv[1:] if argv is None else list(argv)
     show_traceback = "--traceback" in argv
     try:
@@ -411,6 +511,9 @@ def main(argv=None):
         return _COMMANDS[args.command](args, console)
     except SystemExit as stop:  # --help and --version
         return ExitCode.OK if stop.code in (0, None) else ExitCode.BAD_INPUT
+    except _UsageError as error:
+        print(error, file=sys.stderr)
+        return ExitCode.BAD_INPUT
     except BadInputError as error:
         print(f"augplan: error: {error}", file=sys.stderr)
         return ExitCode.BAD_INPUT
@@ -421,6 +524,9 @@ def main(argv=None):
     except KeyboardInterrupt:
         print("augplan: interrupted; no partial output was kept", file=sys.stderr)
         return ExitCode.INTERRUPTED
+    except _Terminated:
+        print("augplan: terminated (SIGTERM); no partial output was kept", file=sys.stderr)
+        return ExitCode.TERMINATED
     except Exception as error:  # a bug: say so plainly, traceback on request
         if show_traceback:
             traceback.print_exc()

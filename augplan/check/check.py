@@ -933,9 +933,10 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
                           workers, quiet, clock)
     report = [_entry(t, transforms[t], plans[t], screened[t], judged, classes, warnings)
               for t in range(len(transforms))]
-    if evidence_dir is not None:
-        _attach_evidence(report, screen, plans, evidence_dir, transforms, images, labels, classes)
     _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
+    if evidence_dir is not None:
+        # After the shortcut pass, so each sheet's heading carries the final verdict.
+        _attach_evidence(report, screen, plans, evidence_dir, transforms, images, labels, classes)
     return _document(recipe, baseline, labels, classes, report, warnings)
 
 

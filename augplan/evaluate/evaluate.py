@@ -27,6 +27,7 @@ Validation, confirmation and field splits are scored the same way.
 
 import hashlib
 import json
+from collections import Counter
 from pathlib import Path
 
 import numpy as np
@@ -98,16 +99,27 @@ def _featurize_originals(records, feature_fn, size, cache, *, workers=1, quiet=T
     """
     records = list(records)
     rows = cache.lookup([r.sha256 for r in records])
-    missing = [i for i, row in enumerate(rows) if row is None]
-    if missing:
-        chunks = [missing[i:i + _CHUNK] for i in range(0, len(missing), _CHUNK)]
-        computed = parallel_map(_featurize_chunk,
-                                [([records[i] for i in chunk], feature_fn, size) for chunk in chunks],
-                                workers=workers, desc="features of originals", quiet=quiet)
-        for chunk, block in zip(chunks, computed):
-            for i, row in zip(chunk, block):
-                rows[i] = row
-                cache.put(records[i].sha256, row)
+    for _ in range(2):
+        missing = [i for i, row in enumerate(rows) if row is None]
+        if missing:
+            chunks = [missing[i:i + _CHUNK] for i in range(0, len(missing), _CHUNK)]
+            computed = parallel_map(_featurize_chunk,
+                                    [([records[i] for i in chunk], feature_fn, size) for chunk in chunks],
+                                    workers=workers, desc="features of originals", quiet=quiet)
+            for chunk, block in zip(chunks, computed):
+                for i, row in zip(chunk, block):
+                    rows[i] = row
+                    cache.put(records[i].sha256, row)
+        # A stored row of another length than the rows just computed (or than
+        # most stored rows) is damaged: recompute it once.
+        lengths = Counter(row.size for row in rows)
+        expected = rows[missing[0]].size if missing else (lengths.most_common(1)[0][0] if rows else 0)
+        wrong = [i for i, row in enumerate(rows) if row.size != expected]
+        if not wrong:
+            break
+        for i in wrong:
+            cache.mark_damaged(records[i].sha256)
+            rows[i] = None
     if not records:
         return np.zeros((0, 0), dtype=np.float32)
     return np.stack(rows).astype(np.float32, copy=False)
@@ -480,25 +492,28 @@ def _scoring_splits(dataset, confirm_fraction, seed):
 
 
 def _feature_cache(dataset, cache_dir, model, size):
-    """The cache of original images' features, beside the data (never inside it)."""
+    """The cache of original images' features, beside the data (never inside it); ``cache_dir=False``: none."""
     root = Path(dataset.root).resolve()
-    cache_root = Path(cache_dir) if cache_dir is not None else default_cache_dir(root)
-    ensure_outside_data(cache_root, root, what="feature cache")
+    cache_root = None if cache_dir is False else (
+        Path(cache_dir) if cache_dir is not None else default_cache_dir(root))
+    if cache_root is not None:
+        ensure_outside_data(cache_root, root, what="feature cache")
     return FeatureCache(cache_root, feature_settings_key(model.feature_fn, size))
 
 
 def _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys, splits, run):
     """Baseline and recipe scores: from the ledger where it has them, trained for the rest.
 
-    Returns the baseline scores, ``{recipe_hash: result}`` and the ``(recipe,
-    hash)`` pairs that had to be trained.
+    Returns the baseline scores, ``{recipe_hash: result}``, the ``(recipe,
+    hash)`` pairs that had to be trained and the damaged feature-cache entries
+    that were recomputed.
     """
     stored_baseline, stored = None, {}
     if ledger_path is not None:
         stored_baseline, stored = _ledger.lookup_stored(ledger_path, recipe_hashes=hashes, **ledger_keys)
     missing = [(recipe, h) for recipe, h in zip(recipes, hashes) if h not in stored]
     if not missing:
-        return stored_baseline, stored, missing
+        return stored_baseline, stored, missing, []
     # Only the recipes the ledger lacks are trained; stored ones were scored
     # against the same deterministic baseline (same data, settings, seed,
     # repeats), so their results stand beside the new ones.
@@ -509,7 +524,7 @@ def _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys, splits, r
     if ledger_path is not None:
         _ledger.store_results(ledger_path, baseline=base_scores, results=computed, **ledger_keys)
     stored.update({result["recipe_hash"]: result for result in computed})
-    return base_scores, stored, missing
+    return base_scores, stored, missing, cache.damaged
 
 
 def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0, workers=1,
@@ -540,8 +555,8 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     ledger_path : str or Path, optional
         SQLite results ledger; results stored under the same keys are reused.
         ``None``: no ledger.
-    cache_dir : str or Path, optional
-        Folder of the feature cache of original images; default
+    cache_dir : str or Path or False, optional
+        ``False`` turns the disk cache off. Folder of the feature cache of original images; default
         ``<data parent>/.augplan/features``. Never inside the data folder.
     confirm_fraction : float, optional
         Without ``DATA/test/``, the share of each validation class set aside
@@ -587,11 +602,14 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     assemble = dict(repeats=repeats, seed=seed, confirm_source=confirm_source,
                     n_unlabelled_field=n_unlabelled, confirm_ignored=confirm_ignored)
 
-    base_scores, stored, missing = _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys, splits,
-                                           dict(repeats=repeats, size=size, seed=seed, workers=workers, quiet=quiet,
-                                                cache_dir=cache_dir))
+    base_scores, stored, missing, damaged = _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys,
+                                                    splits, dict(repeats=repeats, size=size, seed=seed,
+                                                                 workers=workers, quiet=quiet, cache_dir=cache_dir))
     results = [stored[h] for h in hashes]
     document = _assemble(dataset, base_scores, results, from_ledger=not missing, **assemble)
+    if damaged:
+        document["warnings"].append(f"{len(damaged)} damaged feature-cache entries (for example "
+                                    f"{damaged[0]}) were recomputed and rewritten.")
     document["reused_from_ledger"] = [r.name for r, h in zip(recipes, hashes)
                                       if h not in {m for _, m in missing}]
 

@@ -10,7 +10,7 @@ closes its own connection, so a crash never leaves the database locked.
 
 import json
 import sqlite3
-from contextlib import closing
+from contextlib import contextmanager
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -47,21 +47,67 @@ CREATE TABLE IF NOT EXISTS runs (
 """
 
 
+#: Schema version, kept in SQLite's ``user_version``; a ledger of another
+#: version (or another program's database) is refused, never altered.
+LEDGER_VERSION = 1
+_TABLES = {"evaluations", "runs"}
+
+
+def _unusable(path, problem):
+    return BadInputError(f"{path}: {problem}; pass another --ledger path, or move this file away "
+                         "to start a new ledger.")
+
+
 def _connect(ledger_path, *, create):
     path = Path(ledger_path)
     if not create and not path.exists():
         return None
+    if path.is_dir():
+        raise _unusable(path, "is a folder, not a ledger file")
     if create:
         path.parent.mkdir(parents=True, exist_ok=True)
+    connection = None
     try:
         connection = sqlite3.connect(path, timeout=30)
-        connection.executescript(_SCHEMA)
+        version = connection.execute("PRAGMA user_version").fetchone()[0]
+        tables = {row[0] for row in connection.execute(
+            "SELECT name FROM sqlite_master WHERE type='table' AND name NOT LIKE 'sqlite_%'")}
+        if version == 0 and tables and not tables <= _TABLES:
+            raise _unusable(path, f"an SQLite database of another program (tables: {', '.join(sorted(tables))}), "
+                                  "not an augplan ledger")
+        if version not in (0, LEDGER_VERSION):
+            raise _unusable(path, f"a ledger of schema version {version}; this augplan reads version "
+                                  f"{LEDGER_VERSION}")
+        if version == 0:
+            # A new file, or a ledger from before versions were kept: same tables.
+            with connection:
+                connection.executescript(_SCHEMA)
+                connection.execute(f"PRAGMA user_version = {LEDGER_VERSION}")
+        check = connection.execute("PRAGMA quick_check").fetchone()[0]
+        if check != "ok":
+            raise _unusable(path, f"the ledger is damaged (SQLite's check: {check})")
     except sqlite3.DatabaseError as error:
-        raise BadInputError(
-            f"{path}: not a usable augplan ledger (SQLite said: {error}); "
-            "pass another --ledger path or move this file away."
-        ) from error
+        if connection is not None:
+            connection.close()
+        raise _unusable(path, f"not a usable augplan ledger (SQLite said: {error})") from None
+    except BadInputError:
+        connection.close()
+        raise
     return connection
+
+
+@contextmanager
+def _session(ledger_path, *, create):
+    """A connection for one operation (None when the file is missing and
+    ``create`` is False); a database fault mid-way is bad input, not a crash."""
+    connection = _connect(ledger_path, create=create)
+    try:
+        yield connection
+    except sqlite3.DatabaseError as error:
+        raise _unusable(Path(ledger_path), f"not a usable augplan ledger (SQLite said: {error})") from None
+    finally:
+        if connection is not None:
+            connection.close()
 
 
 def _now():
@@ -78,11 +124,10 @@ def lookup_stored(ledger_path, *, fingerprint, settings_key, seed, repeats, reci
     results : dict
         ``{recipe_hash: result}`` for the recipes found.
     """
-    connection = _connect(ledger_path, create=False)
-    if connection is None:
-        return None, {}
     baseline, results = None, {}
-    with closing(connection):
+    with _session(ledger_path, create=False) as connection:
+        if connection is None:
+            return None, {}
         for recipe_hash in recipe_hashes:
             row = connection.execute(
                 "SELECT result_json, baseline_json FROM evaluations WHERE recipe_hash=? AND "
@@ -139,8 +184,7 @@ def store_results(ledger_path, *, fingerprint, settings_key, seed, repeats, base
     """
     baseline_text = json.dumps(baseline, sort_keys=True)
     created = _now()
-    connection = _connect(ledger_path, create=True)
-    with closing(connection), connection:
+    with _session(ledger_path, create=True) as connection, connection:
         connection.executemany(
             "INSERT OR REPLACE INTO evaluations VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
             [
@@ -154,8 +198,7 @@ def store_results(ledger_path, *, fingerprint, settings_key, seed, repeats, base
 def record_run(ledger_path, *, fingerprint, data_root, settings_key, seed, repeats,
                recipe_names, best_recipe, best_gain, from_ledger):
     """Append one comparison to the history (see `list_history`)."""
-    connection = _connect(ledger_path, create=True)
-    with closing(connection), connection:
+    with _session(ledger_path, create=True) as connection, connection:
         connection.execute(
             "INSERT INTO runs (created, fingerprint, data_root, settings_key, seed, repeats, "
             "recipes_json, best_recipe, best_gain, from_ledger) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
@@ -182,16 +225,15 @@ def list_history(ledger_path, fingerprint=None):
         (names), "best_recipe", "best_gain", "seed", "repeats",
         "from_ledger"}`` per comparison; ``date`` is UTC.
     """
-    connection = _connect(ledger_path, create=False)
-    if connection is None:
-        return []
     query = ("SELECT created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, "
              "repeats, from_ledger FROM runs")
     arguments = ()
     if fingerprint is not None:
         query += " WHERE fingerprint=?"
         arguments = (fingerprint,)
-    with closing(connection):
+    with _session(ledger_path, create=False) as connection:
+        if connection is None:
+            return []
         rows = connection.execute(query + " ORDER BY id", arguments).fetchall()
     return [
         {"date": created, "fingerprint": fp[:12], "data": data_root, "recipes": json.loads(names),

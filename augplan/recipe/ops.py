@@ -45,6 +45,8 @@ class Bound:
     def describe(self):
         """The bound in words for error messages ('' when any number will do)."""
         if self.minimum is not None and self.maximum is not None:
+            if self.exclusive_minimum:
+                return f"> {_number_text(self.minimum)} and <= {_number_text(self.maximum)}"
             return f"between {_number_text(self.minimum)} and {_number_text(self.maximum)}"
         if self.minimum is not None:
             return f"{'>' if self.exclusive_minimum else '>='} {_number_text(self.minimum)}"
@@ -107,23 +109,32 @@ class OpRule:
                                 "items": False}]}
 
 
-_ANY = Bound()
-_POSITIVE = Bound(minimum=0.0, exclusive_minimum=True)
-_NON_NEGATIVE = Bound(minimum=0.0)
+# Sane bounds: every value inside them is a meaningful augmentation that the
+# engine computes without overflow; values outside are typing slips (1e308)
+# or would wipe the image out. Common practice, no source: a full turn either
+# way, half the hue wheel either way, a tenfold zoom or tone change, a blur of
+# 20 pixels, noise as large as the whole 0..1 range.
+_TURN = Bound(minimum=-360.0, maximum=360.0)
+_HALF_WHEEL = Bound(minimum=-180.0, maximum=180.0)
+_ZOOM = Bound(minimum=0.1, maximum=10.0)
+_TONE = Bound(minimum=0.0, maximum=10.0, exclusive_minimum=True)
+_SATURATION = Bound(minimum=0.0, maximum=10.0)
 _UNIT = Bound(minimum=-1.0, maximum=1.0)
+_BLUR = Bound(minimum=0.0, maximum=20.0)
+_NOISE = Bound(minimum=0.0, maximum=1.0)
 
 OP_TABLE = {
     rule.name: rule
     for rule in (
         OpRule("flip", None, None, None, log_scale=False, geometric=False, example=None),
-        OpRule("rotate", "degrees", _ANY, 0.0, log_scale=False, geometric=True, example="[-15, 15]"),
-        OpRule("zoom", "factor", _POSITIVE, 1.0, log_scale=True, geometric=True, example="[0.9, 1.2]"),
+        OpRule("rotate", "degrees", _TURN, 0.0, log_scale=False, geometric=True, example="[-15, 15]"),
+        OpRule("zoom", "factor", _ZOOM, 1.0, log_scale=True, geometric=True, example="[0.9, 1.2]"),
         OpRule("shift", "fraction", _UNIT, 0.0, log_scale=False, geometric=True, example="[-0.1, 0.1]"),
-        OpRule("brightness", "factor", _POSITIVE, 1.0, log_scale=True, geometric=False, example="[0.6, 1.4]"),
-        OpRule("contrast", "factor", _POSITIVE, 1.0, log_scale=True, geometric=False, example="[0.8, 1.2]"),
-        OpRule("saturation", "factor", _NON_NEGATIVE, 1.0, log_scale=True, geometric=False, example="[0.7, 1.3]"),
-        OpRule("hue", "degrees", _ANY, 0.0, log_scale=False, geometric=False, example="[-10, 10]"),
-        OpRule("blur", "sigma", _NON_NEGATIVE, 0.0, log_scale=False, geometric=False, example="[0, 1.5]"),
-        OpRule("noise", "sigma", _NON_NEGATIVE, 0.0, log_scale=False, geometric=False, example="[0, 0.03]"),
+        OpRule("brightness", "factor", _TONE, 1.0, log_scale=True, geometric=False, example="[0.6, 1.4]"),
+        OpRule("contrast", "factor", _TONE, 1.0, log_scale=True, geometric=False, example="[0.8, 1.2]"),
+        OpRule("saturation", "factor", _SATURATION, 1.0, log_scale=True, geometric=False, example="[0.7, 1.3]"),
+        OpRule("hue", "degrees", _HALF_WHEEL, 0.0, log_scale=False, geometric=False, example="[-10, 10]"),
+        OpRule("blur", "sigma", _BLUR, 0.0, log_scale=False, geometric=False, example="[0, 1.5]"),
+        OpRule("noise", "sigma", _NOISE, 0.0, log_scale=False, geometric=False, example="[0, 0.03]"),
     )
 }

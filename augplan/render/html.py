@@ -22,6 +22,8 @@ import math
 import re
 from pathlib import Path
 
+from augplan.results import range_text
+
 __all__ = ["render_report", "embed_png"]
 
 _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
@@ -320,7 +322,7 @@ def _swaps_text(swaps, limit=2):
         return _DASH
     parts = []
     for swap in swaps[:limit]:
-        n = f", n={swap['n']}" if _is_number(swap.get("n")) else ""
+        n = f", {swap['n']} images moved" if _is_number(swap.get("n")) else ""
         parts.append(f"<span class=\"swap\">{_e(swap.get('from', '?'))} \u2192 {_e(swap.get('to', '?'))} "
                      f"{_percent(swap.get('rate'))}{n}</span>")
     more = f"<br><span class=\"note\">and {len(swaps) - limit} more</span>" if len(swaps) > limit else ""
@@ -331,8 +333,8 @@ def _limit_text(transform):
     pair = transform.get("safe_limit")
     if isinstance(pair, (list, tuple)) and len(pair) == 2:
         if pair[0] == pair[1]:
-            return f"{_number(pair[0])} only (no change is safe)"
-        return f"{_number(pair[0])} to {_number(pair[1])}"
+            return f"{range_text(pair)} only (no change is safe)"
+        return range_text(pair)
     if transform.get("magnitudes"):
         return "no safe magnitude"
     return _DASH
@@ -564,6 +566,10 @@ def _coverage_section(entry, number, base_dir):
                 flags.append("shortcut")
             if s.get("persists"):
                 flags.append("survives the recipe")
+            elif s.get("link") == "weakened":
+                flags.append("weakened, not broken, by the recipe")
+            elif s.get("link") == "broken":
+                flags.append("broken by the recipe")
             if s.get("combined"):
                 flags.append("all factors together, for information")
             rows.append([_e(s.get("factor", "?")), _score_cell(s.get("original")), _score_cell(s.get("augmented")),

@@ -52,7 +52,8 @@ def factor_plot_pngs(samples):
                       color=colour, label=f"{label} (n={values.size})")
         axes.set_xlabel(f"{name} ({factor.unit})")
         axes.set_ylabel("density")
-        axes.legend(fontsize=8)
+        if axes.get_legend_handles_labels()[0]:  # a factor with no finite values draws no curve
+            axes.legend(fontsize=8)
         figure.tight_layout()
         buffer = io.BytesIO()
         figure.savefig(buffer, format="png", metadata={"Software": None})

@@ -20,7 +20,7 @@ import yaml
 from augplan import __version__
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
-from augplan.results import VerifyResult
+from augplan.results import VerifyResult, range_text
 from augplan.recipe.parse import RecipeError, read_recipe_document, recipe_to_dict
 
 __all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
@@ -32,10 +32,6 @@ def creation_date():
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
     seconds = int(epoch) if epoch and epoch.isdigit() else time.time()
     return time.strftime("%Y-%m-%d", time.gmtime(seconds))
-
-
-def _range_text(pair):
-    return f"[{pair[0]:.3g}, {pair[1]:.3g}]"
 
 
 def _intersect(range_pair, limit):
@@ -70,7 +66,7 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     - ``unverified``: kept as it is when ``i`` is in ``approve``, or when
       the checker traced it to a shortcut of the data (``shortcut``) that
       the coverage analysis shows this recipe breaks (its factor is flagged
-      and no longer persists): removing it would keep the shortcut, and a
+      and no longer persists: the recipe weakens or breaks its link): removing it would keep the shortcut, and a
       person signs it off from the evidence; otherwise clipped to its safe
       limit when it has one; otherwise removed.
     - ``safe``: clipped to its safe limit when the limit is narrower than the
@@ -94,8 +90,10 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     """
     approve = set(approve)
     entries = {entry["index"]: entry for entry in check_result["transforms"]}
-    broken_shortcuts = {row["factor"] for row in (coverage_result or {}).get("shortcuts", [])
-                        if row.get("flagged") and not row.get("persists")}
+    # The recipe's link to each shortcut it weakens or breaks (coverage's rule names which).
+    loosened = {row["factor"]: ("breaks" if row.get("link") == "broken" else "weakens")
+                for row in (coverage_result or {}).get("shortcuts", [])
+                if row.get("flagged") and not row.get("persists")}
     kept, changes = [], []
     for index, step in enumerate(recipe.transforms):
         entry = entries[index]
@@ -113,22 +111,23 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
             new_step = dataclasses.replace(step, only=only, exclude=None)
         elif verdict == "unverified" and index in approve:
             detail = "unverified, kept: approved by a person (--approve)"
-        elif verdict == "unverified" and (entry.get("shortcut") or {}).get("factor") in broken_shortcuts:
+        elif verdict == "unverified" and (entry.get("shortcut") or {}).get("factor") in loosened:
             factor = entry["shortcut"]["factor"]
-            detail = (f"unverified, kept: it breaks the {factor} shortcut of the data, and the proxy "
+            detail = (f"unverified, kept: the recipe {loosened[factor]} the {factor} shortcut of the data "
+                      "(coverage's link rule), and the proxy "
                       f"model's objection follows that shortcut; a person signs it off from the evidence")
         elif verdict in ("breaks", "unverified"):
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {_range_text(entry['safe_limit'])}"
+                detail = f"clipped to the safe limit {range_text(entry['safe_limit'])}"
             else:
                 action, new_step, detail = "remove", None, f"removed: {verdict}"
         else:
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {_range_text(entry['safe_limit'])}"
+                detail = f"clipped to the safe limit {range_text(entry['safe_limit'])}"
         if new_step is not None:
             kept.append(new_step)
         changes.append({"index": index, "op": step.op, "verdict": verdict, "action": action,
@@ -148,13 +147,32 @@ def vetted_checksum(recipe, evidence):
     return hashlib.sha256(_canonical(document).encode("ascii")).hexdigest()
 
 
-def vetted_text(recipe, evidence):
-    """The vetted recipe file's YAML text: recipe body, evidence, checksum."""
+def _header(changes):
+    """The file's opening comment: what vetting did, in words the changes bear out."""
+    if changes is None:
+        lines = ["# Vetted by augplan; what changed is in the evidence block."]
+    else:
+        altered = sum(1 for c in changes if c["action"] != "keep")
+        signoff = sum(1 for c in changes if c["action"] == "keep" and c["verdict"] == "unverified")
+        lines = [f"# Vetted by augplan: {altered} transform{'s' if altered != 1 else ''} relabelled, scoped, "
+                 "clipped or removed by the label-safety check." if altered else
+                 "# Vetted by augplan: every transform kept as written."]
+        if signoff:
+            lines.append(f"# {signoff} kept transform{'s are' if signoff != 1 else ' is'} unverified and "
+                         "need a person's sign-off (needs_signoff).")
+    return "\n".join(lines + ["# See the evidence block. Editing any value invalidates the checksum",
+                              "# ('augplan verify' tells)."]) + "\n"
+
+
+def vetted_text(recipe, evidence, *, changes=None):
+    """The vetted recipe file's YAML text: a header, recipe body, evidence, checksum.
+
+    ``changes`` (the per-transform changes of `vet_transforms`) word the
+    header; the checksum covers body and evidence only.
+    """
     evidence = json.loads(_canonical(evidence))  # plain types only, so the YAML round-trips
     body = recipe_to_dict(recipe)
-    header = ("# Vetted by augplan. Transforms that broke labels were removed or rewritten;\n"
-              "# see the evidence block. Editing any value invalidates the checksum\n"
-              "# ('augplan verify' tells).\n")
+    header = _header(changes)
     text = yaml.safe_dump(body, sort_keys=False, default_flow_style=None, allow_unicode=True, width=100)
     text += yaml.safe_dump({"evidence": evidence}, sort_keys=True, default_flow_style=False,
                            allow_unicode=True, width=100)
@@ -196,7 +214,9 @@ def verify_vetted(path, *, data=None):
         ``path``, ``ok``, ``format_ok``, ``checksum_ok``, ``fingerprint_match``
         (None without ``data``) and ``messages``.
     """
-    if not Path(path).is_file():
+    if Path(path).is_dir():
+        raise BadInputError(f"{path}: is a folder; expected a vetted recipe file (vetted-*.yaml).")
+    if not Path(path).exists():
         raise BadInputError(f"{path}: vetted recipe file not found.")
     messages = []
     result = {"path": str(path), "ok": False, "format_ok": False, "checksum_ok": False,
@@ -209,6 +229,11 @@ def verify_vetted(path, *, data=None):
     result["format_ok"] = True
     if evidence is None or checksum is None:
         messages.append(f"{path}: a valid recipe, but not a vetted one (no evidence or checksum).")
+        return VerifyResult.from_json(result)
+    if not isinstance(evidence, dict) or not isinstance(checksum, str):
+        messages.append(f"{path}: not a vetted recipe: its 'evidence' must be a mapping and its "
+                        f"'checksum' a text; got {type(evidence).__name__} and {type(checksum).__name__}. "
+                        "Vet it again.")
         return VerifyResult.from_json(result)
     expected = vetted_checksum(recipe, evidence)
     result["checksum_ok"] = checksum == expected
