@@ -264,15 +264,23 @@ def _report_dataset(console, dataset):
 
 
 def _report_leaks(console, dataset):
+    """Duplicates across splits; they are listed once, as one warning of the result (see `_with_leaks`)."""
     from augplan.data.dataset import find_duplicates
 
-    leaks = find_duplicates(dataset)
-    for leak in leaks[:20]:
-        console.warn(f"{leak['kind']} duplicate across splits: {leak['a']} and {leak['b']} "
-                     "(it inflates validation scores)")
-    if len(leaks) > 20:
-        console.warn(f"... and {len(leaks) - 20} more duplicate pairs")
-    return leaks
+    return find_duplicates(dataset)
+
+
+def _with_leaks(result, leaks):
+    """The result with its ``leaks`` and, when there are any, one warning naming them (JSON and text alike)."""
+    warnings = list(result.warnings)
+    if leaks:
+        kinds = ", ".join(f"{sum(l['kind'] == kind for l in leaks)} {kind}" for kind in ("exact", "near")
+                          if any(l["kind"] == kind for l in leaks))
+        shown = "; ".join(f"{l['a']} and {l['b']}" for l in leaks[:3])
+        more = f"; and {len(leaks) - 3} more" if len(leaks) > 3 else ""
+        warnings.append(f"{len(leaks)} duplicate pairs across splits ({kinds}) inflate validation scores: "
+                        f"{shown}{more} (every pair under 'leaks' in --json)")
+    return dataclasses.replace(result, leaks=leaks, warnings=warnings)
 
 
 def _stores(args, dataset, console):
@@ -351,7 +359,7 @@ def _run_check(args, console):
     recipe = _read_recipes([args.recipe], dataset)[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, evidence_dir=args.evidence)
-    return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.check_table)
+    return _emit(console, args, _with_leaks(result, leaks), tables.check_table)
 
 
 def _run_coverage(args, console):
@@ -383,7 +391,7 @@ def _run_evaluate(args, console):
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, ledger_path=ledger, cache_dir=cache,
                               confirm_fraction=args.confirm_fraction)
-    return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.leaderboard_table)
+    return _emit(console, args, _with_leaks(result, leaks), tables.leaderboard_table)
 
 
 def _run_draft(args, console):
@@ -468,7 +476,7 @@ def _run_demo(args, console):
 
     summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     _say_vetted(console, args, summary)
-    return ExitCode.OK
+    return ExitCode.FLAGGED if summary.flagged else ExitCode.OK  # as vet exits
 
 
 _COMMANDS = {

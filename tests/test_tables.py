@@ -93,6 +93,6 @@ def test_one_safe_limit_reads_the_same_everywhere():
     ("brightness", 0.2, 0.5, "0.2 to 0.5"),
 ], ids=["hue-negative", "hue-past-360", "orientation", "linear"])
 def test_angle_ranges_print_on_their_circle(name, low, high, expected):
-    from augplan.render.text import _factor_range
+    from augplan.render.text import factor_range
 
-    assert _factor_range(name, low, high) == expected
+    assert factor_range(name, low, high) == expected

@@ -22,6 +22,8 @@ import math
 import re
 from pathlib import Path
 
+from augplan.measure.factors import FACTORS
+from augplan.render.text import factor_range
 from augplan.results import range_text
 
 __all__ = ["render_report", "embed_png"]
@@ -496,11 +498,16 @@ def _suggestion_text(suggestion):
     return _value_text(suggestion)
 
 
-def _range_text(stats):
+def _range_text(stats, factor=None):
     if not isinstance(stats, dict):
         return _DASH
     low, high = stats.get("p05"), stats.get("p95")
-    text = f"{_number(low)} to {_number(high)}" if _is_number(low) and _is_number(high) else _DASH
+    circular = factor is not None and getattr(FACTORS.get(factor), "circular", False)
+    if _is_number(low) and _is_number(high):
+        # Angles on their own circle, as in the text table and the plots.
+        text = factor_range(factor, low, high) if circular else f"{_number(low)} to {_number(high)}"
+    else:
+        text = _DASH
     if _is_number(stats.get("std")):
         text += f" <span class=\"note\">(sd {_number(stats['std'])})</span>"
     return text
@@ -550,7 +557,7 @@ def _coverage_section(entry, number, base_dir):
         for factor, info in factors.items():
             info = info if isinstance(info, dict) else {}
             unit = f' <span class="note">({_e(info["unit"])})</span>' if info.get("unit") else ""
-            rows.append([_e(factor) + unit, _range_text(info.get("original")), _range_text(info.get("augmented")),
+            rows.append([_e(factor) + unit, _range_text(info.get("original"), factor), _range_text(info.get("augmented"), factor),
                          _widening(info.get("original"), info.get("augmented")), _field_text(info.get("field"))])
         out.append("<h3>How far the recipe widens each factor</h3>")
         out.append(_table(["factor", "original 5th to 95th percentile", "augmented 5th to 95th percentile",

@@ -51,7 +51,7 @@ def format_range(value, digits=3):
     return str(value)
 
 
-def _factor_range(name, low, high):
+def factor_range(name, low, high):
     """A factor's 5-95% span; angles on their own circle (0-360 hue, 0-180 orientation), as the plots show."""
     if low is None or high is None:
         return "-"
@@ -120,8 +120,8 @@ def coverage_table(result):
         original, augmented = factor["original"], factor["augmented"]
         field = factor.get("field")
         rows.append([name, f"{original['std']:.3g}", f"{augmented['std']:.3g}",
-                     _factor_range(name, original['p05'], original['p95']),
-                     _factor_range(name, augmented['p05'], augmented['p95']),
+                     factor_range(name, original['p05'], original['p95']),
+                     factor_range(name, augmented['p05'], augmented['p95']),
                      f"{field['coverage']:.0%}" if field else "-"])
     widening = format_table(["factor", "std orig", "std aug", "5-95% orig", "5-95% aug", "field in"], rows)
     rows = []
