@@ -34,7 +34,7 @@ def test_a_field_set_later_goes_after_the_document_keys():
 
 def test_coverage_samples_stay_out_of_the_json():
     document = {"recipe": "r", "copies": 1, "size": 8, "n_images": {}, "field_labelled": False, "factors": {},
-                "field_coverage": None, "shortcuts": [{"flagged": True, "persists": False}],
+                "field_coverage": None, "shortcuts": [{"flagged": True, "persists": False, "link": "broken"}],
                 "shortcut_rule": "", "val_shares_shortcut": [], "messages": [], "suggestions": []}
     result = dataclasses.replace(CoverageResult.from_json(document), samples={"original": object()})
     assert json.loads(json.dumps(result.to_json())) == document
