@@ -46,7 +46,7 @@ from PIL import Image, ImageDraw
 from scipy.ndimage import gaussian_filter
 
 from augplan.atomic import write_bytes_atomic
-from augplan.imaging.colour import linear_to_srgb, srgb_to_linear
+from augplan.imaging.colour import linear_to_srgb, srgb_to_linear, unit_to_uint8
 
 __all__ = [
     "CLASSES",
@@ -218,7 +218,7 @@ def render_tile(label, rng, *, exposure, rotation, size=IMAGE_SIZE):
     encoded = linear_to_srgb(np.clip(linear, 0.0, 1.0)).astype(np.float64)
     # Sensor noise lands after exposure, on the recorded codes.
     encoded = encoded + rng.normal(0.0, rng.uniform(0.003, 0.007), size=encoded.shape)
-    return np.clip(np.rint(encoded * 255.0), 0, 255).astype(np.uint8)
+    return unit_to_uint8(encoded)
 
 
 def _png_bytes(image):

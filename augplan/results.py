@@ -66,6 +66,9 @@ class _Result(dict):
     """
 
     extra: Mapping = field(default_factory=dict, kw_only=True)
+    # Key order of the document a result was read from, so the JSON keeps it
+    # even where an analysis places a key the type does not list yet.
+    key_order: tuple = field(default=(), kw_only=True, repr=False, metadata={"json": False})
 
     def __post_init__(self):
         dict.update(self, self.to_json())
@@ -76,7 +79,7 @@ class _Result(dict):
         names = {f.name for f in dataclasses.fields(cls) if f.name != "extra" and f.metadata.get("json", True)}
         known = {key: value for key, value in document.items() if key in names}
         extra = {key: value for key, value in document.items() if key not in names}
-        return cls(**known, extra=extra)
+        return cls(**known, extra=extra, key_order=tuple(document))
 
     def to_json(self) -> dict[str, Any]:
         """The command's ``--json`` document: today's keys, in their order."""
@@ -88,6 +91,9 @@ class _Result(dict):
             if value is not _ABSENT:
                 document[f.name] = value
         document.update(self.extra)
+        if self.key_order:
+            rank = {key: position for position, key in enumerate(self.key_order)}
+            document = dict(sorted(document.items(), key=lambda item: rank.get(item[0], len(rank))))
         return document
 
     @property
@@ -153,6 +159,7 @@ class EvaluateResult(_Result):
     recipes: list
     scored_on: str
     accuracy_interval: str
+    gain_test: str
     augmented_validation_images: int
     repeats: int
     seed: int

@@ -445,3 +445,12 @@ def test_a_long_leak_list_is_summarised(tmp_path):
     assert len(page.table_with("splits")) == 1 + 25
     assert "60 near pairs across train / val" in page.all_text
     assert "first 25 of 60 pairs" in page.all_text
+
+
+def test_plot_captions_name_the_factor_of_vets_figure_files():
+    # vet names factor plots <number>-<recipe>-<factor>.png; the caption names the factor alone.
+    from augplan.render.html import _plot_items
+
+    plots = ["figures/0-naive-draft-centroid_x.png", "figures/0-naive-draft-hue.png", "plots/area.png"]
+    factors = {"centroid_x": {}, "hue": {}, "area": {}}
+    assert [factor for factor, _ in _plot_items(plots, factors)] == ["centroid_x", "hue", "area"]

@@ -87,10 +87,12 @@ from augplan.imaging.colour import (
     BT709_COEFFICIENTS,
     SRGB_TO_LINEAR_LUT,
     check_image,
+    check_rgb_batch,
     encode_linear_image,
     linear_tone_lut,
     mean_relative_luminance,
 )
+from augplan.recipe.ops import FILLS as RECIPE_FILLS, OP_TABLE
 
 __all__ = [
     "FILLS",
@@ -117,7 +119,8 @@ __all__ = [
 ]
 
 # Recipe fill name -> OpenCV border mode for geometric ops.
-FILLS = {"reflect": cv2.BORDER_REFLECT_101, "constant": cv2.BORDER_CONSTANT, "edge": cv2.BORDER_REPLICATE}
+_BORDERS = {"reflect": cv2.BORDER_REFLECT_101, "constant": cv2.BORDER_CONSTANT, "edge": cv2.BORDER_REPLICATE}
+FILLS = {fill: _BORDERS[fill] for fill in RECIPE_FILLS}
 
 _INVERSE_BILINEAR = cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP
 # Blur kernels reach 4 sigma each side, as scipy.ndimage's default truncate.
@@ -139,15 +142,8 @@ class OpSpec:
         ``(H, W, 3)`` image with a concrete magnitude ``value`` (flip: the
         axis name; shift: ``(fx, fy)``) and an OpenCV border mode (geometric
         ops); no checks, for the recipe runner's fast path.
-    magnitude : str or None
-        The range field (``"degrees"``, ``"factor"``, ``"fraction"``,
-        ``"sigma"``); None for flip.
-    identity : float or None
-        Magnitude that leaves the image unchanged (0 or 1); None for flip.
-    log_scale : bool
-        Ranges are sampled uniformly in log space (multiplicative factors).
-    geometric : bool
-        Uses the recipe's ``fill``.
+    magnitude, identity, log_scale, geometric
+        Copied from the op table, `augplan.recipe.ops.OpRule`.
     """
 
     name: str
@@ -474,20 +470,23 @@ def noise(image, params, rng):
     return _run_public("noise", image, params, rng)
 
 
+# The pixel work of each op; every other fact comes from the op table (augplan.recipe.ops).
+_IMPLEMENTATIONS = {
+    "flip": (flip, _flip_kernel),
+    "rotate": (rotate, _rotate_kernel),
+    "zoom": (zoom, _zoom_kernel),
+    "shift": (shift, _shift_kernel),
+    "brightness": (brightness, _brightness_kernel),
+    "contrast": (contrast, _contrast_kernel),
+    "saturation": (saturation, _saturation_kernel),
+    "hue": (hue, _hue_kernel),
+    "blur": (blur, _blur_kernel),
+    "noise": (noise, _noise_kernel),
+}
 OPS: dict[str, OpSpec] = {
-    spec.name: spec
-    for spec in (
-        OpSpec("flip", flip, _flip_kernel, None, None, log_scale=False, geometric=False),
-        OpSpec("rotate", rotate, _rotate_kernel, "degrees", 0.0, log_scale=False, geometric=True),
-        OpSpec("zoom", zoom, _zoom_kernel, "factor", 1.0, log_scale=True, geometric=True),
-        OpSpec("shift", shift, _shift_kernel, "fraction", 0.0, log_scale=False, geometric=True),
-        OpSpec("brightness", brightness, _brightness_kernel, "factor", 1.0, log_scale=True, geometric=False),
-        OpSpec("contrast", contrast, _contrast_kernel, "factor", 1.0, log_scale=True, geometric=False),
-        OpSpec("saturation", saturation, _saturation_kernel, "factor", 1.0, log_scale=True, geometric=False),
-        OpSpec("hue", hue, _hue_kernel, "degrees", 0.0, log_scale=False, geometric=False),
-        OpSpec("blur", blur, _blur_kernel, "sigma", 0.0, log_scale=False, geometric=False),
-        OpSpec("noise", noise, _noise_kernel, "sigma", 0.0, log_scale=False, geometric=False),
-    )
+    name: OpSpec(name, *_IMPLEMENTATIONS[name], rule.magnitude, rule.identity, log_scale=rule.log_scale,
+                 geometric=rule.geometric)
+    for name, rule in OP_TABLE.items()
 }
 
 
@@ -785,12 +784,7 @@ _POINTWISE = frozenset({"brightness", "saturation", "hue", "noise"})
 
 
 def _check_batch(images):
-    if not isinstance(images, np.ndarray) or images.dtype != np.uint8 or images.ndim != 4 \
-            or images.shape[-1] != 3 or 0 in images.shape[1:3]:
-        raise ValueError("images must be a uint8 batch of RGB images with shape (N, H, W, 3); got "
-                         f"{type(images).__name__} of shape {getattr(images, 'shape', None)} and dtype "
-                         f"{getattr(images, 'dtype', None)}")
-    return images
+    return check_rgb_batch(images)
 
 
 def apply_op_batch(images, op, params, rng):

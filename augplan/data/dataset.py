@@ -39,6 +39,7 @@ from PIL import Image, ImageOps
 
 from augplan.errors import BadInputError
 from augplan.files import UnreadableFileError, read_regular_file
+from augplan.imaging.colour import unit_to_uint8
 from augplan.thresholds import NEAR_DUPLICATE_BITS, NEAR_DUPLICATE_SSIM
 
 __all__ = [
@@ -47,6 +48,7 @@ __all__ = [
     "SPLITS",
     "NEAR_DUPLICATE_BITS",
     "open_dataset",
+    "stratified_choice",
     "read_image",
     "load_images",
     "fingerprint",
@@ -243,7 +245,7 @@ def _to_rgb_array(image):
     if mode == "F":
         values = np.nan_to_num(np.asarray(image, dtype=np.float64), nan=0.0, posinf=0.0, neginf=0.0)
         if values.min() >= 0.0 and values.max() <= 1.0:
-            return _grey_to_rgb(np.rint(values * 255.0).astype(np.uint8))
+            return _grey_to_rgb(unit_to_uint8(values))
         return _grey_to_rgb(_min_max(values))
     return np.array(image.convert("RGB"), dtype=np.uint8)
 
@@ -617,32 +619,67 @@ def _read_manifest(manifest, root, scanner):
 # Validation split
 
 
-def _stratified_val(records, val_fraction, seed):
-    """Move a ``val_fraction`` share of each class's training images to val.
+def stratified_choice(records, fraction, rng):
+    """The relative paths of a ``fraction`` share of each class's records, drawn with ``rng``.
 
-    Each class with at least two images gives ``round(fraction * n)`` images,
-    at least one and never all; single-image classes stay whole in train.
+    The one stratified split of augplan (the stand-in validation split, the
+    evaluator's confirmation split). Each class with at least two records
+    gives ``round(fraction * n)`` of them, at least one and never all; a
+    single-record class gives none. Classes are visited in sorted order and
+    each class's records in ``relpath`` order, so the draw depends only on
+    the records and ``rng``.
+
+    Parameters
+    ----------
+    records : sequence of ImageRecord
+    fraction : float
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    set of str
     """
-    rng = np.random.default_rng(seed)
     by_class = {}
-    for index, record in enumerate(records):
-        if record.split == "train":
-            by_class.setdefault(record.label, []).append(index)
-    to_val = set()
+    for record in records:
+        by_class.setdefault(record.label, []).append(record)
+    chosen = set()
     for label in sorted(by_class):
-        indices = sorted(by_class[label], key=lambda i: records[i].relpath)
-        n = len(indices)
+        group = sorted(by_class[label], key=lambda r: r.relpath)
+        n = len(group)
         if n < 2:
             continue
-        n_val = min(n - 1, max(1, int(round(val_fraction * n))))
-        chosen = rng.permutation(n)[:n_val]
-        to_val.update(indices[i] for i in chosen)
-    return [ImageRecord(r.path, r.relpath, r.label, "val", r.sha256) if i in to_val else r
-            for i, r in enumerate(records)]
+        n_take = min(n - 1, max(1, int(round(fraction * n))))
+        chosen.update(group[i].relpath for i in rng.permutation(n)[:n_take])
+    return chosen
+
+
+def _stratified_val(records, val_fraction, seed):
+    """Move a ``val_fraction`` share of each class's training images to val (see `stratified_choice`)."""
+    to_val = stratified_choice([r for r in records if r.split == "train"], val_fraction, np.random.default_rng(seed))
+    return [ImageRecord(r.path, r.relpath, r.label, "val", r.sha256) if r.split == "train" and r.relpath in to_val
+            else r for r in records]
 
 
 # --------------------------------------------------------------------------
 # Opening a data set
+
+
+def _training_classes(records, source):
+    """The sorted training classes; at least two, and every other split's class among them."""
+    classes = tuple(sorted({r.label for r in records if r.split == "train"}))
+    if not classes:
+        raise BadInputError(f"{source}: no training images found; expected "
+                            "train/<class>/<images> with at least two classes")
+    if len(classes) < 2:
+        raise BadInputError(f"{source}: only one training class ({classes[0]!r}); "
+                            "a classifier needs at least two")
+    for split in ("val", "test", "field"):
+        unknown = sorted({r.label for r in records if r.split == split and r.label is not None}
+                         - set(classes))
+        if unknown:
+            raise BadInputError(f"{source}: {split} has class(es) {', '.join(map(repr, unknown))} "
+                                f"that train lacks; train classes: {', '.join(classes)}")
+    return classes
 
 
 def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, seed=0, field=None):
@@ -710,20 +747,7 @@ def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, seed=0,
         records, has_val = _scan_folders(root, scanner, field)
         source = str(root)
 
-    classes = tuple(sorted({r.label for r in records if r.split == "train"}))
-    if not classes:
-        raise BadInputError(f"{source}: no training images found; expected "
-                            "train/<class>/<images> with at least two classes")
-    if len(classes) < 2:
-        raise BadInputError(f"{source}: only one training class ({classes[0]!r}); "
-                            "a classifier needs at least two")
-    for split in ("val", "test", "field"):
-        unknown = sorted({r.label for r in records if r.split == split and r.label is not None}
-                         - set(classes))
-        if unknown:
-            raise BadInputError(f"{source}: {split} has class(es) {', '.join(map(repr, unknown))} "
-                                f"that train lacks; train classes: {', '.join(classes)}")
-
+    classes = _training_classes(records, source)
     val_from_train, split_seed = False, None
     if has_val:
         if not any(r.split == "val" for r in records):
@@ -875,6 +899,20 @@ def _hash_file(path):
 _SPLIT_ORDER = {name: i for i, name in enumerate(SPLITS)}
 
 
+def _exact_duplicates(records):
+    """Pairs of records in different splits with the same file bytes (sha256)."""
+    exact, by_digest = [], {}
+    for record in records:
+        by_digest.setdefault(record.sha256, []).append(record)
+    for group in by_digest.values():
+        for i, first in enumerate(group):
+            for second in group[i + 1:]:
+                if first.split != second.split:
+                    exact.append({"kind": "exact", "a": first.relpath, "b": second.relpath,
+                                  "splits": [first.split, second.split], "distance": 0})
+    return exact
+
+
 def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
     """Images shared between splits: exact copies and near copies.
 
@@ -921,16 +959,7 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
     from augplan.parallel import parallel_map
 
     records = sorted(dataset.records, key=lambda r: (_SPLIT_ORDER[r.split], r.relpath))
-    exact, near = [], []
-    by_digest = {}
-    for record in records:
-        by_digest.setdefault(record.sha256, []).append(record)
-    for group in by_digest.values():
-        for i, first in enumerate(group):
-            for second in group[i + 1:]:
-                if first.split != second.split:
-                    exact.append({"kind": "exact", "a": first.relpath, "b": second.relpath,
-                                  "splits": [first.split, second.split], "distance": 0})
+    exact, near = _exact_duplicates(records), []
     if near_threshold >= 0 and len(records) > 1:
         results = parallel_map(_hash_file, [r.path for r in records], workers=workers,
                                desc="hashing images")

@@ -34,7 +34,7 @@ import numpy as np
 
 from augplan.evaluate import ledger as _ledger
 from augplan.measure import stats
-from augplan.data.dataset import Dataset, fingerprint, load_images
+from augplan.data.dataset import Dataset, fingerprint, load_images, stratified_choice
 from augplan.errors import BadInputError
 from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 from augplan.parallel import parallel_map, resolve_workers, single_threaded
@@ -297,16 +297,7 @@ def _carve_confirmation(val_records, fraction, seed):
     Every class keeps at least one validation image; a class with a single
     validation image gives none.
     """
-    rng = np.random.default_rng(_seed_sequence(seed, 0, _PURPOSE_SPLIT))
-    by_class = {}
-    for record in val_records:
-        by_class.setdefault(record.label, []).append(record)
-    chosen = set()
-    for label in sorted(by_class):
-        group = sorted(by_class[label], key=lambda r: r.relpath)
-        n_take = min(len(group) - 1, max(1, int(round(fraction * len(group)))))
-        if n_take > 0:
-            chosen.update(group[i].relpath for i in rng.permutation(len(group))[:n_take])
+    chosen = stratified_choice(val_records, fraction, np.random.default_rng(_seed_sequence(seed, 0, _PURPOSE_SPLIT)))
     keep = [r for r in val_records if r.relpath not in chosen]
     confirm = [r for r in val_records if r.relpath in chosen]
     return keep, confirm
@@ -471,6 +462,71 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
     }
 
 
+def _scoring_splits(dataset, confirm_fraction, seed):
+    """The original images each model is scored on: val, a confirmation split, the labelled field.
+
+    Returns
+    -------
+    (dict, str or None, bool, int)
+        ``{"val", "confirm"?, "field"?} -> records``, where the confirmation
+        split came from (None without one), whether ``confirm_fraction`` was
+        ignored because ``test/`` exists, and the count of unlabelled field images.
+    """
+    val = dataset.split("val")
+    splits = {"val": val}
+    confirm_source, confirm_ignored = None, False
+    if dataset.split("test"):
+        splits["confirm"] = dataset.split("test")
+        confirm_source = "test"
+        confirm_ignored = confirm_fraction is not None
+    elif confirm_fraction is not None:
+        kept, carved = _carve_confirmation(val, float(confirm_fraction), seed)
+        if carved:
+            splits["val"], splits["confirm"] = kept, carved
+            confirm_source = f"stratified {float(confirm_fraction):g} of val, seed {seed}"
+    field_records = dataset.split("field")
+    labelled_field = [r for r in field_records if r.label is not None]
+    if labelled_field:
+        splits["field"] = labelled_field
+    return splits, confirm_source, confirm_ignored, len(field_records) - len(labelled_field)
+
+
+def _feature_cache(dataset, cache_dir, model, size):
+    """The cache of original images' features, beside the data (never inside it); ``cache_dir=False``: none."""
+    root = Path(dataset.root).resolve()
+    cache_root = None if cache_dir is False else (
+        Path(cache_dir) if cache_dir is not None else default_cache_dir(root))
+    if cache_root is not None:
+        ensure_outside_data(cache_root, root, what="feature cache")
+    return FeatureCache(cache_root, feature_settings_key(model.feature_fn, size))
+
+
+def _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys, splits, run):
+    """Baseline and recipe scores: from the ledger where it has them, trained for the rest.
+
+    Returns the baseline scores, ``{recipe_hash: result}``, the ``(recipe,
+    hash)`` pairs that had to be trained and the damaged feature-cache entries
+    that were recomputed.
+    """
+    stored_baseline, stored = None, {}
+    if ledger_path is not None:
+        stored_baseline, stored = _ledger.lookup_stored(ledger_path, recipe_hashes=hashes, **ledger_keys)
+    missing = [(recipe, h) for recipe, h in zip(recipes, hashes) if h not in stored]
+    if not missing:
+        return stored_baseline, stored, missing, []
+    # Only the recipes the ledger lacks are trained; stored ones were scored
+    # against the same deterministic baseline (same data, settings, seed,
+    # repeats), so their results stand beside the new ones.
+    cache = _feature_cache(dataset, run["cache_dir"], model, run["size"])
+    base_scores, computed = _compute(dataset, [r for r, _ in missing], [h for _, h in missing], model,
+                                     repeats=run["repeats"], size=run["size"], seed=run["seed"],
+                                     workers=run["workers"], quiet=run["quiet"], cache=cache, splits=splits)
+    if ledger_path is not None:
+        _ledger.store_results(ledger_path, baseline=base_scores, results=computed, **ledger_keys)
+    stored.update({result["recipe_hash"]: result for result in computed})
+    return base_scores, stored, missing, cache.damaged
+
+
 def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0, workers=1,
                      quiet=True, ledger_path=None, cache_dir=None, confirm_fraction=None):
     """Score recipes by their accuracy gain over a no-augmentation baseline.
@@ -537,23 +593,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
         model = FeatureModel()
     repeats, size, seed = int(repeats), int(size), int(seed)
 
-    val = dataset.split("val")
-    splits = {"val": val}
-    confirm_source, confirm_ignored = None, False
-    if dataset.split("test"):
-        splits["confirm"] = dataset.split("test")
-        confirm_source = "test"
-        confirm_ignored = confirm_fraction is not None
-    elif confirm_fraction is not None:
-        kept, carved = _carve_confirmation(val, float(confirm_fraction), seed)
-        if carved:
-            splits["val"], splits["confirm"] = kept, carved
-            confirm_source = f"stratified {float(confirm_fraction):g} of val, seed {seed}"
-    field_records = dataset.split("field")
-    labelled_field = [r for r in field_records if r.label is not None]
-    if labelled_field:
-        splits["field"] = labelled_field
-    n_unlabelled = len(field_records) - len(labelled_field)
+    splits, confirm_source, confirm_ignored, n_unlabelled = _scoring_splits(dataset, confirm_fraction, seed)
 
     hashes = [recipe_hash(r) for r in recipes]
     data_key = fingerprint(dataset)
@@ -562,29 +602,9 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     assemble = dict(repeats=repeats, seed=seed, confirm_source=confirm_source,
                     n_unlabelled_field=n_unlabelled, confirm_ignored=confirm_ignored)
 
-    stored_baseline, stored, damaged = None, {}, []
-    if ledger_path is not None:
-        stored_baseline, stored = _ledger.lookup_stored(ledger_path, recipe_hashes=hashes, **ledger_keys)
-    missing = [(recipe, h) for recipe, h in zip(recipes, hashes) if h not in stored]
-    if not missing:
-        base_scores = stored_baseline
-    else:
-        # Only the recipes the ledger lacks are trained; stored ones were scored
-        # against the same deterministic baseline (same data, settings, seed,
-        # repeats), so their results stand beside the new ones.
-        root = Path(dataset.root).resolve()
-        cache_root = None if cache_dir is False else (
-            Path(cache_dir) if cache_dir is not None else default_cache_dir(root))
-        if cache_root is not None:
-            ensure_outside_data(cache_root, root, what="feature cache")
-        cache = FeatureCache(cache_root, feature_settings_key(model.feature_fn, size))
-        base_scores, computed = _compute(dataset, [r for r, _ in missing], [h for _, h in missing], model,
-                                         repeats=repeats, size=size, seed=seed, workers=workers,
-                                         quiet=quiet, cache=cache, splits=splits)
-        if ledger_path is not None:
-            _ledger.store_results(ledger_path, baseline=base_scores, results=computed, **ledger_keys)
-        stored.update({result["recipe_hash"]: result for result in computed})
-        damaged = cache.damaged
+    base_scores, stored, missing, damaged = _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys,
+                                                    splits, dict(repeats=repeats, size=size, seed=seed,
+                                                                 workers=workers, quiet=quiet, cache_dir=cache_dir))
     results = [stored[h] for h in hashes]
     document = _assemble(dataset, base_scores, results, from_ledger=not missing, **assemble)
     if damaged:

@@ -28,6 +28,8 @@ __all__ = [
     "SRGB_TO_LINEAR_LUT",
     "check_image",
     "check_rgb_image",
+    "check_rgb_batch",
+    "unit_to_uint8",
     "srgb_to_linear",
     "linear_to_srgb",
     "encode_linear_to_uint8",
@@ -93,6 +95,54 @@ def check_rgb_image(image, *, name="image"):
     if image.ndim != 3 or image.shape[2] != 3:
         raise ValueError(f"{name} must have shape (H, W, 3) (RGB, sRGB encoded); got shape {image.shape}")
     return image
+
+
+def check_rgb_batch(images, *, name="images", min_side=1):
+    """Return ``images`` if it is a uint8 batch ``(N, H, W, 3)`` of RGB images; raise otherwise.
+
+    Parameters
+    ----------
+    images : numpy.ndarray
+        Candidate batch, sRGB encoded.
+    name : str, optional
+        What to call the argument in the error message.
+    min_side : int, default 1
+        Fewest pixels each side needs (a measurement's own floor).
+
+    Returns
+    -------
+    numpy.ndarray
+        The same object, unchanged.
+
+    Raises
+    ------
+    ValueError
+        Wrong type, shape or dtype, or a side below ``min_side``.
+    """
+    if (not isinstance(images, np.ndarray) or images.dtype != np.uint8 or images.ndim != 4
+            or images.shape[-1] != 3):
+        hint = f"; {_FLOAT_HINT}" if isinstance(images, np.ndarray) and images.dtype.kind == "f" else ""
+        raise ValueError(f"{name} must be a uint8 batch of RGB images with shape (N, H, W, 3); got "
+                         f"{type(images).__name__} of shape {getattr(images, 'shape', None)} and dtype "
+                         f"{getattr(images, 'dtype', None)}{hint}")
+    if min(images.shape[1:3]) < min_side:
+        raise ValueError(f"{name} must be at least {min_side} x {min_side} pixels; "
+                         f"got {images.shape[1]} x {images.shape[2]}")
+    return images
+
+
+def unit_to_uint8(values):
+    """Values on [0, 1] -> 8-bit codes: ``round(255 v)``, clipped to 0..255 (ties to even, as numpy rounds).
+
+    Parameters
+    ----------
+    values : array_like of float
+
+    Returns
+    -------
+    numpy.ndarray of uint8
+    """
+    return np.clip(np.rint(np.asarray(values, dtype=np.float64) * 255.0), 0, 255).astype(np.uint8)
 
 
 def _float_array(values):

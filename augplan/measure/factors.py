@@ -38,7 +38,7 @@ import cv2
 import numpy as np
 from skimage.filters import threshold_otsu
 
-from augplan.imaging.colour import relative_luminance, rgb_to_hsv
+from augplan.imaging.colour import check_rgb_batch, relative_luminance, rgb_to_hsv
 
 __all__ = [
     "Factor",
@@ -91,16 +91,7 @@ def check_batch(images, *, name="images"):
     ValueError
         If the shape or dtype is not ``(N, H, W, 3)`` uint8 with H, W >= 3.
     """
-    if not isinstance(images, np.ndarray):
-        raise ValueError(
-            f"{name} must be a numpy array of shape (N, H, W, 3) and dtype uint8; "
-            f"got {type(images).__name__}"
-        )
-    if images.ndim != 4 or images.shape[3] != 3 or images.dtype != np.uint8:
-        raise ValueError(
-            f"{name} must have shape (N, H, W, 3) and dtype uint8 (RGB, sRGB encoded); "
-            f"got shape {images.shape} and dtype {images.dtype}"
-        )
+    check_rgb_batch(images, name=name)
     if images.shape[1] < 3 or images.shape[2] < 3:
         raise ValueError(
             f"{name} must be at least 3 x 3 pixels for the gradient factors; "

@@ -46,7 +46,7 @@ References
 
 import numpy as np
 
-from augplan.imaging.colour import relative_luminance, rgb_to_hsv
+from augplan.imaging.colour import check_rgb_batch, relative_luminance, rgb_to_hsv
 
 __all__ = [
     "image_features",
@@ -91,12 +91,7 @@ del _name, _size, _start, _sizes
 
 
 def _check_batch(images):
-    images = np.asarray(images)
-    if images.ndim != 4 or images.shape[-1] != 3 or images.dtype != np.uint8:
-        raise ValueError(
-            "images must be a uint8 batch of RGB images with shape (N, H, W, 3); "
-            f"got shape {images.shape} and dtype {images.dtype}."
-        )
+    images = check_rgb_batch(np.asarray(images))
     if min(images.shape[1:3]) < MIN_IMAGE_SIDE:
         raise ValueError(
             f"images must be at least {MIN_IMAGE_SIDE} x {MIN_IMAGE_SIDE} pixels; "

@@ -195,6 +195,51 @@ def _sign_patterns(n, rng, n_resamples):
     return blocks, False
 
 
+def _pattern_interval(signs, d, total, tolerance):
+    """Per sign pattern, the closed interval of shifts it counts as at least as extreme."""
+    n = d.size
+    a = signs.astype(float) @ d          # sum_i s_i d_i
+    c = signs.sum(axis=1).astype(float)  # sum_i s_i
+    # |a - c t| >= |total - n t| is q(t) = (c^2 - n^2) t^2 - 2 (a c - total n) t
+    # + (a^2 - total^2) >= 0, a closed interval around total / n.
+    lead = c * c - n * n
+    half = a * c - total * n
+    const = a * a - total * total
+    degenerate = np.abs(c) == n          # all signs equal: always as extreme
+    safe = np.where(degenerate, -1.0, lead)
+    root = np.sqrt(np.maximum(half * half - safe * const, 0.0))
+    low = np.where(degenerate, -np.inf, (half + root) / safe)
+    high = np.where(degenerate, np.inf, (half - root) / safe)
+    # Zero's membership is decided on q(0) itself, so rounding in the
+    # roots can never split the p-value from the interval.
+    counts_zero = const >= -tolerance
+    low = np.where(counts_zero, np.minimum(low, 0.0), low)
+    high = np.where(counts_zero, np.maximum(high, 0.0), high)
+    outside = ~counts_zero & (low <= 0.0) & (high >= 0.0)
+    tiny = np.nextafter(0.0, 1.0)
+    if total > 0:
+        low = np.where(outside, tiny, low)
+    elif total < 0:
+        high = np.where(outside, -tiny, high)
+    return low, high
+
+
+def _p_value_and_interval(lows, highs, exact, alpha):
+    """The p-value of no gain and the interval's ends from every pattern's counted shifts."""
+    extra = 0 if exact else 1
+    patterns = lows.size
+    at_zero = int(np.count_nonzero((lows <= 0.0) & (highs >= 0.0)))
+    p_value = (extra + at_zero) / (extra + patterns)
+    # Fewest counted patterns whose p-value reaches alpha, by the same float
+    # expression as the p-value itself.
+    needed = max(0, int(np.floor(alpha * (extra + patterns))) - extra - 2)
+    while needed <= patterns and (extra + needed) / (extra + patterns) < alpha:
+        needed += 1
+    if needed <= 0:
+        return p_value, -np.inf, np.inf
+    return p_value, float(np.sort(lows)[needed - 1]), float(np.sort(highs)[::-1][needed - 1])
+
+
 def sign_flip_test(differences, rng, n_resamples=SIGN_FLIP_RESAMPLES, confidence=0.95):
     """Sign-flip permutation test of a mean difference, and the interval it implies.
 
@@ -268,48 +313,9 @@ def sign_flip_test(differences, rng, n_resamples=SIGN_FLIP_RESAMPLES, confidence
     # any real gap for differences on a grid of 1/repeats.
     tolerance = 1e-9 * max(1.0, float(np.abs(d).sum())) ** 2
     blocks, exact = _sign_patterns(n, rng, int(n_resamples))
-    lows, highs = [], []
-    for signs in blocks:
-        a = signs.astype(float) @ d          # sum_i s_i d_i
-        c = signs.sum(axis=1).astype(float)  # sum_i s_i
-        # |a - c t| >= |total - n t| is q(t) = (c^2 - n^2) t^2 - 2 (a c - total n) t
-        # + (a^2 - total^2) >= 0, a closed interval around total / n.
-        lead = c * c - n * n
-        half = a * c - total * n
-        const = a * a - total * total
-        degenerate = np.abs(c) == n          # all signs equal: always as extreme
-        safe = np.where(degenerate, -1.0, lead)
-        root = np.sqrt(np.maximum(half * half - safe * const, 0.0))
-        low = np.where(degenerate, -np.inf, (half + root) / safe)
-        high = np.where(degenerate, np.inf, (half - root) / safe)
-        # Zero's membership is decided on q(0) itself, so rounding in the
-        # roots can never split the p-value from the interval.
-        counts_zero = const >= -tolerance
-        low = np.where(counts_zero, np.minimum(low, 0.0), low)
-        high = np.where(counts_zero, np.maximum(high, 0.0), high)
-        outside = ~counts_zero & (low <= 0.0) & (high >= 0.0)
-        tiny = np.nextafter(0.0, 1.0)
-        if total > 0:
-            low = np.where(outside, tiny, low)
-        elif total < 0:
-            high = np.where(outside, -tiny, high)
-        lows.append(low)
-        highs.append(high)
-    lows, highs = np.concatenate(lows), np.concatenate(highs)
-    extra = 0 if exact else 1
-    patterns = lows.size
-    at_zero = int(np.count_nonzero((lows <= 0.0) & (highs >= 0.0)))
-    p_value = (extra + at_zero) / (extra + patterns)
-    # Fewest counted patterns whose p-value reaches alpha, by the same float
-    # expression as the p-value itself.
-    needed = max(0, int(np.floor(alpha * (extra + patterns))) - extra - 2)
-    while needed <= patterns and (extra + needed) / (extra + patterns) < alpha:
-        needed += 1
-    if needed <= 0:
-        interval_low, interval_high = -np.inf, np.inf
-    else:
-        interval_low = float(np.sort(lows)[needed - 1])
-        interval_high = float(np.sort(highs)[::-1][needed - 1])
+    ends = [_pattern_interval(signs, d, total, tolerance) for signs in blocks]
+    lows, highs = np.concatenate([low for low, _ in ends]), np.concatenate([high for _, high in ends])
+    p_value, interval_low, interval_high = _p_value_and_interval(lows, highs, exact, alpha)
     return GainTest(gain=total / n, low=interval_low, high=interval_high, p_value=float(min(1.0, p_value)),
                     n_images=int(n), exact=bool(exact))
 

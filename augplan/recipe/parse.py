@@ -45,6 +45,7 @@ import yaml
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
 from augplan.files import UnreadableFileError, read_regular_file
+from augplan.recipe.ops import AXES, FILLS, OP_TABLE
 
 __all__ = [
     "FILLS",
@@ -76,8 +77,6 @@ RECIPE_SCHEMA_PATH = Path(__file__).with_name("recipe.schema.json")
 #: stray data file passed as ``--recipe`` cannot stall the YAML parser.
 MAX_RECIPE_BYTES = 1_000_000
 
-FILLS = ("reflect", "constant", "edge")
-AXES = ("horizontal", "vertical")
 TOP_LEVEL_FIELDS = ("name", "seed", "copies", "fill", "transforms")
 COMMON_FIELDS = ("probability", "only", "except", "relabel")
 
@@ -86,65 +85,9 @@ class RecipeError(BadInputError):
     """A recipe file or text is unusable; the message names file, line and field."""
 
 
-# --------------------------------------------------------------------------
-# The op table: which magnitude field each op takes and what values it allows.
-# --------------------------------------------------------------------------
-
-@dataclass(frozen=True)
-class _Bound:
-    """Allowed values for each end of a magnitude range."""
-
-    minimum: float | None = None
-    maximum: float | None = None
-    exclusive_minimum: bool = False
-
-    def admits(self, value):
-        if self.minimum is not None:
-            if self.exclusive_minimum and not value > self.minimum:
-                return False
-            if not self.exclusive_minimum and not value >= self.minimum:
-                return False
-        if self.maximum is not None and not value <= self.maximum:
-            return False
-        return True
-
-    def describe(self):
-        if self.minimum is not None and self.maximum is not None:
-            if self.exclusive_minimum:
-                return f"> {_number_text(self.minimum)} and <= {_number_text(self.maximum)}"
-            return f"between {_number_text(self.minimum)} and {_number_text(self.maximum)}"
-        if self.minimum is not None:
-            return f"{'>' if self.exclusive_minimum else '>='} {_number_text(self.minimum)}"
-        return ""
-
-
-# Sane bounds: every value inside them is a meaningful augmentation that the
-# engine computes without overflow; values outside are typing slips (1e308)
-# or would wipe the image out. Common practice, no source: a full turn either
-# way, half the hue wheel either way, a tenfold zoom or tone change, a blur of
-# 20 pixels, noise as large as the whole 0..1 range.
-_TURN = _Bound(minimum=-360.0, maximum=360.0)
-_HALF_WHEEL = _Bound(minimum=-180.0, maximum=180.0)
-_ZOOM = _Bound(minimum=0.1, maximum=10.0)
-_TONE = _Bound(minimum=0.0, maximum=10.0, exclusive_minimum=True)
-_SATURATION = _Bound(minimum=0.0, maximum=10.0)
-_UNIT = _Bound(minimum=-1.0, maximum=1.0)
-_BLUR = _Bound(minimum=0.0, maximum=20.0)
-_NOISE = _Bound(minimum=0.0, maximum=1.0)
-
+# The op table lives in augplan.recipe.ops; these views keep the reader's names.
 #: op name -> (magnitude field or None, bound on each end of its range)
-_OP_RULES = {
-    "flip": (None, None),
-    "rotate": ("degrees", _TURN),
-    "zoom": ("factor", _ZOOM),
-    "shift": ("fraction", _UNIT),
-    "brightness": ("factor", _TONE),
-    "contrast": ("factor", _TONE),
-    "saturation": ("factor", _SATURATION),
-    "hue": ("degrees", _HALF_WHEEL),
-    "blur": ("sigma", _BLUR),
-    "noise": ("sigma", _NOISE),
-}
+_OP_RULES = {op: (rule.magnitude, rule.bound) for op, rule in OP_TABLE.items()}
 
 #: Largest ``copies``: a thousand augmented copies of every training image is
 #: far past any use and keeps memory bounded (common practice, no source).
@@ -171,12 +114,7 @@ def magnitude_bounds(op):
 
 
 #: op name -> the op's own fields (besides ``op`` and the common fields).
-OP_FIELDS = {op: (("axis",) if magnitude is None else (magnitude,))
-             for op, (magnitude, _) in _OP_RULES.items()}
-
-
-def _number_text(value):
-    return str(int(value)) if float(value).is_integer() else repr(float(value))
+OP_FIELDS = {op: rule.fields for op, rule in OP_TABLE.items()}
 
 
 # --------------------------------------------------------------------------
@@ -631,10 +569,7 @@ class _Checker:
         return dict(pairs)
 
 
-_EXAMPLES = {"rotate": "[-15, 15]", "zoom": "[0.9, 1.2]", "shift": "[-0.1, 0.1]",
-             "brightness": "[0.6, 1.4]", "contrast": "[0.8, 1.2]",
-             "saturation": "[0.7, 1.3]", "hue": "[-10, 10]", "blur": "[0, 1.5]",
-             "noise": "[0, 0.03]"}
+_EXAMPLES = {op: rule.example for op, rule in OP_TABLE.items() if rule.example is not None}
 
 
 # --------------------------------------------------------------------------

@@ -400,7 +400,7 @@ def _check_section(entry, number, base_dir):
     if rows:
         out.append(_table(
             ["#", "transform", "verdict", "moved to another class<br>(screen, 95% CI)",
-             "left every class<br>(screen, 95% CI)", "confirmed swaps", "safe limit", "what vetting did"],
+             "outside every class<br>(screen, 95% CI)", "confirmed swaps", "safe limit", "what vetting did"],
             rows, numeric=(0, 3, 4), row_classes=row_classes, wide=True))
     else:
         out.append('<p class="note">The check recorded no transforms.</p>')
@@ -462,12 +462,24 @@ def _vetted_block(vetted):
     return "".join(out)
 
 
-def _plot_items(plots):
+def _plot_factor(path, factors):
+    """The factor a plot file shows: its stem, or the known factor its stem ends with.
+
+    ``vet`` names the files ``<number>-<recipe>-<factor>.png`` inside ``figures/``.
+    """
+    stem = Path(str(path)).stem
+    for factor in sorted(factors, key=len, reverse=True):
+        if stem == factor or stem.endswith(f"-{factor}"):
+            return factor
+    return stem
+
+
+def _plot_items(plots, factors=()):
     """``[(factor, path)]`` from plots given as ``{factor: path}`` or a list of paths."""
     if isinstance(plots, dict):
         return [(str(k), v) for k, v in plots.items() if v]
     if isinstance(plots, (list, tuple)):
-        return [(Path(str(p)).stem, p) for p in plots if p]
+        return [(_plot_factor(p, factors), p) for p in plots if p]
     return []
 
 
@@ -530,7 +542,7 @@ def _coverage_section(entry, number, base_dir):
     name = entry.get("name", f"recipe {number + 1}")
     coverage = entry.get("coverage") or {}
     out = [f'<section id="{_anchor("coverage", name, number)}"><h2>Recipe {_e(name)}: coverage and shortcuts</h2>']
-    plots = _plot_items(coverage.get("plots"))
+    plots = _plot_items(coverage.get("plots"), coverage.get("factors") or ())
     if plots:
         out.append("<h3>Nuisance factors: original, augmented and field</h3>")
         out.append('<div class="plots">')

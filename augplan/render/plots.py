@@ -10,29 +10,27 @@ from augplan.atomic import write_bytes_atomic
 from augplan.coverage.coverage import histogram_edges
 from augplan.measure.factors import FACTORS
 
-__all__ = ["write_factor_plots", "with_factor_plots"]
+__all__ = ["factor_plot_pngs", "write_factor_plots", "with_factor_plots"]
 
 
-def write_factor_plots(samples, plots_dir):
+def factor_plot_pngs(samples):
     """One PNG per factor with the original, augmented and field histograms overlaid.
 
     Parameters
     ----------
     samples : dict
-        ``{"original": {name: values}, "augmented": {...}, "field": {...} or None}``.
-    plots_dir : str or Path
-        Created if missing; each file is written atomically.
+        ``{"original": {name: values}, "augmented": {...}, "field": {...} or None}``
+        (``CoverageResult.samples``).
 
     Returns
     -------
-    list of Path
+    dict of str -> bytes
+        ``{"<factor>.png": PNG bytes}`` in `FACTORS` order.
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    plots_dir = Path(plots_dir)
-    plots_dir.mkdir(parents=True, exist_ok=True)
-    written = []
+    pngs = {}
     for name, factor in FACTORS.items():
         field = samples.get("field")
         field_values = None if field is None else field[name]
@@ -59,8 +57,20 @@ def write_factor_plots(samples, plots_dir):
         figure.tight_layout()
         buffer = io.BytesIO()
         figure.savefig(buffer, format="png", metadata={"Software": None})
-        written.append(write_bytes_atomic(plots_dir / f"{name}.png", buffer.getvalue()))
-    return written
+        pngs[f"{name}.png"] = buffer.getvalue()
+    return pngs
+
+
+def write_factor_plots(samples, plots_dir):
+    """Write `factor_plot_pngs` into ``plots_dir`` (created if missing), each file atomically.
+
+    Returns
+    -------
+    list of Path
+    """
+    plots_dir = Path(plots_dir)
+    plots_dir.mkdir(parents=True, exist_ok=True)
+    return [write_bytes_atomic(plots_dir / name, data) for name, data in factor_plot_pngs(samples).items()]
 
 
 def with_factor_plots(result, plots_dir):

@@ -110,30 +110,9 @@ def contact_sheet(rows, row_labels, *, column_labels=None, cell=96, title=None, 
         Empty ``rows``, label or caption counts that do not match, a cell
         that is not a uint8 image, or ``cell`` below 8.
     """
-    rows = [list(row) for row in rows]
-    if not rows:
-        raise ValueError("rows must hold at least one row of images; got none")
-    if isinstance(cell, bool) or not isinstance(cell, (int, np.integer)) or cell < 8:
-        raise ValueError(f"cell must be an integer of at least 8 pixels; got {cell!r}")
-    cell = int(cell)
-    row_labels = [_shorten(label) for label in row_labels]
-    if len(row_labels) != len(rows):
-        raise ValueError(f"row_labels must have one label per row ({len(rows)}); got {len(row_labels)}")
+    rows, row_labels, column_labels, cell, captions = _checked_grid(rows, row_labels, column_labels, cell,
+                                                                    captions)
     n_columns = max(len(row) for row in rows)
-    if n_columns == 0:
-        raise ValueError("rows must hold at least one image; every row is empty")
-    if column_labels is not None:
-        column_labels = [_shorten(label) for label in column_labels]
-        if len(column_labels) != n_columns:
-            raise ValueError(
-                f"column_labels must have one label per column ({n_columns}); got {len(column_labels)}"
-            )
-    if captions is not None:
-        captions = [list(row) for row in captions]
-        if len(captions) != len(rows) or any(len(c) > len(r) for c, r in zip(captions, rows)):
-            raise ValueError("captions must have the shape of rows: one list per row, "
-                             "at most one caption per cell")
-
     font = _font()
     line = _text_size(font, "Ag")[1] + 4
     label_width = max((_text_size(font, label)[0] for label in row_labels), default=0)
@@ -172,6 +151,33 @@ def contact_sheet(rows, row_labels, *, column_labels=None, cell=96, title=None, 
             if caption_band and j < len(captions[i]) and captions[i][j]:
                 draw.text((x, y + cell + 2), _shorten(captions[i][j]), fill=_CAPTION, font=font)
     return sheet
+
+
+def _checked_grid(rows, row_labels, column_labels, cell, captions):
+    """Validate `contact_sheet`'s arguments; the rows, shortened labels, cell side and captions."""
+    rows = [list(row) for row in rows]
+    if not rows:
+        raise ValueError("rows must hold at least one row of images; got none")
+    if isinstance(cell, bool) or not isinstance(cell, (int, np.integer)) or cell < 8:
+        raise ValueError(f"cell must be an integer of at least 8 pixels; got {cell!r}")
+    row_labels = [_shorten(label) for label in row_labels]
+    if len(row_labels) != len(rows):
+        raise ValueError(f"row_labels must have one label per row ({len(rows)}); got {len(row_labels)}")
+    n_columns = max(len(row) for row in rows)
+    if n_columns == 0:
+        raise ValueError("rows must hold at least one image; every row is empty")
+    if column_labels is not None:
+        column_labels = [_shorten(label) for label in column_labels]
+        if len(column_labels) != n_columns:
+            raise ValueError(
+                f"column_labels must have one label per column ({n_columns}); got {len(column_labels)}"
+            )
+    if captions is not None:
+        captions = [list(row) for row in captions]
+        if len(captions) != len(rows) or any(len(c) > len(r) for c, r in zip(captions, rows)):
+            raise ValueError("captions must have the shape of rows: one list per row, "
+                             "at most one caption per cell")
+    return rows, row_labels, column_labels, int(cell), captions
 
 
 def _shorten_title(text):

@@ -104,26 +104,24 @@ def _inside(path, folder):
     return True
 
 
-def _collect_figures(entries, scratch):
-    """Read the evidence sheets and plots out of the scratch folder.
+def _collect_figures(entries, plot_pngs):
+    """The evidence sheets (read from the checker's scratch folder) and factor plots of every recipe.
 
-    Their paths in the entries are rewritten to ``figures/<name>`` inside the
-    output folder, where they are written with the other outputs.
+    The paths in the entries become ``figures/<name>``, relative to the output
+    folder, before anything reads them; the report is rendered from a staging
+    folder laid out the same way.
     """
     figures = {}
-    for number, entry in enumerate(entries):
+    for number, (entry, pngs) in enumerate(zip(entries, plot_pngs)):
         for transform in entry["check"]["transforms"]:
             sheet = transform.get("evidence_sheet")
             if sheet and Path(sheet).is_file():
                 name = f"{number}-{entry['name']}-transform-{transform['index']}.png"
                 figures[name] = Path(sheet).read_bytes()
                 transform["evidence_sheet"] = f"figures/{name}"
-        plots = entry["coverage"].get("plots") or []
-        for position, plot in enumerate(plots):
-            if plot and Path(plot).is_file():
-                name = f"{number}-{entry['name']}-{Path(plot).name}"
-                figures[name] = Path(plot).read_bytes()
-                plots[position] = f"figures/{name}"
+        names = [f"{number}-{entry['name']}-{plot}" for plot in pngs]
+        figures.update(zip(names, pngs.values()))
+        entry["coverage"]["plots"] = [f"figures/{name}" for name in names]
     return figures
 
 
@@ -234,109 +232,133 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     augplan.results.VetResult
         ``verdict``, ``report``, ``vetted_recipe``, ``evidence``, ``unchanged``, ``best``.
     """
-    from augplan.render.html import render_report
-    from augplan.render.plots import with_factor_plots
-
     ensure_outside_data(out_dir, dataset.root)
     out_dir = prepare_output(out_dir, force=force, replace=replace)
     for recipe in recipes:
         if recipe.source is not None and _inside(Path(recipe.source), out_dir):
             raise BadInputError(f"{recipe.source}: the recipe lies inside the output folder {out_dir}, "
                                 "whose files vet replaces; choose another output folder.")
-    data_fingerprint = fingerprint(dataset)
-    leaks = find_duplicates(dataset)
-    created = creation_date()
-
+    settings = dict(sample=sample, seed=seed, workers=workers, quiet=quiet)
     with tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
         scratch = Path(scratch)
-        entries, vetted_recipes = [], []
+        entries, vetted_recipes, plot_pngs = [], [], []
         for number, recipe in enumerate(recipes):
             _stage(quiet, f"[{number + 1}/{len(recipes)}] {recipe.name}: label safety and coverage")
-            check = check_recipe(dataset, recipe, sample=sample, seed=seed, workers=workers, quiet=quiet,
-                                 evidence_dir=scratch / f"evidence-{number}")
-            coverage = with_factor_plots(analyse_coverage(dataset, recipe, seed=seed, workers=workers,
-                                                          quiet=quiet), scratch / f"plots-{number}")
-            vetted, changes = vet_transforms(recipe, check, approve=approve, coverage_result=coverage)
-            rechecked = None
-            if any(change["action"] in ("relabel", "scope") for change in changes):
-                # A rewrite was suggested by the checker but not itself measured:
-                # measure it, and drop a rewritten step that is still not safe.
-                rechecked = check_recipe(dataset, vetted, sample=sample, seed=seed, workers=workers,
-                                         quiet=quiet)
-                vetted = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
-            unchanged = vetted.transforms == recipe.transforms
-            if not unchanged:
-                vetted = dataclasses.replace(vetted, name=_vetted_name(recipe))
-            entries.append({"name": recipe.name, "source": recipe.source, "recipe": recipe_to_dict(recipe),
-                            "recipe_hash": recipe_hash(recipe), "check": check, "coverage": coverage,
-                            "vetted": {"name": vetted.name, "recipe": recipe_to_dict(vetted),
-                                       "changes": changes, "unchanged": unchanged, "recheck": rechecked}})
+            entry, vetted, pngs = _vet_one(dataset, recipe, scratch / f"evidence-{number}", approve, settings)
+            entries.append(entry)
             vetted_recipes.append(vetted)
+            plot_pngs.append(pngs)
 
         _stage(quiet, "scoring every recipe and its vetted form against no augmentation")
         to_score = list(recipes) + [v for v, e in zip(vetted_recipes, entries) if not e["vetted"]["unchanged"]]
         evaluation = evaluate_recipes(dataset, to_score, repeats=repeats, seed=seed, workers=workers,
                                       quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir)
         scores = {row["name"]: row for row in evaluation["recipes"]}
-
         for entry, vetted in zip(entries, vetted_recipes):
             entry["vetted"]["score"] = scores[vetted.name]
         # Best validation gain; a tie (a saturated validation split scores every
         # recipe alike) goes to the better gain on the labelled field sample.
         best_entry = max(entries, key=lambda e: (e["vetted"]["score"]["gain"], _field_gain(e["vetted"]["score"])))
 
-        documents = {}
-        for entry, vetted in zip(entries, vetted_recipes):
-            score = entry["vetted"]["score"]
-            evidence = {
-                "augplan_version": __version__,
-                "created": created,
-                "data_fingerprint": data_fingerprint,
-                "vetted_from": {"name": entry["name"], "recipe_hash": entry["recipe_hash"]},
-                "model": {"cv_accuracy": entry["check"]["model"]["cv_accuracy"]},
-                "verdicts": [{"index": t["index"], "op": t["op"], "verdict": t["verdict"],
-                              "change_rate": t["change_rate"], "change_rate_ci": t["change_rate_ci"]}
-                             for t in entry["check"]["transforms"]],
-                "changes": [f"{c['index']} {c['op']}: {c['action']}" + (f" ({c['detail']})" if c["detail"] else "")
-                            for c in entry["vetted"]["changes"]],
-                "validation": {"scored_on": evaluation["scored_on"], "gain": score["gain"],
-                               "gain_ci": score["gain_ci"], "p_holm": score["p_holm"],
-                               "repeats": evaluation["repeats"]},
-                "seeds": {"analysis": seed, "recipe": vetted.seed},
-            }
-            field = score.get("field") or {}
-            if field.get("gain") is not None:
-                evidence["field"] = {"gain": field["gain"], "gain_ci": field["gain_ci"],
-                                     "n_images": field.get("n_images")}
-            signoff = [f"{c['index']} {c['op']}: {c['detail']}" for c in entry["vetted"]["changes"]
-                       if c["verdict"] == "unverified" and c["action"] == "keep"]
-            if signoff:
-                evidence["needs_signoff"] = signoff
-            documents[f"vetted-{entry['name']}.yaml"] = vetted_text(vetted, evidence,
-                                                                    changes=entry["vetted"]["changes"])
+        header = {"augplan_version": __version__, "created": creation_date(), "data_fingerprint": fingerprint(dataset)}
+        documents = {f"vetted-{entry['name']}.yaml": vetted_text(vetted, _vetted_evidence(entry, vetted, evaluation,
+                                                                                          header, seed),
+                                                                     changes=entry["vetted"]["changes"])
+                     for entry, vetted in zip(entries, vetted_recipes)}
         documents["vetted-recipe.yaml"] = documents[f"vetted-{best_entry['name']}.yaml"]
-
         verdict = _verdict_sentence(entries, evaluation, best_entry["vetted"]["score"])
-        evidence_document = {
-            "augplan_version": __version__, "created": created, "verdict": verdict,
-            "data": {"root": str(dataset.root), "fingerprint": data_fingerprint, "classes": list(dataset.classes),
-                     "counts": {split: len(dataset.split(split)) for split in ("train", "val", "test", "field")},
-                     "val_from_train": dataset.val_from_train, "split_seed": dataset.split_seed,
-                     "skipped": [list(item) for item in dataset.skipped], "leaks": leaks},
-            "recipes": entries, "evaluation": evaluation, "best": best_entry["name"],
-            "cautions": list(CAUTIONS), "seed": seed,
-        }
-        html = render_report(evidence_document)
-        figures = _collect_figures(entries, scratch)
+        figures = _collect_figures(entries, plot_pngs)
+        evidence_document = _evidence_document(dataset, entries, evaluation, best_entry, verdict, header, seed)
+        html = _render_with_figures(evidence_document, figures, scratch / "staged")
         # Everything is computed: now write, all files or none.
-        evidence_text = json.dumps(evidence_document, indent=2, allow_nan=False, default=str)
-        files = {name: text.encode("utf-8") for name, text in documents.items()}
-        files.update({f"figures/{name}": data for name, data in figures.items()})
-        files["evidence.json"] = (evidence_text + "\n").encode("utf-8")
-        files["report.html"] = html.encode("utf-8")
-        _publish(files, out_dir, replace=replace)
+        _publish(_output_files(documents, figures, evidence_document, html), out_dir, replace=replace)
 
-    unchanged = all(entry["vetted"]["unchanged"] for entry in entries)
     return VetResult(verdict=verdict, report=str(out_dir / "report.html"),
                      vetted_recipe=str(out_dir / "vetted-recipe.yaml"), evidence=str(out_dir / "evidence.json"),
-                     unchanged=unchanged, best=best_entry["name"])
+                     unchanged=all(entry["vetted"]["unchanged"] for entry in entries), best=best_entry["name"])
+
+
+def _vet_one(dataset, recipe, evidence_dir, approve, settings):
+    """Check, coverage and the vetted form of one recipe: its evidence entry, vetted recipe, plot PNGs."""
+    from augplan.render.plots import factor_plot_pngs
+
+    check = check_recipe(dataset, recipe, evidence_dir=evidence_dir, **settings)
+    coverage = analyse_coverage(dataset, recipe, seed=settings["seed"], workers=settings["workers"],
+                                quiet=settings["quiet"])
+    vetted, changes = vet_transforms(recipe, check, approve=approve, coverage_result=coverage)
+    rechecked = None
+    if any(change["action"] in ("relabel", "scope") for change in changes):
+        # A rewrite was suggested by the checker but not itself measured:
+        # measure it, and drop a rewritten step that is still not safe.
+        rechecked = check_recipe(dataset, vetted, **settings).to_json()
+        vetted = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
+    unchanged = vetted.transforms == recipe.transforms
+    if not unchanged:
+        vetted = dataclasses.replace(vetted, name=_vetted_name(recipe))
+    entry = {"name": recipe.name, "source": recipe.source, "recipe": recipe_to_dict(recipe),
+             "recipe_hash": recipe_hash(recipe), "check": check.to_json(), "coverage": coverage.to_json(),
+             "vetted": {"name": vetted.name, "recipe": recipe_to_dict(vetted),
+                        "changes": changes, "unchanged": unchanged, "recheck": rechecked}}
+    return entry, vetted, factor_plot_pngs(coverage.samples)
+
+
+def _vetted_evidence(entry, vetted, evaluation, header, seed):
+    """The evidence block written into one vetted recipe file (and covered by its checksum)."""
+    score = entry["vetted"]["score"]
+    evidence = {
+        **header,
+        "vetted_from": {"name": entry["name"], "recipe_hash": entry["recipe_hash"]},
+        "model": {"cv_accuracy": entry["check"]["model"]["cv_accuracy"]},
+        "verdicts": [{"index": t["index"], "op": t["op"], "verdict": t["verdict"],
+                      "change_rate": t["change_rate"], "change_rate_ci": t["change_rate_ci"]}
+                     for t in entry["check"]["transforms"]],
+        "changes": [f"{c['index']} {c['op']}: {c['action']}" + (f" ({c['detail']})" if c["detail"] else "")
+                    for c in entry["vetted"]["changes"]],
+        "validation": {"scored_on": evaluation["scored_on"], "gain": score["gain"],
+                       "gain_ci": score["gain_ci"], "p_holm": score["p_holm"],
+                       "repeats": evaluation["repeats"]},
+        "seeds": {"analysis": seed, "recipe": vetted.seed},
+    }
+    field = score.get("field") or {}
+    if field.get("gain") is not None:
+        evidence["field"] = {"gain": field["gain"], "gain_ci": field["gain_ci"],
+                             "n_images": field.get("n_images")}
+    signoff = [f"{c['index']} {c['op']}: {c['detail']}" for c in entry["vetted"]["changes"]
+               if c["verdict"] == "unverified" and c["action"] == "keep"]
+    if signoff:
+        evidence["needs_signoff"] = signoff
+    return evidence
+
+
+def _evidence_document(dataset, entries, evaluation, best_entry, verdict, header, seed):
+    """The whole job's evidence (``evidence.json``), which the report is rendered from."""
+    return {
+        "augplan_version": header["augplan_version"], "created": header["created"], "verdict": verdict,
+        "data": {"root": str(dataset.root), "fingerprint": header["data_fingerprint"],
+                 "classes": list(dataset.classes),
+                 "counts": {split: len(dataset.split(split)) for split in ("train", "val", "test", "field")},
+                 "val_from_train": dataset.val_from_train, "split_seed": dataset.split_seed,
+                 "skipped": [list(item) for item in dataset.skipped], "leaks": find_duplicates(dataset)},
+        "recipes": entries, "evaluation": evaluation.to_json(), "best": best_entry["name"],
+        "cautions": list(CAUTIONS), "seed": seed,
+    }
+
+
+def _render_with_figures(evidence_document, figures, staging):
+    """The HTML report, its figures read from a staging folder laid out like the output folder."""
+    from augplan.render.html import render_report
+
+    (staging / "figures").mkdir(parents=True)
+    for name, data in figures.items():
+        (staging / "figures" / name).write_bytes(data)
+    return render_report(evidence_document, base_dir=staging)
+
+
+def _output_files(documents, figures, evidence_document, html):
+    """Every output file as ``{relative path: bytes}``: vetted recipes, figures, evidence, report (last)."""
+    evidence_text = json.dumps(evidence_document, indent=2, allow_nan=False, default=str)
+    files = {name: text.encode("utf-8") for name, text in documents.items()}
+    files.update({f"figures/{name}": data for name, data in figures.items()})
+    files["evidence.json"] = (evidence_text + "\n").encode("utf-8")
+    files["report.html"] = html.encode("utf-8")
+    return files
