@@ -1,25 +1,69 @@
 """The training-side API: a recipe as a callable augmenter for any framework."""
 
+import numbers
+
 import numpy as np
 from PIL import Image
 
 from .colour import check_rgb_image
-from .recipe import Recipe, read_recipe_document
+from .errors import BadInputError
+from .recipe import Recipe, read_recipe_document, vetted_checksum
 from .transforms import apply_recipe
 
 __all__ = ["Augmenter", "load_recipe"]
+
+_NO_GENERATOR = ("pass a numpy.random.Generator, e.g. aug(image, rng=np.random.default_rng(seed)), "
+                 "so the draws are reproducible; give each data-loader worker its own generator")
+
+
+def _scoped(recipe):
+    """True when some transform of ``recipe`` depends on the label (``only``, ``except``, ``relabel``)."""
+    return any(t.only is not None or t.exclude is not None or t.relabel is not None for t in recipe.transforms)
+
+
+def _named_classes(recipe):
+    """Every class name the recipe's scopes and relabels mention, in first-seen order."""
+    names = []
+    for step in recipe.transforms:
+        for group in (step.only, step.exclude, tuple(step.relabel or ()), tuple((step.relabel or {}).values())):
+            names.extend(name for name in group or () if name not in names)
+    return names
+
+
+def _check_classes(classes, recipe):
+    if classes is None:
+        return None
+    if isinstance(classes, str) or not hasattr(classes, "__iter__"):
+        raise TypeError(f"classes must be a sequence of class names in the training loop's index order; "
+                        f"got {type(classes).__name__}")
+    classes = tuple(str(name) for name in classes)
+    if not classes:
+        raise ValueError("classes must name at least one class; got an empty sequence")
+    repeated = sorted({name for name in classes if classes.count(name) > 1})
+    if repeated:
+        raise ValueError(f"classes must be distinct; {', '.join(repeated)} appears more than once")
+    unknown = [name for name in _named_classes(recipe) if name not in classes]
+    if unknown:
+        raise ValueError(f"recipe {recipe.name!r} scopes or relabels {', '.join(map(repr, unknown))}, which "
+                         f"classes does not name; classes: {', '.join(classes)}")
+    return classes
 
 
 class Augmenter:
     """Apply a recipe to training images, one draw per call.
 
-    The augmenter holds only the (immutable) recipe, so it is picklable (it
-    works inside multi-process data loaders) and thread-safe: every call
-    takes its randomness from the generator passed in.
+    The augmenter holds only the (immutable) recipe and its class list, so it
+    is picklable (it works inside multi-process data loaders) and thread-safe:
+    every call takes its randomness from the generator passed in.
 
     Parameters
     ----------
     recipe : augplan.recipe.Recipe
+    classes : sequence of str, optional
+        Class names in the index order of the training loop, so that
+        ``classes[3]`` is the class of integer label 3. Needed for integer
+        labels when the recipe scopes (``only``, ``except``) or relabels a
+        transform.
 
     Examples
     --------
@@ -31,10 +75,11 @@ class Augmenter:
     [255, 255, 255, 255]
     """
 
-    def __init__(self, recipe):
+    def __init__(self, recipe, classes=None):
         if not isinstance(recipe, Recipe):
             raise TypeError(f"Augmenter expects an augplan Recipe; got {type(recipe).__name__}")
         self.recipe = recipe
+        self.classes = _check_classes(classes, recipe)
 
     def __repr__(self):
         return f"Augmenter(recipe={self.recipe.name!r}, transforms={len(self.recipe.transforms)})"
@@ -46,9 +91,9 @@ class Augmenter:
         ----------
         image : numpy.ndarray (H, W, 3) uint8 or PIL.Image.Image
             A PIL image is converted to RGB and an RGB PIL image comes back.
-        rng : numpy.random.Generator, optional
-            Source of randomness; pass one for reproducible draws. Without it a
-            fresh generator seeded from the operating system is used.
+        rng : numpy.random.Generator
+            Source of randomness; required (a missing one raises, so no draw
+            ever runs with an unstated seed).
 
         Returns
         -------
@@ -57,39 +102,95 @@ class Augmenter:
         """
         return self.apply(image, None, rng)[0]
 
+    def _label_name(self, label):
+        """The class name of ``label``, and whether it came as an integer index."""
+        if isinstance(label, numbers.Integral) and not isinstance(label, bool):
+            if self.classes is None:
+                if _scoped(self.recipe):
+                    raise ValueError(
+                        f"recipe {self.recipe.name!r} scopes or relabels transforms by class name, and the "
+                        f"label {int(label)} is an integer: pass the class names in index order, "
+                        "load_recipe(path, classes=[...]), or pass the class name as the label")
+                return label, False
+            if not 0 <= int(label) < len(self.classes):
+                raise ValueError(f"label {int(label)} is outside classes (0 to {len(self.classes) - 1})")
+            return self.classes[int(label)], True
+        return label, False
+
     def apply(self, image, label, rng=None):
         """One augmented draw of ``(image, label)``: scopes and relabels applied.
+
+        Parameters
+        ----------
+        image : numpy.ndarray (H, W, 3) uint8 or PIL.Image.Image
+        label : str or int or None
+            A class name, or an integer index into ``classes``. An integer
+            comes back as an integer.
+        rng : numpy.random.Generator
+            Required.
 
         Returns
         -------
         (image, label)
             The label follows the image when a transform with ``relabel`` ran.
+
+        Raises
+        ------
+        TypeError
+            No generator, or an image that is neither an array nor a PIL image.
+        ValueError
+            An integer label for a class-scoped recipe without ``classes``.
         """
-        rng = np.random.default_rng() if rng is None else rng
+        if rng is None:
+            raise TypeError(f"{type(self).__name__} needs a generator: {_NO_GENERATOR}")
         if not isinstance(rng, np.random.Generator):
-            raise TypeError(f"rng must be a numpy.random.Generator or None; got {type(rng).__name__}")
+            raise TypeError(f"rng must be a numpy.random.Generator; got {type(rng).__name__}")
+        name, as_index = self._label_name(label)
         pil_image = None
         if isinstance(image, Image.Image):
             pil_image, image = image, np.asarray(image.convert("RGB"))
         elif not isinstance(image, np.ndarray):
             raise TypeError(f"image must be a numpy array or a PIL image; got {type(image).__name__}")
         check_rgb_image(image)
-        augmented, new_label = apply_recipe(image, self.recipe, rng, label)
+        augmented, new_name = apply_recipe(image, self.recipe, rng, name)
         if pil_image is not None:
             augmented = Image.fromarray(augmented, mode="RGB")
+        new_label = self.classes.index(new_name) if as_index else new_name
         return augmented, new_label
 
 
-def load_recipe(path):
+def load_recipe(path, classes=None, *, verify=True):
     """Read a recipe or vetted recipe file and return its `Augmenter`.
 
     Parameters
     ----------
     path : str or Path
+    classes : sequence of str, optional
+        Class names in the training loop's index order, for integer labels.
+        Default: the class list a vetted file carries (``evidence.classes``,
+        written by ``augplan vet``); a plain recipe has none.
+    verify : bool, default True
+        Check a vetted file's checksum and refuse an edited file. Pass
+        ``verify=False`` to load an edited vetted file anyway (its evidence
+        then no longer describes it).
 
     Returns
     -------
     Augmenter
+
+    Raises
+    ------
+    augplan.errors.BadInputError
+        The file is not a valid recipe, or a vetted file's checksum does not
+        match its content.
     """
-    recipe, _ = read_recipe_document(path, extra_fields=("evidence", "checksum"))
-    return Augmenter(recipe)
+    recipe, extras = read_recipe_document(path, extra_fields=("evidence", "checksum"))
+    evidence, checksum = extras.get("evidence"), extras.get("checksum")
+    if verify and (evidence is not None or checksum is not None):
+        if evidence is None or checksum is None or checksum != vetted_checksum(recipe, evidence):
+            raise BadInputError(
+                f"{path}: the vetted recipe's checksum does not match its content: the recipe or its "
+                "evidence was edited after vetting. Vet it again, or pass verify=False to load it as it is.")
+    if classes is None and isinstance(evidence, dict) and evidence.get("classes"):
+        classes = evidence["classes"]
+    return Augmenter(recipe, classes=classes)

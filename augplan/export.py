@@ -8,7 +8,6 @@ edited one.
 """
 
 import dataclasses
-import hashlib
 import json
 import math
 import os
@@ -20,7 +19,7 @@ import yaml
 from . import __version__
 from .atomic import write_text_atomic
 from .errors import BadInputError
-from .recipe import RecipeError, read_recipe_document, recipe_to_dict
+from .recipe import RecipeError, canonical_json, read_recipe_document, recipe_to_dict, vetted_checksum
 
 __all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
            "verify_vetted", "creation_date"]
@@ -136,20 +135,9 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     return vetted, changes
 
 
-def _canonical(document):
-    return json.dumps(document, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
-                      allow_nan=False)
-
-
-def vetted_checksum(recipe, evidence):
-    """sha256 hex of the canonical JSON of ``{"recipe": body, "evidence": evidence}``."""
-    document = {"recipe": recipe_to_dict(recipe), "evidence": evidence}
-    return hashlib.sha256(_canonical(document).encode("ascii")).hexdigest()
-
-
 def vetted_text(recipe, evidence):
     """The vetted recipe file's YAML text: recipe body, evidence, checksum."""
-    evidence = json.loads(_canonical(evidence))  # plain types only, so the YAML round-trips
+    evidence = json.loads(canonical_json(evidence))  # plain types only, so the YAML round-trips
     body = recipe_to_dict(recipe)
     header = ("# Vetted by augplan. Transforms that broke labels were removed or rewritten;\n"
               "# see the evidence block. Editing any value invalidates the checksum\n"

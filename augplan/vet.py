@@ -75,6 +75,20 @@ def _drop_unsafe_rewrites(vetted, changes, rechecked):
     return dataclasses.replace(vetted, transforms=tuple(steps))
 
 
+def _signoff_items(changes):
+    """The transforms a person must approve: unverified ones that vetting kept."""
+    return [{"index": c["index"], "op": c["op"], "detail": c["detail"]}
+            for c in changes if c["verdict"] == "unverified" and c["action"] == "keep"]
+
+
+def _evidence_sheet(entry, index, out_dir):
+    """Path of the written evidence sheet of transform ``index`` of a recipe entry, or None."""
+    for transform in entry["check"]["transforms"]:
+        if transform["index"] == index and transform.get("evidence_sheet"):
+            return str(out_dir / transform["evidence_sheet"])
+    return None
+
+
 def _vetted_name(recipe):
     return f"{recipe.name}-vetted"
 
@@ -137,7 +151,10 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     Returns
     -------
     dict
-        ``{"verdict", "report", "vetted_recipe", "evidence", "unchanged", "best"}``.
+        ``{"verdict", "report", "vetted_recipe", "evidence", "unchanged", "best", "changes",
+        "signoff"}``: ``changes`` lists per recipe what vetting did to each transform
+        (``action`` keep, relabel, scope, clip or remove); ``signoff`` lists the
+        transforms a person must approve, each with its evidence sheet.
     """
     from .report import render_report
 
@@ -165,12 +182,14 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                                          quiet=quiet)
                 vetted = _drop_unsafe_rewrites(vetted, changes, rechecked)
             unchanged = vetted.transforms == recipe.transforms
+            signoff = _signoff_items(changes)
             if not unchanged:
                 vetted = dataclasses.replace(vetted, name=_vetted_name(recipe))
             entries.append({"name": recipe.name, "source": recipe.source, "recipe": recipe_to_dict(recipe),
                             "recipe_hash": recipe_hash(recipe), "check": check, "coverage": coverage,
                             "vetted": {"name": vetted.name, "recipe": recipe_to_dict(vetted),
-                                       "changes": changes, "unchanged": unchanged, "recheck": rechecked}})
+                                       "changes": changes, "signoff": signoff, "unchanged": unchanged,
+                                       "recheck": rechecked}})
             vetted_recipes.append(vetted)
 
         _stage(quiet, "scoring every recipe and its vetted form against no augmentation")
@@ -208,8 +227,8 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             if field.get("gain") is not None:
                 evidence["field"] = {"gain": field["gain"], "gain_ci": field["gain_ci"],
                                      "n_images": field.get("n_images")}
-            signoff = [f"{c['index']} {c['op']}: {c['detail']}" for c in entry["vetted"]["changes"]
-                       if c["verdict"] == "unverified" and c["action"] == "keep"]
+            evidence["classes"] = list(dataset.classes)
+            signoff = [f"{item['index']} {item['op']}: {item['detail']}" for item in entry["vetted"]["signoff"]]
             if signoff:
                 evidence["needs_signoff"] = signoff
             documents[f"vetted-{entry['name']}.yaml"] = vetted_text(vetted, evidence)
@@ -241,4 +260,10 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     unchanged = all(entry["vetted"]["unchanged"] for entry in entries)
     return {"verdict": verdict, "report": str(out_dir / "report.html"),
             "vetted_recipe": str(out_dir / "vetted-recipe.yaml"), "evidence": str(out_dir / "evidence.json"),
-            "unchanged": unchanged, "best": best_entry["name"]}
+            "unchanged": unchanged, "best": best_entry["name"],
+            "changes": [{"recipe": entry["name"], "vetted": entry["vetted"]["name"],
+                         "unchanged": entry["vetted"]["unchanged"], "transforms": entry["vetted"]["changes"]}
+                        for entry in entries],
+            "signoff": [{"recipe": entry["name"], **item,
+                         "evidence_sheet": _evidence_sheet(entry, item["index"], out_dir)}
+                        for entry in entries for item in entry["vetted"]["signoff"]]}
