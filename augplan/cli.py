@@ -143,8 +143,9 @@ def _build_parser():
 
     p = commands.add_parser("history", help="past comparisons stored in the results ledger")
     _common(p, data=False)
-    p.add_argument("data", metavar="DATA", nargs="?", type=Path, default=None,
-                   help="only comparisons on this data set")
+    p.add_argument("data", metavar="DATA|RUN", nargs="?", default=None,
+                   help="only comparisons on the data set DATA, or the details of run number RUN "
+                        "(as the list shows)")
     p.add_argument("--ledger", type=Path, default=None, help="results ledger path")
 
     p = commands.add_parser("demo", help="vet the bundled demo scenario")
@@ -356,6 +357,8 @@ def _run_vet(args, console):
     if args.json:
         console.emit_json(summary)
     console.say(summary["verdict"])
+    for item in summary["signoff"]:
+        console.say(f"sign-off needed: {item['recipe']} transform {item['index']} ({item['op']}): {item['detail']}")
     console.say(f"report: {summary['report']}")
     console.say(f"vetted recipe: {summary['vetted_recipe']}")
     return ExitCode.OK if summary["unchanged"] else ExitCode.FLAGGED
@@ -373,10 +376,18 @@ def _run_verify(args, console):
 
 
 def _run_history(args, console):
-    from .ledger import list_history
+    from .ledger import list_history, run_details
     from .data import fingerprint, open_dataset
     from . import tables
 
+    if args.data is not None and args.data.isdigit() and not Path(args.data).exists():
+        ledger = args.ledger or Path(".augplan/ledger.sqlite")
+        entry = run_details(ledger, int(args.data))
+        if args.json:
+            console.emit_json({"ledger": str(ledger), **entry})
+        else:
+            console.say(tables.run_table(entry))
+        return ExitCode.OK
     ledger = args.ledger or (_default_ledger(args.data) if args.data else Path(".augplan/ledger.sqlite"))
     data_fingerprint = fingerprint(open_dataset(args.data)) if args.data else None
     rows = list_history(ledger, fingerprint=data_fingerprint)

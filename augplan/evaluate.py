@@ -450,6 +450,16 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
     }
 
 
+def _run_summary(document):
+    """What the ledger keeps of one comparison for ``augplan history RUN``."""
+    keys = ("name", "recipe_hash", "accuracy", "accuracy_ci", "gain", "gain_ci", "p_value", "p_holm",
+            "flagged", "field")
+    return {"scored_on": document["scored_on"],
+            "baseline": {k: document["baseline"][k] for k in ("n_images", "accuracy", "accuracy_ci")},
+            "recipes": [{k: row.get(k) for k in keys} for row in document["recipes"]],
+            "warnings": list(document["warnings"])}
+
+
 def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0, workers=1,
                      quiet=True, ledger_path=None, cache_dir=None, confirm_fraction=None):
     """Score recipes by their accuracy gain over a no-augmentation baseline.
@@ -571,5 +581,6 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
         best = max(document["recipes"], key=lambda e: e["gain"])
         _ledger.record_run(ledger_path, data_root=dataset.root,
                            recipe_names=[r.name for r in recipes], best_recipe=best["name"],
-                           best_gain=best["gain"], from_ledger=document["from_ledger"], **ledger_keys)
+                           best_gain=best["gain"], from_ledger=document["from_ledger"],
+                           details=_run_summary(document), **ledger_keys)
     return document

@@ -16,7 +16,7 @@ from pathlib import Path
 
 from augplan.errors import BadInputError
 
-__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history"]
+__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history", "run_details"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS evaluations (
@@ -56,6 +56,10 @@ def _connect(ledger_path, *, create):
     try:
         connection = sqlite3.connect(path, timeout=30)
         connection.executescript(_SCHEMA)
+        columns = {row[1] for row in connection.execute("PRAGMA table_info(runs)")}
+        if "details_json" not in columns:  # a ledger written before runs kept their details
+            with connection:
+                connection.execute("ALTER TABLE runs ADD COLUMN details_json TEXT")
     except sqlite3.DatabaseError as error:
         raise BadInputError(
             f"{path}: not a usable augplan ledger (SQLite said: {error}); "
@@ -152,16 +156,22 @@ def store_results(ledger_path, *, fingerprint, settings_key, seed, repeats, base
 
 
 def record_run(ledger_path, *, fingerprint, data_root, settings_key, seed, repeats,
-               recipe_names, best_recipe, best_gain, from_ledger):
-    """Append one comparison to the history (see `list_history`)."""
+               recipe_names, best_recipe, best_gain, from_ledger, details=None):
+    """Append one comparison to the history (see `list_history` and `run_details`).
+
+    ``details`` is a JSON-able summary of the comparison (scores per recipe)
+    that `run_details` returns.
+    """
     connection = _connect(ledger_path, create=True)
     with closing(connection), connection:
         connection.execute(
             "INSERT INTO runs (created, fingerprint, data_root, settings_key, seed, repeats, "
-            "recipes_json, best_recipe, best_gain, from_ledger) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            "recipes_json, best_recipe, best_gain, from_ledger, details_json) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (_now(), fingerprint, None if data_root is None else str(data_root), settings_key,
              int(seed), int(repeats), json.dumps(list(recipe_names)), best_recipe,
-             None if best_gain is None else float(best_gain), int(bool(from_ledger))),
+             None if best_gain is None else float(best_gain), int(bool(from_ledger)),
+             None if details is None else json.dumps(details, allow_nan=False)),
         )
 
 
@@ -185,7 +195,7 @@ def list_history(ledger_path, fingerprint=None):
     connection = _connect(ledger_path, create=False)
     if connection is None:
         return []
-    query = ("SELECT created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, "
+    query = ("SELECT id, created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, "
              "repeats, from_ledger FROM runs")
     arguments = ()
     if fingerprint is not None:
@@ -193,9 +203,49 @@ def list_history(ledger_path, fingerprint=None):
         arguments = (fingerprint,)
     with closing(connection):
         rows = connection.execute(query + " ORDER BY id", arguments).fetchall()
-    return [
-        {"date": created, "fingerprint": fp[:12], "data": data_root, "recipes": json.loads(names),
-         "best_recipe": best_recipe, "best_gain": best_gain, "seed": seed, "repeats": repeats,
-         "from_ledger": bool(from_ledger)}
-        for created, fp, data_root, names, best_recipe, best_gain, seed, repeats, from_ledger in rows
-    ]
+    return [_run_row(row) for row in rows]
+
+
+def _run_row(row):
+    run, created, fp, data_root, names, best_recipe, best_gain, seed, repeats, from_ledger = row
+    return {"run": run, "date": created, "fingerprint": fp[:12], "data": data_root, "recipes": json.loads(names),
+            "best_recipe": best_recipe, "best_gain": best_gain, "seed": seed, "repeats": repeats,
+            "from_ledger": bool(from_ledger)}
+
+
+def run_details(ledger_path, run):
+    """One past comparison with its scores.
+
+    Parameters
+    ----------
+    ledger_path : str or Path
+    run : int
+        The run number `list_history` shows.
+
+    Returns
+    -------
+    dict
+        The `list_history` row plus ``"fingerprint"`` in full, ``"settings_key"``
+        and ``"details"`` (the scores recorded with the run; None for a run
+        recorded before runs kept them).
+
+    Raises
+    ------
+    BadInputError
+        No ledger at the path, or no run with that number.
+    """
+    connection = _connect(ledger_path, create=False)
+    if connection is None:
+        raise BadInputError(f"{ledger_path}: no results ledger here; pass --ledger or run 'augplan evaluate' first.")
+    with closing(connection):
+        found = connection.execute(
+            "SELECT id, created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, repeats, "
+            "from_ledger, settings_key, details_json FROM runs WHERE id=?", (int(run),)).fetchone()
+        count = connection.execute("SELECT COUNT(*) FROM runs").fetchone()[0]
+    if found is None:
+        raise BadInputError(f"{ledger_path}: no run {run} in the ledger (it holds {count} runs; "
+                            "'augplan history' lists them).")
+    entry = _run_row(found[:10])
+    entry.update(fingerprint=found[2], settings_key=found[10],
+                 details=None if found[11] is None else json.loads(found[11]))
+    return entry

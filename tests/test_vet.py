@@ -1,9 +1,12 @@
 """vet end to end on a small copy of the demo scenario (invented ground truth:
 mirror-image chevrons, glazes told apart only by hue, a dim-light class)."""
 
+import contextlib
+import io
 import json
 import pickle
 from html.parser import HTMLParser
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -19,9 +22,17 @@ def vetted(tmp_path_factory):
     data = root / "data"
     make_demo_dataset(data, n_train=14, n_val=6, n_field=8)
     out = root / "out"
-    code = main(["vet", str(data), "--recipe", str(DEFAULT_RECIPE_DIR / "naive-draft.yaml"),
-                 "-o", str(out), "--repeats", "2", "--quiet", "--ledger", str(root / "ledger.sqlite")])
+    stdout = io.StringIO()
+    with contextlib.redirect_stdout(stdout):
+        code = main(["vet", str(data), "--recipe", str(DEFAULT_RECIPE_DIR / "naive-draft.yaml"),
+                     "-o", str(out), "--repeats", "2", "--quiet", "--ledger", str(root / "ledger.sqlite"),
+                     "--json"])
+    (root / "vet.json").write_text(stdout.getvalue())
     return code, out, data
+
+
+def _vet_json(out):
+    return json.loads((out.parent / "vet.json").read_text())
 
 
 def _changes(out, name):
@@ -130,3 +141,47 @@ def test_a_rewrite_that_still_breaks_after_the_recheck_is_removed():
     result = _drop_unsafe_rewrites(vetted, changes, rechecked)
     assert [step.op for step in result.transforms] == ["rotate"]
     assert changes[1]["action"] == "remove" and "still breaks" in changes[1]["detail"]
+
+
+def test_vet_json_carries_the_changes_and_the_signoff_list(vetted):
+    _, out, _ = vetted
+    summary = _vet_json(out)
+    evidence = json.loads((out / "evidence.json").read_text())
+    entry = evidence["recipes"][0]
+    assert [c["recipe"] for c in summary["changes"]] == ["naive-draft"]
+    assert summary["changes"][0]["transforms"] == entry["vetted"]["changes"]
+    assert summary["changes"][0]["unchanged"] is False
+    expected = [(c["index"], c["op"]) for c in entry["vetted"]["changes"]
+                if c["verdict"] == "unverified" and c["action"] == "keep"]
+    assert [(s["index"], s["op"]) for s in summary["signoff"]] == expected
+    for item in summary["signoff"]:
+        assert item["recipe"] == "naive-draft" and item["detail"]
+        assert item["evidence_sheet"] is None or Path(item["evidence_sheet"]).is_file()
+
+
+def test_vetted_file_carries_the_class_list_for_integer_labels(vetted):
+    _, out, data = vetted
+    aug = augplan.load_recipe(out / "vetted-recipe.yaml")
+    classes = sorted(p.name for p in (data / "train").iterdir())
+    assert list(aug.classes) == classes
+    image = np.random.default_rng(0).integers(0, 256, (64, 64, 3), dtype=np.uint8)
+    left = classes.index("chevron-left")
+    labels = {aug.apply(image, left, np.random.default_rng(s))[1] for s in range(40)}
+    assert labels == {left, classes.index("chevron-right")}  # the vetted relabel, on integer labels
+
+
+def test_history_run_shows_the_vet_runs_scores(vetted, capsys):
+    _, out, _ = vetted
+    ledger = out.parent / "ledger.sqlite"
+    assert main(["history", "--ledger", str(ledger)]) == 0
+    listing = capsys.readouterr().out
+    assert listing.splitlines()[0].split()[0] == "run"
+    assert main(["history", "1", "--ledger", str(ledger), "--json"]) == 0
+    run = json.loads(capsys.readouterr().out)
+    names = [r["name"] for r in run["details"]["recipes"]]
+    assert names == ["naive-draft", "naive-draft-vetted"] and run["run"] == 1
+    assert main(["history", "1", "--ledger", str(ledger)]) == 0
+    text = capsys.readouterr().out
+    assert "naive-draft-vetted" in text and "no augmentation" in text
+    assert main(["history", "99", "--ledger", str(ledger)]) == 2
+    assert "no run 99" in capsys.readouterr().err
