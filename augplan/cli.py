@@ -104,7 +104,7 @@ def _build_parser():
     _workers(p)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
-    p.add_argument("--plots", type=Path, default=None, help="folder for one histogram PNG per factor")
+    p.add_argument("--plots", type=Path, default=None, help="folder for factors.png: every factor's histograms, one panel each")
     p.add_argument("--draws", type=_positive_int, default=4, help="augmented draws per training image (default 4)")
 
     p = commands.add_parser("evaluate", help="score recipes against a no-augmentation baseline")
@@ -290,6 +290,16 @@ def _run_check(args, console):
     return ExitCode.FLAGGED if flagged else ExitCode.OK
 
 
+def _write_factor_grid(folder, result):
+    from .atomic import write_bytes_atomic
+    from .plots import factor_grid
+
+    folder = Path(folder)
+    folder.mkdir(exist_ok=True)
+    return write_bytes_atomic(folder / "factors.png",
+                              factor_grid(result["factors"], title=f"recipe {result['recipe']}"))
+
+
 def _run_coverage(args, console):
     from .coverage import analyse_coverage
     from . import tables
@@ -300,7 +310,9 @@ def _run_coverage(args, console):
         _ensure_parent(args.plots, dataset)
     recipe = _read_recipes([args.recipe])[0]
     result = analyse_coverage(dataset, recipe, draws=args.draws, seed=args.seed, workers=_execution(args),
-                              quiet=args.quiet, plots_dir=args.plots)
+                              quiet=args.quiet)
+    if args.plots is not None:
+        result["plots"] = [str(_write_factor_grid(args.plots, result))]
     _emit(console, args, result, tables.coverage_table)
     persists = any(s.get("flagged") and s.get("persists") for s in result["shortcuts"])
     return ExitCode.FLAGGED if persists else ExitCode.OK

@@ -36,16 +36,13 @@ References
 
 from __future__ import annotations
 
-import io
 import math
 import warnings
-from pathlib import Path
 
 import numpy as np
 import scipy.spatial
 import scipy.stats
 
-from augplan.atomic import write_bytes_atomic
 from augplan.data import Dataset, load_images
 from augplan.errors import BadInputError
 from augplan.factors import FACTORS, measure_factors
@@ -65,7 +62,6 @@ __all__ = [
     "shortcut_score",
     "summarise_factor",
     "analyse_coverage",
-    "write_factor_plots",
 ]
 
 K_NEIGHBOURS = 5
@@ -588,63 +584,11 @@ def _suggestion(name, original, labels, field_values, flagged, poorly_covered, s
     return None, f"No transform targets {name} directly; it is reported for information."
 
 
-# ------------------------------------------------------------------- plots
-
-
-def write_factor_plots(samples, plots_dir):
-    """One PNG per factor with the original, augmented and field histograms overlaid.
-
-    Parameters
-    ----------
-    samples : dict
-        ``{"original": {name: values}, "augmented": {...}, "field": {...} or None}``.
-    plots_dir : str or Path
-        Created if missing; each file is written atomically.
-
-    Returns
-    -------
-    list of Path
-    """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    plots_dir = Path(plots_dir)
-    plots_dir.mkdir(parents=True, exist_ok=True)
-    written = []
-    for name, factor in FACTORS.items():
-        field = samples.get("field")
-        field_values = None if field is None else field[name]
-        edges = _edges(factor, samples["original"][name], samples["augmented"][name], field_values)
-        figure = Figure(figsize=(5.0, 3.2), dpi=100)
-        FigureCanvasAgg(figure)
-        axes = figure.add_subplot()
-        for label, values, colour in (("original", samples["original"][name], "tab:blue"),
-                                      ("augmented", samples["augmented"][name], "tab:orange"),
-                                      ("field", field_values, "tab:green")):
-            if values is None:
-                continue
-            values = values[np.isfinite(values)]
-            if values.size == 0:
-                continue
-            if factor.circular:
-                values = values % factor.period
-            axes.hist(values, bins=edges, density=True, histtype="step", linewidth=1.6,
-                      color=colour, label=f"{label} (n={values.size})")
-        axes.set_xlabel(f"{name} ({factor.unit})")
-        axes.set_ylabel("density")
-        axes.legend(fontsize=8)
-        figure.tight_layout()
-        buffer = io.BytesIO()
-        figure.savefig(buffer, format="png", metadata={"Software": None})
-        written.append(write_bytes_atomic(plots_dir / f"{name}.png", buffer.getvalue()))
-    return written
-
-
 # ----------------------------------------------------------------- analysis
 
 
 def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, workers=1,
-                     quiet=True, plots_dir=None):
+                     quiet=True):
     """Widening, field coverage, shortcut audit and suggestions for one recipe.
 
     Parameters
@@ -663,16 +607,15 @@ def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, w
         image), the fold shuffles and the kNN subsample.
     workers : int, default 1
     quiet : bool, default True
-    plots_dir : str or Path, optional
-        Write one histogram PNG per factor there.
 
     Returns
     -------
     dict
         The ``coverage --json`` document: ``recipe``, ``factors``,
         ``field_coverage``, ``shortcuts``, ``shortcut_rule``,
-        ``val_shares_shortcut``, ``messages``, ``suggestions`` (and ``plots``
-        when ``plots_dir`` is given).
+        ``val_shares_shortcut``, ``messages``, ``suggestions``. Each factor
+        carries histograms of the original, augmented and field values on
+        shared edges, which `augplan.plots.factor_grid` draws.
 
     Raises
     ------
@@ -908,8 +851,4 @@ def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, w
               "shortcuts": shortcuts, "shortcut_rule": SHORTCUT_RULE,
               "val_shares_shortcut": val_shares, "messages": messages,
               "suggestions": suggestions}
-    if plots_dir is not None:
-        written = write_factor_plots({"original": original, "augmented": augmented,
-                                      "field": field_values}, plots_dir)
-        result["plots"] = [str(p) for p in written]
     return result

@@ -222,6 +222,8 @@ def _score(y_true, predictions, classes, rng):
         "balanced_accuracy": _round(summary["balanced_accuracy"]),
         "macro_f1": _round(summary["macro_f1"]),
         "per_class_recall": {c: _round(v) for c, v in summary["per_class_recall"].items()},
+        # Pooled over repeats: each validation image counts once per repeat.
+        "confusion": {"classes": list(classes), "counts": summary["confusion"], "repeats": int(repeats)},
         "repeat_accuracy": [_round(v) for v in correct.mean(axis=1)],
     }, correct
 
@@ -389,6 +391,7 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
         entry.update({k: val[k] for k in ("accuracy", "accuracy_ci", "balanced_accuracy", "macro_f1",
                                           "per_class_recall", "repeat_accuracy", "gain", "gain_ci",
                                           "p_value")})
+        entry["confusion"] = val.get("confusion")  # absent from results stored by older versions
         entry["p_holm"] = _round_p(adjusted)
         entry["per_class_gain"] = val["per_class_gain"]
         entry["flagged"] = bool(val["gain_ci"][1] < 0)
@@ -435,6 +438,7 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
     base_val = base_scores["val"]
     baseline = {k: base_val[k] for k in ("n_images", "accuracy", "accuracy_ci", "balanced_accuracy",
                                          "macro_f1", "per_class_recall", "repeat_accuracy")}
+    baseline["confusion"] = base_val.get("confusion")
     return {
         "baseline": baseline,
         "recipes": entries,

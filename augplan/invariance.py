@@ -363,7 +363,7 @@ def _run_unit(context, unit):
             rank[row] = seen.get(key, 0)
             seen[key] = rank[row] + 1
         off.sort(key=lambda row: (destinations[row] == OUTSIDE, rank[row], row))
-        examples = [(int(sources[row]), int(destinations[row]), moved_images[row])
+        examples = [(int(sources[row]), int(destinations[row]), magnitude)
                     for row in off[:EVIDENCE_IMAGES]]
     return destinations, examples
 
@@ -436,17 +436,44 @@ def _suggestion(transform, checked, verdicts, flows, classes):
     return suggestion or None
 
 
-def _write_evidence(evidence_dir, index, transform, verdict, examples, images, labels, classes):
-    """Contact sheet of moved and outside images: one row per image, original then transformed."""
-    from augplan.sheets import contact_sheet, save_png
+_EVIDENCE_CELL = 96
 
-    rows, row_labels = [], []
-    for source, destination, moved in examples:
+
+def _magnitude_caption(transform, magnitude):
+    """``degrees 15``: the magnitude a pair of an evidence sheet shows."""
+    from augplan.transforms import OPS
+
+    field = OPS[transform.op].magnitude
+    if field is None or magnitude is None:
+        return f"{transform.op}" + (f" {transform.params.get('axis')}" if transform.params.get("axis") else "")
+    return f"{field} {magnitude:.3g}"
+
+
+def _write_evidence(evidence_dir, index, transform, verdict, examples, records, labels, classes, fill, seed):
+    """Contact sheet of moved and outside images: one row per image, original then transformed.
+
+    The pair is drawn from the image file at its own aspect ratio (the check
+    itself ran on the squares the proxy model reads), with the transform at
+    the magnitude that moved it, captioned with that magnitude.
+    """
+    from augplan.data import read_record
+    from augplan.sheets import contact_sheet, save_png
+    from augplan.transforms import OPS, params_at
+
+    function = OPS[transform.op].function
+    originals = [read_record(records[source], max_side=_EVIDENCE_CELL) for source, _, _ in examples]
+    # Never enlarged past the largest image shown: a small image keeps its own pixels.
+    cell = max(8, min(_EVIDENCE_CELL, max(max(image.shape[:2]) for image in originals)))
+    rows, row_labels, captions = [], [], []
+    draw_rngs = np.random.default_rng([seed, index]).spawn(len(examples))
+    for (source, destination, magnitude), original, rng in zip(examples, originals, draw_rngs):
+        params = params_at(transform, 0.0 if magnitude is None else magnitude, fill)
         target = "outside" if destination == OUTSIDE else classes[destination]
-        rows.append([images[source], moved])
+        rows.append([original, function(original, params, rng)])
         row_labels.append(f"{classes[labels[source]]} -> {target}")
-    sheet = contact_sheet(rows, row_labels, column_labels=["original", "transformed"],
-                          title=f"transform {index} ({transform.op}): {verdict}")
+        captions.append(["", _magnitude_caption(transform, magnitude)])
+    sheet = contact_sheet(rows, row_labels, column_labels=["original", "transformed"], cell=cell,
+                          title=f"transform {index} ({transform.op}): {verdict}", captions=captions)
     path = Path(evidence_dir) / f"transform-{index:02d}-{transform.op}.png"
     save_png(sheet, path)
     return str(path)
@@ -768,8 +795,8 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         if evidence_dir is not None and overall != "safe":
             picked = _round_robin(examples, EVIDENCE_IMAGES)
             if picked:
-                sheet = _write_evidence(evidence_dir, t_index, transform, overall, picked, images,
-                                        labels, classes)
+                sheet = _write_evidence(evidence_dir, t_index, transform, overall, picked, records,
+                                        labels, classes, recipe.fill, seed)
         report.append({
             "index": t_index,
             "op": transform.op,

@@ -10,6 +10,8 @@ import sys
 import tempfile
 from pathlib import Path
 
+import numpy as np
+
 from . import __version__
 from .atomic import write_bytes_atomic, write_text_atomic
 from .cautions import CAUTIONS
@@ -52,6 +54,11 @@ def _collect_figures(entries, scratch):
                 name = f"{number}-{entry['name']}-transform-{transform['index']}.png"
                 figures[name] = Path(sheet).read_bytes()
                 transform["evidence_sheet"] = f"figures/{name}"
+        sheet = entry.get("draws_sheet")
+        if sheet and Path(sheet).is_file():
+            name = f"{number}-{entry['name']}-draws.jpg"
+            figures[name] = Path(sheet).read_bytes()
+            entry["draws_sheet"] = f"figures/{name}"
         plots = entry["coverage"].get("plots") or []
         for position, plot in enumerate(plots):
             if plot and Path(plot).is_file():
@@ -101,6 +108,41 @@ def _stage(quiet, text):
 def _field_gain(score):
     field = score.get("field") or {}
     return field.get("gain") if field.get("gain") is not None else float("-inf")
+
+
+RANKING_RULE = ("recipes are ranked by their validation gain over no augmentation; a tie (a saturated "
+                "validation split scores every recipe alike) goes to the larger gain on the labelled field "
+                "sample; the recommendation is the highest-ranked vetted recipe.")
+
+
+def _rank_key(score):
+    """Order of the leaderboard and of the recommendation (see `RANKING_RULE`)."""
+    return (score["gain"], _field_gain(score))
+
+
+def _class_counts(dataset):
+    counts = {label: dict.fromkeys(("train", "val", "test", "field"), 0) for label in dataset.classes}
+    for record in dataset.records:
+        if record.label in counts:
+            counts[record.label][record.split] += 1
+    return counts
+
+
+# Draws shown per recipe: one training image per class and five draws of it,
+# in cells small enough that a report of several recipes stays compact.
+_DRAWS_SHEET = {"per_class": 1, "draws": 5, "cell": 64}
+
+
+def _draws_sheet(dataset, recipe, path, *, seed, number):
+    """A contact sheet of augmented draws of ``recipe`` (as `preview` draws it), written as JPEG."""
+    from .plots import jpeg_bytes
+    from .sheets import preview_sheet
+
+    if not dataset.split("train"):
+        return None
+    sheet = preview_sheet(dataset, recipe, rng=np.random.default_rng([seed, number]), **_DRAWS_SHEET)
+    write_bytes_atomic(path, jpeg_bytes(sheet))
+    return str(path)
 
 
 def _gain_text(block):
@@ -171,8 +213,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             _stage(quiet, f"[{number + 1}/{len(recipes)}] {recipe.name}: label safety and coverage")
             check = check_recipe(dataset, recipe, sample=sample, seed=seed, workers=workers, quiet=quiet,
                                  evidence_dir=scratch / f"evidence-{number}")
-            coverage = analyse_coverage(dataset, recipe, seed=seed, workers=workers, quiet=quiet,
-                                        plots_dir=scratch / f"plots-{number}")
+            coverage = analyse_coverage(dataset, recipe, seed=seed, workers=workers, quiet=quiet)
             vetted, changes = vet_transforms(recipe, check, approve=approve, coverage_result=coverage)
             rechecked = None
             if any(change["action"] in ("relabel", "scope") for change in changes):
@@ -185,8 +226,10 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             signoff = _signoff_items(changes)
             if not unchanged:
                 vetted = dataclasses.replace(vetted, name=_vetted_name(recipe))
+            draws = _draws_sheet(dataset, vetted, scratch / f"draws-{number}.jpg", seed=seed, number=number)
             entries.append({"name": recipe.name, "source": recipe.source, "recipe": recipe_to_dict(recipe),
                             "recipe_hash": recipe_hash(recipe), "check": check, "coverage": coverage,
+                            "draws_sheet": draws,
                             "vetted": {"name": vetted.name, "recipe": recipe_to_dict(vetted),
                                        "changes": changes, "signoff": signoff, "unchanged": unchanged,
                                        "recheck": rechecked}})
@@ -200,9 +243,9 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
 
         for entry, vetted in zip(entries, vetted_recipes):
             entry["vetted"]["score"] = scores[vetted.name]
-        # Best validation gain; a tie (a saturated validation split scores every
-        # recipe alike) goes to the better gain on the labelled field sample.
-        best_entry = max(entries, key=lambda e: (e["vetted"]["score"]["gain"], _field_gain(e["vetted"]["score"])))
+        ranking = [row["name"] for row in sorted(evaluation["recipes"], key=_rank_key, reverse=True)]
+        by_vetted_name = {entry["vetted"]["name"]: entry for entry in entries}
+        best_entry = next(by_vetted_name[name] for name in ranking if name in by_vetted_name)
 
         documents = {}
         for entry, vetted in zip(entries, vetted_recipes):
@@ -239,13 +282,19 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             "augplan_version": __version__, "created": created, "verdict": verdict,
             "data": {"root": str(dataset.root), "fingerprint": data_fingerprint, "classes": list(dataset.classes),
                      "counts": {split: len(dataset.split(split)) for split in ("train", "val", "test", "field")},
+                     "class_counts": _class_counts(dataset),
                      "val_from_train": dataset.val_from_train, "split_seed": dataset.split_seed,
                      "skipped": [list(item) for item in dataset.skipped], "leaks": leaks},
             "recipes": entries, "evaluation": evaluation, "best": best_entry["name"],
+            "ranking": ranking, "ranking_rule": RANKING_RULE,
             "cautions": list(CAUTIONS), "seed": seed,
         }
-        html = render_report(evidence_document)
         figures = _collect_figures(entries, scratch)
+        # The report reads the figures under the names they are written with.
+        (scratch / "figures").mkdir()
+        for name, data in figures.items():
+            (scratch / "figures" / name).write_bytes(data)
+        html = render_report(evidence_document, base_dir=scratch)
         # Everything is computed: now write, each file atomically.
         evidence_text = json.dumps(evidence_document, indent=2, allow_nan=False, default=str)
         for name, text in documents.items():

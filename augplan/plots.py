@@ -1,0 +1,108 @@
+"""Figures of analysis results: drawn here from the data the analyses return.
+
+The analyses return numbers (histogram counts, rates); this module is the
+only one that turns them into pictures. Figures are encoded compactly: an
+8-bit palette PNG for line art (a few flat colours, so the palette is
+lossless in practice) and JPEG for photographic contact sheets, so a report
+that embeds many of them stays small.
+"""
+
+import io
+
+import numpy as np
+from PIL import Image
+
+__all__ = ["factor_grid", "palette_png", "jpeg_bytes"]
+
+# Colours that stay apart for the common colour-vision deficiencies
+# (Okabe and Ito's palette, 2008) and in greyscale print by line style.
+_SOURCES = (("original", "#0072B2", "-"), ("augmented", "#D55E00", "--"), ("field", "#009E73", ":"))
+_COLUMNS = 4
+
+
+def palette_png(image, colours=64):
+    """Encode a PIL image as an 8-bit palette PNG of at most ``colours`` colours (no metadata)."""
+    if not isinstance(image, Image.Image):
+        raise TypeError(f"image must be a PIL image; got {type(image).__name__}")
+    quantised = image.convert("RGB").quantize(colors=int(colours), method=Image.Quantize.MEDIANCUT, dither=0)
+    buffer = io.BytesIO()
+    quantised.save(buffer, format="PNG", optimize=True)
+    return buffer.getvalue()
+
+
+def jpeg_bytes(image, quality=80):
+    """Encode a PIL image as a baseline JPEG (4:2:0, no metadata): for photographs, not line art."""
+    if not isinstance(image, Image.Image):
+        raise TypeError(f"image must be a PIL image; got {type(image).__name__}")
+    buffer = io.BytesIO()
+    image.convert("RGB").save(buffer, format="JPEG", quality=int(quality), optimize=True)
+    return buffer.getvalue()
+
+
+def _density(histogram):
+    edges = np.asarray(histogram["edges"], dtype=np.float64)
+    counts = np.asarray(histogram["counts"], dtype=np.float64)
+    total = counts.sum()
+    if total <= 0 or edges.size != counts.size + 1:
+        return None
+    return edges, counts / (total * np.diff(edges))
+
+
+def factor_grid(factors, *, title=None):
+    """Small multiples of every factor's histograms on one figure: original, augmented, field.
+
+    Parameters
+    ----------
+    factors : dict
+        The ``factors`` block of a coverage result: per factor ``{"unit",
+        "original": {"histogram": {"edges", "counts"}}, "augmented": {...},
+        "field": {"summary": {...}}}``. All histograms of one factor share
+        their edges.
+    title : str, optional
+
+    Returns
+    -------
+    bytes or None
+        A palette PNG; None when no factor has a histogram.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    panels = []
+    for name, info in (factors or {}).items():
+        if not isinstance(info, dict):
+            continue
+        field = (info.get("field") or {}).get("summary") or {}
+        curves = []
+        for (source, colour, style), block in zip(_SOURCES, (info.get("original"), info.get("augmented"), field)):
+            histogram = (block or {}).get("histogram")
+            density = _density(histogram) if isinstance(histogram, dict) else None
+            if density is not None:
+                curves.append((source, colour, style, density, int(sum(histogram["counts"]))))
+        if curves:
+            panels.append((name, info.get("unit"), curves))
+    if not panels:
+        return None
+    rows = -(-len(panels) // _COLUMNS)
+    figure = Figure(figsize=(2.6 * _COLUMNS, 1.75 * rows + (0.35 if title else 0.0) + 0.3), dpi=90)
+    FigureCanvasAgg(figure)
+    axes_grid = figure.subplots(rows, _COLUMNS, squeeze=False)
+    for axes, (name, unit, curves) in zip(axes_grid.ravel(), panels):
+        for source, colour, style, (edges, density), n in curves:
+            axes.stairs(density, edges, color=colour, linestyle=style, linewidth=1.4, label=f"{source} (n={n})")
+        axes.set_title(f"{name}" + (f" ({unit})" if unit else ""), fontsize=8.5)
+        axes.tick_params(labelsize=7, length=2)
+        axes.set_yticks([])
+    for axes in axes_grid.ravel()[len(panels):]:
+        axes.set_axis_off()
+    handles, labels = axes_grid.ravel()[0].get_legend_handles_labels()
+    figure.legend(handles, [label.split(" (")[0] for label in labels], loc="lower center", ncol=3, fontsize=8,
+                  frameon=False)
+    if title:
+        figure.suptitle(title, fontsize=9)
+    figure.tight_layout(rect=(0, 0.06, 1, 1))
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", metadata={"Software": None})
+    buffer.seek(0)
+    with Image.open(buffer) as image:
+        return palette_png(image)
