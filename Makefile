@@ -1,15 +1,22 @@
 # Two commands set everything up on a fresh machine: `make demo` and `make test`.
+# Both install from constraints.txt, the exact versions the suite last passed
+# with; `make constraints` refreshes that file (newest versions, full suite).
 PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
+EXTRAS := test,cnn
+# PIP_CONSTRAINT (not only -c) so the isolated build of the editable install
+# takes the same setuptools.
+PIP_PINNED := PIP_CONSTRAINT=$(CURDIR)/constraints.txt $(BIN)/python -m pip
+REFRESH := .venv-refresh
 
-.PHONY: demo test install bench clean
+.PHONY: demo test install bench constraints clean
 
-$(STAMP): pyproject.toml
+$(STAMP): pyproject.toml constraints.txt
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
-	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test,cnn]'
+	$(PIP_PINNED) install --quiet --upgrade pip
+	$(PIP_PINNED) install --quiet -e '.[$(EXTRAS)]'
 	touch $(STAMP)
 
 install: $(STAMP)
@@ -23,5 +30,19 @@ test: $(STAMP)
 bench: $(STAMP)
 	for b in benchmarks/bench_*.py; do $(BIN)/python $$b || exit 1; done
 
+# The newest releases the open ranges of pyproject.toml admit, the whole
+# suite on them, and only then the new constraints.txt.
+constraints:
+	rm -rf $(REFRESH)
+	$(PYTHON) -m venv $(REFRESH)
+	$(REFRESH)/bin/python -m pip install --quiet --upgrade pip
+	$(REFRESH)/bin/python -m pip install --quiet -e '.[$(EXTRAS)]'
+	$(REFRESH)/bin/python -m pytest
+	{ sed -n '1,2p' constraints.txt; \
+	  $(REFRESH)/bin/python -m pip freeze --all --exclude-editable \
+	    | sed 's/^torch==\([0-9.]*\)+cpu$$/torch==\1/'; } > constraints.txt.new
+	mv constraints.txt.new constraints.txt
+	rm -rf $(REFRESH)
+
 clean:
-	rm -rf $(VENV) build *.egg-info .pytest_cache
+	rm -rf $(VENV) $(REFRESH) build *.egg-info .pytest_cache

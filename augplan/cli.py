@@ -11,8 +11,8 @@ import traceback
 from enum import IntEnum
 from pathlib import Path
 
-from . import __version__
-from .errors import BadInputError
+from augplan import __version__
+from augplan.errors import BadInputError
 
 __all__ = ["ExitCode", "main"]
 
@@ -72,7 +72,7 @@ def _workers(parser, *, ship_images=True):
 
 def _execution(args):
     """The cluster when --cluster (or AUGPLAN_CLUSTER) names one, else the worker count."""
-    from .parallel import resolve_workers
+    from augplan.parallel import resolve_workers
 
     return resolve_workers(args.workers, getattr(args, "cluster", None))
 
@@ -187,7 +187,7 @@ class _Console:
 
 
 def _open_data(args, *, field=None):
-    from .data import open_dataset
+    from augplan.data.dataset import open_dataset
 
     data = Path(args.data)
     manifest = None
@@ -198,7 +198,7 @@ def _open_data(args, *, field=None):
 
 
 def _read_recipes(paths):
-    from .recipe import read_recipe
+    from augplan.recipe.parse import read_recipe
 
     recipes = [read_recipe(path) for path in paths]
     names = [recipe.name for recipe in recipes]
@@ -217,7 +217,7 @@ def _report_dataset(console, dataset):
 
 
 def _report_leaks(console, dataset):
-    from .data import find_duplicates
+    from augplan.data.dataset import find_duplicates
 
     leaks = find_duplicates(dataset)
     for leak in leaks[:20]:
@@ -237,8 +237,8 @@ def _default_cache(data):
 
 
 def _run_preview(args, console):
-    from .sheets import preview_sheet, save_png
-    from .recipe import read_recipe
+    from augplan.render.sheets import preview_sheet, save_png
+    from augplan.recipe.parse import read_recipe
     import numpy as np
 
     dataset = _open_data(args)
@@ -257,7 +257,7 @@ def _ensure_parent(path, dataset=None):
     if not parent.is_dir():
         raise BadInputError(f"{path}: the folder {parent} does not exist")
     if dataset is not None:
-        from .data import ensure_outside_data
+        from augplan.data.dataset import ensure_outside_data
 
         ensure_outside_data(path, dataset)
 
@@ -273,8 +273,8 @@ def _emit(console, args, result, table):
 
 
 def _run_check(args, console):
-    from .invariance import check_recipe
-    from . import tables
+    from augplan.check.check import check_recipe
+    from augplan.render import text as tables
 
     dataset = _open_data(args)
     _report_dataset(console, dataset)
@@ -291,8 +291,8 @@ def _run_check(args, console):
 
 
 def _write_factor_grid(folder, result):
-    from .atomic import write_bytes_atomic
-    from .plots import factor_grid
+    from augplan.atomic import write_bytes_atomic
+    from augplan.render.plots import factor_grid
 
     folder = Path(folder)
     folder.mkdir(exist_ok=True)
@@ -301,8 +301,8 @@ def _write_factor_grid(folder, result):
 
 
 def _run_coverage(args, console):
-    from .coverage import analyse_coverage
-    from . import tables
+    from augplan.coverage.coverage import analyse_coverage
+    from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
@@ -319,8 +319,8 @@ def _run_coverage(args, console):
 
 
 def _run_evaluate(args, console):
-    from .evaluate import evaluate_recipes
-    from . import tables
+    from augplan.evaluate.evaluate import evaluate_recipes
+    from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
@@ -335,8 +335,8 @@ def _run_evaluate(args, console):
 
 
 def _run_draft(args, console):
-    from .draft import draft_recipe_text
-    from .atomic import write_text_atomic
+    from augplan.coverage.draft import draft_recipe_text
+    from augplan.atomic import write_text_atomic
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
@@ -357,7 +357,7 @@ def _parse_approve(text):
 
 
 def _run_vet(args, console):
-    from .vet import vet_recipes
+    from augplan.vet.job import vet_recipes
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
@@ -377,7 +377,7 @@ def _run_vet(args, console):
 
 
 def _run_verify(args, console):
-    from .export import verify_vetted
+    from augplan.vet.vetted_file import verify_vetted
 
     result = verify_vetted(args.vetted, data=args.data)
     if args.json:
@@ -388,9 +388,9 @@ def _run_verify(args, console):
 
 
 def _run_history(args, console):
-    from .ledger import list_history, run_details
-    from .data import fingerprint, open_dataset
-    from . import tables
+    from augplan.evaluate.ledger import list_history, run_details
+    from augplan.data.dataset import fingerprint, open_dataset
+    from augplan.render import text as tables
 
     if args.data is not None and args.data.isdigit() and not Path(args.data).exists():
         ledger = args.ledger or Path(".augplan/ledger.sqlite")
@@ -411,7 +411,7 @@ def _run_history(args, console):
 
 
 def _run_demo(args, console):
-    from .demo import run_demo
+    from augplan.demo import run_demo
 
     summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     if args.json:

@@ -44,7 +44,7 @@ from PIL import Image, ImageDraw
 from scipy.ndimage import gaussian_filter
 
 from augplan.atomic import write_bytes_atomic
-from augplan.colour import linear_to_srgb, srgb_to_linear
+from augplan.imaging.colour import linear_to_srgb, srgb_to_linear
 
 __all__ = [
     "CLASSES",
@@ -302,10 +302,10 @@ def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
     dict
         The summary of `augplan.vet.vet_recipes`.
     """
-    from .data import open_dataset
-    from .errors import BadInputError
-    from .recipe import read_recipe
-    from .vet import vet_recipes
+    from augplan.data.dataset import open_dataset
+    from augplan.errors import BadInputError
+    from augplan.recipe.parse import read_recipe
+    from augplan.vet.job import vet_recipes
 
     paths = [DEFAULT_RECIPE_DIR / name for name in DEMO_RECIPES]
     if not DEFAULT_DEMO_DIR.is_dir() or not all(path.is_file() for path in paths):

@@ -21,7 +21,7 @@ import numpy as np
 import torch
 from PIL import Image
 
-from .augmenter import Augmenter
+from augplan.augment.augmenter import Augmenter
 
 __all__ = ["TensorAugmenter"]
 

@@ -20,9 +20,9 @@ from pathlib import Path
 import numpy as np
 from PIL import Image, ImageDraw
 
-from augplan.data import open_dataset
-from augplan.invariance import check_recipe
-from augplan.recipe import parse_recipe
+from augplan.data.dataset import open_dataset
+from augplan.check.check import check_recipe
+from augplan.recipe.parse import parse_recipe
 
 RECIPE = """
 name: bench

@@ -19,11 +19,11 @@ import numpy as np
 import skimage.data
 from PIL import Image
 
-from augplan.coverage import analyse_coverage
-from augplan.data import open_dataset
-from augplan.factors import FACTORS, measure_factors
-from augplan.recipe import parse_recipe
-from augplan.transforms import apply_recipe
+from augplan.coverage.coverage import analyse_coverage
+from augplan.data.dataset import open_dataset
+from augplan.measure.factors import FACTORS, measure_factors
+from augplan.recipe.parse import parse_recipe
+from augplan.augment.transforms import apply_recipe
 
 RECIPE = parse_recipe(
     "name: bench\n"

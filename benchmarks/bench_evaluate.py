@@ -23,9 +23,9 @@ from pathlib import Path
 import numpy as np
 from PIL import Image
 
-from augplan.data import open_dataset
-from augplan.evaluate import evaluate_recipes
-from augplan.recipe import Recipe, Transform
+from augplan.data.dataset import open_dataset
+from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.recipe.parse import Recipe, Transform
 
 SIZE = 64
 CLASSES = 10
@@ -103,9 +103,9 @@ def breakdown(dataset, sizes=(500, 2000), copies=4):
     flat figure); the fit prints its seconds and the solver's iterations,
     which grow with the training set when the augmented classes overlap.
     """
-    from augplan.data import load_images
-    from augplan.features import FeatureModel, image_features
-    from augplan.transforms import apply_recipe
+    from augplan.data.dataset import load_images
+    from augplan.measure.features import FeatureModel, image_features
+    from augplan.augment.transforms import apply_recipe
 
     # File names are the drawing order, which cycles through the classes, so
     # every prefix of this order is balanced.

@@ -26,9 +26,9 @@ import time
 from pathlib import Path
 
 
-from augplan.evaluate import evaluate_recipes
+from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.parallel import Cluster
-from augplan.recipe import Recipe, Transform
+from augplan.recipe.parse import Recipe, Transform
 from bench_evaluate import write_dataset  # the same invented bar-angle images
 
 SIZE = 64

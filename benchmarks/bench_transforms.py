@@ -20,7 +20,7 @@ from skimage import color as skcolor
 from skimage import data
 from skimage.transform import resize
 
-from augplan import transforms
+from augplan.augment import transforms
 
 COEFFS = np.array([0.2126, 0.7152, 0.0722], dtype=np.float32)  # ITU-R BT.709
 

@@ -8,8 +8,8 @@ import pytest
 from PIL import Image
 
 from augplan import load_recipe
-from augplan.augmenter import Augmenter
-from augplan.recipe import parse_recipe
+from augplan.augment.augmenter import Augmenter
+from augplan.recipe.parse import parse_recipe
 
 RECIPE_TEXT = """
 name: loader
@@ -140,7 +140,7 @@ def test_no_generator_raises_and_says_how_to_pass_one(aug, image, call):
 
 
 def _vetted_file(tmp_path, evidence):
-    from augplan.export import vetted_text
+    from augplan.vet.vetted_file import vetted_text
 
     path = tmp_path / "vetted.yaml"
     path.write_text(vetted_text(_always_flip(), evidence))

@@ -477,7 +477,7 @@ def test_bad_input(build, expect, needles, tmp_path, monkeypatch, run_cli):
 
 def test_exif_orientation_is_applied_on_read(tmp_path):
     # A 24 x 16 (H x W) image tagged Orientation 6 displays as 16 x 24.
-    from augplan.data import read_image
+    from augplan.data.dataset import read_image
 
     exif = Image.Exif()
     exif[0x0112] = 6

@@ -110,9 +110,9 @@ def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path):
 def test_shipped_images_need_no_shared_folder(cluster, recipe, tmp_path):
     # --ship-images: the records carry their files' bytes, so the run on the
     # cluster gives the local answer even after the data folder is gone.
-    from augplan.data import open_dataset
-    from augplan.evaluate import evaluate_recipes
-    from augplan.recipe import read_recipe
+    from augplan.data.dataset import open_dataset
+    from augplan.evaluate.evaluate import evaluate_recipes
+    from augplan.recipe.parse import read_recipe
 
     recipes = [read_recipe(recipe)]
     options = dict(repeats=2, seed=3, size=16)
@@ -129,9 +129,9 @@ def test_shipped_images_need_no_shared_folder(cluster, recipe, tmp_path):
 def test_check_with_shipped_images_needs_no_shared_folder(cluster, recipe, tmp_path):
     # The checker's units carry records, not decoded images; with the bytes
     # on board the cluster run needs no data folder and gives the local answer.
-    from augplan.data import open_dataset
-    from augplan.invariance import check_recipe
-    from augplan.recipe import read_recipe
+    from augplan.data.dataset import open_dataset
+    from augplan.check.check import check_recipe
+    from augplan.recipe.parse import read_recipe
 
     options = dict(seed=3, size=16)
     local = check_recipe(open_dataset(_fresh_data(tmp_path / "local")), read_recipe(recipe), **options)

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from skimage.color import rgb2hsv
 
-from augplan.colour import (
+from augplan.imaging.colour import (
     SRGB_TO_LINEAR_LUT,
     check_rgb_image,
     encode_linear_to_uint8,
@@ -36,6 +36,8 @@ def test_decode_matches_iec_formula(code):
     # code 11 (0.0431) on the power segment.
     expected = iec_decode(code / 255)
     assert srgb_to_linear(np.float64(code / 255)) == pytest.approx(expected, rel=1e-12, abs=1e-15)
+    # The table is float32: storing the float64 value costs at most half an
+    # ulp, 6e-8 relative; 1e-6 leaves room for a float32 evaluation.
     assert SRGB_TO_LINEAR_LUT[code] == pytest.approx(expected, rel=1e-6, abs=1e-9)
 
 
@@ -94,7 +96,9 @@ def test_relative_luminance_bt709_coefficients():
     image = np.array([[[255, 0, 0], [0, 255, 0], [0, 0, 255], [255, 255, 255]]], dtype=np.uint8)
     y = relative_luminance(image)
     assert y.dtype == np.float32 and y.shape == (1, 4)
-    assert np.allclose(y[0], [0.2126, 0.7152, 0.0722, 1.0], atol=1e-6)
+    # float32: three rounded products and two sums of values <= 1 stay within
+    # a few ulp of 1.0 (1.2e-7 each), under 1e-6.
+    assert np.allclose(y[0], [0.2126, 0.7152, 0.0722, 1.0], rtol=0, atol=1e-6)
 
 
 @pytest.mark.parametrize("code", [0, 7, 60, 128, 200, 255])
@@ -102,7 +106,8 @@ def test_uniform_grey_luminance_equals_decoded_value(code):
     # BT.709 weights sum to 1, so a neutral grey's luminance is its decoded
     # value (IEC 61966-2-1).
     image = np.full((4, 5, 3), code, dtype=np.uint8)
-    assert np.allclose(relative_luminance(image), iec_decode(code / 255), atol=1e-6)
+    # float32 luminance: a few ulp of 1.0 (1.2e-7 each), as above.
+    assert np.allclose(relative_luminance(image), iec_decode(code / 255), rtol=0, atol=1e-6)
     assert mean_relative_luminance(image) == pytest.approx(iec_decode(code / 255), abs=1e-6)
 
 
@@ -111,7 +116,8 @@ def test_relative_luminance_random_pixels_and_mean():
     image = rng.integers(0, 256, (16, 12, 3), dtype=np.uint8)
     decoded = np.vectorize(iec_decode)(image / 255.0)
     expected = decoded @ np.array([0.2126, 0.7152, 0.0722])  # ITU-R BT.709-6
-    assert np.allclose(relative_luminance(image), expected, atol=1e-6)
+    # float32 luminance against float64: a few ulp of 1.0 (1.2e-7 each).
+    assert np.allclose(relative_luminance(image), expected, rtol=0, atol=1e-6)
     assert mean_relative_luminance(image) == pytest.approx(expected.mean(), abs=1e-6)
 
 
@@ -136,8 +142,10 @@ def test_rgb_to_hsv_matches_skimage_on_image():
     got = rgb_to_hsv(rgb)
     assert got.dtype == np.float32
     dh = np.abs(got[..., 0] - expected[..., 0])
+    # float32 input and arithmetic: a hue is a ratio of differences of
+    # channels, which can lose a few digits of float32's ~7; 1e-5 of a turn.
     assert np.all(np.minimum(dh, 1 - dh) < 1e-5)
-    assert np.allclose(got[..., 1:], expected[..., 1:], atol=1e-5)
+    assert np.allclose(got[..., 1:], expected[..., 1:], rtol=0, atol=1e-5)
 
 
 def test_hsv_to_rgb_matches_colorsys_and_round_trips():

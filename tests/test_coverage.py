@@ -7,11 +7,11 @@ import pytest
 import scipy.stats
 from PIL import Image
 
-from augplan import coverage
-from augplan.colour import encode_linear_to_uint8
-from augplan.data import open_dataset
-from augplan.factors import FACTORS
-from augplan.recipe import parse_recipe
+from augplan.coverage import coverage
+from augplan.imaging.colour import encode_linear_to_uint8
+from augplan.data.dataset import open_dataset
+from augplan.measure.factors import FACTORS
+from augplan.recipe.parse import parse_recipe
 
 
 # ------------------------------------------------------------ circular maths
@@ -250,7 +250,7 @@ def test_demo_lighting_shortcut_is_shared_by_val_and_cleared_by_the_relighting_r
     # tiles photographed dim in train and val, every class under wide lighting
     # in the labelled field sample.
     from augplan.demo import DEFAULT_RECIPE_DIR, make_demo_dataset
-    from augplan.recipe import read_recipe
+    from augplan.recipe.parse import read_recipe
 
     make_demo_dataset(tmp_path, n_train=16, n_val=8, n_field=10)
     dataset = open_dataset(tmp_path)

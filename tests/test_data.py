@@ -13,7 +13,7 @@ from skimage import data as skdata
 from skimage.util import img_as_ubyte
 from sklearn.model_selection import StratifiedShuffleSplit
 
-from augplan.data import (
+from augplan.data.dataset import (
     ImageRecord,
     NEAR_DUPLICATE_BITS,
     find_duplicates,

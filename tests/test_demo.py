@@ -13,7 +13,7 @@ import pytest
 from PIL import Image
 
 from augplan import demo
-from augplan.colour import mean_relative_luminance
+from augplan.imaging.colour import mean_relative_luminance
 
 SMALL = {"n_train": 8, "n_val": 4, "n_field": 10}
 
@@ -172,7 +172,7 @@ RECIPES = demo.DEFAULT_DEMO_DIR.parent / "recipes"
 
 @pytest.mark.parametrize("name", ["naive-draft", "cautious", "light-and-pose"])
 def test_demo_recipes_parse(name):
-    from augplan.recipe import read_recipe
+    from augplan.recipe.parse import read_recipe
 
     path = RECIPES / f"{name}.yaml"
     if not path.is_file():

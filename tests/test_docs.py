@@ -5,7 +5,7 @@ import importlib
 
 import pytest
 
-MODULES = ["augplan.augmenter", "augplan.stats", "augplan.features"]
+MODULES = ["augplan.augment.augmenter", "augplan.measure.stats", "augplan.measure.features"]
 
 
 @pytest.mark.parametrize("name", MODULES)

@@ -3,9 +3,9 @@
 import numpy as np
 import pytest
 
-from augplan.draft import DEFAULTS, draft_ranges
-from augplan.factors import brightness
-from augplan.transforms import OPS
+from augplan.coverage.draft import DEFAULTS, draft_ranges
+from augplan.measure.factors import brightness
+from augplan.augment.transforms import OPS
 
 
 def _tiles(level, n, rng):

@@ -14,13 +14,13 @@ import numpy as np
 import pytest
 from PIL import Image
 
-import augplan.transforms as transforms
-from augplan import ledger
-from augplan.data import load_images, open_dataset
+import augplan.augment.transforms as transforms
+from augplan.evaluate import ledger
+from augplan.data.dataset import load_images, open_dataset
 from augplan.errors import BadInputError
-from augplan.evaluate import evaluate_recipes
-from augplan.features import FeatureModel, image_features
-from augplan.recipe import Recipe, Transform
+from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.measure.features import FeatureModel, image_features
+from augplan.recipe.parse import Recipe, Transform
 
 SIZE = 32
 PER_CLASS = {"train": 15, "val": 30, "field": 10}
@@ -106,6 +106,8 @@ def test_document_shape_and_consistency(comparison):
     low, high = baseline["accuracy_ci"]
     assert low <= baseline["accuracy"] <= high
     # The pooled accuracy is the mean of the per-repeat accuracies (equal n).
+    # JSON figures are rounded to 6 decimals: a difference of two rounded
+    # figures against a rounded figure is at most 1.5e-6 off; 1e-5 allows it.
     assert baseline["accuracy"] == pytest.approx(np.mean(baseline["repeat_accuracy"]), abs=1e-5)
     for entry in comparison["recipes"]:
         assert entry["gain"] == pytest.approx(entry["accuracy"] - baseline["accuracy"], abs=1e-5)
@@ -121,6 +123,37 @@ def test_document_shape_and_consistency(comparison):
     assert comparison["field"]["baseline"]["n_images"] == 10 * PER_CLASS["field"]
     assert comparison["confirm"] is None
     assert all(entry["confirm"] is None for entry in comparison["recipes"])
+
+
+def _tells_one_story(block):
+    """The stated rule: p < 0.05 exactly when the 95% gain interval excludes zero."""
+    low, high = block["gain_ci"]
+    return (block["p_value"] < 0.05) == (low > 0 or high < 0) and low <= block["gain"] <= high
+
+
+def test_p_value_and_interval_agree_on_every_digits_recipe(comparison):
+    # UCI optdigits via scikit-learn: validation and the labelled field sample.
+    assert "p < 0.05 exactly when the 95% interval excludes zero" in comparison["gain_test"]
+    for entry in comparison["recipes"]:
+        assert _tells_one_story(entry), entry["name"]
+        assert _tells_one_story(entry["field"]), entry["name"]
+
+
+def test_p_value_and_interval_agree_on_every_demo_recipe(tmp_path):
+    from augplan.demo import DEFAULT_DEMO_DIR, DEFAULT_RECIPE_DIR, DEMO_RECIPES
+    from augplan.recipe.parse import read_recipe
+
+    if not DEFAULT_DEMO_DIR.is_dir():
+        pytest.skip("demo_images/ is not part of this installation")
+    recipes = [read_recipe(DEFAULT_RECIPE_DIR / name) for name in DEMO_RECIPES]
+    document = evaluate_recipes(open_dataset(DEFAULT_DEMO_DIR), recipes, repeats=2, cache_dir=tmp_path)
+    assert [e["name"] for e in document["recipes"]] == ["naive-draft", "cautious", "light-and-pose"]
+    for entry in document["recipes"]:
+        assert _tells_one_story(entry), entry["name"]
+        assert _tells_one_story(entry["field"]), entry["name"]
+    # 75 validation images: with the image as the unit no p-value can fall
+    # below the sign-flip test's floor of 1/10,000 (the old pooled test gave 2^-50).
+    assert min(e["p_value"] for e in document["recipes"]) >= 1e-4
 
 
 def test_validation_images_never_reach_a_transform(digits_data, cache_dir, monkeypatch):
@@ -178,7 +211,7 @@ def test_ledger_reuses_stored_results_and_lists_history(digits_data, cache_dir, 
     third = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=1,
                              cache_dir=cache_dir, ledger_path=path)
     assert third["from_ledger"] is False
-    from augplan.data import fingerprint
+    from augplan.data.dataset import fingerprint
 
     history = ledger.list_history(path, fingerprint=fingerprint(digits_data))
     assert [row["recipes"] for row in history] == [["affine-ledger"]] * 3

@@ -5,8 +5,8 @@ import json
 
 import pytest
 
-from augplan.export import read_vetted, verify_vetted, vet_transforms, vetted_checksum, write_vetted
-from augplan.recipe import parse_recipe, recipe_to_dict
+from augplan.vet.vetted_file import read_vetted, verify_vetted, vet_transforms, vetted_checksum, write_vetted
+from augplan.recipe.parse import parse_recipe, recipe_to_dict
 
 RECIPE = parse_recipe("""
 name: tiles

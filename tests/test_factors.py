@@ -10,7 +10,7 @@ import skimage.color
 import skimage.data
 import skimage.transform
 
-from augplan import factors
+from augplan.measure import factors
 
 
 def _srgb_decode(code):
@@ -47,6 +47,7 @@ COLOURS = [(0, 0, 0), (255, 255, 255), (128, 128, 128), (255, 0, 0), (0, 255, 0)
 @pytest.mark.parametrize("rgb", COLOURS, ids=[f"rgb{c}" for c in COLOURS])
 def test_brightness_of_uniform_colour_matches_srgb_bt709(rgb):
     expected = _luminance_reference(np.array(rgb))
+    # factors work in float32: a luminance <= 1 within a few ulp (1.2e-7 each).
     assert factors.brightness(_uniform(rgb))[0] == pytest.approx(float(expected), abs=1e-6)
 
 
@@ -92,6 +93,8 @@ def test_rms_contrast_is_std_of_luminance(source):
     # Peli 1990: RMS contrast = sqrt(mean((Y - mean Y)^2)), Y normalised to [0, 1].
     lum = _luminance_reference(batch)
     expected = np.sqrt(((lum - lum.mean(axis=(1, 2), keepdims=True)) ** 2).mean(axis=(1, 2)))
+    # float32 squares summed over 4,096 pixels against float64: sqrt(n) * eps
+    # relative is ~1e-5; 1e-4 leaves margin for the two passes (mean, then spread).
     assert factors.rms_contrast(batch) == pytest.approx(expected, rel=1e-4)
 
 
@@ -100,6 +103,8 @@ def test_sharpness_is_variance_of_scipy_laplacian(source):
     batch = _astronaut_batch() if source == "astronaut" else _random_batch()
     # Pech-Pacheco et al. 2000: focus measure = variance of the Laplacian.
     expected = [np.var(scipy.ndimage.laplace(lum)) for lum in _luminance_reference(batch)]
+    # float32 Laplacian (differences of neighbours lose digits) then a variance
+    # over 4,096 pixels, against float64: 1e-3 relative.
     assert factors.sharpness(batch) == pytest.approx(expected, rel=1e-3)
 
 
@@ -198,6 +203,7 @@ def test_measure_factors_matches_each_function_and_registry():
     measured = factors.measure_factors(batch)
     assert list(measured) == list(factors.FACTORS)
     for name, factor in factors.FACTORS.items():
+        # Same float32 code on the same chunked input: equal to the last bit.
         np.testing.assert_allclose(measured[name], factor.function(batch), rtol=1e-12,
                                    equal_nan=True, err_msg=name)
     assert factors.FACTORS["orientation"].period == 180.0

@@ -5,9 +5,9 @@ import sqlite3
 import numpy as np
 import pytest
 
-from augplan import ledger
+from augplan.evaluate import ledger
 from augplan.errors import BadInputError
-from augplan.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
+from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 
 KEYS = dict(fingerprint="f" * 64, settings_key="s" * 24, seed=0, repeats=5)
 

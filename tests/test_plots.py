@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from augplan.plots import factor_grid, jpeg_bytes, palette_png
+from augplan.render.plots import factor_grid, jpeg_bytes, palette_png
 
 
 def _factors(n):

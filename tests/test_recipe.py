@@ -9,9 +9,9 @@ import jsonschema
 import pytest
 import yaml
 
-from augplan import recipe as recipe_module
+from augplan.recipe import parse as recipe_module
 from augplan.errors import BadInputError
-from augplan.recipe import (
+from augplan.recipe.parse import (
     MAX_RECIPE_BYTES,
     OP_FIELDS,
     RECIPE_SCHEMA_PATH,
@@ -385,7 +385,7 @@ def test_schema_ops_and_fields_match_the_validator():
 
 
 def test_op_table_matches_the_transform_catalogue():
-    transforms = pytest.importorskip("augplan.transforms")
+    transforms = pytest.importorskip("augplan.augment.transforms")
     assert set(OP_FIELDS) == set(transforms.OPS)
     for op, spec in transforms.OPS.items():
         assert OP_FIELDS[op] == ((spec.magnitude,) if spec.magnitude else ("axis",))

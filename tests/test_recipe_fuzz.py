@@ -15,9 +15,9 @@ import yaml
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-from augplan import recipe as recipe_module
-from augplan import transforms
-from augplan.recipe import (
+from augplan.recipe import parse as recipe_module
+from augplan.augment import transforms
+from augplan.recipe.parse import (
     OP_FIELDS,
     RECIPE_SCHEMA_PATH,
     Recipe,

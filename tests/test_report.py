@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from augplan.report import embed_png, render_report
+from augplan.render.html import embed_png, render_report
 
 HOSTILE = "<script>alert('x')</script>"
 

@@ -15,9 +15,9 @@ from PIL import Image
 from skimage import data as skdata
 
 from augplan import demo
-from augplan.data import open_dataset
-from augplan.recipe import parse_recipe
-from augplan.sheets import PAD, contact_sheet, png_bytes, preview_sheet, save_png
+from augplan.data.dataset import open_dataset
+from augplan.recipe.parse import parse_recipe
+from augplan.render.sheets import PAD, contact_sheet, png_bytes, preview_sheet, save_png
 
 WHITE = 255
 

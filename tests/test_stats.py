@@ -2,10 +2,11 @@ import numpy as np
 import pytest
 from scipy import stats as scipy_stats
 
-from augplan.stats import (
+from augplan.measure.stats import (
     holm,
-    mcnemar_exact,
-    paired_bootstrap_gain,
+    paired_gain_test,
+    per_image_difference,
+    sign_flip_test,
     summarise_predictions,
     wilson_interval,
 )
@@ -56,38 +57,106 @@ def test_wilson_rejects_bad_input(k, n, confidence):
 
 
 # --------------------------------------------------------------------------
-# McNemar
+# Sign-flip test over per-image differences
 
 
-def _pairs(only_base, only_new, both=7, neither=3):
-    """Correctness arrays with the given discordant counts (ground truth by construction)."""
-    base = [True] * only_base + [False] * only_new + [True] * both + [False] * neither
-    new = [False] * only_base + [True] * only_new + [True] * both + [False] * neither
-    return np.array(base), np.array(new)
+def _scipy_sign_flip(differences, n_resamples=np.inf, rng=None):
+    """Reference: scipy.stats.permutation_test flipping the signs of one sample."""
+    return scipy_stats.permutation_test(
+        (np.asarray(differences, dtype=float),), lambda x, axis: np.mean(x, axis=axis),
+        permutation_type="samples", n_resamples=n_resamples, alternative="two-sided",
+        vectorized=True, rng=rng).pvalue
 
 
-MCNEMAR_CASES = [(0, 1), (1, 1), (2, 9), (9, 2), (5, 5), (0, 12), (30, 45), (120, 80)]
+EXACT_CASES = {
+    "worked": [0.2, 0.4, 0.0, 0.2, -0.2, 0.6],
+    "all-positive": [1.0] * 7,
+    "ties-and-zeros": [1, -1, 0, 0, 1, 1, 0, 2, -1, 1, 0, 1],
+    "thirteen": [0.4, -0.2, 0.6, 0.0, 0.2, 0.2, -0.4, 0.8, 0.2, 0.0, 0.6, -0.2, 0.4],
+    "two": [0.5, -0.25],
+}
 
 
-@pytest.mark.parametrize("b,c", MCNEMAR_CASES, ids=[f"b{b}-c{c}" for b, c in MCNEMAR_CASES])
-def test_mcnemar_matches_scipy_binomtest(b, c):
-    # Reference: scipy.stats.binomtest on the discordant counts, p = 1/2, two-sided.
-    base, new = _pairs(b, c)
-    reference = scipy_stats.binomtest(b, b + c, 0.5, alternative="two-sided").pvalue
-    assert mcnemar_exact(base, new) == pytest.approx(reference, rel=1e-10)
+@pytest.mark.parametrize("differences", EXACT_CASES.values(), ids=EXACT_CASES.keys())
+def test_sign_flip_exact_matches_scipy_permutation_test(differences):
+    result = sign_flip_test(differences, np.random.default_rng(0))
+    assert result.exact is True
+    # Both enumerate all 2**n sign patterns: the same count over the same
+    # denominator, so equal up to float64 rounding of the sums.
+    assert result.p_value == pytest.approx(_scipy_sign_flip(differences), rel=1e-12)
 
 
-def test_mcnemar_no_discordant_pairs_is_one():
-    base, new = _pairs(0, 0)
-    assert mcnemar_exact(base, new) == 1.0
+@pytest.mark.parametrize("shift", [0.0, 0.03, 0.08], ids=lambda s: f"gain{s}")
+def test_sign_flip_monte_carlo_matches_scipy_permutation_test(shift):
+    rng = np.random.default_rng(21)
+    differences = rng.integers(-3, 4, size=80) / 3.0 * 0.4 + shift
+    result = sign_flip_test(differences, np.random.default_rng(1), n_resamples=9999)
+    reference = _scipy_sign_flip(differences, n_resamples=9999, rng=np.random.default_rng(2))
+    assert result.exact is False
+    # Two Monte Carlo estimates of one p-value, B = 9999 each: four standard
+    # errors of their difference, sqrt(2 p (1 - p) / B), plus the +1 term.
+    spread = 4 * np.sqrt(2 * reference * (1 - reference) / 9999) + 2e-4
+    assert result.p_value == pytest.approx(reference, abs=spread)
 
 
-def test_mcnemar_pools_repeats():
-    # Two repeats with (b, c) = (2, 5) and (1, 6) pool to (3, 11).
-    b1, n1 = _pairs(2, 5, both=3, neither=0)
-    b2, n2 = _pairs(1, 6, both=3, neither=0)
-    reference = scipy_stats.binomtest(3, 14, 0.5).pvalue
-    assert mcnemar_exact(np.stack([b1, b2]), np.stack([n1, n2])) == pytest.approx(reference, rel=1e-10)
+def _correctness(rng, n_images, repeats, accuracy, gain=0.0):
+    """Two arms on the same images: per-image difficulty, iid repeats (ground truth by construction)."""
+    chance = np.clip(rng.beta(8 * accuracy, 8 * (1 - accuracy), size=n_images), 0, 1)
+    base = rng.uniform(size=(repeats, n_images)) < chance
+    new = rng.uniform(size=(repeats, n_images)) < np.clip(chance + gain, 0, 1)
+    return base, new
+
+
+def test_repeats_of_one_image_are_not_new_observations():
+    # Five identical repeats carry the information of one: same p, same interval.
+    base, new = _correctness(np.random.default_rng(3), 60, 1, 0.8, gain=0.05)
+    once = paired_gain_test(base, new, np.random.default_rng(4))
+    five = paired_gain_test(np.repeat(base, 5, axis=0), np.repeat(new, 5, axis=0), np.random.default_rng(4))
+    assert (five.p_value, five.n_images) == (once.p_value, once.n_images) == (five.p_value, 60)
+    assert (five.low, five.gain, five.high) == pytest.approx((once.low, once.gain, once.high), abs=1e-12)
+
+
+@pytest.mark.parametrize("seed", range(6), ids=lambda s: f"seed{s}")
+def test_p_value_below_alpha_exactly_when_interval_excludes_zero(seed):
+    rng = np.random.default_rng(seed)
+    for n_images, repeats, gain in [(8, 3, 0.3), (40, 5, 0.04), (40, 5, 0.1), (75, 5, 0.0), (200, 2, 0.03)]:
+        base, new = _correctness(rng, n_images, repeats, 0.85, gain)
+        test = paired_gain_test(base, new, rng)
+        assert (test.p_value < 0.05) == (test.low > 0 or test.high < 0)
+        assert test.low <= test.gain <= test.high
+
+
+@pytest.mark.parametrize("case", ["exact", "random"])
+def test_interval_ends_are_where_the_shifted_test_starts_to_reject(case):
+    rng = np.random.default_rng(30)
+    differences = rng.normal(0.05, 0.2, size=10 if case == "exact" else 50)
+    result = sign_flip_test(differences, np.random.default_rng(5))
+    # Same generator seed: the same sign patterns for every shift.
+    def p_at(shift):
+        return sign_flip_test(differences - shift, np.random.default_rng(5)).p_value
+
+    step = 1e-7  # far above float64 rounding of sums of 50 numbers near 0.2
+    assert p_at(result.low + step) >= 0.05 and p_at(result.high - step) >= 0.05
+    assert p_at(result.low - step) < 0.05 and p_at(result.high + step) < 0.05
+
+
+def test_identical_arms_give_no_gain():
+    base, _ = _correctness(np.random.default_rng(14), 90, 4, 0.7)
+    test = paired_gain_test(base, base, np.random.default_rng(0))
+    assert (test.gain, test.low, test.high, test.p_value) == (0.0, 0.0, 0.0, 1.0)
+
+
+def test_sign_flip_is_deterministic_for_a_seed():
+    base, new = _correctness(np.random.default_rng(13), 120, 3, 0.8, 0.03)
+    first = paired_gain_test(base, new, np.random.default_rng(42))
+    assert first == paired_gain_test(base, new, np.random.default_rng(42))
+    assert first != paired_gain_test(base, new, np.random.default_rng(43))
+
+
+def test_per_image_difference_averages_repeats():
+    base = np.array([[1, 0, 1], [1, 0, 0]], dtype=bool)
+    new = np.array([[1, 1, 0], [0, 1, 0]], dtype=bool)
+    np.testing.assert_array_equal(per_image_difference(base, new), [-0.5, 1.0, -0.5])
 
 
 @pytest.mark.parametrize(
@@ -100,9 +169,92 @@ def test_mcnemar_pools_repeats():
     ],
     ids=["shape-mismatch", "3-d", "not-binary", "empty"],
 )
-def test_mcnemar_rejects_bad_input(base, new):
+def test_paired_gain_test_rejects_bad_arrays(base, new):
     with pytest.raises(ValueError):
-        mcnemar_exact(base, new)
+        paired_gain_test(base, new, np.random.default_rng(0))
+
+
+@pytest.mark.parametrize("kwargs, fault", [
+    ({"rng": 42}, "Generator"), ({"n_resamples": 0}, "n_resamples"),
+    ({"confidence": 1.0}, "confidence"), ({"differences": [0.1, np.nan]}, "finite"),
+], ids=["rng", "resamples", "confidence", "nan"])
+def test_sign_flip_rejects_bad_settings(kwargs, fault):
+    arguments = {"differences": [0.1, 0.2], "rng": np.random.default_rng(0), **kwargs}
+    with pytest.raises(ValueError, match=fault):
+        sign_flip_test(**arguments)
+
+
+# --------------------------------------------------------------------------
+# Calibration: many comparisons of an arm against itself with other seeds
+
+# Comparisons per calibration setting and sign patterns per comparison: the
+# test keeps its level at any number of patterns, so few suffice here.
+_NULL_RUNS, _NULL_PATTERNS = 2000, 999
+
+
+def _monte_carlo_allowance(rate, runs):
+    # Three standard errors of a rate estimated from `runs` comparisons.
+    return 3 * np.sqrt(rate * (1 - rate) / runs)
+
+
+@pytest.mark.parametrize("n_images,repeats,accuracy", [(75, 5, 0.9), (75, 5, 0.97), (300, 3, 0.8), (20, 1, 0.7)],
+                         ids=["demo-like", "sparse-errors", "digits-like", "tiny"])
+def test_false_positive_rate_under_no_gain(n_images, repeats, accuracy):
+    # Recipe against itself with other seeds: both arms are fresh draws of
+    # the same per-image chances, so every rejection is a false positive.
+    rng = np.random.default_rng(n_images * 10 + repeats)
+    rejections = 0
+    for _ in range(_NULL_RUNS):
+        base, new = _correctness(rng, n_images, repeats, accuracy)
+        rejections += paired_gain_test(base, new, rng, n_resamples=_NULL_PATTERNS).p_value < 0.05
+    rate = rejections / _NULL_RUNS
+    assert rate <= 0.05 + _monte_carlo_allowance(0.05, _NULL_RUNS)
+
+
+def test_false_positive_rate_of_two_label_blind_no_op_arms():
+    # Two arms that never change an image (a no-op recipe and no augmentation)
+    # differ only through the model seed; here modelled as flips of a
+    # per-image coin for the images near the decision boundary.
+    rng = np.random.default_rng(77)
+    rejections = 0
+    for _ in range(_NULL_RUNS):
+        boundary = rng.uniform(size=75) < 0.2
+        base = np.where(boundary, rng.uniform(size=(5, 75)) < 0.5, True)
+        new = np.where(boundary, rng.uniform(size=(5, 75)) < 0.5, True)
+        rejections += paired_gain_test(base, new, rng, n_resamples=_NULL_PATTERNS).p_value < 0.05
+    assert rejections / _NULL_RUNS <= 0.05 + _monte_carlo_allowance(0.05, _NULL_RUNS)
+
+
+def _stated_power(n_images, p_up, p_down):
+    """Exact power of the 5% sign-flip test for differences in {+1, 0, -1}.
+
+    Flipping signs of +-1 values is the sign test: given m non-zero
+    differences with k of them +1, its p-value is scipy.stats.binomtest(k, m)
+    (the reference); the power sums the chances of the (m, k) it rejects in
+    favour of a gain.
+    """
+    power = 0.0
+    for m in range(n_images + 1):
+        k = np.arange(m + 1)
+        rejected = np.array([j > m / 2 and scipy_stats.binomtest(int(j), m).pvalue < 0.05 for j in k], dtype=bool)
+        power += scipy_stats.binom.pmf(m, n_images, p_up + p_down) * \
+            scipy_stats.binom.pmf(k[rejected], m, p_up / (p_up + p_down)).sum()
+    return power
+
+
+def test_planted_gain_is_found_at_the_stated_power():
+    # Planted: each image's difference is +1 with chance 0.30, -1 with 0.15,
+    # else 0 (a gain of 0.15 per image, one repeat) on 170 images.
+    n_images, p_up, p_down = 170, 0.30, 0.15
+    stated = _stated_power(n_images, p_up, p_down)
+    assert 0.75 < stated < 0.9  # a design at about 80% power
+    rng = np.random.default_rng(88)
+    runs, found = 1000, 0
+    for _ in range(runs):
+        differences = rng.choice([1.0, -1.0, 0.0], p=[p_up, p_down, 1 - p_up - p_down], size=n_images)
+        result = sign_flip_test(differences, rng, n_resamples=_NULL_PATTERNS)
+        found += result.p_value < 0.05 and result.low > 0
+    assert found / runs >= stated - _monte_carlo_allowance(stated, runs)
 
 
 # --------------------------------------------------------------------------
@@ -145,84 +297,6 @@ def test_holm_is_monotone_and_conservative(seed):
 def test_holm_rejects_bad_input(bad):
     with pytest.raises(ValueError):
         holm(bad)
-
-
-# --------------------------------------------------------------------------
-# Paired bootstrap
-
-
-def _two_models(rng, n_images=400, repeats=None):
-    """Synthetic correctness: a base model and a new one that fixes some errors."""
-    shape = (n_images,) if repeats is None else (repeats, n_images)
-    difficulty = rng.uniform(0, 1, size=n_images)
-    base = rng.uniform(0, 1, size=shape) > difficulty * 0.6
-    new = base | (rng.uniform(0, 1, size=shape) < 0.08)
-    new &= rng.uniform(0, 1, size=shape) > 0.02
-    return base, new
-
-
-def test_bootstrap_matches_scipy_percentile_interval():
-    base, new = _two_models(np.random.default_rng(11))
-
-    def gain(b, n, axis):
-        return np.mean(n, axis=axis) - np.mean(b, axis=axis)
-
-    # Reference: scipy.stats.bootstrap(paired=True, method="percentile").
-    reference = scipy_stats.bootstrap(
-        (base.astype(float), new.astype(float)), gain, paired=True, vectorized=True,
-        n_resamples=20000, method="percentile", confidence_level=0.95,
-        rng=np.random.default_rng(5),
-    ).confidence_interval
-    value, low, high = paired_bootstrap_gain(base, new, np.random.default_rng(6), n_resamples=20000)
-    assert value == pytest.approx(new.mean() - base.mean(), abs=1e-15)
-    # Both are Monte Carlo estimates from different streams; the percentile
-    # error is about 5e-4 here and the gain moves in steps of 1/400.
-    assert low == pytest.approx(reference.low, abs=0.005)
-    assert high == pytest.approx(reference.high, abs=0.005)
-    assert low < value < high
-
-
-def test_bootstrap_repeats_resample_whole_images():
-    base, new = _two_models(np.random.default_rng(12), n_images=300, repeats=3)
-
-    def gain(b, n, axis):
-        # scipy's paired mode indexes the last axis, so the arrays arrive as
-        # (repeats, [resamples,] images): average over images, then repeats.
-        return (np.mean(n, axis=axis) - np.mean(b, axis=axis)).mean(axis=0)
-
-    # Reference: scipy.stats.bootstrap resampling the image axis of both arrays together.
-    reference = scipy_stats.bootstrap(
-        (base.astype(float), new.astype(float)), gain, paired=True, vectorized=True, axis=-1,
-        n_resamples=20000, method="percentile", rng=np.random.default_rng(7),
-    ).confidence_interval
-    value, low, high = paired_bootstrap_gain(base, new, np.random.default_rng(8), n_resamples=20000)
-    assert value == pytest.approx(new.mean() - base.mean(), abs=1e-15)
-    assert low == pytest.approx(reference.low, abs=0.005)
-    assert high == pytest.approx(reference.high, abs=0.005)
-
-
-def test_bootstrap_is_deterministic_for_a_seed():
-    base, new = _two_models(np.random.default_rng(13))
-    first = paired_bootstrap_gain(base, new, np.random.default_rng(42), n_resamples=500)
-    second = paired_bootstrap_gain(base, new, np.random.default_rng(42), n_resamples=500)
-    third = paired_bootstrap_gain(base, new, np.random.default_rng(43), n_resamples=500)
-    assert first == second
-    assert first[1:] != third[1:]
-
-
-def test_bootstrap_identical_models_give_zero_interval():
-    base, _ = _two_models(np.random.default_rng(14))
-    assert paired_bootstrap_gain(base, base, np.random.default_rng(0), n_resamples=200) == (0.0, 0.0, 0.0)
-
-
-def test_bootstrap_rejects_bad_input():
-    base, new = _two_models(np.random.default_rng(15), n_images=10)
-    with pytest.raises(ValueError, match="Generator"):
-        paired_bootstrap_gain(base, new, 42)
-    with pytest.raises(ValueError, match="same shape"):
-        paired_bootstrap_gain(base, new[:5], np.random.default_rng(0))
-    with pytest.raises(ValueError, match="n_resamples"):
-        paired_bootstrap_gain(base, new, np.random.default_rng(0), n_resamples=0)
 
 
 # --------------------------------------------------------------------------

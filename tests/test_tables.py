@@ -2,7 +2,7 @@
 
 import pytest
 
-from augplan.tables import check_table, coverage_table, format_range, format_table, leaderboard_table
+from augplan.render.text import check_table, coverage_table, format_range, format_table, leaderboard_table
 
 LONG = "a-rather-long-class-name"
 
@@ -60,7 +60,7 @@ def test_format_range(value, expected):
 
 
 def test_history_table_fits_and_marks_reused_results():
-    from augplan.tables import history_table
+    from augplan.render.text import history_table
 
     rows = [{"date": "2026-12-01 22:33:10", "fingerprint": "053b80240e6f", "data": "/a/very/long/path" * 5,
              "recipes": ["cautious", "naive-draft"], "best_recipe": "cautious", "best_gain": 0.0,

@@ -8,8 +8,8 @@ import pytest
 
 torch = pytest.importorskip("torch", reason="torch is not installed (the 'cnn' extra); adapter tests skipped")
 
-from augplan.augmenter import Augmenter  # noqa: E402
-from augplan.recipe import parse_recipe  # noqa: E402
+from augplan.augment.augmenter import Augmenter  # noqa: E402
+from augplan.recipe.parse import parse_recipe  # noqa: E402
 from augplan.torch import TensorAugmenter  # noqa: E402
 
 CLASSES = ["left", "right", "plain"]

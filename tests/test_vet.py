@@ -119,7 +119,7 @@ def test_load_recipe_on_the_vetted_recipe(vetted):
     ((0.0, 0.0), (0.2, 0.4), "Use best-one:"),
 ], ids=["val-gain", "unclear", "loses", "field-gain"])
 def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
-    from augplan.vet import _verdict_sentence
+    from augplan.vet.job import _verdict_sentence
 
     best = {"name": "best-one", "gain": sum(gain_ci) / 2, "gain_ci": list(gain_ci)}
     if field_ci:
@@ -130,8 +130,8 @@ def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
 
 
 def test_a_rewrite_that_still_breaks_after_the_recheck_is_removed():
-    from augplan.recipe import parse_recipe
-    from augplan.vet import _drop_unsafe_rewrites
+    from augplan.recipe.parse import parse_recipe
+    from augplan.vet.job import _drop_unsafe_rewrites
 
     vetted = parse_recipe("name: v\ntransforms:\n  - op: flip\n  - op: rotate\n    degrees: [-5, 5]\n")
     changes = [{"index": 0, "op": "hue", "action": "remove", "detail": "removed: breaks", "verdict": "breaks"},

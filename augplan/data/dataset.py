@@ -804,7 +804,7 @@ FLAT_SPREAD = 1.0
 def _confirm_luminance(path):
     from PIL import Image
 
-    from augplan.colour import relative_luminance
+    from augplan.imaging.colour import relative_luminance
 
     image = Image.fromarray(_decode(path, max_side=256)).resize((64, 64), Image.BILINEAR)
     return relative_luminance(np.asarray(image))

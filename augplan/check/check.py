@@ -224,7 +224,7 @@ def class_verdict(moved, left, n, baseline_change, baseline_leave, margin=MARGIN
     str
         ``"breaks"``, ``"unverified"`` or ``"safe"``.
     """
-    from augplan.stats import wilson_interval
+    from augplan.measure.stats import wilson_interval
 
     if n == 0:
         return "safe"
@@ -319,7 +319,7 @@ def _sample_key(records, size):
 
 def _decoded_sample(context):
     """The checked images, decoded from the records' paths or carried bytes."""
-    from augplan.data import load_images
+    from augplan.data.dataset import load_images
 
     key = context["sample_key"]
     images = _DECODED_SAMPLE.get(key)
@@ -332,7 +332,7 @@ def _decoded_sample(context):
 
 def _run_unit(context, unit):
     """Transform, featurise and locate the in-scope images of one (transform, magnitude)."""
-    from augplan.transforms import OPS, params_at
+    from augplan.augment.transforms import OPS, params_at
 
     transform_index, magnitude, rng = unit
     transform = context["transforms"][transform_index]
@@ -395,7 +395,7 @@ def _rate(count, n):
 
 
 def _interval(count, n):
-    from augplan.stats import wilson_interval
+    from augplan.measure.stats import wilson_interval
 
     low, high = wilson_interval(count, n)
     return [round(low, 4), round(high, 4)]
@@ -441,7 +441,7 @@ _EVIDENCE_CELL = 96
 
 def _magnitude_caption(transform, magnitude):
     """``degrees 15``: the magnitude a pair of an evidence sheet shows."""
-    from augplan.transforms import OPS
+    from augplan.augment.transforms import OPS
 
     field = OPS[transform.op].magnitude
     if field is None or magnitude is None:
@@ -456,9 +456,9 @@ def _write_evidence(evidence_dir, index, transform, verdict, examples, records, 
     itself ran on the squares the proxy model reads), with the transform at
     the magnitude that moved it, captioned with that magnitude.
     """
-    from augplan.data import read_record
-    from augplan.sheets import contact_sheet, save_png
-    from augplan.transforms import OPS, params_at
+    from augplan.augment.transforms import OPS, params_at
+    from augplan.data.dataset import read_record
+    from augplan.render.sheets import contact_sheet, save_png
 
     function = OPS[transform.op].function
     originals = [read_record(records[source], max_side=_EVIDENCE_CELL) for source, _, _ in examples]
@@ -497,8 +497,8 @@ def _separable_by_structure(images, labels, first, second, seed):
     of exposure or contrast barely moves; separable means a cross-validated
     balanced accuracy of at least 0.9 between the two classes.
     """
-    from augplan.coverage import shortcut_scores
-    from augplan.features import FEATURE_BLOCKS, image_features
+    from augplan.coverage.coverage import shortcut_scores
+    from augplan.measure.features import FEATURE_BLOCKS, image_features
 
     pair = np.isin(labels, [first, second])
     gradients = image_features(images[pair])[:, FEATURE_BLOCKS["orientation"]]
@@ -508,8 +508,8 @@ def _separable_by_structure(images, labels, first, second, seed):
 
 def _singled_out(images, labels, classes, factor, seed):
     """One-vs-rest cross-validated balanced accuracy of each class from one factor."""
-    from augplan.coverage import factor_columns, shortcut_scores
-    from augplan.factors import FACTORS
+    from augplan.coverage.coverage import factor_columns, shortcut_scores
+    from augplan.measure.factors import FACTORS
 
     values = {factor: FACTORS[factor].function(images)}
     names = np.array([classes[c] for c in labels])
@@ -530,8 +530,8 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
     it as a cue, and the verdict stays ``breaks``; otherwise a person must
     look.
     """
-    from augplan.coverage import ONE_VS_REST_THRESHOLD
-    from augplan.data import load_images
+    from augplan.coverage.coverage import ONE_VS_REST_THRESHOLD
+    from augplan.data.dataset import load_images
 
     field_records = [r for r in dataset.split("field") if r.label in classes]
     field_images = field_labels = None
@@ -614,8 +614,8 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         Fewer than two classes with at least 3 training images, an unusable
         ``sample``, ``magnitudes`` or ``evidence_dir``.
     """
-    from augplan.data import load_images
-    from augplan.transforms import OPS, magnitude_grid
+    from augplan.data.dataset import load_images
+    from augplan.augment.transforms import OPS, magnitude_grid
 
     if sample is not None and (isinstance(sample, bool) or int(sample) != sample or sample < MIN_PER_CLASS):
         raise BadInputError(f"--sample must be an integer of at least {MIN_PER_CLASS}; got {sample!r}.")
@@ -654,7 +654,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     images = load_images(records, size=size)
     label_names = [classes[c] for c in labels]
     if model is None:
-        from augplan.features import FeatureModel
+        from augplan.measure.features import FeatureModel
 
         model = FeatureModel(random_state=seed)
     features = model.featurize(images)

@@ -46,7 +46,7 @@ References
 
 import numpy as np
 
-from augplan.colour import relative_luminance, rgb_to_hsv
+from augplan.imaging.colour import relative_luminance, rgb_to_hsv
 
 __all__ = [
     "image_features",
@@ -439,7 +439,7 @@ class FeatureModel:
         from sklearn.pipeline import make_pipeline
         from sklearn.preprocessing import StandardScaler
 
-        from augplan.stats import wilson_interval
+        from augplan.measure.stats import wilson_interval
 
         if np.dtype(solver_dtype) not in (np.float32, np.float64):
             raise ValueError(f"solver_dtype must be numpy.float32 or numpy.float64; got {solver_dtype!r}.")

@@ -15,11 +15,14 @@ augmented validation images in the output is zero by construction, and
 image it sees.
 
 Statistics (see `augplan.stats`): validation images are the sampling unit.
-Accuracy intervals are Wilson intervals with the validation images as n; gain
-intervals are paired percentile bootstraps that resample validation images
-with all repeats of an image kept together; the McNemar
-p-value pools (repeat, image) pairs; Holm adjusts across the recipes of one
-run.
+Each image's correctness is averaged over the repeats of an arm; the gain is
+the mean over images of the per-image difference between recipe and
+baseline. Its p-value is a paired sign-flip permutation test over those
+per-image differences and its interval is the set of gains that test does
+not reject, so ``p < 0.05`` exactly when the 95% interval excludes zero
+(`GAIN_RULE`). Accuracy intervals are Wilson intervals with the validation
+images as n; Holm adjusts the p-values across the recipes of one run.
+Validation, confirmation and field splits are scored the same way.
 """
 
 import hashlib
@@ -28,16 +31,16 @@ from pathlib import Path
 
 import numpy as np
 
-from augplan import ledger as _ledger
-from augplan import stats
-from augplan.data import Dataset, fingerprint, load_images
+from augplan.evaluate import ledger as _ledger
+from augplan.measure import stats
+from augplan.data.dataset import Dataset, fingerprint, load_images
 from augplan.errors import BadInputError
-from augplan.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
+from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 from augplan.parallel import parallel_map, resolve_workers
-from augplan.recipe import Recipe, recipe_hash
-from augplan.transforms import apply_recipe
+from augplan.recipe.parse import Recipe, recipe_hash
+from augplan.augment.transforms import apply_recipe
 
-__all__ = ["evaluate_recipes", "MANY_RECIPES_WARNING_LIMIT"]
+__all__ = ["evaluate_recipes", "MANY_RECIPES_WARNING_LIMIT", "GAIN_RULE"]
 
 # More recipes than this compared without a confirmation split earns a
 # warning (common practice, no source: the issue fixes the number at 3).
@@ -52,6 +55,11 @@ _CHUNK = 128
 _PURPOSE_TRAIN, _PURPOSE_VAL, _PURPOSE_CONFIRM, _PURPOSE_FIELD, _PURPOSE_SPLIT = range(5)
 _BASELINE_KEY = int(hashlib.sha256(b"augplan-baseline").hexdigest(), 16)
 _ROUND = 6
+
+GAIN_RULE = ("image is the unit: per-image correctness averaged over repeats; gain interval and "
+             "p-value from one paired sign-flip permutation test over the per-image differences "
+             "(the interval holds every gain the test does not reject), so p < 0.05 exactly when "
+             "the 95% interval excludes zero")
 
 
 # --------------------------------------------------------------------------
@@ -228,10 +236,25 @@ def _score(y_true, predictions, classes, rng):
     }, correct
 
 
+def _round_bound(value):
+    """A rounded interval end on the same side of zero as the end itself.
+
+    The rule ``p < 0.05`` exactly when the interval excludes zero must
+    survive rounding: an end a hair above zero never prints as zero.
+    """
+    rounded = _round(value)
+    step = 10.0 ** -_ROUND
+    if value > 0 and rounded <= 0:
+        return step
+    if value < 0 and rounded >= 0:
+        return -step
+    return rounded
+
+
 def _compare(base_correct, new_correct, rng):
-    gain, low, high = stats.paired_bootstrap_gain(base_correct, new_correct, rng)
-    return {"gain": _round(gain), "gain_ci": [_round(low), _round(high)],
-            "p_value": _round_p(stats.mcnemar_exact(base_correct, new_correct))}
+    test = stats.paired_gain_test(base_correct, new_correct, rng)
+    return {"gain": _round(test.gain), "gain_ci": [_round_bound(test.low), _round_bound(test.high)],
+            "p_value": _round_p(test.p_value)}
 
 
 def _per_class_gain(base_recall, new_recall):
@@ -303,7 +326,7 @@ def _file_digest(*modules):
 
 def _settings_key(model, size, confirm_fraction, dataset):
     """Key of everything besides data, seed and repeats that shapes a result."""
-    import augplan.transforms as transforms_module
+    import augplan.augment.transforms as transforms_module
     import sys
 
     estimator = getattr(model, "estimator", None)
@@ -444,6 +467,7 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
         "recipes": entries,
         "scored_on": scored_on,
         "accuracy_interval": "95% Wilson interval over validation images (mean accuracy of the repeats)",
+        "gain_test": GAIN_RULE,
         "augmented_validation_images": 0,
         "repeats": int(repeats),
         "seed": int(seed),
@@ -512,19 +536,20 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
 
     Notes
     -----
-    Gain intervals are paired percentile bootstraps over validation images
-    [1]_; p-values are exact McNemar tests on pooled (repeat, image) pairs
-    [2]_, Holm-adjusted across the recipes of the run [3]_.
+    The image is the unit: gain p-values are paired sign-flip permutation
+    tests over per-image differences (each image's correctness averaged over
+    repeats) and gain intervals invert the same test [1]_, so ``p < 0.05``
+    exactly when the 95% interval excludes zero; p-values are Holm-adjusted
+    across the recipes of the run [2]_.
 
     References
     ----------
-    .. [1] B. Efron and R. J. Tibshirani, "An Introduction to the Bootstrap", 1993.
-    .. [2] Q. McNemar, Psychometrika 12(2), 153-157, 1947.
-    .. [3] S. Holm, Scandinavian Journal of Statistics 6(2), 65-70, 1979.
+    .. [1] M. D. Ernst, Statistical Science 19(4), 676-685, 2004.
+    .. [2] S. Holm, Scandinavian Journal of Statistics 6(2), 65-70, 1979.
     """
     recipes = _check_inputs(dataset, recipes, repeats, size, seed, workers, confirm_fraction)
     if model is None:
-        from augplan.features import FeatureModel
+        from augplan.measure.features import FeatureModel
 
         model = FeatureModel()
     repeats, size, seed = int(repeats), int(size), int(seed)

@@ -37,7 +37,7 @@ from typing import Callable
 import numpy as np
 from skimage.filters import threshold_otsu
 
-from augplan.colour import relative_luminance, rgb_to_hsv
+from augplan.imaging.colour import relative_luminance, rgb_to_hsv
 
 __all__ = [
     "Factor",

@@ -10,9 +10,9 @@ import json
 
 import numpy as np
 
-from .data import load_images
-from .factors import brightness, orientation, rms_contrast, sharpness
-from .recipe import parse_recipe
+from augplan.data.dataset import load_images
+from augplan.measure.factors import brightness, orientation, rms_contrast, sharpness
+from augplan.recipe.parse import parse_recipe
 
 __all__ = ["draft_ranges", "draft_recipe_text"]
 

@@ -60,7 +60,7 @@ import numpy as np
 from PIL import Image
 from scipy import ndimage
 
-from augplan.colour import (
+from augplan.imaging.colour import (
     SRGB_TO_LINEAR_LUT,
     BT709_COEFFICIENTS,
     check_rgb_image,

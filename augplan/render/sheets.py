@@ -209,8 +209,8 @@ def preview_sheet(dataset, recipe, *, per_class=3, draws=5, rng, cell=96):
         downsized as they are read, smaller ones are augmented at their own
         size and enlarged only for display.
     """
-    from augplan.data import Dataset, open_dataset, read_image
-    from augplan.transforms import apply_recipe
+    from augplan.data.dataset import Dataset, open_dataset, read_image
+    from augplan.augment.transforms import apply_recipe
 
     for name, value in (("per_class", per_class), ("draws", draws)):
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:

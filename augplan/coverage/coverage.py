@@ -43,11 +43,11 @@ import numpy as np
 import scipy.spatial
 import scipy.stats
 
-from augplan.data import Dataset, load_images
+from augplan.data.dataset import Dataset, load_images
 from augplan.errors import BadInputError
-from augplan.factors import FACTORS, measure_factors
+from augplan.measure.factors import FACTORS, measure_factors
 from augplan.parallel import parallel_map
-from augplan.transforms import OPS, apply_recipe
+from augplan.augment.transforms import OPS, apply_recipe
 
 __all__ = [
     "K_NEIGHBOURS",
@@ -497,7 +497,7 @@ def _class_centres(values, labels, factor):
 
 def _blur_sigma_for(ratio, sample_images):
     """Smallest blur sigma whose median sharpness ratio falls to ``ratio``."""
-    from augplan.factors import sharpness
+    from augplan.measure.factors import sharpness
 
     base = sharpness(sample_images)
     blur = OPS["blur"].function

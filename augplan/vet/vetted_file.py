@@ -16,10 +16,10 @@ from pathlib import Path
 
 import yaml
 
-from . import __version__
-from .atomic import write_text_atomic
-from .errors import BadInputError
-from .recipe import RecipeError, canonical_json, read_recipe_document, recipe_to_dict, vetted_checksum
+from augplan import __version__
+from augplan.atomic import write_text_atomic
+from augplan.errors import BadInputError
+from augplan.recipe.parse import RecipeError, canonical_json, read_recipe_document, recipe_to_dict, vetted_checksum
 
 __all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
            "verify_vetted", "creation_date"]
@@ -43,7 +43,7 @@ def _intersect(range_pair, limit):
 
 def _clip_to_limit(step, check_entry):
     """The step with its magnitude range clipped to the measured safe limit, or None."""
-    from .transforms import OPS
+    from augplan.augment.transforms import OPS
 
     magnitude = OPS[step.op].magnitude
     limit = check_entry.get("safe_limit")
@@ -205,7 +205,7 @@ def verify_vetted(path, *, data=None):
         messages.append(f"{path}: checksum does NOT match: the recipe or its evidence was edited "
                         "after vetting. Vet it again.")
     if data is not None:
-        from .data import fingerprint, open_dataset
+        from augplan.data.dataset import fingerprint, open_dataset
 
         current = fingerprint(open_dataset(data))
         vetted_on = evidence.get("data_fingerprint")

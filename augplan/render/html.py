@@ -23,7 +23,7 @@ import math
 import re
 from pathlib import Path
 
-from .plots import factor_grid, palette_png
+from augplan.render.plots import factor_grid, palette_png
 
 __all__ = ["render_report", "embed_png", "embed_image"]
 

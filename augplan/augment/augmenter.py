@@ -5,10 +5,10 @@ import numbers
 import numpy as np
 from PIL import Image
 
-from .colour import check_rgb_image
-from .errors import BadInputError
-from .recipe import Recipe, read_recipe_document, vetted_checksum
-from .transforms import apply_recipe
+from augplan.errors import BadInputError
+from augplan.imaging.colour import check_rgb_image
+from augplan.recipe.parse import Recipe, read_recipe_document, vetted_checksum
+from augplan.augment.transforms import apply_recipe
 
 __all__ = ["Augmenter", "load_recipe"]
 
@@ -68,7 +68,7 @@ class Augmenter:
     Examples
     --------
     >>> import numpy as np
-    >>> from augplan.recipe import parse_recipe
+    >>> from augplan.recipe.parse import parse_recipe
     >>> aug = Augmenter(parse_recipe("name: demo\\ntransforms:\\n  - op: flip\\n"))
     >>> image = np.zeros((4, 6, 3), dtype=np.uint8); image[:, 0] = 255
     >>> aug(image, rng=np.random.default_rng(0))[:, -1, 0].tolist()

@@ -12,16 +12,16 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__
-from .atomic import write_bytes_atomic, write_text_atomic
-from .cautions import CAUTIONS
-from .coverage import analyse_coverage
-from .data import ensure_outside_data, find_duplicates, fingerprint
-from .errors import BadInputError
-from .evaluate import evaluate_recipes
-from .export import creation_date, vet_transforms, vetted_text
-from .invariance import check_recipe
-from .recipe import recipe_hash, recipe_to_dict
+from augplan import __version__
+from augplan.atomic import write_bytes_atomic, write_text_atomic
+from augplan.cautions import CAUTIONS
+from augplan.coverage.coverage import analyse_coverage
+from augplan.data.dataset import ensure_outside_data, find_duplicates, fingerprint
+from augplan.errors import BadInputError
+from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
+from augplan.check.check import check_recipe
+from augplan.recipe.parse import recipe_hash, recipe_to_dict
 
 __all__ = ["vet_recipes", "prepare_output"]
 
@@ -135,8 +135,8 @@ _DRAWS_SHEET = {"per_class": 1, "draws": 5, "cell": 64}
 
 def _draws_sheet(dataset, recipe, path, *, seed, number):
     """A contact sheet of augmented draws of ``recipe`` (as `preview` draws it), written as JPEG."""
-    from .plots import jpeg_bytes
-    from .sheets import preview_sheet
+    from augplan.render.plots import jpeg_bytes
+    from augplan.render.sheets import preview_sheet
 
     if not dataset.split("train"):
         return None
@@ -198,7 +198,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         (``action`` keep, relabel, scope, clip or remove); ``signoff`` lists the
         transforms a person must approve, each with its evidence sheet.
     """
-    from .report import render_report
+    from augplan.render.html import render_report
 
     ensure_outside_data(out_dir, dataset)
     out_dir = prepare_output(out_dir, force=force)

@@ -1,0 +1,1 @@
+"""Augmentation: the op functions and the Augmenter that applies a recipe to images."""

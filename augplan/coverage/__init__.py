@@ -1,0 +1,1 @@
+"""Coverage (`augplan coverage`) and the draft recipe (`augplan draft`)."""

@@ -1,0 +1,1 @@
+"""Data sets: folder and manifest layouts, decoding, fingerprints and near duplicates."""

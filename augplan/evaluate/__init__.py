@@ -1,0 +1,1 @@
+"""Evaluation (`augplan evaluate`): augmented against baseline, the ledger and the feature cache."""

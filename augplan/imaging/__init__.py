@@ -1,0 +1,1 @@
+"""Image arrays: sRGB colour maths and the checks every image function relies on."""

@@ -1,0 +1,1 @@
+"""Vetting (`augplan vet`): the vetted recipe, its file and the vetting job."""
