@@ -30,9 +30,10 @@ RECIPES = ("naive-draft", "cautious", "light-and-pose")
 def report(tmp_path_factory):
     root = tmp_path_factory.mktemp("browser")
     data = root / "data"
-    make_demo_dataset(data, n_train=14, n_val=6, n_field=8)
+    # Small, to keep the suite fast: the layout, not the statistics, is under test.
+    make_demo_dataset(data, n_train=8, n_val=4, n_field=6)
     out = root / "out"
-    arguments = ["vet", str(data), "-o", str(out), "--repeats", "2", "--quiet",
+    arguments = ["vet", str(data), "-o", str(out), "--repeats", "1", "--quiet",
                  "--ledger", str(root / "ledger.sqlite")]
     for name in RECIPES:
         arguments += ["--recipe", str(DEFAULT_RECIPE_DIR / f"{name}.yaml")]

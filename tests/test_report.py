@@ -482,7 +482,7 @@ def test_summary_holds_the_verdict_changes_sign_off_and_cautions_before_any_tabl
     assert "tiles-draft \u2192 tiles-draft-vetted: flip relabelled; hue clipped to [-10, 10]; 1 kept" in text
     assert "tiles-draft, transform 0 (flip)" in text and "unverified, kept: approved" in text
     assert "Evidence: accuracy gains of the linear proxy model" in text
-    assert "the labelled field sample (30 images) and val" in text
+    assert "the labelled field sample (30 images) and validation, 5 training repeats" in text
 
 
 def test_sign_off_links_to_the_evidence_sheet_of_its_transform(tmp_path):

@@ -919,9 +919,11 @@ def _evidence_source(evidence):
         parts.append("the labelled field sample" + (f" ({n} images)" if _is_number(n) else ""))
     baseline = evaluation.get("baseline") or {}
     n_val = baseline.get("n_images")
-    parts.append(f"{evaluation.get('scored_on') or 'validation'}" + (f" ({n_val} images)" if _is_number(n_val) else ""))
+    scored_on = str(evaluation.get("scored_on") or "val")
+    scored_on = "validation" + scored_on[3:] if scored_on.startswith("val") else scored_on
+    parts.append(scored_on + (f" ({n_val} images)" if _is_number(n_val) else ""))
     repeats = evaluation.get("repeats")
-    tail = f", {repeats} training repeats" if _is_number(repeats) else ""
+    tail = f", {repeats} training repeat{'s' if repeats != 1 else ''}" if _is_number(repeats) else ""
     return (f"Evidence: accuracy gains of {_e(model_text)} trained with each recipe against the same model "
             f"trained without augmentation, scored on {_e(' and '.join(parts))}{_e(tail)}; "
             "validation images are never augmented.")

@@ -84,9 +84,13 @@ def factor_grid(factors, *, title=None):
     if not panels:
         return None
     rows = -(-len(panels) // _COLUMNS)
-    figure = Figure(figsize=(2.6 * _COLUMNS, 1.75 * rows + (0.35 if title else 0.0) + 0.3), dpi=90)
-    FigureCanvasAgg(figure)
-    axes_grid = figure.subplots(rows, _COLUMNS, squeeze=False)
+    height = 1.75 * rows + (0.35 if title else 0.0) + 0.3
+    figure = Figure(figsize=(2.6 * _COLUMNS, height), dpi=90)
+    canvas = FigureCanvasAgg(figure)
+    # Fixed margins in inches (title band, legend band) instead of a layout pass, which would draw twice.
+    axes_grid = figure.subplots(rows, _COLUMNS, squeeze=False, gridspec_kw={
+        "left": 0.02, "right": 0.99, "wspace": 0.12, "hspace": 0.75,
+        "top": 1 - ((0.35 if title else 0.0) + 0.25) / height, "bottom": 0.55 / height})
     for axes, (name, unit, curves) in zip(axes_grid.ravel(), panels):
         for source, colour, style, (edges, density), n in curves:
             axes.stairs(density, edges, color=colour, linestyle=style, linewidth=1.4, label=f"{source} (n={n})")
@@ -100,9 +104,6 @@ def factor_grid(factors, *, title=None):
                   frameon=False)
     if title:
         figure.suptitle(title, fontsize=9)
-    figure.tight_layout(rect=(0, 0.06, 1, 1))
-    buffer = io.BytesIO()
-    figure.savefig(buffer, format="png", metadata={"Software": None})
-    buffer.seek(0)
-    with Image.open(buffer) as image:
-        return palette_png(image)
+    canvas.draw()
+    width, height_px = canvas.get_width_height()
+    return palette_png(Image.frombuffer("RGBA", (width, height_px), canvas.buffer_rgba(), "raw", "RGBA", 0, 1))
