@@ -94,7 +94,7 @@ def test_report_is_self_contained_with_verdict_first(vetted):
     html = (out / "report.html").read_text()
     parser = _Links()
     parser.feed(html)  # html.parser of the standard library
-    assert all(ref.startswith(("data:image/png;base64,", "#")) for ref in parser.references)
+    assert all(ref.startswith(("data:image/png;base64,", "data:image/jpeg;base64,", "#")) for ref in parser.references)
     verdict = json.loads((out / "evidence.json").read_text())["verdict"]
     assert verdict.split(";")[0] in html
     assert html.index(verdict.split(";")[0]) < html.index("<table")

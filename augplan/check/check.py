@@ -439,14 +439,19 @@ def _suggestion(transform, checked, verdicts, flows, classes):
 _EVIDENCE_CELL = 96
 
 
+# Short enough to fit under the smallest evidence cell (64 pixels at 12 points).
+_MAGNITUDE_FORMATS = {"degrees": "{:+.3g}\u00b0", "factor": "\u00d7{:.3g}", "sigma": "\u03c3 {:.3g}",
+                      "fraction": "shift {:+.2g}"}
+
+
 def _magnitude_caption(transform, magnitude):
-    """``degrees 15``: the magnitude a pair of an evidence sheet shows."""
+    """``+15°``, ``×1.2``, ``σ 0.02``: the magnitude a pair of an evidence sheet shows."""
     from augplan.augment.transforms import OPS
 
     field = OPS[transform.op].magnitude
     if field is None or magnitude is None:
-        return f"{transform.op}" + (f" {transform.params.get('axis')}" if transform.params.get("axis") else "")
-    return f"{field} {magnitude:.3g}"
+        return "flipped" if transform.op == "flip" else transform.op
+    return _MAGNITUDE_FORMATS.get(field, field + " {:.3g}").format(magnitude)
 
 
 def _write_evidence(evidence_dir, index, transform, verdict, examples, records, labels, classes, fill, seed):
