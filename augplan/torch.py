@@ -68,7 +68,14 @@ class TensorAugmenter:
         self._rng = None
 
     def worker_init_fn(self, worker_id):
-        """Give loader worker ``worker_id`` its own generator; pass as ``DataLoader(worker_init_fn=...)``."""
+        """Give loader worker ``worker_id`` its own generator; pass as ``DataLoader(worker_init_fn=...)``.
+
+        It also runs OpenCV (the engine) on one thread in the worker, so the
+        loader's processes do not oversubscribe the cores.
+        """
+        import cv2
+
+        cv2.setNumThreads(1)
         self._rng = np.random.default_rng(np.random.SeedSequence([self.seed, self.epoch, int(worker_id)]))
 
     def __call__(self, image, label=None):
@@ -76,7 +83,8 @@ class TensorAugmenter:
 
         Parameters
         ----------
-        image : PIL.Image.Image or numpy.ndarray (H, W, 3) uint8
+        image : PIL.Image.Image or numpy.ndarray (H, W, 3), (H, W, 1) or (H, W) uint8
+            A grey image gives a one-channel tensor.
         label : str or int, optional
             With a label, class scopes and relabels apply and
             ``(tensor, label)`` is returned; without one, class-scoped
@@ -89,7 +97,7 @@ class TensorAugmenter:
         if self._rng is None:
             self.worker_init_fn(0)
         if isinstance(image, Image.Image):
-            image = np.asarray(image.convert("RGB"))
+            image = np.asarray(image.convert("L" if image.mode == "L" else "RGB"))
         augmented, new_label = self.augmenter.apply(image, label, self._rng)
         array = np.asarray(augmented)
         if array.ndim == 2:

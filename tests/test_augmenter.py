@@ -82,10 +82,12 @@ def test_threads_with_own_generators_match_serial(aug, image):
     assert all(np.array_equal(a, b) for a, b in zip(expected, results))
 
 
-@pytest.mark.parametrize("bad", [np.zeros((4, 4), np.uint8), np.zeros((4, 4, 3), np.float32), "image"],
-                         ids=["grey-2d", "float", "string"])
-def test_bad_image_is_refused_clearly(aug, bad):
-    with pytest.raises((ValueError, TypeError), match="image"):
+@pytest.mark.parametrize("bad, message", [(np.zeros((4, 4, 3), np.float32), r"uint8.*np\.round"),
+                                          (np.zeros((4, 4, 2), np.uint8), r"shape \(H, W, 3\)"),
+                                          ("image", "image must be a numpy array")],
+                         ids=["float", "two-channel", "string"])
+def test_bad_image_is_refused_clearly(aug, bad, message):
+    with pytest.raises((ValueError, TypeError), match=message):
         aug(bad, rng=np.random.default_rng(0))
 
 
@@ -174,3 +176,51 @@ def test_edited_vetted_file_is_refused_unless_verify_is_off(tmp_path, edit):
 
 def test_plain_recipe_needs_no_checksum(aug):
     assert aug.classes is None
+
+
+@pytest.mark.parametrize("shape", [(24, 32), (24, 32, 1)], ids=["2d", "1-channel"])
+def test_grey_image_comes_back_in_its_shape(aug, image, shape):
+    grey = np.ascontiguousarray(image[..., 0]).reshape(shape)
+    out = aug(grey, rng=np.random.default_rng(4))
+    assert out.shape == shape and out.dtype == np.uint8
+    # The same draws as on the image with its grey in all three channels.
+    rgb = aug(np.repeat(grey.reshape(24, 32, 1), 3, axis=-1), rng=np.random.default_rng(4))
+    assert np.array_equal(out.reshape(24, 32), rgb[..., 0])
+
+
+def test_grey_pil_image_stays_grey(aug, image):
+    out = aug(Image.fromarray(image[..., 0]), rng=np.random.default_rng(0))
+    assert isinstance(out, Image.Image) and out.mode == "L" and out.size == (32, 24)
+
+
+@pytest.mark.parametrize("shape", [(5, 24, 32, 3), (5, 24, 32, 1), (5, 24, 32)], ids=["rgb", "1-channel", "2d"])
+def test_apply_batch_equals_apply_in_turn(aug, shape):
+    images = np.random.default_rng(6).integers(0, 256, size=shape, dtype=np.uint8)
+    labels = ["left", "other", "right", None, "left"]
+    batch, new_labels = aug.apply_batch(images, labels, np.random.default_rng(9))
+    gen = np.random.default_rng(9)
+    expected = [aug.apply(im, lab, gen) for im, lab in zip(images, labels)]
+    assert batch.shape == shape and batch.dtype == np.uint8
+    assert all(np.array_equal(b, e[0]) for b, e in zip(batch, expected))
+    assert new_labels == [e[1] for e in expected] == ["right", "other", "left", None, "right"]
+
+
+def test_apply_batch_refuses_mismatched_labels(aug):
+    with pytest.raises(ValueError, match="one label per image: 2 images, 3 labels"):
+        aug.apply_batch(np.zeros((2, 8, 8, 3), np.uint8), ["a", "b", "c"], np.random.default_rng(0))
+
+
+def test_augmenter_and_apply_recipe_give_the_same_bytes(aug, image):
+    from augplan.augment.transforms import apply_recipe
+
+    ours, label = aug.apply(image, "left", np.random.default_rng(12))
+    theirs, their_label = apply_recipe(image, aug.recipe, np.random.default_rng(12), "left")
+    assert ours.tobytes() == theirs.tobytes() and label == their_label
+
+
+def test_apply_batch_maps_integer_labels_through_classes(image):
+    aug = Augmenter(_always_flip(), classes=CLASSES)
+    batch = np.stack([image, image, image])
+    out, labels = aug.apply_batch(batch, np.array([0, 1, 2]), np.random.default_rng(0))
+    assert labels == [1, 0, 2]
+    assert np.array_equal(out[0], image[:, ::-1]) and np.array_equal(out[2], image)

@@ -8,7 +8,9 @@ from skimage.color import rgb2hsv
 
 from augplan.imaging.colour import (
     SRGB_TO_LINEAR_LUT,
+    check_image,
     check_rgb_image,
+    encode_linear_image,
     encode_linear_to_uint8,
     hsv_to_rgb,
     linear_to_srgb,
@@ -158,15 +160,42 @@ def test_hsv_to_rgb_matches_colorsys_and_round_trips():
 
 
 @pytest.mark.parametrize(
-    "bad",
-    [np.zeros((4, 4), np.uint8), np.zeros((4, 4, 3), np.float32), np.zeros((4, 4, 4), np.uint8), [[1, 2, 3]]],
+    "bad, message",
+    [(np.zeros((4, 4), np.uint8), r"\(H, W, 3\)"), (np.zeros((4, 4, 3), np.float32), "dtype uint8"),
+     (np.zeros((4, 4, 4), np.uint8), r"\(H, W, 3\)"), ([[1, 2, 3]], r"\(H, W, 3\)")],
     ids=["grey", "float", "rgba", "list"],
 )
-def test_check_rgb_image_rejects(bad):
-    with pytest.raises(ValueError, match=r"\(H, W, 3\)"):
+def test_check_rgb_image_rejects(bad, message):
+    with pytest.raises(ValueError, match=message):
         check_rgb_image(bad)
 
 
 def test_relative_luminance_rejects_float():
     with pytest.raises(ValueError, match="uint8"):
         relative_luminance(np.zeros((2, 2, 3), np.float32))
+
+
+@pytest.mark.parametrize("bad, message", [(np.zeros((4, 4, 3), np.float64), r"dtype uint8.*np\.round\(image \* 255\)"),
+                                          (np.zeros((4, 4, 2), np.uint8), r"\(H, W, 3\), \(H, W, 1\) or \(H, W\)"),
+                                          (np.zeros((0, 4), np.uint8), "at least one pixel"),
+                                          ([[1, 2]], "numpy array")],
+                         ids=["float", "two-channel", "empty", "list"])
+def test_check_image_rejects_saying_what_to_pass(bad, message):
+    with pytest.raises(ValueError, match=message):
+        check_image(bad)
+
+
+@pytest.mark.parametrize("shape", [(4, 5), (4, 5, 1), (4, 5, 3)])
+def test_check_image_accepts_grey_and_rgb(shape):
+    image = np.zeros(shape, np.uint8)
+    assert check_image(image) is image
+
+
+def test_encode_linear_image_matches_iec_encoding():
+    # IEC 61966-2-1:1999 section 5.3, evaluated in float64 per value.
+    linear = np.random.default_rng(3).uniform(-0.1, 1.1, (64, 64, 3)).astype(np.float32)
+    clipped = np.clip(linear.astype(np.float64), 0.0, 1.0)
+    exact = 255 * np.where(clipped <= 0.0031308, 12.92 * clipped, 1.055 * clipped ** (1 / 2.4) - 0.055)
+    # Half a code of rounding plus the 16-bit linear step at the steepest
+    # point of the curve (12.92 * 255 / 65535 / 2 = 0.025 code).
+    assert np.abs(encode_linear_image(linear) - exact).max() <= 0.5 + 0.026

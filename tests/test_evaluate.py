@@ -6,6 +6,7 @@ a temporary DATA layout with 15 training images per class, 30 validation
 images and 10 labelled field images per class.
 """
 
+import dataclasses
 import hashlib
 import json
 import time
@@ -164,9 +165,12 @@ def test_validation_images_never_reach_a_transform(digits_data, cache_dir, monke
         seen.append(hashlib.sha256(np.ascontiguousarray(image).tobytes()).hexdigest())
         return real.function(image, params, rng)
 
-    monkeypatch.setitem(transforms.OPS, "rotate", transforms.OpSpec(
-        "rotate", recording_rotate, real.magnitude, real.identity,
-        log_scale=real.log_scale, geometric=real.geometric))
+    def recording_kernel(image, degrees, border, rng):  # the recipe runner's entry
+        seen.append(hashlib.sha256(np.ascontiguousarray(image).tobytes()).hexdigest())
+        return real.kernel(image, degrees, border, rng)
+
+    monkeypatch.setitem(transforms.OPS, "rotate", dataclasses.replace(
+        real, function=recording_rotate, kernel=recording_kernel))
     recipe = Recipe(name="recorded", copies=1, transforms=(Transform("rotate", {"degrees": (-5.0, 5.0)}),))
     document = evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, cache_dir=cache_dir)
 

@@ -185,3 +185,28 @@ def test_the_callers_allocator_is_left_alone(monkeypatch):
     monkeypatch.setattr(parallel, "_reuse_freed_memory", lambda: calls.append(1))
     assert parallel_map(abs, [-1, -2], workers=1) == [1, 2]
     assert calls == []
+
+
+def _opencv_threads(_):
+    import cv2
+
+    return cv2.getNumThreads()
+
+
+def test_worker_processes_run_opencv_on_one_thread():
+    # Two workers on two cores: OpenCV's default pool (one thread per core)
+    # in each would oversubscribe them.
+    assert parallel_map(_opencv_threads, range(4), workers=2) == [1] * 4
+
+
+def test_single_threaded_limits_blas_and_opencv_and_restores_them():
+    import cv2
+    from threadpoolctl import threadpool_info
+
+    from augplan.parallel import single_threaded
+
+    before = cv2.getNumThreads()
+    with single_threaded():
+        assert cv2.getNumThreads() == 1
+        assert all(pool["num_threads"] == 1 for pool in threadpool_info())
+    assert cv2.getNumThreads() == before

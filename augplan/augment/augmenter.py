@@ -6,9 +6,9 @@ import numpy as np
 from PIL import Image
 
 from augplan.errors import BadInputError
-from augplan.imaging.colour import check_rgb_image
+from augplan.imaging.colour import check_image
 from augplan.recipe.parse import Recipe, read_recipe_document, vetted_checksum
-from augplan.augment.transforms import apply_recipe
+from augplan.augment.transforms import compile_recipe, run_plan
 
 __all__ = ["Augmenter", "load_recipe"]
 
@@ -52,9 +52,14 @@ def _check_classes(classes, recipe):
 class Augmenter:
     """Apply a recipe to training images, one draw per call.
 
-    The augmenter holds only the (immutable) recipe and its class list, so it
-    is picklable (it works inside multi-process data loaders) and thread-safe:
-    every call takes its randomness from the generator passed in.
+    The augmenter holds only the (immutable) recipe, its checked plan and its
+    class list, so it is picklable (it works inside multi-process data
+    loaders) and thread-safe: every call takes its randomness from the
+    generator passed in. Images are uint8 RGB ``(H, W, 3)`` or grey ``(H, W)``
+    / ``(H, W, 1)`` and come back in their own shape; the pixel work is
+    OpenCV's (see `augplan.augment.transforms`). The draws are those of
+    `augplan.augment.transforms.apply_recipe`, so the same generator gives the
+    same bytes through either.
 
     Parameters
     ----------
@@ -80,6 +85,7 @@ class Augmenter:
             raise TypeError(f"Augmenter expects an augplan Recipe; got {type(recipe).__name__}")
         self.recipe = recipe
         self.classes = _check_classes(classes, recipe)
+        self._plan = compile_recipe(recipe)
 
     def __repr__(self):
         return f"Augmenter(recipe={self.recipe.name!r}, transforms={len(self.recipe.transforms)})"
@@ -89,8 +95,9 @@ class Augmenter:
 
         Parameters
         ----------
-        image : numpy.ndarray (H, W, 3) uint8 or PIL.Image.Image
-            A PIL image is converted to RGB and an RGB PIL image comes back.
+        image : numpy.ndarray (H, W, 3), (H, W, 1) or (H, W) uint8, or PIL.Image.Image
+            A grey ("L") PIL image stays grey; any other PIL image is
+            converted to RGB and an RGB PIL image comes back.
         rng : numpy.random.Generator
             Source of randomness; required (a missing one raises, so no draw
             ever runs with an unstated seed).
@@ -122,7 +129,7 @@ class Augmenter:
 
         Parameters
         ----------
-        image : numpy.ndarray (H, W, 3) uint8 or PIL.Image.Image
+        image : numpy.ndarray (H, W, 3), (H, W, 1) or (H, W) uint8, or PIL.Image.Image
         label : str or int or None
             A class name, or an integer index into ``classes``. An integer
             comes back as an integer.
@@ -141,22 +148,69 @@ class Augmenter:
         ValueError
             An integer label for a class-scoped recipe without ``classes``.
         """
-        if rng is None:
-            raise TypeError(f"{type(self).__name__} needs a generator: {_NO_GENERATOR}")
-        if not isinstance(rng, np.random.Generator):
-            raise TypeError(f"rng must be a numpy.random.Generator; got {type(rng).__name__}")
-        name, as_index = self._label_name(label)
-        pil_image = None
+        _check_generator(rng, type(self).__name__)
+        pil_mode = None
         if isinstance(image, Image.Image):
-            pil_image, image = image, np.asarray(image.convert("RGB"))
+            pil_mode = "L" if image.mode == "L" else "RGB"
+            image = np.asarray(image.convert(pil_mode))
         elif not isinstance(image, np.ndarray):
             raise TypeError(f"image must be a numpy array or a PIL image; got {type(image).__name__}")
-        check_rgb_image(image)
-        augmented, new_name = apply_recipe(image, self.recipe, rng, name)
-        if pil_image is not None:
-            augmented = Image.fromarray(augmented, mode="RGB")
-        new_label = self.classes.index(new_name) if as_index else new_name
+        augmented, new_label = self._apply_array(image, label, rng)
+        if pil_mode is not None:
+            augmented = Image.fromarray(augmented, mode=pil_mode)
         return augmented, new_label
+
+    def _apply_array(self, image, label, rng):
+        name, as_index = self._label_name(label)
+        check_image(image)
+        plane = image[..., 0] if image.ndim == 3 and image.shape[2] == 1 else image
+        augmented, new_name = run_plan(plane, self._plan, rng, name)
+        if augmented is plane:
+            augmented = plane.copy()
+        new_label = self.classes.index(new_name) if as_index else new_name
+        return augmented.reshape(image.shape), new_label
+
+    def apply_batch(self, images, labels, rng):
+        """Augmented draws of a batch: one `apply` per image, in order.
+
+        Parameters
+        ----------
+        images : numpy.ndarray of uint8, shape (N, H, W, 3), (N, H, W, 1) or (N, H, W)
+        labels : sequence of length N
+            One label per image: class names, integer indices into
+            ``classes``, or None entries (which skip class-scoped steps).
+        rng : numpy.random.Generator
+            Drawn from image after image, so a batch gives the bytes that
+            calling `apply` on each image in turn with the same generator
+            gives.
+
+        Returns
+        -------
+        (numpy.ndarray, list)
+            The augmented batch, same shape and dtype as ``images``, and the
+            labels after relabels.
+        """
+        _check_generator(rng, type(self).__name__)
+        if not isinstance(images, np.ndarray) or images.ndim not in (3, 4):
+            shape = getattr(images, "shape", None)
+            raise ValueError("images must be a uint8 batch of shape (N, H, W, 3), (N, H, W, 1) or (N, H, W); "
+                             f"got {type(images).__name__} of shape {shape}")
+        labels = list(labels)
+        if len(labels) != len(images):
+            raise ValueError(f"labels must hold one label per image: {len(images)} images, {len(labels)} labels")
+        out = np.empty_like(images)
+        new_labels = []
+        for index, (image, label) in enumerate(zip(images, labels)):
+            out[index], label = self._apply_array(image, label, rng)
+            new_labels.append(label)
+        return out, new_labels
+
+
+def _check_generator(rng, who):
+    if rng is None:
+        raise TypeError(f"{who} needs a generator: {_NO_GENERATOR}")
+    if not isinstance(rng, np.random.Generator):
+        raise TypeError(f"rng must be a numpy.random.Generator; got {type(rng).__name__}")
 
 
 def load_recipe(path, classes=None, *, verify=True):

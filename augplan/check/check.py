@@ -332,17 +332,14 @@ def _decoded_sample(context):
 
 def _run_unit(context, unit):
     """Transform, featurise and locate the in-scope images of one (transform, magnitude)."""
-    from augplan.augment.transforms import OPS, params_at
+    from augplan.augment.transforms import apply_op_batch, params_at
 
     transform_index, magnitude, rng = unit
     transform = context["transforms"][transform_index]
     sources = context["scope"][transform_index]
     images = _decoded_sample(context)
-    function = OPS[transform.op].function
     params = params_at(transform, 0.0 if magnitude is None else magnitude, context["fill"])
-    moved_images = np.empty((len(sources),) + images.shape[1:], dtype=np.uint8)
-    for row, source in enumerate(sources):
-        moved_images[row] = function(images[source], params, rng)
+    moved_images = apply_op_batch(images[sources], transform.op, params, rng)
     model = context["model"]
     features = model.featurize(moved_images)
     proba = _probabilities(model, features, context["classes"])

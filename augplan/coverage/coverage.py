@@ -47,7 +47,7 @@ from augplan.data.dataset import Dataset, load_images
 from augplan.errors import BadInputError
 from augplan.measure.factors import FACTORS, measure_factors
 from augplan.parallel import parallel_map
-from augplan.augment.transforms import OPS, apply_recipe
+from augplan.augment.transforms import apply_op_batch, augment_batch
 
 __all__ = [
     "K_NEIGHBOURS",
@@ -445,12 +445,7 @@ def _measure_augmented(item):
     records, size, recipe, generators, draws = item
     images = load_images(records, size=size)
     original = measure_factors(images)
-    augmented = np.empty((len(records) * draws,) + images.shape[1:], dtype=np.uint8)
-    labels = []
-    for i, (record, rng) in enumerate(zip(records, generators)):
-        for d in range(draws):
-            augmented[i * draws + d], label = apply_recipe(images[i], recipe, rng, record.label)
-            labels.append(label)
+    augmented, labels = augment_batch(images, recipe, generators, [r.label for r in records], draws)
     return original, measure_factors(augmented), labels
 
 
@@ -500,9 +495,8 @@ def _blur_sigma_for(ratio, sample_images):
     from augplan.measure.factors import sharpness
 
     base = sharpness(sample_images)
-    blur = OPS["blur"].function
     for sigma in (0.25, 0.5, 0.75, 1.0, 1.5, 2.0, 3.0, 4.0):
-        blurred = np.stack([blur(image, {"sigma": sigma}, None) for image in sample_images])
+        blurred = apply_op_batch(sample_images, "blur", {"sigma": sigma}, None)
         if np.median(sharpness(blurred) / np.maximum(base, 1e-12)) <= ratio:
             return sigma
     return 4.0

@@ -6,7 +6,7 @@ per repeat with fresh draws and a fresh model seed; the baseline trains on
 the originals alone. Every model is scored on original validation images.
 
 Why validation can never be augmented: the only function that calls
-`augplan.transforms.apply_recipe` is `_train_one` (run by `_train_and_predict`); it receives
+the transform engine (`augplan.augment.transforms.augment_batch`) is `_train_one` (run by `_train_and_predict`); it receives
 training records and the *feature rows* of the evaluation images, never an
 evaluation image. Evaluation images (val, test, field) are read and
 featurised by `_featurize_originals`, which takes no recipe. So the count of
@@ -36,9 +36,9 @@ from augplan.measure import stats
 from augplan.data.dataset import Dataset, fingerprint, load_images
 from augplan.errors import BadInputError
 from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
-from augplan.parallel import parallel_map, resolve_workers
+from augplan.parallel import parallel_map, resolve_workers, single_threaded
 from augplan.recipe.parse import Recipe, recipe_hash
-from augplan.augment.transforms import apply_recipe
+from augplan.augment.transforms import augment_batch
 
 __all__ = ["evaluate_recipes", "MANY_RECIPES_WARNING_LIMIT", "GAIN_RULE"]
 
@@ -67,16 +67,8 @@ GAIN_RULE = ("image is the unit: per-image correctness averaged over repeats; ga
 
 
 def _single_thread():
-    """Limit BLAS/OpenMP pools to one thread inside a work unit.
-
-    Measured on a shared 2-core machine: a logistic-regression fit on 750 x
-    1112 features took 3.2 s of CPU with the default thread pool and 0.10 s
-    with one thread (pool threads spin against each other and against other
-    processes). Parallelism comes from ``workers`` instead.
-    """
-    from threadpoolctl import threadpool_limits
-
-    return threadpool_limits(limits=1)
+    """One BLAS and OpenCV thread inside a work unit; see `augplan.parallel.single_threaded`."""
+    return single_threaded()
 
 
 def _featurize_chunk(unit):
@@ -176,13 +168,9 @@ def _train_one(unit):
         for start in range(0, len(train_records), _CHUNK):
             chunk = train_records[start:start + _CHUNK]
             originals = load_images(chunk, size)
-            batch = np.empty((len(chunk) * recipe.copies, size, size, 3), dtype=np.uint8)
-            batch_labels = []
-            for i, (image, record) in enumerate(zip(originals, chunk)):
-                rng = np.random.default_rng(image_seqs[start + i])
-                for c in range(recipe.copies):
-                    batch[i * recipe.copies + c], label = apply_recipe(image, recipe, rng, record.label)
-                    batch_labels.append(label)
+            generators = [np.random.default_rng(seq) for seq in image_seqs[start:start + len(chunk)]]
+            batch, batch_labels = augment_batch(originals, recipe, generators, [r.label for r in chunk],
+                                                recipe.copies)
             blocks.append(np.asarray(model.feature_fn(batch), dtype=np.float32))
             block_labels.append(np.array(batch_labels, dtype=object))
             augmented += len(batch_labels)

@@ -1,8 +1,11 @@
 """Colour maths shared by the transforms and the nuisance-factor measurements.
 
-Dtype policy: images are ``(H, W, 3)`` uint8, RGB, sRGB encoded. Float work
-is done in float32 unless the caller passes float64. Functions that map one
-8-bit code to another go through 256-entry lookup tables.
+Dtype policy: images are ``(H, W, 3)`` uint8, RGB, sRGB encoded (the
+transform engine also takes grey ``(H, W)`` and ``(H, W, 1)``, see
+`check_image`). Float work is done in float32 unless the caller passes
+float64. Functions that map one 8-bit code to another go through 256-entry
+lookup tables; linear light goes back to 8-bit codes through a 65,536-entry
+table (`encode_linear_image`).
 
 References
 ----------
@@ -17,15 +20,18 @@ References
 
 from __future__ import annotations
 
+import cv2
 import numpy as np
 
 __all__ = [
     "BT709_COEFFICIENTS",
     "SRGB_TO_LINEAR_LUT",
+    "check_image",
     "check_rgb_image",
     "srgb_to_linear",
     "linear_to_srgb",
     "encode_linear_to_uint8",
+    "encode_linear_image",
     "linear_tone_lut",
     "relative_luminance",
     "mean_relative_luminance",
@@ -42,13 +48,18 @@ _DECODE_BREAK = 0.04045
 _ENCODE_BREAK = 0.0031308
 
 
-def check_rgb_image(image, *, name="image"):
-    """Return ``image`` if it is an ``(H, W, 3)`` uint8 array; raise otherwise.
+_FLOAT_HINT = ("pass 8-bit codes: a float image in [0, 1] converts with "
+               "np.round(image * 255).astype(np.uint8)")
+
+
+def check_image(image, *, name="image"):
+    """Return ``image`` if it is a uint8 RGB or grey image; raise otherwise.
 
     Parameters
     ----------
     image : numpy.ndarray
-        Candidate image.
+        Candidate image: ``(H, W, 3)`` RGB, or grey ``(H, W)`` or ``(H, W, 1)``,
+        dtype uint8, sRGB encoded.
     name : str, optional
         What to call the argument in the error message.
 
@@ -60,20 +71,27 @@ def check_rgb_image(image, *, name="image"):
     Raises
     ------
     ValueError
-        If ``image`` is not a numpy array of shape ``(H, W, 3)`` and dtype uint8.
+        Wrong type, shape or dtype; a float image is told how to convert.
     """
     if not isinstance(image, np.ndarray):
-        raise ValueError(
-            f"{name} must be a numpy array of shape (H, W, 3) and dtype uint8; "
-            f"got {type(image).__name__}"
-        )
-    if image.ndim != 3 or image.shape[2] != 3 or image.dtype != np.uint8:
-        raise ValueError(
-            f"{name} must have shape (H, W, 3) and dtype uint8 (RGB, sRGB encoded); "
-            f"got shape {image.shape} and dtype {image.dtype}"
-        )
-    if image.shape[0] == 0 or image.shape[1] == 0:
-        raise ValueError(f"{name} must have at least one pixel; got shape {image.shape}")
+        raise ValueError(f"{name} must be a numpy array of shape (H, W, 3), (H, W, 1) or (H, W) and dtype "
+                         f"uint8; got {type(image).__name__}")
+    shape = image.shape
+    if image.dtype != np.uint8:
+        hint = f"; {_FLOAT_HINT}" if image.dtype.kind == "f" else ""
+        raise ValueError(f"{name} must have dtype uint8 (8-bit sRGB codes); got dtype {image.dtype}{hint}")
+    if not (len(shape) == 2 or len(shape) == 3 and shape[2] in (1, 3)):
+        raise ValueError(f"{name} must have shape (H, W, 3), (H, W, 1) or (H, W); got shape {shape}")
+    if shape[0] == 0 or shape[1] == 0:
+        raise ValueError(f"{name} must have at least one pixel; got shape {shape}")
+    return image
+
+
+def check_rgb_image(image, *, name="image"):
+    """`check_image` for RGB only: ``(H, W, 3)`` uint8, or a `ValueError`."""
+    check_image(image, name=name)
+    if image.ndim != 3 or image.shape[2] != 3:
+        raise ValueError(f"{name} must have shape (H, W, 3) (RGB, sRGB encoded); got shape {image.shape}")
     return image
 
 
@@ -141,6 +159,10 @@ def linear_to_srgb(values):
 
 SRGB_TO_LINEAR_LUT = srgb_to_linear(np.arange(256, dtype=np.float64) / 255.0).astype(np.float32)
 SRGB_TO_LINEAR_LUT.setflags(write=False)
+_DECODED_CODES = srgb_to_linear(np.arange(256, dtype=np.float64) / 255.0)
+# Linear light at the midpoints between consecutive codes (255 edges).
+_CODE_EDGES = srgb_to_linear((np.arange(255, dtype=np.float64) + 0.5) / 255.0)
+_LINEAR16_TO_CODE = np.searchsorted(_CODE_EDGES, np.arange(65536, dtype=np.float64) / 65535.0).astype(np.uint8)
 
 # Each channel's decoded value pre-multiplied by its BT.709 weight, so that
 # luminance is three table gathers and two additions.
@@ -148,6 +170,9 @@ _WEIGHTED_LUTS = tuple(
     (SRGB_TO_LINEAR_LUT.astype(np.float64) * float(w)).astype(np.float32)
     for w in (0.2126, 0.7152, 0.0722)
 )
+
+
+_WEIGHTED_LUTS_64 = tuple(weighted.astype(np.float64) for weighted in _WEIGHTED_LUTS)
 
 
 def encode_linear_to_uint8(linear):
@@ -187,8 +212,42 @@ def linear_tone_lut(gain, offset=0.0):
     -------
     numpy.ndarray of uint8, shape (256,)
     """
-    mapped = SRGB_TO_LINEAR_LUT.astype(np.float64) * float(gain) + float(offset)
-    return encode_linear_to_uint8(mapped)
+    mapped = _DECODED_CODES * float(gain)
+    mapped += float(offset)
+    # Code k is the nearest code to the encoded value exactly when the linear
+    # value lies between the decoded midpoints around k: one sorted search.
+    return np.searchsorted(_CODE_EDGES, mapped).astype(np.uint8)
+
+
+def encode_linear_image(linear):
+    """Encode a float32 linear-light image to 8-bit sRGB codes, fast.
+
+    Linear light is first rounded to 16 bits (``cv2.multiply`` saturates to
+    [0, 65535], so out-of-gamut light clips), then a 65,536-entry table gives
+    the nearest code of each level.
+
+    Parameters
+    ----------
+    linear : numpy.ndarray of float32
+        Linear-light values, any shape cv2 accepts (2-D, or 3-D with up to 4
+        channels).
+
+    Returns
+    -------
+    numpy.ndarray of uint8, same shape
+
+    Notes
+    -----
+    The 16-bit step adds at most ``12.92 * 255 / 65535 / 2 = 0.025`` code
+    (the largest slope of the sRGB encoding, at black [1]_) to the half code
+    of rounding, against `encode_linear_to_uint8`.
+
+    References
+    ----------
+    .. [1] IEC 61966-2-1:1999, section 5.3.
+    """
+    levels = cv2.multiply(linear, 65535.0, dtype=cv2.CV_16U)
+    return _LINEAR16_TO_CODE[levels]
 
 
 def relative_luminance(image):
@@ -250,10 +309,12 @@ def mean_relative_luminance(image):
     pixels = image.reshape(-1, 3)
     if pixels.shape[0] == 0:
         raise ValueError("image must have at least one pixel")
+    planes = image if image.ndim == 3 else np.ascontiguousarray(pixels).reshape(1, -1, 3)
     total = 0.0
-    for channel, weighted in enumerate(_WEIGHTED_LUTS):
-        counts = np.bincount(pixels[:, channel], minlength=256)
-        total += float(counts @ weighted.astype(np.float64))
+    for channel, weighted in enumerate(_WEIGHTED_LUTS_64):
+        # cv2.calcHist counts in float32, exact up to 2**24 pixels a code.
+        counts = cv2.calcHist([planes], [channel], None, [256], [0, 256])
+        total += float(counts.ravel() @ weighted)
     return min(total / pixels.shape[0], 1.0)
 
 
