@@ -113,19 +113,19 @@ def test_first_screen_screenshot_is_kept(page, tmp_path_factory, capsys):
 
 
 def test_print_keeps_every_table(page):
-    tables = "[...document.querySelectorAll('table')].map(t => t.getBoundingClientRect().height)"
-    on_screen = page.evaluate(tables)
-    count = len(on_screen)
-    # On screen the recipes' sections are closed, so their tables take no room: the print rule must open them.
-    assert any(height == 0 for height in on_screen)
+    # checkVisibility() is false for content a closed <details> skips; print must show every table.
+    visible = "[...document.querySelectorAll('table')].map(t => t.checkVisibility())"
+    heights = "[...document.querySelectorAll('table')].map(t => t.getBoundingClientRect().height)"
+    on_screen = page.evaluate(visible)
     page.page("Emulation.setEmulatedMedia", media="print")
     try:
-        heights = page.evaluate(tables)
+        printed, printed_heights = page.evaluate(visible), page.evaluate(heights)
         pdf = page.page("Page.printToPDF", printBackground=False)["data"]
     finally:
         page.page("Emulation.setEmulatedMedia", media="")
-    assert count > 0 and len(heights) == count
-    assert all(height > 0 for height in heights)  # tables inside closed sections print too
+    assert on_screen and not all(on_screen)  # on screen the recipes' sections start closed
+    assert all(printed) and all(height > 0 for height in printed_heights)
+    assert len(printed) == len(on_screen)
     assert pdf.startswith("JVBERi")  # base64 of "%PDF"
 
 

@@ -30,7 +30,7 @@ def palette_png(image, colours=64):
     return buffer.getvalue()
 
 
-def jpeg_bytes(image, quality=80):
+def jpeg_bytes(image, quality=75):
     """Encode a PIL image as a baseline JPEG (4:2:0, no metadata): for photographs, not line art."""
     if not isinstance(image, Image.Image):
         raise TypeError(f"image must be a PIL image; got {type(image).__name__}")
