@@ -1,4 +1,4 @@
-"""The cautions every report carries (DESIGN.md, "Cautions"); the README says the same."""
+"""The cautions every report carries (README, "Cautions"); the README says the same."""
 
 __all__ = ["CAUTIONS"]
 

@@ -4,6 +4,7 @@ Nothing here computes anything the library cannot compute on its own.
 """
 
 import argparse
+import dataclasses
 import json
 import os
 import sys
@@ -13,12 +14,13 @@ from pathlib import Path
 
 from augplan import __version__
 from augplan.errors import BadInputError
+from augplan.workspace import default_feature_cache, default_ledger
 
 __all__ = ["ExitCode", "main"]
 
 
 class ExitCode(IntEnum):
-    """Exit codes of every command (see DESIGN.md)."""
+    """Exit codes of every command (README, "Commands")."""
 
     OK = 0          # done, everything passed
     FLAGGED = 1     # done, something was flagged
@@ -41,6 +43,10 @@ def _common(parser, *, data=True, json_flag=True):
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
     parser.add_argument("--seed", type=int, default=0, help="seed of the analysis (default 0)")
+    if data:
+        parser.add_argument("--split-seed", type=int, default=0,
+                            help="seed of the stratified validation split made when DATA has no val/ "
+                                 "(default 0); apart from --seed so the data stay the same across analyses")
     parser.add_argument("--quiet", action="store_true", help="no progress bars, no warnings on stderr")
     if json_flag:
         parser.add_argument("--json", action="store_true",
@@ -104,8 +110,8 @@ def _build_parser():
     _workers(p)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
-    p.add_argument("--plots", type=Path, default=None, help="folder for factors.png: every factor's histograms, one panel each")
-    p.add_argument("--draws", type=_positive_int, default=4, help="augmented draws per training image (default 4)")
+    p.add_argument("--plots", type=Path, default=None,
+                   help="folder for factors.png: every factor's histograms, one panel each")
 
     p = commands.add_parser("evaluate", help="score recipes against a no-augmentation baseline")
     _common(p)
@@ -189,11 +195,8 @@ class _Console:
 def _open_data(args, *, field=None):
     from augplan.data.dataset import open_dataset
 
-    data = Path(args.data)
-    manifest = None
-    if data.is_file() and data.suffix.lower() == ".csv":
-        manifest, data = data, data.parent
-    dataset = open_dataset(data, strict=args.strict, manifest=manifest, seed=args.seed, field=field)
+    # open_dataset reads a .csv path as a manifest.
+    dataset = open_dataset(args.data, strict=args.strict, seed=args.split_seed, field=field)
     return dataset.with_image_bytes() if getattr(args, "ship_images", False) else dataset
 
 
@@ -228,14 +231,6 @@ def _report_leaks(console, dataset):
     return leaks
 
 
-def _default_ledger(data):
-    return Path(data).resolve().parent / ".augplan" / "ledger.sqlite"
-
-
-def _default_cache(data):
-    return Path(data).resolve().parent / ".augplan" / "features"
-
-
 def _run_preview(args, console):
     from augplan.render.sheets import preview_sheet, save_png
     from augplan.recipe.parse import read_recipe
@@ -257,19 +252,20 @@ def _ensure_parent(path, dataset=None):
     if not parent.is_dir():
         raise BadInputError(f"{path}: the folder {parent} does not exist")
     if dataset is not None:
-        from augplan.data.dataset import ensure_outside_data
+        from augplan.workspace import ensure_outside_data
 
-        ensure_outside_data(path, dataset)
+        ensure_outside_data(path, dataset.root)
 
 
 def _emit(console, args, result, table):
-    """Warnings on stderr, then the JSON document or the human table."""
-    for warning in result.get("warnings", []):
+    """Warnings on stderr, then the JSON document or the human table; the exit code."""
+    for warning in getattr(result, "warnings", ()):
         console.warn(warning)
     if args.json:
-        console.emit_json(result)
+        console.emit_json(result.to_json())
     else:
         console.say(table(result))
+    return ExitCode.FLAGGED if result.flagged else ExitCode.OK
 
 
 def _run_check(args, console):
@@ -284,20 +280,7 @@ def _run_check(args, console):
     recipe = _read_recipes([args.recipe])[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, evidence_dir=args.evidence)
-    result["leaks"] = leaks
-    _emit(console, args, result, tables.check_table)
-    flagged = any(t["verdict"] != "safe" for t in result["transforms"])
-    return ExitCode.FLAGGED if flagged else ExitCode.OK
-
-
-def _write_factor_grid(folder, result):
-    from augplan.atomic import write_bytes_atomic
-    from augplan.render.plots import factor_grid
-
-    folder = Path(folder)
-    folder.mkdir(exist_ok=True)
-    return write_bytes_atomic(folder / "factors.png",
-                              factor_grid(result["factors"], title=f"recipe {result['recipe']}"))
+    return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.check_table)
 
 
 def _run_coverage(args, console):
@@ -309,13 +292,12 @@ def _run_coverage(args, console):
     if args.plots is not None:
         _ensure_parent(args.plots, dataset)
     recipe = _read_recipes([args.recipe])[0]
-    result = analyse_coverage(dataset, recipe, draws=args.draws, seed=args.seed, workers=_execution(args),
-                              quiet=args.quiet)
+    result = analyse_coverage(dataset, recipe, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     if args.plots is not None:
-        result["plots"] = [str(_write_factor_grid(args.plots, result))]
-    _emit(console, args, result, tables.coverage_table)
-    persists = any(s.get("flagged") and s.get("persists") for s in result["shortcuts"])
-    return ExitCode.FLAGGED if persists else ExitCode.OK
+        from augplan.render.plots import with_factor_plots
+
+        result = with_factor_plots(result, args.plots)
+    return _emit(console, args, result, tables.coverage_table)
 
 
 def _run_evaluate(args, console):
@@ -327,11 +309,9 @@ def _run_evaluate(args, console):
     leaks = _report_leaks(console, dataset)
     recipes = _read_recipes(args.recipe)
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
-                              quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
-                              cache_dir=_default_cache(args.data), confirm_fraction=args.confirm_fraction)
-    result["leaks"] = leaks
-    _emit(console, args, result, tables.leaderboard_table)
-    return ExitCode.FLAGGED if any(r["flagged"] for r in result["recipes"]) else ExitCode.OK
+                              quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
+                              cache_dir=default_feature_cache(dataset.root), confirm_fraction=args.confirm_fraction)
+    return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.leaderboard_table)
 
 
 def _run_draft(args, console):
@@ -364,16 +344,20 @@ def _run_vet(args, console):
     recipes = _read_recipes(args.recipe)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
                           repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
-                          quiet=args.quiet, ledger_path=args.ledger or _default_ledger(args.data),
-                          cache_dir=_default_cache(args.data))
+                          quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
+                          cache_dir=default_feature_cache(dataset.root))
+    _say_vetted(console, args, summary)
+    return ExitCode.FLAGGED if summary.flagged else ExitCode.OK
+
+
+def _say_vetted(console, args, summary):
     if args.json:
-        console.emit_json(summary)
-    console.say(summary["verdict"])
-    for item in summary["signoff"]:
+        console.emit_json(summary.to_json())
+    console.say(summary.verdict)
+    for item in summary.get("signoff") or []:
         console.say(f"sign-off needed: {item['recipe']} transform {item['index']} ({item['op']}): {item['detail']}")
-    console.say(f"report: {summary['report']}")
-    console.say(f"vetted recipe: {summary['vetted_recipe']}")
-    return ExitCode.OK if summary["unchanged"] else ExitCode.FLAGGED
+    console.say(f"report: {summary.report}")
+    console.say(f"vetted recipe: {summary.vetted_recipe}")
 
 
 def _run_verify(args, console):
@@ -381,32 +365,33 @@ def _run_verify(args, console):
 
     result = verify_vetted(args.vetted, data=args.data)
     if args.json:
-        console.emit_json(result)
-    for line in result["messages"]:
+        console.emit_json(result.to_json())
+    for line in result.messages:
         console.say(line)
-    return ExitCode.OK if result["ok"] else ExitCode.FLAGGED
+    return ExitCode.FLAGGED if result.flagged else ExitCode.OK
 
 
 def _run_history(args, console):
-    from augplan.evaluate.ledger import list_history, run_details
+    from augplan.evaluate.ledger import history, run_details
     from augplan.data.dataset import fingerprint, open_dataset
     from augplan.render import text as tables
+    from augplan.results import HistoryResult
 
     if args.data is not None and args.data.isdigit() and not Path(args.data).exists():
-        ledger = args.ledger or Path(".augplan/ledger.sqlite")
+        ledger = args.ledger or default_ledger(None)
         entry = run_details(ledger, int(args.data))
         if args.json:
-            console.emit_json({"ledger": str(ledger), **entry})
+            console.emit_json(HistoryResult(ledger=str(ledger), evaluations=[entry]).to_json())
         else:
             console.say(tables.run_table(entry))
         return ExitCode.OK
-    ledger = args.ledger or (_default_ledger(args.data) if args.data else Path(".augplan/ledger.sqlite"))
-    data_fingerprint = fingerprint(open_dataset(args.data)) if args.data else None
-    rows = list_history(ledger, fingerprint=data_fingerprint)
+    dataset = open_dataset(args.data) if args.data else None
+    ledger = args.ledger or default_ledger(dataset.root if dataset else None)
+    result = history(ledger, fingerprint=fingerprint(dataset) if dataset else None)
     if args.json:
-        console.emit_json({"ledger": str(ledger), "evaluations": rows})
+        console.emit_json(result.to_json())
     else:
-        console.say(tables.history_table(rows))
+        console.say(tables.history_table(result.evaluations))
     return ExitCode.OK
 
 
@@ -414,11 +399,7 @@ def _run_demo(args, console):
     from augplan.demo import run_demo
 
     summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet)
-    if args.json:
-        console.emit_json(summary)
-    console.say(summary["verdict"])
-    console.say(f"report: {summary['report']}")
-    console.say(f"vetted recipe: {summary['vetted_recipe']}")
+    _say_vetted(console, args, summary)
     return ExitCode.OK
 
 

@@ -306,14 +306,16 @@ def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
     from augplan.errors import BadInputError
     from augplan.recipe.parse import read_recipe
     from augplan.vet.job import vet_recipes
+    from augplan.workspace import default_ledger
 
     paths = [DEFAULT_RECIPE_DIR / name for name in DEMO_RECIPES]
     if not DEFAULT_DEMO_DIR.is_dir() or not all(path.is_file() for path in paths):
         raise BadInputError(f"the demo needs {DEFAULT_DEMO_DIR} and the recipes in {DEFAULT_RECIPE_DIR}; "
                             "run it from a checkout of the augplan repository")
-    dataset = open_dataset(DEFAULT_DEMO_DIR, seed=seed)
+    dataset = open_dataset(DEFAULT_DEMO_DIR)
     recipes = [read_recipe(path) for path in paths]
-    ledger = Path(out_dir).resolve().parent / ".augplan" / "ledger.sqlite"
+    # The demo keeps its ledger beside its output folder, as a data set keeps it beside the data.
+    ledger = default_ledger(Path(out_dir).resolve())
     ledger.parent.mkdir(parents=True, exist_ok=True)
     return vet_recipes(dataset, recipes, out_dir, force=True, repeats=repeats, seed=seed, workers=workers,
                        quiet=quiet, ledger_path=ledger, cache_dir=ledger.parent / "features")

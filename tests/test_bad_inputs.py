@@ -3,7 +3,7 @@
 Each case asserts one of three outcomes:
 
 - ``error``: exit 2 and a message on stderr naming the file (or flag) and the fault;
-- ``skip``: the documented skip (DESIGN.md: files that are not images are listed
+- ``skip``: the documented skip (README, "Data layout": files that are not images are listed
   and skipped), exit 0/1 and a warning on stderr naming the file and the fault;
 - ``accept``: the input is valid (run with ``--strict``, so any skip would be exit 2).
 
@@ -11,6 +11,7 @@ and never a traceback. Data- and recipe-level faults go through ``preview``
 (the cheapest command); flag faults through the command that owns the flag.
 """
 
+import json
 import os
 import struct
 import zlib
@@ -499,3 +500,18 @@ def test_verify_missing_file_never_passes(tmp_path, run_cli):
     assert result.code != 0
     assert "Traceback" not in result.err
     assert "no-such-vetted.yaml" in result.out + result.err
+
+
+@pytest.mark.parametrize("as_json", [False, True], ids=["table", "json"])
+def test_coverage_runs_through_a_class_with_one_training_image(as_json, tmp_path, monkeypatch, run_cli):
+    # The shortcut audit cannot cross-validate a one-image class; its scores are
+    # None and every output must still be written (exit 0 or 1, never 3).
+    ctx = Ctx(tmp_path, monkeypatch)
+    _class_with_one_image(ctx)
+    result = run_cli("coverage", ctx.data, "--recipe", ctx.recipe, "--quiet", *(["--json"] if as_json else []))
+    assert result.code in (0, 1), result.err
+    assert "internal error" not in result.err
+    if as_json:
+        assert json.loads(result.out)["recipe"] == "tiny"
+    else:
+        assert "tiny" in result.out

@@ -20,7 +20,8 @@ from augplan.evaluate import ledger
 from augplan.data.dataset import load_images, open_dataset
 from augplan.errors import BadInputError
 from augplan.evaluate.evaluate import evaluate_recipes
-from augplan.measure.features import FeatureModel, image_features
+from augplan.measure.features import image_features
+from augplan.measure.model import FeatureModel
 from augplan.recipe.parse import Recipe, Transform
 
 SIZE = 32

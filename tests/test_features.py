@@ -10,9 +10,9 @@ from augplan.measure.features import (
     FEATURE_BLOCKS,
     FEATURE_LENGTH,
     MIN_IMAGE_SIDE,
-    FeatureModel,
     image_features,
 )
+from augplan.measure.model import FeatureModel
 
 
 def _sample(name, side):
@@ -244,9 +244,9 @@ def test_single_precision_solver_predicts_like_double(digits, digit_features):
     # would disagree on most.
     _, labels = digits
     train, held_out = slice(0, 400), slice(400, 600)
-    double = FeatureModel().fit_features(digit_features[train], labels[train], cross_validate=False)
-    single = FeatureModel().fit_features(digit_features[train], labels[train], cross_validate=False,
-                                         solver_dtype=np.float32)
+    double = FeatureModel(cross_validate=False).fit_features(digit_features[train], labels[train])
+    single = FeatureModel(cross_validate=False, solver_dtype=np.float32).fit_features(digit_features[train],
+                                                                                      labels[train])
     assert single.estimator_.coef_.dtype == np.float32
     agreement = np.mean(single.predict_features(digit_features[held_out])
                         == double.predict_features(digit_features[held_out]))
@@ -255,7 +255,7 @@ def test_single_precision_solver_predicts_like_double(digits, digit_features):
 
 def test_solver_dtype_must_be_a_float_type(digit_features):
     with pytest.raises(ValueError, match="solver_dtype"):
-        FeatureModel().fit_features(digit_features[:40], np.arange(40) % 2, solver_dtype=np.int32)
+        FeatureModel(solver_dtype=np.int32).fit_features(digit_features[:40], np.arange(40) % 2)
 
 
 def test_weak_on_random_labels(digit_features):
@@ -323,3 +323,56 @@ def test_single_image_class_cannot_be_cross_validated(digit_features):
     model = FeatureModel().fit_features(digit_features[:20], labels)
     assert np.isnan(model.cv_accuracy_) and model.weak_
     assert model.predict_features(digit_features[:2]).shape == (2,)
+
+
+# FeatureModel follows scikit-learn's estimator contract (scikit-learn's
+# developer guide, "Rolling your own estimator"), checked with scikit-learn's own tools.
+
+
+def test_model_parameters_round_trip_through_get_params_and_clone():
+    from sklearn.base import clone
+    from sklearn.neighbors import KNeighborsClassifier
+
+    model = FeatureModel(estimator=KNeighborsClassifier(n_neighbors=3), random_state=7, cross_validate=False,
+                         solver_dtype=np.float32)
+    params = model.get_params(deep=False)
+    assert set(params) == {"feature_fn", "estimator", "random_state", "cross_validate", "solver_dtype"}
+    copy = clone(model)
+    assert copy is not model and copy.get_params(deep=False)["random_state"] == 7
+    assert copy.estimator is not model.estimator and copy.estimator.get_params() == model.estimator.get_params()
+    assert copy.set_params(random_state=9).random_state == 9 and model.random_state == 7
+
+
+def test_unfitted_model_raises_not_fitted_error(digit_features):
+    from sklearn.exceptions import NotFittedError
+
+    with pytest.raises(NotFittedError):
+        FeatureModel().predict_features(digit_features[:2])
+
+
+def test_clone_of_a_fitted_model_is_unfitted(digit_features):
+    from sklearn.base import clone
+    from sklearn.exceptions import NotFittedError
+
+    fitted = FeatureModel().fit_features(digit_features[:40], np.arange(40) % 2)
+    with pytest.raises(NotFittedError):
+        clone(fitted).predict_features(digit_features[:2])
+
+
+def test_random_state_accepts_what_check_random_state_accepts(digit_features, digits):
+    # A fresh RandomState(3) drives the one fold shuffle exactly as the seed 3 does.
+    _, labels = digits
+    by_seed = FeatureModel(random_state=3).fit_features(digit_features[:200], labels[:200])
+    by_generator = FeatureModel(random_state=np.random.RandomState(3)).fit_features(digit_features[:200],
+                                                                                     labels[:200])
+    np.testing.assert_array_equal(by_seed.cv_predictions_, by_generator.cv_predictions_)
+    with pytest.raises(ValueError):
+        FeatureModel(random_state="three").fit_features(digit_features[:40], np.arange(40) % 2)
+
+
+def test_score_is_accuracy_on_images(digits):
+    # ClassifierMixin.score: mean accuracy of predict on the images themselves.
+    images, labels = digits
+    model = FeatureModel().fit(images[:300], labels[:300])
+    expected = np.mean(model.predict(images[300:400]) == labels[300:400])
+    assert model.score(images[300:400], labels[300:400]) == pytest.approx(expected)

@@ -57,3 +57,19 @@ def test_jpeg_bytes_decode_to_the_same_size():
 def test_only_images_are_encoded(encode):
     with pytest.raises(TypeError, match="PIL image"):
         encode(np.zeros((2, 2, 3), np.uint8))
+
+
+def test_coverage_plots_are_one_grid_file(tmp_path):
+    from augplan.coverage.coverage import analyse_coverage
+    from augplan.data.dataset import open_dataset
+    from augplan.demo import make_demo_dataset
+    from augplan.recipe.parse import parse_recipe
+    from augplan.render.plots import with_factor_plots
+
+    make_demo_dataset(tmp_path / "data", n_train=3, n_val=2, n_field=2)
+    recipe = parse_recipe("name: r\ntransforms:\n  - op: brightness\n    factor: [0.5, 2]\n")
+    result = with_factor_plots(analyse_coverage(open_dataset(tmp_path / "data"), recipe, size=32), tmp_path / "plots")
+    assert result["plots"] == [str(tmp_path / "plots" / "factors.png")]
+    assert [p.name for p in (tmp_path / "plots").iterdir()] == ["factors.png"]
+    with Image.open(result["plots"][0]) as image:
+        assert image.format == "PNG" and image.mode == "P"

@@ -28,7 +28,7 @@ from augplan.recipe.parse import (
 
 RECIPES_DIR = Path(__file__).resolve().parent.parent / "recipes"
 
-# The example from DESIGN.md, "Recipe format (YAML)", comments included.
+# A recipe that uses every op, with the comments a user would write (README, "Recipe format").
 DESIGN_EXAMPLE = """\
 name: tiles-draft            # required, used in reports
 seed: 7                      # default 0

@@ -61,7 +61,7 @@ COMMANDS = {
                            "--per-class", "1", "--draws", "1"], "sheet.png"),
     "check": (lambda s: ["check", s.data, "--recipe", s.recipe, "--sample", "3", "--quiet", "--json",
                          "--evidence", s.out / "evidence"], None),
-    "coverage": (lambda s: ["coverage", s.data, "--recipe", s.recipe, "--draws", "1", "--quiet", "--json",
+    "coverage": (lambda s: ["coverage", s.data, "--recipe", s.recipe, "--quiet", "--json",
                             "--plots", s.out / "plots"], None),
     # No --ledger: the default ledger and feature cache must land beside the data, not in it.
     "evaluate": (lambda s: ["evaluate", s.data, "--recipe", s.recipe, "--repeats", "2", "--quiet",

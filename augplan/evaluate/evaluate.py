@@ -38,13 +38,13 @@ from augplan.errors import BadInputError
 from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 from augplan.parallel import parallel_map, resolve_workers, single_threaded
 from augplan.recipe.parse import Recipe, recipe_hash
+from augplan.results import EvaluateResult
+from augplan.thresholds import MANY_RECIPES_WARNING_LIMIT
+from augplan.workspace import ensure_outside_data
 from augplan.augment.transforms import augment_batch
 
 __all__ = ["evaluate_recipes", "MANY_RECIPES_WARNING_LIMIT", "GAIN_RULE"]
 
-# More recipes than this compared without a confirmation split earns a
-# warning (common practice, no source: the issue fixes the number at 3).
-MANY_RECIPES_WARNING_LIMIT = 3
 
 # Images per chunk when reading and featurising. Fixed (never derived from
 # the worker count) so results do not depend on --workers.
@@ -118,23 +118,20 @@ def _featurize_originals(records, feature_fn, size, cache, *, workers=1, quiet=T
 
 
 def _new_model(model, random_state):
-    """A fresh, unfitted copy of ``model`` with its own random state."""
-    from sklearn.base import clone
-
-    estimator = getattr(model, "estimator", None)
-    return type(model)(feature_fn=model.feature_fn,
-                       estimator=None if estimator is None else clone(estimator),
-                       random_state=int(random_state))
-
-
-def _fit(model, features, targets):
-    """Fit ``model`` on raw features; returns its label predictor.
+    """A fresh, unfitted copy of ``model`` with its own random state, set up for scoring.
 
     No trust check (scoring never reads it), and a single-precision solver:
     only predicted labels are used here.
     """
-    return model.fit_features(features, targets, cross_validate=False,
-                              solver_dtype=np.float32).predict_features
+    from sklearn.base import clone
+
+    return clone(model).set_params(random_state=int(random_state), cross_validate=False,
+                                   solver_dtype=np.float32)
+
+
+def _fit(model, features, targets):
+    """Fit ``model`` on raw features; returns its label predictor."""
+    return model.fit_features(features, targets).predict_features
 
 
 def _train_and_predict(unit):
@@ -490,7 +487,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     repeats : int, default 5
         Training repeats per recipe, each with fresh augmentation draws and
         a fresh model seed.
-    model : augplan.features.FeatureModel, optional
+    model : augplan.measure.model.FeatureModel, optional
         Template of the model (its feature function and estimator); default
         ``FeatureModel()``. Must be picklable when ``workers != 1``.
     size : int, default 64
@@ -514,7 +511,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     Returns
     -------
     dict
-        The ``evaluate --json`` document (see DESIGN.md).
+        The ``evaluate --json`` document (docs/architecture.md, "Results").
 
     Raises
     ------
@@ -537,7 +534,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     """
     recipes = _check_inputs(dataset, recipes, repeats, size, seed, workers, confirm_fraction)
     if model is None:
-        from augplan.measure.features import FeatureModel
+        from augplan.measure.model import FeatureModel
 
         model = FeatureModel()
     repeats, size, seed = int(repeats), int(size), int(seed)
@@ -579,9 +576,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
         # repeats), so their results stand beside the new ones.
         root = Path(dataset.root).resolve()
         cache_root = Path(cache_dir) if cache_dir is not None else default_cache_dir(root)
-        if cache_root.resolve() == root or root in cache_root.resolve().parents:
-            raise BadInputError(f"{cache_root}: the feature cache must not live inside the data "
-                                f"folder {root}; the data folder is never written to")
+        ensure_outside_data(cache_root, root, what="feature cache")
         cache = FeatureCache(cache_root, feature_settings_key(model.feature_fn, size))
         base_scores, computed = _compute(dataset, [r for r, _ in missing], [h for _, h in missing], model,
                                          repeats=repeats, size=size, seed=seed, workers=workers,
@@ -600,4 +595,4 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
                            recipe_names=[r.name for r in recipes], best_recipe=best["name"],
                            best_gain=best["gain"], from_ledger=document["from_ledger"],
                            details=_run_summary(document), **ledger_keys)
-    return document
+    return EvaluateResult.from_json(document)

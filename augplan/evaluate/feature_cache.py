@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from augplan.atomic import write_bytes_atomic
+from augplan.workspace import default_feature_cache
 
 __all__ = ["FeatureCache", "feature_settings_key", "default_cache_dir"]
 
@@ -27,7 +28,7 @@ def default_cache_dir(data_root):
 
     The data folder itself is never written to.
     """
-    return Path(data_root).resolve().parent / ".augplan" / "features"
+    return default_feature_cache(data_root)
 
 
 def _source_digest(function):

@@ -16,7 +16,8 @@ from pathlib import Path
 
 from augplan.errors import BadInputError
 
-__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history", "run_details"]
+__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history", "history",
+           "run_details"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS evaluations (
@@ -249,3 +250,17 @@ def run_details(ledger_path, run):
     entry.update(fingerprint=found[2], settings_key=found[10],
                  details=None if found[11] is None else json.loads(found[11]))
     return entry
+
+
+def history(ledger_path, fingerprint=None):
+    """The ``history --json`` result: the ledger's path and its past comparisons.
+
+    Parameters are those of `list_history`.
+
+    Returns
+    -------
+    augplan.results.HistoryResult
+    """
+    from augplan.results import HistoryResult
+
+    return HistoryResult(ledger=str(ledger_path), evaluations=list_history(ledger_path, fingerprint=fingerprint))

@@ -3,7 +3,7 @@
 The label-safety checker, the coverage audit and the evaluator all need a
 model that trains in seconds on a laptop and still notices shape,
 orientation, position, colour and scale. `image_features` turns a batch of
-images into fixed-length vectors; `FeatureModel` standardises them and fits a
+images into fixed-length vectors; `augplan.measure.model.FeatureModel` standardises them and fits a
 scikit-learn classifier (logistic regression by default), and measures by
 cross-validation whether the model is good enough to be trusted.
 
@@ -50,7 +50,6 @@ from augplan.imaging.colour import relative_luminance, rgb_to_hsv
 
 __all__ = [
     "image_features",
-    "FeatureModel",
     "FEATURE_BLOCKS",
     "FEATURE_LENGTH",
     "MIN_IMAGE_SIDE",
@@ -176,6 +175,8 @@ def _orientation_features(images):
     gy[:, 1:-1, :] = grey[:, 2:, :] - grey[:, :-2, :]
     gy[:, 0, :] = grey[:, 1, :] - grey[:, 0, :]
     gy[:, -1, :] = grey[:, -1, :] - grey[:, -2, :]
+    # np.hypot, not cv2.magnitude: the latter's last bit depended on where
+    # the arrays sat in memory, and features must be the same bytes each run.
     magnitude = np.hypot(gx, gy)
     # Unsigned orientation in bin units: atan2 gives (-pi, pi]; adding half a
     # turn to negative angles folds it onto [0, pi] (a float modulo would be
@@ -281,224 +282,3 @@ def image_features(images):
         out[start:start + len(batch), orientation] = _orientation_features(batch)
         out[start:start + len(batch), orientation.stop:] = _colour_features(batch)
     return out
-
-
-def _count_folds(labels):
-    """Folds for cross-validation: min(5, smallest class count); below 2 none."""
-    _, counts = np.unique(labels, return_counts=True)
-    return int(min(5, counts.min()))
-
-
-class FeatureModel:
-    """Features plus a standardised scikit-learn classifier, with a trust check.
-
-    Parameters
-    ----------
-    feature_fn : callable, default `image_features`
-        Maps a uint8 batch ``(N, H, W, 3)`` to a 2-D array ``(N, D)``. Must be
-        picklable (a module-level function) for the model to be picklable.
-    estimator : scikit-learn classifier or None
-        Any classifier with ``fit``/``predict`` (``predict_proba`` for
-        `predict_proba_features`); cloned before fitting. None means
-        ``LogisticRegression(C=0.1, max_iter=2000)`` with the lbfgs solver.
-    random_state : int, default 0
-        Seeds the fold shuffling and, when the estimator takes one, the
-        estimator.
-
-    Attributes
-    ----------
-    classes_ : numpy.ndarray
-        Sorted class labels.
-    scaler_ : sklearn.preprocessing.StandardScaler
-    estimator_ : fitted classifier
-    cv_accuracy_ : float
-        Accuracy of out-of-fold predictions from stratified k-fold
-        cross-validation of the same pipeline (scaler + estimator), with
-        ``k = min(5, smallest class count)``; NaN when some class has fewer
-        than 2 images.
-    cv_accuracy_ci_ : tuple of float
-        95 % Wilson interval of ``cv_accuracy_`` over the images; (0, 1) when
-        not measured.
-    cv_predictions_ : numpy.ndarray or None
-        The out-of-fold predictions, in input order.
-    chance_ : float
-        Share of the largest class: the accuracy of always guessing it. For
-        balanced classes this equals ``1 / n_classes``; for imbalanced ones
-        it is the honest floor that plain accuracy must beat.
-    weak_ : bool
-        True when the model is not clearly better than chance, i.e. when
-
-        - cross-validation could not run, or
-        - ``cv_accuracy_ < chance_ + 0.5 * (1 - chance_)``: the model closes
-          less than half of the gap between chance and perfect (with two
-          balanced classes it needs 0.75, with ten 0.55; common practice, no
-          source for the one-half), or
-        - the lower Wilson bound of ``cv_accuracy_`` is at or below
-          ``chance_`` (the margin could be luck on a small set).
-
-        Verdicts that lean on a weak model should be reported as unverified.
-
-    Notes
-    -----
-    ``__init__`` only stores parameters. Results are deterministic for a
-    fixed ``random_state``. Callers that reuse features (for example from a
-    cache) call `featurize` once and then `fit_features` and the
-    ``*_features`` methods.
-
-    The default regularisation ``C = 0.1`` on standardised features suits the
-    regime the tool works in (hundreds to a few thousand images, about a
-    thousand features): it keeps the model from memorising small training
-    sets (chosen on scikit-learn's digits; common practice, no source).
-    """
-
-    def __init__(self, feature_fn=image_features, estimator=None, *, random_state=0):
-        self.feature_fn = feature_fn
-        self.estimator = estimator
-        self.random_state = random_state
-
-    # -- construction helpers -------------------------------------------------
-
-    def _make_estimator(self):
-        from sklearn.base import clone
-        from sklearn.linear_model import LogisticRegression
-
-        if self.estimator is None:
-            estimator = LogisticRegression(C=0.1, max_iter=2000)
-        else:
-            estimator = clone(self.estimator)
-        if "random_state" in estimator.get_params():
-            estimator.set_params(random_state=self.random_state)
-        return estimator
-
-    def _check_fitted(self):
-        if not hasattr(self, "estimator_"):
-            raise ValueError("This FeatureModel is not fitted yet; call fit or fit_features first.")
-
-    # -- features -------------------------------------------------------------
-
-    def featurize(self, images):
-        """Raw (unstandardised) features of a uint8 batch, as float arrays ``(N, D)``."""
-        features = np.asarray(self.feature_fn(images))
-        if features.ndim != 2 or features.shape[0] != len(images):
-            raise ValueError(
-                f"feature_fn must return a 2-D array with one row per image; got shape "
-                f"{features.shape} for {len(images)} images."
-            )
-        return features
-
-    def scaled(self, features):
-        """Standardise raw features with the scaler learned in fit."""
-        self._check_fitted()
-        features = np.asarray(features)
-        if features.ndim != 2 or features.shape[1] != self.scaler_.n_features_in_:
-            raise ValueError(
-                f"features must have shape (N, {self.scaler_.n_features_in_}); got {features.shape}."
-            )
-        return self.scaler_.transform(features.astype(np.float64, copy=False))
-
-    # -- fitting --------------------------------------------------------------
-
-    def fit(self, images, labels):
-        """Featurize ``images`` and fit; see `fit_features`. Returns self."""
-        return self.fit_features(self.featurize(images), labels)
-
-    def fit_features(self, features, labels, *, cross_validate=True, solver_dtype=np.float64):
-        """Fit scaler and estimator on raw features and measure cross-validated accuracy.
-
-        Parameters
-        ----------
-        features : array_like, shape (N, D)
-            Raw features from `featurize` (or the same ``feature_fn``).
-        labels : array_like, shape (N,)
-            Class labels (strings or integers); at least two classes.
-        cross_validate : bool, default True
-            Measure ``cv_accuracy_`` (and ``weak_``). Scoring loops that fit
-            many models and never read them skip the extra fits.
-        solver_dtype : {numpy.float64, numpy.float32}, default numpy.float64
-            Precision of the standardised features handed to the estimator.
-            float32 halves the time of the solver's matrix products (a
-            10,000 x 1,112 fit took 3.6 s instead of 6.4 s, with the same
-            iterations and predictions); probabilities then carry single
-            precision, so only callers that need labels alone choose it.
-
-        Returns
-        -------
-        FeatureModel
-            self.
-        """
-        from threadpoolctl import threadpool_limits
-
-        # One BLAS thread: augplan parallelises with processes (parallel_map),
-        # and BLAS threads on top oversubscribe the cores and make small fits
-        # many times slower on a busy machine.
-        with threadpool_limits(limits=1, user_api="blas"):
-            return self._fit_features(features, labels, cross_validate, solver_dtype)
-
-    def _fit_features(self, features, labels, cross_validate=True, solver_dtype=np.float64):
-        from sklearn.model_selection import StratifiedKFold, cross_val_predict
-        from sklearn.pipeline import make_pipeline
-        from sklearn.preprocessing import StandardScaler
-
-        from augplan.measure.stats import wilson_interval
-
-        if np.dtype(solver_dtype) not in (np.float32, np.float64):
-            raise ValueError(f"solver_dtype must be numpy.float32 or numpy.float64; got {solver_dtype!r}.")
-        # float64 for scaling; the solver gets solver_dtype (float32 input makes
-        # scikit-learn fit and report probabilities in single precision).
-        features = np.asarray(features, dtype=np.float64)
-        labels = np.asarray(labels)
-        if features.ndim != 2:
-            raise ValueError(f"features must be 2-D (N, D); got shape {features.shape}.")
-        if labels.ndim != 1 or labels.shape[0] != features.shape[0]:
-            raise ValueError(
-                f"labels must be 1-D with one entry per feature row ({features.shape[0]}); "
-                f"got shape {labels.shape}."
-            )
-        classes, counts = np.unique(labels, return_counts=True)
-        if classes.size < 2:
-            raise ValueError(f"at least two classes are needed to fit; got {classes.tolist()!r}.")
-
-        self.classes_ = classes
-        self.chance_ = float(counts.max() / counts.sum())
-        folds = _count_folds(labels) if cross_validate else 0
-        if folds >= 2:
-            splitter = StratifiedKFold(n_splits=folds, shuffle=True, random_state=self.random_state)
-            pipeline = make_pipeline(StandardScaler(), self._make_estimator())
-            predictions = cross_val_predict(pipeline, features, labels, cv=splitter)
-            correct = int(np.count_nonzero(predictions == labels))
-            self.cv_predictions_ = predictions
-            self.cv_accuracy_ = correct / labels.size
-            self.cv_accuracy_ci_ = wilson_interval(correct, labels.size)
-        else:
-            self.cv_predictions_ = None
-            self.cv_accuracy_ = float("nan")
-            self.cv_accuracy_ci_ = (0.0, 1.0)
-        self.weak_ = bool(
-            folds < 2
-            or self.cv_accuracy_ < self.chance_ + 0.5 * (1.0 - self.chance_)
-            or self.cv_accuracy_ci_[0] <= self.chance_
-        )
-        self.scaler_ = StandardScaler().fit(features)
-        scaled = self.scaler_.transform(features).astype(solver_dtype, copy=False)
-        self.estimator_ = self._make_estimator().fit(scaled, labels)
-        return self
-
-    # -- prediction -----------------------------------------------------------
-
-    def predict_proba_features(self, features):
-        """Class probabilities ``(N, n_classes)`` for raw features, columns in `classes_` order."""
-        scaled = self.scaled(features)
-        return self.estimator_.predict_proba(scaled)
-
-    def predict_features(self, features):
-        """Predicted labels for raw features."""
-        scaled = self.scaled(features)
-        return self.estimator_.predict(scaled)
-
-    def predict_proba(self, images):
-        """Class probabilities for a uint8 batch."""
-        return self.predict_proba_features(self.featurize(images))
-
-    def predict(self, images):
-        """Predicted labels for a uint8 batch."""
-        return self.predict_features(self.featurize(images))

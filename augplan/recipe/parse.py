@@ -1,6 +1,6 @@
 """The recipe format: parse, validate, serialise and hash augmentation recipes.
 
-A recipe is a small YAML file (see DESIGN.md, "Recipe format (YAML)")::
+A recipe is a small YAML file (README, "Recipe format")::
 
     name: tiles-draft
     seed: 7
@@ -248,7 +248,7 @@ class Transform:
 
 @dataclass(frozen=True)
 class Recipe:
-    """A parsed, validated augmentation recipe (see DESIGN.md for the format).
+    """A parsed, validated augmentation recipe (README, "Recipe format").
 
     ``source`` (the file it came from) is not part of equality.
     """

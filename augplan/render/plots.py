@@ -7,12 +7,16 @@ lossless in practice) and JPEG for photographic contact sheets, so a report
 that embeds many of them stays small.
 """
 
+import dataclasses
 import io
+from pathlib import Path
 
 import numpy as np
 from PIL import Image
 
-__all__ = ["factor_grid", "palette_png", "jpeg_bytes"]
+from augplan.atomic import write_bytes_atomic
+
+__all__ = ["factor_grid", "palette_png", "jpeg_bytes", "with_factor_plots"]
 
 # Colours that stay apart for the common colour-vision deficiencies
 # (Okabe and Ito's palette, 2008) and in greyscale print by line style.
@@ -107,3 +111,26 @@ def factor_grid(factors, *, title=None):
     canvas.draw()
     width, height_px = canvas.get_width_height()
     return palette_png(Image.frombuffer("RGBA", (width, height_px), canvas.buffer_rgba(), "raw", "RGBA", 0, 1))
+
+
+def with_factor_plots(result, plots_dir):
+    """Write ``result``'s factor histograms as ``plots_dir/factors.png``; the result with its path under ``plots``.
+
+    Parameters
+    ----------
+    result : augplan.results.CoverageResult
+        From `augplan.coverage.coverage.analyse_coverage`.
+    plots_dir : str or Path
+        Created if missing; the file is written atomically.
+
+    Returns
+    -------
+    augplan.results.CoverageResult
+    """
+    plots_dir = Path(plots_dir)
+    plots_dir.mkdir(parents=True, exist_ok=True)
+    data = factor_grid(result["factors"], title=f"recipe {result['recipe']}")
+    if data is None:
+        return dataclasses.replace(result, plots=[])
+    written = write_bytes_atomic(plots_dir / "factors.png", data)
+    return dataclasses.replace(result, plots=[str(written)])

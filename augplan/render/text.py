@@ -89,6 +89,10 @@ def check_table(result):
     return "\n".join([wrap(head), table, *(wrap(note) for note in notes), legend])
 
 
+def _score_text(score):
+    return "-" if score is None else f"{score:.2f}"
+
+
 def coverage_table(result):
     """Factor widening and the shortcut audit of a ``coverage`` result."""
     rows = []
@@ -103,9 +107,8 @@ def coverage_table(result):
     rows = []
     for s in result["shortcuts"]:
         flag = "FLAGGED" if s["flagged"] and s.get("persists") else ("cleared" if s["flagged"] else "")
-        val = "-" if s.get("val") is None else f"{s['val']:.2f}"
-        field = "-" if s.get("field") is None else f"{s['field']:.2f}"
-        rows.append([s["factor"], f"{s['original']:.2f}", f"{s['augmented']:.2f}", val, field,
+        # A score is None where the audit could not be run (a class with one image).
+        rows.append([s["factor"], *(_score_text(s.get(key)) for key in ("original", "augmented", "val", "field")),
                      f"{s['chance']:.2f}", flag])
     audit = format_table(["shortcut factor", "train", "augmented", "val", "field", "chance", ""], rows)
     parts = [f"recipe {result['recipe']}: nuisance factors", widening, "", "shortcut audit "

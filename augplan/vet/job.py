@@ -16,12 +16,14 @@ from augplan import __version__
 from augplan.atomic import write_bytes_atomic, write_text_atomic
 from augplan.cautions import CAUTIONS
 from augplan.coverage.coverage import analyse_coverage
-from augplan.data.dataset import ensure_outside_data, find_duplicates, fingerprint
+from augplan.data.dataset import find_duplicates, fingerprint
 from augplan.errors import BadInputError
+from augplan.workspace import ensure_outside_data
 from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
 from augplan.recipe.parse import recipe_hash, recipe_to_dict
+from augplan.results import VetResult
 
 __all__ = ["vet_recipes", "prepare_output"]
 
@@ -192,15 +194,16 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
 
     Returns
     -------
-    dict
-        ``{"verdict", "report", "vetted_recipe", "evidence", "unchanged", "best", "changes",
-        "signoff"}``: ``changes`` lists per recipe what vetting did to each transform
-        (``action`` keep, relabel, scope, clip or remove); ``signoff`` lists the
-        transforms a person must approve, each with its evidence sheet.
+    augplan.results.VetResult
+        ``verdict``, ``report``, ``vetted_recipe``, ``evidence``, ``unchanged``,
+        ``best``, ``changes`` and ``signoff``: ``changes`` lists per recipe what
+        vetting did to each transform (``action`` keep, relabel, scope, clip or
+        remove); ``signoff`` lists the transforms a person must approve, each
+        with its evidence sheet.
     """
     from augplan.render.html import render_report
 
-    ensure_outside_data(out_dir, dataset)
+    ensure_outside_data(out_dir, dataset.root)
     out_dir = prepare_output(out_dir, force=force)
     data_fingerprint = fingerprint(dataset)
     leaks = find_duplicates(dataset)
@@ -307,12 +310,12 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         write_text_atomic(out_dir / "report.html", html)
 
     unchanged = all(entry["vetted"]["unchanged"] for entry in entries)
-    return {"verdict": verdict, "report": str(out_dir / "report.html"),
-            "vetted_recipe": str(out_dir / "vetted-recipe.yaml"), "evidence": str(out_dir / "evidence.json"),
-            "unchanged": unchanged, "best": best_entry["name"],
-            "changes": [{"recipe": entry["name"], "vetted": entry["vetted"]["name"],
-                         "unchanged": entry["vetted"]["unchanged"], "transforms": entry["vetted"]["changes"]}
-                        for entry in entries],
-            "signoff": [{"recipe": entry["name"], **item,
-                         "evidence_sheet": _evidence_sheet(entry, item["index"], out_dir)}
-                        for entry in entries for item in entry["vetted"]["signoff"]]}
+    return VetResult(verdict=verdict, report=str(out_dir / "report.html"),
+                     vetted_recipe=str(out_dir / "vetted-recipe.yaml"), evidence=str(out_dir / "evidence.json"),
+                     unchanged=unchanged, best=best_entry["name"],
+                     changes=[{"recipe": entry["name"], "vetted": entry["vetted"]["name"],
+                               "unchanged": entry["vetted"]["unchanged"], "transforms": entry["vetted"]["changes"]}
+                              for entry in entries],
+                     signoff=[{"recipe": entry["name"], **item,
+                               "evidence_sheet": _evidence_sheet(entry, item["index"], out_dir)}
+                              for entry in entries for item in entry["vetted"]["signoff"]])

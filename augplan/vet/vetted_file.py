@@ -19,6 +19,7 @@ import yaml
 from augplan import __version__
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
+from augplan.results import VerifyResult
 from augplan.recipe.parse import RecipeError, canonical_json, read_recipe_document, recipe_to_dict, vetted_checksum
 
 __all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
@@ -179,9 +180,9 @@ def verify_vetted(path, *, data=None):
 
     Returns
     -------
-    dict
-        ``{"ok", "format_ok", "checksum_ok", "fingerprint_match", "messages"}``;
-        ``fingerprint_match`` is None without ``data``.
+    augplan.results.VerifyResult
+        ``path``, ``ok``, ``format_ok``, ``checksum_ok``, ``fingerprint_match``
+        (None without ``data``) and ``messages``.
     """
     if not Path(path).is_file():
         raise BadInputError(f"{path}: vetted recipe file not found.")
@@ -192,11 +193,11 @@ def verify_vetted(path, *, data=None):
         recipe, evidence, checksum = read_vetted(path)
     except RecipeError as error:
         messages.append(f"not a valid recipe: {error}")
-        return result
+        return VerifyResult.from_json(result)
     result["format_ok"] = True
     if evidence is None or checksum is None:
         messages.append(f"{path}: a valid recipe, but not a vetted one (no evidence or checksum).")
-        return result
+        return VerifyResult.from_json(result)
     expected = vetted_checksum(recipe, evidence)
     result["checksum_ok"] = checksum == expected
     if result["checksum_ok"]:
@@ -216,4 +217,4 @@ def verify_vetted(path, *, data=None):
             messages.append(f"{data}: the data changed since vetting (fingerprint {current[:12]}, "
                             f"vetted on {str(vetted_on)[:12]}). Vet again on the current data.")
     result["ok"] = result["checksum_ok"] and result["fingerprint_match"] is not False
-    return result
+    return VerifyResult.from_json(result)

@@ -1,0 +1,290 @@
+"""The shortcut audit: does a nuisance factor alone predict the class?
+
+Used by the coverage analysis (on the original, augmented, validation and
+field sets) and by the label-safety check (does a lighting move follow a
+lighting shortcut?). Scores are cross-validated balanced accuracies [1]_ of a
+logistic regression on the factor's columns; `audit_shortcuts` turns them into
+the rows of the ``shortcuts`` list of ``coverage --json`` under
+`SHORTCUT_RULE`, and `shortcut_messages` into the sentences beside them.
+
+References
+----------
+.. [1] K. H. Brodersen, C. S. Ong, K. E. Stephan and J. M. Buhmann, "The
+   balanced accuracy and its posterior distribution", ICPR 2010.
+"""
+
+import warnings
+
+import numpy as np
+
+from augplan.measure.factors import FACTORS
+from augplan.results import json_number
+from augplan.thresholds import CHANCE_GAP_SHARE, MAX_FOLDS, ONE_VS_REST_THRESHOLD, beyond_chance
+
+__all__ = [
+    "ALL_FACTORS",
+    "SHORTCUT_RULE",
+    "shortcut_threshold",
+    "shortcut_scores",
+    "shortcut_score",
+    "factor_columns",
+    "audit_shortcuts",
+    "shortcut_messages",
+]
+
+ALL_FACTORS = "all factors"
+
+SHORTCUT_RULE = (
+    "A factor is flagged as a shortcut when its cross-validated balanced accuracy "
+    f"on the original training set reaches chance + {CHANCE_GAP_SHARE:g} x (1 - chance), "
+    f"{'halfway' if CHANCE_GAP_SHARE == 0.5 else f'{CHANCE_GAP_SHARE:.0%} of the way'} from "
+    f"chance to perfect ({beyond_chance(0.5):g} for two classes), or, with more than two classes, when "
+    "it tells one class from the rest with a one-vs-rest balanced accuracy of at "
+    f"least {ONE_VS_REST_THRESHOLD:g}; it persists when the augmented training set still meets the same "
+    "test, and the validation split shares it when val meets it. When a labelled "
+    "field sample also meets the test, the factor is a cue that defines the class "
+    "there and is not flagged. The all-factors "
+    "row is for information only and never flagged: classes may differ in colour "
+    "or shape legitimately."
+)
+
+
+def shortcut_threshold(n_classes):
+    """Balanced accuracy at which a factor counts as a shortcut (see SHORTCUT_RULE)."""
+    return beyond_chance(1.0 / n_classes)
+
+
+def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
+    """Cross-validated balanced accuracy of predicting ``labels`` from ``features``.
+
+    Parameters
+    ----------
+    features : array_like, shape (N, D)
+    labels : sequence of str, length N
+    groups : array_like of int, optional
+        Source image of each row; rows of one group stay in one fold, so an
+        augmented copy is never scored by a model fitted on its original.
+    seed : int
+        Seed of the fold shuffle.
+    folds : int
+        At most this many folds; fewer when the smallest class is smaller.
+
+    Returns
+    -------
+    (float or None, dict of str -> float)
+        The balanced accuracy [1]_ of out-of-fold predictions of a logistic
+        regression (L2, C=1) on standardised features, and per class the
+        balanced accuracy of "this class or not" read from the same
+        predictions (one-vs-rest). ``(None, {})`` when there are fewer than
+        two classes or fewer than two images in the smallest class.
+
+    References
+    ----------
+    .. [1] K. H. Brodersen et al., "The balanced accuracy and its posterior
+       distribution", ICPR 2010.
+    """
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.metrics import balanced_accuracy_score
+    from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold, cross_val_predict
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    features = np.asarray(features, dtype=np.float64)
+    labels = np.asarray(labels)
+    names, counts = np.unique(labels, return_counts=True)
+    if names.size < 2:
+        return None, {}
+    if groups is not None:
+        # A class's smallest number of distinct source images bounds the folds.
+        smallest = min(np.unique(np.asarray(groups)[labels == name]).size for name in names)
+    else:
+        smallest = int(counts.min())
+    n_splits = min(folds, smallest)
+    if n_splits < 2:
+        return None, {}
+    if groups is None:
+        splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=seed)
+    else:
+        splitter = StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
+    # Newton steps converge in a handful of iterations on a few columns,
+    # where quasi-Newton solvers spend hundreds of cheap ones.
+    model = make_pipeline(StandardScaler(), LogisticRegression(solver="newton-cholesky", max_iter=200))
+    with warnings.catch_warnings():
+        # Perfectly separated classes stop the solver at max_iter; the
+        # predictions are still the separating ones.
+        warnings.simplefilter("ignore")
+        predicted = cross_val_predict(model, features, labels, cv=splitter, groups=groups)
+    overall = float(balanced_accuracy_score(labels, predicted))
+    per_class = {str(name): float(balanced_accuracy_score(labels == name, predicted == name))
+                 for name in names}
+    return overall, per_class
+
+
+def shortcut_score(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
+    """The overall score of `shortcut_scores` (a float, or None when it cannot be scored)."""
+    return shortcut_scores(features, labels, groups=groups, seed=seed, folds=folds)[0]
+
+
+def factor_columns(values, names):
+    """Columns of the named factors for a classifier: linear as they are, angles as (cos, sin)."""
+    return _factor_columns(values, names)
+
+
+def _factor_columns(values, names):
+    # Linear factors as they are; angles as (cos, sin) so that 359 and 1
+    # degrees are neighbours. An undefined angle (grey image, flat image)
+    # sits at the origin: no direction.
+    columns = []
+    for name in names:
+        factor = FACTORS[name]
+        v = np.asarray(values[name], dtype=np.float64)
+        if factor.circular:
+            theta = v * (2.0 * np.pi / factor.period)
+            defined = np.isfinite(theta)
+            columns.append(np.where(defined, np.cos(np.where(defined, theta, 0.0)), 0.0))
+            columns.append(np.where(defined, np.sin(np.where(defined, theta, 0.0)), 0.0))
+        else:
+            columns.append(np.nan_to_num(v, nan=0.0))
+    return np.stack(columns, axis=1)
+
+
+def _one_vs_rest_driver(by_class, n_classes):
+    """The class one factor singles out from all the others, if any (more than two classes)."""
+    # With more than two classes a factor can single out one class while the
+    # overall score stays low: the one-vs-rest scores catch that.
+    if n_classes <= 2 or not by_class.get("original"):
+        return None
+    best = max(by_class["original"], key=lambda c: (by_class["original"][c], c))
+    return best if by_class["original"][best] >= ONE_VS_REST_THRESHOLD else None
+
+
+def _meets(row, by_class, driver, set_name, threshold):
+    if row.get(set_name) is None:
+        return False
+    if row[set_name] >= threshold:
+        return True
+    score = by_class.get(set_name, {}).get(driver) if driver else None
+    return score is not None and score >= ONE_VS_REST_THRESHOLD
+
+
+def _audit_row(name, chosen, sets, n_classes, seed):
+    threshold = shortcut_threshold(max(n_classes, 1))
+    row, by_class = {"factor": name}, {}
+    for set_name in ("original", "augmented", "val", "field"):
+        if set_name not in sets:
+            row[set_name] = None
+            continue
+        values, labels, set_groups = sets[set_name]
+        overall, per_class = shortcut_scores(factor_columns(values, chosen), labels, groups=set_groups, seed=seed)
+        row[set_name] = json_number(overall)
+        by_class[set_name] = {c: json_number(v) for c, v in per_class.items()}
+    row["chance"] = json_number(1.0 / max(n_classes, 1))
+    combined = name == ALL_FACTORS
+    driver = _one_vs_rest_driver(by_class, n_classes)
+
+    def meets(set_name):
+        return _meets(row, by_class, driver, set_name, threshold)
+
+    flagged = not combined and (meets("original") or driver is not None)
+    # A labelled field sample is the one witness that can tell a shortcut
+    # from the cue that defines the class: a cue still carries the class
+    # where the model will be deployed, a shortcut does not.
+    row["field_confirms"] = bool(flagged and meets("field"))
+    flagged = flagged and not row["field_confirms"]
+    row["flagged"] = bool(flagged)
+    row["persists"] = bool(flagged and meets("augmented"))
+    row["val_shares"] = bool(flagged and meets("val"))
+    row["class"] = driver if (flagged or row["field_confirms"]) else None
+    row["by_class"] = by_class
+    row["combined"] = combined
+    return row
+
+
+def audit_shortcuts(sets, n_classes, *, seed=0):
+    """One audit row per factor (and one for all factors together), as in ``coverage --json``.
+
+    Parameters
+    ----------
+    sets : dict
+        ``{"original" | "augmented" | "val" | "field": (values, labels, groups)}``
+        where ``values`` maps each factor name to its per-image values and
+        ``groups`` is None or the source image of each row. A set left out
+        scores None.
+    n_classes : int
+        Number of training classes (chance is ``1 / n_classes``).
+    seed : int, default 0
+        Seed of the fold shuffles.
+
+    Returns
+    -------
+    list of dict
+        Rows with ``factor``, the four scores, ``chance``, ``field_confirms``,
+        ``flagged``, ``persists``, ``val_shares``, ``class``, ``by_class`` and
+        ``combined``, following `SHORTCUT_RULE`.
+    """
+    names = list(FACTORS)
+    return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed)
+            for name in names + [ALL_FACTORS]]
+
+
+def _score_text(row, set_name):
+    if row["class"] is not None and row["by_class"].get(set_name, {}).get(row["class"]) is not None:
+        return f"{row['by_class'][set_name][row['class']]:.2f} for {row['class']} vs the rest"
+    return f"{row[set_name]:.2f}"
+
+
+def _flagged_message(row, chance, threshold):
+    what = (f"singles out {row['class']}" if row["class"] is not None and row["original"] < threshold
+            else "predicts the class")
+    text = (f"{row['factor']} {what} in the original training set (balanced accuracy "
+            f"{_score_text(row, 'original')}; chance {chance:.2f}): a shortcut unless it is "
+            f"the cue that defines the classes.")
+    if row["persists"]:
+        text += (f" After augmentation it still does ({_score_text(row, 'augmented')}): the "
+                 f"recipe does not break the link.")
+    elif row["augmented"] is not None:
+        text += (f" After augmentation it falls to {_score_text(row, 'augmented')}: the recipe "
+                 f"breaks the link.")
+    return text
+
+
+def shortcut_messages(rows, n_classes):
+    """The sentences that explain audit rows (confirmed cues, shortcuts, what val can show).
+
+    Parameters
+    ----------
+    rows : list of dict
+        From `audit_shortcuts`.
+    n_classes : int
+
+    Returns
+    -------
+    list of str
+    """
+    chance = 1.0 / max(n_classes, 1)
+    threshold = shortcut_threshold(max(n_classes, 1))
+    messages = []
+    for row in rows:
+        if row["field_confirms"]:
+            messages.append(
+                f"{row['factor']} carries the class in the training set and also in the labelled "
+                f"field sample ({_score_text(row, 'field')}): it behaves as a cue that defines the "
+                f"class, not a shortcut, so it is not flagged.")
+    flagged_rows = [r for r in rows if r["flagged"]]
+    for row in flagged_rows:
+        messages.append(_flagged_message(row, chance, threshold))
+        if row["field"] is not None:
+            in_field = row["field"] >= threshold or (
+                row["class"] is not None
+                and (row["by_class"].get("field", {}).get(row["class"]) or 0) >= ONE_VS_REST_THRESHOLD)
+            if not in_field:
+                messages.append(f"In the labelled field sample {row['factor']} does not carry the "
+                                f"class ({_score_text(row, 'field')}): a model leaning on it will "
+                                f"fail there.")
+    val_shares = [r["factor"] for r in flagged_rows if r["val_shares"]]
+    if val_shares:
+        messages.append(
+            f"The validation split carries the same shortcut ({', '.join(val_shares)}): a "
+            f"validation score cannot reveal it; only field data or a recipe that breaks the "
+            f"link can.")
+    return messages

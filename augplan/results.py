@@ -1,0 +1,237 @@
+"""Typed results of every command that reports: one frozen dataclass each.
+
+Each result's fields are the top-level keys of the command's ``--json``
+document, in that order; `to_json` gives the document itself (nested parts are
+already plain JSON values: lists, dicts, strings, numbers, None). The schema of
+each document ships beside this module (``augplan/schemas/<command>.schema.json``,
+see `schema_path`) and the test suite validates every command's output
+against it. ``flagged`` is the rule behind exit code 1 ("done, something was
+flagged"), so the command line reads no document keys of its own.
+
+A result is also the dict of its document (``result["transforms"]``,
+``json.dumps(result)``), so code that consumes documents works on results
+unchanged. Keys a result type does not know yet are kept, in order, in
+``extra``, so a new key added by an analysis reaches the JSON before the type
+lists it as a field.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+__all__ = [
+    "CheckResult",
+    "CoverageResult",
+    "EvaluateResult",
+    "VetResult",
+    "VerifyResult",
+    "HistoryResult",
+    "RESULT_TYPES",
+    "schema_path",
+    "json_number",
+]
+
+SCHEMA_DIR = Path(__file__).with_name("schemas")
+
+
+
+class _Absent:
+    """Marks an optional key that is absent from the document (None is a value)."""
+
+    def __repr__(self):
+        return "<absent>"
+
+
+_ABSENT = _Absent()
+
+
+def _optional():
+    return field(default=_ABSENT)
+
+
+@dataclass(frozen=True, eq=False)
+class _Result(dict):
+    """Base of the result types: typed fields, the JSON document, ``flagged``.
+
+    A result is also the `dict` of its own JSON document (filled once, when
+    it is made), so ``json.dumps(result)`` and ``result["transforms"]`` work
+    as on the documents the analyses returned before they were typed; two
+    results are equal when their documents are.
+    """
+
+    extra: Mapping = field(default_factory=dict, kw_only=True)
+
+    def __post_init__(self):
+        dict.update(self, self.to_json())
+
+    @classmethod
+    def from_json(cls, document):
+        """Build the result from its JSON document (unknown keys go to ``extra``)."""
+        names = {f.name for f in dataclasses.fields(cls) if f.name != "extra" and f.metadata.get("json", True)}
+        known = {key: value for key, value in document.items() if key in names}
+        extra = {key: value for key, value in document.items() if key not in names}
+        return cls(**known, extra=extra)
+
+    def to_json(self) -> dict[str, Any]:
+        """The command's ``--json`` document: today's keys, in their order."""
+        document = {}
+        for f in dataclasses.fields(self):
+            if f.name == "extra" or not f.metadata.get("json", True):
+                continue
+            value = getattr(self, f.name)
+            if value is not _ABSENT:
+                document[f.name] = value
+        document.update(self.extra)
+        return document
+
+    @property
+    def flagged(self) -> bool:
+        """True when the command exits 1: done, and something was flagged."""
+        return False
+
+
+@dataclass(frozen=True, eq=False)
+class CheckResult(_Result):
+    """``augplan check``: label safety of each transform of one recipe."""
+
+    recipe: str
+    model: Mapping
+    baseline: Mapping
+    transforms: list
+    warnings: list
+    decision_rule: str
+    n_images: int
+    leaks: list = _optional()
+
+    @property
+    def flagged(self):
+        """Some transform is not safe (it breaks or is unverified)."""
+        return any(transform["verdict"] != "safe" for transform in self.transforms)
+
+
+@dataclass(frozen=True, eq=False)
+class CoverageResult(_Result):
+    """``augplan coverage``: widening, field coverage, shortcut audit, suggestions.
+
+    ``samples`` (not part of the JSON) holds the factor values behind the
+    summaries, ``{"original", "augmented", "field"}`` -> ``{factor: array}``,
+    for the rendering layer's plots.
+    """
+
+    recipe: str
+    copies: int
+    size: int
+    n_images: Mapping
+    field_labelled: bool
+    factors: Mapping
+    field_coverage: Any
+    shortcuts: list
+    shortcut_rule: str
+    val_shares_shortcut: list
+    messages: list
+    suggestions: list
+    plots: list = _optional()
+    samples: Any = field(default=None, compare=False, repr=False, metadata={"json": False})
+
+    @property
+    def flagged(self):
+        """A shortcut is flagged and persists after augmentation."""
+        return any(row["flagged"] and row["persists"] for row in self.shortcuts)
+
+
+@dataclass(frozen=True, eq=False)
+class EvaluateResult(_Result):
+    """``augplan evaluate``: each recipe scored against no augmentation."""
+
+    baseline: Mapping
+    recipes: list
+    scored_on: str
+    accuracy_interval: str
+    augmented_validation_images: int
+    repeats: int
+    seed: int
+    confirm: Any
+    field: Any
+    warnings: list
+    from_ledger: bool
+    reused_from_ledger: list = _optional()
+    leaks: list = _optional()
+
+    @property
+    def flagged(self):
+        """Some recipe is flagged (its gain interval lies below zero)."""
+        return any(row["flagged"] for row in self.recipes)
+
+
+@dataclass(frozen=True, eq=False)
+class VetResult(_Result):
+    """``augplan vet`` and ``augplan demo``: where the report and vetted recipe went."""
+
+    verdict: str
+    report: str
+    vetted_recipe: str
+    evidence: str
+    unchanged: bool
+    best: str
+    changes: list = _optional()
+    signoff: list = _optional()
+
+    @property
+    def flagged(self):
+        """Vetting had to change some recipe."""
+        return not self.unchanged
+
+
+@dataclass(frozen=True, eq=False)
+class VerifyResult(_Result):
+    """``augplan verify``: format, checksum and data fingerprint of a vetted recipe."""
+
+    path: str
+    ok: bool
+    format_ok: bool
+    checksum_ok: bool
+    fingerprint_match: Any
+    messages: list
+
+    @property
+    def flagged(self):
+        """The file is not as vetted (or not on the same data)."""
+        return not self.ok
+
+
+@dataclass(frozen=True, eq=False)
+class HistoryResult(_Result):
+    """``augplan history``: past comparisons in the results ledger (never flagged)."""
+
+    ledger: str
+    evaluations: list
+
+
+RESULT_TYPES = {"check": CheckResult, "coverage": CoverageResult, "evaluate": EvaluateResult,
+                "vet": VetResult, "verify": VerifyResult, "history": HistoryResult}
+
+
+def schema_path(command):
+    """Path of the JSON Schema of ``augplan COMMAND --json`` shipped with the package."""
+    if command not in RESULT_TYPES:
+        raise ValueError(f"no JSON document for command {command!r}; expected one of {', '.join(RESULT_TYPES)}")
+    return SCHEMA_DIR / f"{command}.schema.json"
+
+
+def json_number(x, digits=6):
+    """A float for a JSON document: ``digits`` significant digits; None for None, NaN or infinity.
+
+    Six digits keep documents short and byte-stable across platforms while
+    staying far finer than any interval the analyses report.
+    """
+    if x is None:
+        return None
+    x = float(x)
+    if not math.isfinite(x):
+        return None
+    return float(f"{x:.{digits}g}")

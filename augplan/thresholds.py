@@ -1,0 +1,106 @@
+"""Every named threshold behind a verdict, each with where it comes from.
+
+One home for the numbers that turn measurements into words ("weak", "breaks",
+"shortcut", "duplicate"), so the rule texts printed in reports are written from
+the same constants the code compares against. A value without a published
+source says "common practice, no source".
+"""
+
+__all__ = [
+    "CHANCE_GAP_SHARE",
+    "CONFIDENCE",
+    "beyond_chance",
+    "REGION_NEIGHBOURS",
+    "REGION_PERCENTILE",
+    "BREAK_MARGIN",
+    "PCA_VARIANCE_KEPT",
+    "MIN_IMAGES_PER_CLASS",
+    "ONE_VS_REST_THRESHOLD",
+    "COVERAGE_NEIGHBOURS",
+    "COVERAGE_FLOOR",
+    "NEAR_DUPLICATE_BITS",
+    "NEAR_DUPLICATE_SSIM",
+    "MANY_RECIPES_WARNING_LIMIT",
+    "MAX_FOLDS",
+]
+
+# Confidence of every interval reported (Wilson, gain intervals): the usual 95 %
+# (common practice, no source).
+CONFIDENCE = 0.95
+
+# A score counts as clearly above chance when it closes at least this share of
+# the gap from chance to perfect: 0.75 for two balanced classes, 0.55 for ten
+# (common practice, no source). Used by the feature model's "weak" check and by
+# the shortcut audit's flag.
+CHANCE_GAP_SHARE = 0.5
+
+# Cross-validation folds: at most this many, fewer when the smallest class is
+# smaller (common practice, no source; scikit-learn's default is also 5).
+MAX_FOLDS = 5
+
+
+def beyond_chance(chance, share=CHANCE_GAP_SHARE):
+    """The score that closes ``share`` of the gap from ``chance`` to 1.
+
+    Parameters
+    ----------
+    chance : float
+        The score of guessing (for example 1 / n_classes, or the majority share).
+    share : float, default `CHANCE_GAP_SHARE`
+
+    Returns
+    -------
+    float
+        ``chance + share * (1 - chance)``.
+    """
+    return chance + share * (1.0 - chance)
+
+
+# --- label-safety check (augplan check)
+# Neighbours averaged for the distance to a class (Cover & Hart's k-NN idea;
+# the 5 is common practice, no source).
+REGION_NEIGHBOURS = 5
+# Percentile of held-out own-class distances that bounds a class's region
+# (common practice, no source).
+REGION_PERCENTILE = 95.0
+# Excess over the held-out baseline that a rate's lower bound must pass
+# (common practice, no source: a 10-point margin ignores small leaks).
+BREAK_MARGIN = 0.10
+# Share of feature variance the checker's PCA keeps (common practice, no source).
+PCA_VARIANCE_KEPT = 0.95
+# Fewest training images a class needs for the check's leave-one-out regions
+# (common practice, no source).
+MIN_IMAGES_PER_CLASS = 3
+
+# --- shortcut audit (augplan coverage, augplan check)
+# With more than two classes, a factor that tells one class from all the
+# others this well is flagged even when the overall score is low; stricter
+# than the two-class 0.75 because every class gets a try (common practice,
+# no source).
+ONE_VS_REST_THRESHOLD = 0.9
+
+# --- coverage of a field sample (Naeem et al. 2020, "Reliable fidelity and
+# diversity metrics for generative models", ICML; k = 5 is the paper's choice)
+COVERAGE_NEIGHBOURS = 5
+# Share of field images inside the augmented range below which coverage is
+# reported as short (common practice, no source).
+COVERAGE_FLOOR = 0.9
+
+# --- near duplicates (augplan.data)
+# Hamming distance (of 64 bits) at or below which two perceptual hashes are
+# called near duplicates. Common practice, no source; the tests check that a
+# JPEG-recompressed, noised copy lands well below it and an unrelated sample
+# image well above it.
+NEAR_DUPLICATE_BITS = 6
+# A perceptual-hash match is only a candidate: drawn or templated images
+# (a conveyor of near-identical parts) share low-frequency structure, so a
+# candidate pair is confirmed when the structural similarity (Wang et al.
+# 2004) of their 64 x 64 relative luminance reaches this value (common
+# practice, no source; a noised JPEG copy of skimage's camera scores 0.997,
+# distinct drawn tiles of the demo at most 0.87).
+NEAR_DUPLICATE_SSIM = 0.9
+
+# --- evaluation
+# More recipes than this compared on validation alone draws a warning that
+# choosing the best overfits validation (common practice, no source).
+MANY_RECIPES_WARNING_LIMIT = 3
