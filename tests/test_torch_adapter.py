@@ -44,13 +44,15 @@ class _Tiles(torch.utils.data.Dataset):
         return self.transform(self.images[index], self.labels[index])
 
 
+# Workers start from a fresh server process: a worker forked from a process
+# whose OpenCV thread pool already ran (as earlier tests' did) can hang.
 def _epoch(seed, epoch=0, workers=2):
     to_tensor = TensorAugmenter(Augmenter(parse_recipe(RECIPE), classes=CLASSES), seed=seed)
     to_tensor.set_epoch(epoch)
     loader = torch.utils.data.DataLoader(
         _Tiles(to_tensor), batch_size=4, shuffle=True, num_workers=workers,
         worker_init_fn=to_tensor.worker_init_fn, generator=torch.Generator().manual_seed(0),
-        multiprocessing_context="fork")
+        multiprocessing_context="forkserver")
     return [(images.clone(), labels.clone()) for images, labels in loader]
 
 
