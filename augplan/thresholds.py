@@ -15,6 +15,12 @@ __all__ = [
     "BREAK_MARGIN",
     "PCA_VARIANCE_KEPT",
     "MIN_IMAGES_PER_CLASS",
+    "SCREEN_MARGIN",
+    "MIN_EVIDENCE",
+    "PAIR_MARGIN",
+    "EQUIVALENCE_MARGIN",
+    "CONFIRM_CONFIDENCE",
+    "TURN_DEGREES",
     "ONE_VS_REST_THRESHOLD",
     "COVERAGE_NEIGHBOURS",
     "COVERAGE_FLOOR",
@@ -71,6 +77,28 @@ PCA_VARIANCE_KEPT = 0.95
 # Fewest training images a class needs for the check's leave-one-out regions
 # (common practice, no source).
 MIN_IMAGES_PER_CLASS = 3
+# The screen clears a transform when the upper bounds of its moved and
+# outside shares stay within this of the held-out originals' shares (common
+# practice, no source).
+SCREEN_MARGIN = 0.10
+# Fewest images of a class for any verdict about it (common practice, no
+# source: below ten one image moves a share by more than a margin).
+MIN_EVIDENCE = 10
+# Rise of one confusion A -> B on originals that counts as a label change
+# (common practice, no source: ten points of one class is what a user notices
+# in a confusion matrix).
+PAIR_MARGIN = 0.10
+# Safe: the upper bounds of every class's recall fall and every confusion rise
+# stay below this (an equivalence margin; common practice, no source: a small
+# linear proxy loses a few points to any widening it cannot represent).
+EQUIVALENCE_MARGIN = 0.15
+# Two-sided level of the confirmation's intervals: each bound a one-sided 95%
+# bound, as in Schuirmann's two one-sided tests (J. Pharmacokinetics and
+# Biopharmaceutics 15(6), 1987).
+CONFIRM_CONFIDENCE = 0.90
+# A rotation by a fixed angle at least this large is a turn, which may swap
+# classes as a whole (common practice, no source).
+TURN_DEGREES = 45.0
 
 # --- shortcut audit (augplan coverage, augplan check)
 # With more than two classes, a factor that tells one class from all the

@@ -83,21 +83,27 @@ def main():
         start = time.perf_counter()
         decoded = load_images(train, size=args.size)
         read = time.perf_counter() - start
-        start = time.perf_counter()
-        drawn, _ = augment_batch(decoded, RECIPE, rng.spawn(len(decoded)), [r.label for r in train], args.draws)
-        draw = time.perf_counter() - start
-        start = time.perf_counter()
-        measure_factors(decoded)
-        measure_factors(drawn)
-        measure = time.perf_counter() - start
-        del drawn
+        draw = measure = 0.0
+        generators = rng.spawn(len(decoded))
+        for first in range(0, len(decoded), 250):  # in chunks, as the workers do, to bound memory
+            part = slice(first, first + 250)
+            start = time.perf_counter()
+            drawn, _ = augment_batch(decoded[part], RECIPE, generators[part], [r.label for r in train[part]],
+                                     args.draws)
+            draw += time.perf_counter() - start
+            start = time.perf_counter()
+            measure_factors(decoded[part])
+            measure_factors(drawn)
+            measure += time.perf_counter() - start
+            del drawn
         print(f"  read and decode     {read:6.2f} s")
         print(f"  augment ({RECIPE.name})   {draw:6.2f} s  ({len(train) * args.draws / draw:,.0f} draws/s)")
         print(f"  measure factors     {measure:6.2f} s  ({len(train) * (1 + args.draws) / measure:,.0f} images/s)")
         print("per factor, one process:")
         for name, factor in FACTORS.items():
             start = time.perf_counter()
-            factor.function(images)
+            for first in range(0, len(images), 250):  # chunks bound the float temporaries
+                factor.function(images[first:first + 250])
             elapsed = time.perf_counter() - start
             print(f"  {name:14s} {args.n / elapsed:9.0f} images/s")
 

@@ -279,13 +279,13 @@ def test_transform_table_has_one_row_per_transform(tmp_path):
     table = page.table_with("safe limit")
     header, rows = table[0], table[1:]
     assert len(rows) == 2
-    column = {name: header.index(name) for name in ("verdict", "main swaps", "safe limit", "what vetting did")}
+    column = {name: header.index(name) for name in ("verdict", "confirmed swaps", "safe limit", "what vetting did")}
     assert "breaks" in rows[0][column["verdict"]] and "safe" in rows[1][column["verdict"]]
     assert rows[0][1].startswith("flip") and "axis=horizontal" in rows[0][1]
     # 0.81 with interval [0.74, 0.86] as percentages.
     moved = next(i for i, name in enumerate(header) if name.startswith("moved"))
     assert rows[0][moved] == "81% (74\u201386%)"
-    assert "chip-left \u2192 chip-right 93%" in rows[0][column["main swaps"]]
+    assert "chip-left \u2192 chip-right 93%" in rows[0][column["confirmed swaps"]]
     assert rows[1][column["safe limit"]] == "-10 to 10"
     assert rows[0][column["what vetting did"]].startswith("relabel")
     assert "keep" in rows[1][column["what vetting did"]]

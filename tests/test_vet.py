@@ -131,18 +131,44 @@ def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
     assert sentence.startswith(start) and "augplan changed draft" in sentence
 
 
-def test_a_rewrite_that_still_breaks_after_the_recheck_is_removed():
+_ORIGINAL = ("name: o\ntransforms:\n  - op: hue\n    degrees: [-90, 90]\n  - op: rotate\n"
+             "    degrees: [-30, 30]\n  - op: rotate\n    degrees: [-5, 5]\n")
+_REWRITTEN = ("name: v\ntransforms:\n  - op: rotate\n    degrees: [-30, 30]\n    only: [a]\n"
+              "  - op: rotate\n    degrees: [-5, 5]\n")
+
+
+def _rewrite_case(limit):
     from augplan.recipe.parse import parse_recipe
+
+    changes = [{"index": 0, "op": "hue", "action": "remove", "detail": "removed: breaks", "verdict": "breaks"},
+               {"index": 1, "op": "rotate", "action": "scope", "detail": "applied only to a",
+                "verdict": "breaks"},
+               {"index": 2, "op": "rotate", "action": "keep", "detail": "", "verdict": "safe"}]
+    check = {"transforms": [{"index": 0, "verdict": "breaks", "safe_limit": None},
+                            {"index": 1, "verdict": "breaks", "safe_limit": limit},
+                            {"index": 2, "verdict": "safe", "safe_limit": [-5.0, 5.0]}]}
+    rechecked = {"transforms": [{"index": 0, "verdict": "breaks"}, {"index": 1, "verdict": "safe"}]}
+    return parse_recipe(_REWRITTEN), changes, rechecked, parse_recipe(_ORIGINAL), check
+
+
+def test_a_rewrite_that_still_breaks_and_has_no_safe_limit_is_removed():
     from augplan.vet.job import _drop_unsafe_rewrites
 
-    vetted = parse_recipe("name: v\ntransforms:\n  - op: flip\n  - op: rotate\n    degrees: [-5, 5]\n")
-    changes = [{"index": 0, "op": "hue", "action": "remove", "detail": "removed: breaks", "verdict": "breaks"},
-               {"index": 1, "op": "flip", "action": "relabel", "detail": "label follows", "verdict": "breaks"},
-               {"index": 2, "op": "rotate", "action": "keep", "detail": "", "verdict": "safe"}]
-    rechecked = {"transforms": [{"index": 0, "verdict": "breaks"}, {"index": 1, "verdict": "safe"}]}
-    result = _drop_unsafe_rewrites(vetted, changes, rechecked)
-    assert [step.op for step in result.transforms] == ["rotate"]
+    vetted, changes, rechecked, recipe, check = _rewrite_case(None)
+    result = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
+    assert [step.params for step in result.transforms] == [{"degrees": (-5.0, 5.0)}]
     assert changes[1]["action"] == "remove" and "still breaks" in changes[1]["detail"]
+
+
+def test_a_rejected_rewrite_falls_back_to_the_safe_limit():
+    # Issue: vet removed a transform it could clip when the re-check rejected its rewrite.
+    from augplan.vet.job import _drop_unsafe_rewrites
+
+    vetted, changes, rechecked, recipe, check = _rewrite_case([-10.0, 10.0])
+    result = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
+    assert [step.params["degrees"] for step in result.transforms] == [(-10.0, 10.0), (-5.0, 5.0)]
+    assert result.transforms[0].only is None  # the original step, clipped; not the rejected scope
+    assert changes[1]["action"] == "clip" and "safe limit" in changes[1]["detail"]
 
 
 def test_vet_json_carries_the_changes_and_the_signoff_list(vetted):

@@ -1,56 +1,55 @@
-"""Label safety: does a transform keep each image in its class?
+"""Label safety: would training with a transform teach wrong labels?
 
-Counting how often a classifier's prediction changes on transformed images
-does not measure label safety: a small model that never saw rotated images
-changes its mind on many of them even where the class is untouched. This
-checker uses the geometry of the original images instead. Every class owns a
-*region* of feature space, learned from how far its own held-out originals
-lie from their class, and a transformed image is judged by where it lands:
-in its own region (kept), inside another class's region (moved), or outside
-every region (left: nothing in the data can judge it, a person must look).
+A transform breaks labels when training with it makes the model confuse
+classes on original images. The checker decides in two stages.
 
-Method
+Screen
 ------
-1. The feature model is fitted on original training images only; its
-   cross-validated accuracy is reported and a warning is raised when it is
-   too weak to judge.
-2. Features are standardised and reduced by PCA to keep 95% of the variance.
-   For an image ``x`` and a class ``c``, ``d_c(x)`` is the mean Euclidean
-   distance from ``x`` to its ``k = 5`` nearest originals of ``c`` (fewer
-   when the class is small), never counting ``x``'s own source original.
-3. Typicality thresholds are learned on held-out originals, leave-one-out
-   (k-fold with one image per fold): ``t_c`` is the 95th percentile of
-   ``d_c`` over the originals of ``c``. The ratio ``r_c = d_c / t_c`` is at
-   most 1 inside class ``c``'s region.
-4. A class change needs two witnesses: an image of expected class ``A``
-   *moves* to ``B != A`` only when the classifier's most probable class is
-   ``B`` and ``B``'s region holds it (``r_B <= 1``). Otherwise it is *kept*
-   when some region holds it and either the classifier still picks ``A`` or
-   ``A``'s region holds it; else it is *outside*. A broad class whose region
-   overlaps others therefore cannot swallow images the classifier places
-   elsewhere, and a classifier that changes its mind on an image no region
-   confirms cannot call it moved. The held-out originals themselves (the
-   identity transform) give each class's baseline rates of moving and of
-   landing outside.
-5. Each transform runs with probability 1 on every sampled original of each
-   class in its scope, at each value of `augplan.transforms.magnitude_grid`
-   (a flip once). The expected class is ``relabel.get(A, A)``.
+1. The proxy feature model is fitted on stratified cross-validation folds of
+   the original training images; every image gets the prediction of the
+   fold model that did not see it (out-of-fold, never in-sample).
+2. Every class owns a *region* of feature space (standardised features, PCA
+   to 95% of the variance): ``d_c(x)`` is the mean distance from ``x`` to its
+   ``k = 5`` nearest originals of ``c``, never counting ``x``'s own source,
+   and ``t_c`` the 95th percentile of ``d_c`` over ``c``'s held-out
+   originals; ``r_c = d_c / t_c`` is at most 1 inside the region.
+3. Each transform runs with probability 1 on every image in its scope at
+   each value of `augplan.augment.transforms.magnitude_grid` (a flip once). A
+   transformed image *moves* to ``B`` when its out-of-fold prediction is
+   ``B`` and ``B``'s region holds it; it is *outside* when no region vouches
+   for its expected class (`locate`).
+4. The image is the unit and each magnitude is judged on its own (each
+   image counted once per magnitude, never pooled across magnitudes). The
+   screen clears a transform when, at every magnitude, every class in its
+   scope has at least ``MIN_EVIDENCE`` images and the upper Wilson 95%
+   bounds of its moved and outside shares stay within ``MARGIN`` of the
+   same shares for its held-out originals. A cleared transform is *safe*,
+   decided by the screen.
 
-Decision rule
--------------
-A class *breaks* when the Wilson 95% lower bound of the share of its
-transformed images that move to another class (step 4) exceeds that class's
-held-out baseline by more than 0.10; otherwise it is *unverified* when the
-Wilson 95% lower bound of the share that lands outside exceeds its baseline
-by more than 0.10; otherwise it is *safe*. When the feature model is weak
-(not clearly better than chance) nothing is called safe: safe becomes
-unverified. A transform takes the worst verdict of its classes (breaks >
-unverified > safe), the rule applied both to the rates pooled over the
-magnitude grid and at each grid value (a range that breaks labels at one end
-breaks them in that share of draws). The safe
-limit applies the same rule at each grid value separately (worst class at
-that value) and reports the widest run of consecutive safe grid values
-around the identity magnitude (or the grid value nearest to it).
+Confirmation
+------------
+Every transform the screen does not clear is confirmed by training. On the
+same folds with the same seed the proxy is trained on the originals, on the
+training images with those in scope *replaced* by their transformed copies
+(the transform with probability 1, one magnitude per image drawn from the
+grid across the range, labels after any ``relabel``), and on the originals
+*plus* those copies; each predicts the held-out *original* images of its
+fold. `augplan.check.confirm` compares them per image with sign-flip test
+intervals over images. A swap ``A -> B`` breaks when, for the replaced
+model, the confusion ``B -> A`` on originals rises beyond its margin, with
+its interval clear of zero and beyond the pair's own baseline confusion,
+*and* the screen saw A's transformed images land in B (two witnesses: a
+proxy that merely fails on a look it was never trained on cannot call a
+label changed). It is safe when, for the originals-plus-copies model, no
+class's recall falls and no confusion rises by as much as the equivalence
+margin (upper bounds); anything else is unverified. A class with fewer than
+``MIN_EVIDENCE`` images is "too few images to judge". When the feature
+model is weak nothing is called safe.
+
+The safe limit applies the confirmation rule to ranges nested around the
+identity magnitude (the grid values within one, two, ... steps of it) and
+reports the widest one that is safe; a transform that is safe over its whole
+range has that range as its limit.
 
 References
 ----------
@@ -58,6 +57,8 @@ References
    statistical inference", JASA 22(158), 209-212, 1927.
 .. [2] T. M. Cover and P. E. Hart, "Nearest neighbor pattern
    classification", IEEE Trans. Information Theory 13(1), 21-27, 1967.
+.. [3] M. D. Ernst, "Permutation methods: a basis for exact inference",
+   Statistical Science 19(4), 676-685, 2004.
 """
 
 from __future__ import annotations
@@ -65,6 +66,7 @@ from __future__ import annotations
 import functools
 import hashlib
 import math
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -72,9 +74,11 @@ from scipy.spatial.distance import cdist
 from sklearn.decomposition import PCA
 from sklearn.preprocessing import StandardScaler
 
+from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, RECALL_MARGIN, TOO_FEW, class_verdict,
+                             compare_predictions, pair_breaks)
 from augplan.errors import BadInputError
-from augplan.thresholds import (BREAK_MARGIN, CONFIDENCE, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
-                                REGION_PERCENTILE, beyond_chance)
+from augplan.thresholds import (MAX_FOLDS, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
+                                REGION_PERCENTILE, SCREEN_MARGIN, TURN_DEGREES)
 from augplan.parallel import parallel_map
 from augplan.results import CheckResult
 
@@ -83,31 +87,103 @@ __all__ = [
     "check_recipe",
     "class_distances",
     "locate",
-    "class_verdict",
-    "safe_limit",
+    "screen_clears",
+    "nested_ranges",
 ]
 
 # The numbers of the rule live in augplan.thresholds, with their sources.
 NEIGHBOURS = REGION_NEIGHBOURS
 TYPICAL_PERCENTILE = REGION_PERCENTILE
-MARGIN = BREAK_MARGIN
+MARGIN = SCREEN_MARGIN
 VARIANCE_KEPT = PCA_VARIANCE_KEPT
 MIN_PER_CLASS = MIN_IMAGES_PER_CLASS
+FOLDS = MAX_FOLDS
 EVIDENCE_IMAGES = 8
 OUTSIDE = -1
-_RANK = {"safe": 0, "unverified": 1, "breaks": 2}
+_RANK = {"safe": 0, TOO_FEW: 1, "unverified": 1, "breaks": 2}
+# Ops whose images can take another class's look as a whole (a mirror, a
+# turn of the image, a hue turn), so that a relabel can undo the swap.
+# Rotations, zooms and shifts only widen a class: never relabelled.
+SWAPPING_OPS = ("flip", "hue")
 
 DECISION_RULE = (
-    f"A class breaks when the Wilson {CONFIDENCE:.0%} lower bound of the share of its transformed "
-    "images that land in another class's region (and are classified as that class) exceeds "
-    f"its held-out baseline by more than {BREAK_MARGIN:.2f}, is unverified when the same holds for the "
-    "share that lands outside every "
-    "class's region, and is safe otherwise (unverified when the feature model is weak); the "
-    "rule is applied to the rates pooled over the magnitude range and at each magnitude of it, "
-    "and a transform takes its worst class verdict. A lighting move into a class that lighting "
-    "alone singles out in the training data, while structure also separates the classes, is "
-    "unverified (a possible shortcut) unless a labelled field sample confirms lighting as the cue."
+    "Two stages. Screen: with out-of-fold predictions of the proxy model, the transform is "
+    "cleared (safe) when at every magnitude every class in its scope has at least "
+    f"{MIN_EVIDENCE} images and the upper Wilson 95% bounds of the shares of its transformed "
+    "images that land in another class or outside every class stay within "
+    f"{MARGIN:.2f} of the same shares for its held-out originals. Confirmation, for every "
+    "transform the screen does not clear: the proxy is trained on the same folds without the "
+    "transform, with the images in scope replaced by transformed copies (probability 1, across "
+    "the range), and with the originals plus those copies, and each predicts the held-out "
+    "original images. A swap A -> B breaks when, for the replaced model, the confusion B -> A "
+    f"rises by more than {PAIR_MARGIN:.2f} with its sign-flip test interval over images above "
+    "zero and by more than "
+    "the pair's own baseline confusion (a label change is specific; a capacity loss is spread "
+    "over pairs the model already confuses), and the screen saw A's transformed images land in "
+    "B; it is safe when, for the originals-plus-copies model, the upper bound of every class's "
+    f"recall fall and of every confusion rise are below {RECALL_MARGIN:.2f} (an equivalence "
+    "test); otherwise it is unverified. Bounds are one-sided "
+    f"95% bounds. A class with fewer than {MIN_EVIDENCE} "
+    "images is too few images to judge, never breaks; nothing is safe when the proxy is weak. "
+    "A lighting move into a class that lighting alone singles out in the training data, while "
+    "structure also separates the classes, is unverified (a possible shortcut) unless a "
+    "labelled field sample confirms lighting as the cue."
 )
+
+
+# --------------------------------------------------------------------------
+# screen rule
+
+
+def screen_clears(moved, left, n, baseline_change, baseline_leave, margin=MARGIN):
+    """Whether the screen clears one class at one magnitude.
+
+    Parameters
+    ----------
+    moved, left, n : int
+        Transformed images (one per original) that moved to another class,
+        landed outside every region, and in total.
+    baseline_change, baseline_leave : float
+        The same shares for the class's held-out originals.
+    margin : float, default 0.10
+
+    Returns
+    -------
+    bool
+        True when ``n >= MIN_EVIDENCE`` and the upper Wilson 95% bounds of
+        both shares are at most their baseline plus ``margin``.
+    """
+    from augplan.measure.stats import wilson_interval
+
+    if n < MIN_EVIDENCE:
+        return False
+    return (wilson_interval(moved, n)[1] <= baseline_change + margin
+            and wilson_interval(left, n)[1] <= baseline_leave + margin)
+
+
+def nested_ranges(values, identity):
+    """Grid ranges nested around the identity magnitude, widest first.
+
+    Parameters
+    ----------
+    values : sequence of float
+        Ascending grid values (the identity included when the range holds it).
+    identity : float
+        Magnitude that leaves images unchanged (0 or 1).
+
+    Returns
+    -------
+    list of list of float
+        The grid values within ``w`` steps of the value nearest ``identity``
+        for ``w`` from the widest that still adds a value down to 1; the
+        first is the whole grid. Empty for a grid of one value.
+    """
+    values = list(values)
+    if len(values) < 2:
+        return []
+    start = int(np.argmin([abs(v - identity) for v in values]))
+    widest = max(start, len(values) - 1 - start)
+    return [values[max(0, start - w): start + w + 1] for w in range(widest, 0, -1)]
 
 
 # --------------------------------------------------------------------------
@@ -204,69 +280,6 @@ def locate(ratios, probabilities, expected):
     return np.where(agree, best, np.where(keeps, expected, OUTSIDE))
 
 
-def class_verdict(moved, left, n, baseline_change, baseline_leave, margin=MARGIN, *, weak=False):
-    """Verdict of one class from its counts (the module's decision rule).
-
-    Parameters
-    ----------
-    moved, left, n : int
-        Transformed images that landed in another class's region, outside
-        every region, and in total.
-    baseline_change, baseline_leave : float
-        The same shares for the class's held-out originals.
-    margin : float, default 0.10
-    weak : bool, default False
-        The feature model is too weak to vouch for anything: a class that
-        would be safe is unverified.
-
-    Returns
-    -------
-    str
-        ``"breaks"``, ``"unverified"`` or ``"safe"``.
-    """
-    from augplan.measure.stats import wilson_interval
-
-    if n == 0:
-        return "safe"
-    if wilson_interval(moved, n)[0] > baseline_change + margin:
-        return "breaks"
-    if wilson_interval(left, n)[0] > baseline_leave + margin or weak:
-        return "unverified"
-    return "safe"
-
-
-def safe_limit(values, verdicts, identity):
-    """Widest run of consecutive safe grid values around the identity magnitude.
-
-    Parameters
-    ----------
-    values : sequence of float
-        Ascending grid values.
-    verdicts : sequence of str
-        Verdict at each value.
-    identity : float
-        Magnitude that leaves images unchanged (0 or 1).
-
-    Returns
-    -------
-    list of float or None
-        ``[low, high]``, starting from the grid value nearest ``identity``;
-        None when that value is not safe or the grid is empty.
-    """
-    values = list(values)
-    if not values:
-        return None
-    start = int(np.argmin([abs(v - identity) for v in values]))
-    if verdicts[start] != "safe":
-        return None
-    low = high = start
-    while low > 0 and verdicts[low - 1] == "safe":
-        low -= 1
-    while high < len(values) - 1 and verdicts[high + 1] == "safe":
-        high += 1
-    return [float(values[low]), float(values[high])]
-
-
 class _Geometry:
     """Standardise + PCA projection with the reference points and thresholds."""
 
@@ -297,12 +310,6 @@ class _Geometry:
 # work units
 
 
-def _probabilities(model, features, classes):
-    proba = np.asarray(model.predict_proba_features(features), dtype=np.float64)
-    order = [list(model.classes_).index(name) for name in classes]
-    return proba[:, order]
-
-
 # The checked sample, decoded, in the process that last needed it: every
 # work unit of one check reads the same images, so a worker decodes them once
 # rather than once per unit. Keyed by the images' hashes and side, so another
@@ -330,43 +337,81 @@ def _decoded_sample(context):
     return images
 
 
-def _run_unit(context, unit):
+def _fit_fold(template, features, labels, folds, fold):
+    """The template model fitted on every fold but ``fold`` (labels only are read later)."""
+    from sklearn.base import clone
+
+    # Single precision: the checker reads predicted labels and the argmax of
+    # probabilities, which float32 solver products leave unchanged; the folds
+    # are the checker's own, so the model's cross-validation is not run.
+    model = clone(template).set_params(cross_validate=False, solver_dtype=np.float32)
+    train = folds != fold
+    return model.fit_features(features[train], labels[train])
+
+
+def _fit_fold_unit(context, fold):
+    return _fit_fold(context["template"], context["features"], context["labels"], context["folds"], fold)
+
+
+def _out_of_fold_proba(models, features, folds, n_classes):
+    """Each row's class probabilities from the fold model that did not see its source."""
+    proba = np.zeros((len(features), n_classes))
+    for fold, model in enumerate(models):
+        rows = np.flatnonzero(folds == fold)
+        if len(rows):
+            columns = np.asarray(model.classes_, dtype=np.int64)
+            proba[np.ix_(rows, columns)] = model.predict_proba_features(features[rows])
+    return proba
+
+
+def _screen_unit(context, unit):
     """Transform, featurise and locate the in-scope images of one (transform, magnitude)."""
     from augplan.augment.transforms import apply_op_batch, params_at
 
-    transform_index, magnitude, rng = unit
+    transform_index, magnitude, rng, keep_rows = unit
     transform = context["transforms"][transform_index]
     sources = context["scope"][transform_index]
     images = _decoded_sample(context)
     params = params_at(transform, 0.0 if magnitude is None else magnitude, context["fill"])
     moved_images = apply_op_batch(images[sources], transform.op, params, rng)
-    model = context["model"]
-    features = model.featurize(moved_images)
-    proba = _probabilities(model, features, context["classes"])
+    features = context["template"].featurize(moved_images)
+    proba = _out_of_fold_proba(context["models"], features, context["folds"][sources], context["n_classes"])
     ratios = context["geometry"].ratios(features, sources)
     expected = context["expected"][transform_index][context["labels"][sources]]
     destinations = locate(ratios, proba, expected)
-    examples = []
-    if context["evidence"]:
-        expected = context["expected"][transform_index]
-        labels = context["labels"]
-        off = [row for row, src in enumerate(sources) if destinations[row] != expected[labels[src]]]
-        # Moved images first (the clearest evidence of a broken label), then
-        # the classes taken in turn so one class does not fill the sheet.
-        seen = {}
-        rank = {}
-        for row in off:
-            key = (destinations[row] == OUTSIDE, labels[sources[row]])
-            rank[row] = seen.get(key, 0)
-            seen[key] = rank[row] + 1
-        off.sort(key=lambda row: (destinations[row] == OUTSIDE, rank[row], row))
-        examples = [(int(sources[row]), int(destinations[row]), magnitude)
-                    for row in off[:EVIDENCE_IMAGES]]
-    return destinations, examples
+    examples = _examples(destinations, expected, sources, magnitude, context) if context["evidence"] else []
+    # Rows the confirmation trains on at this magnitude (one per image).
+    kept = np.asarray(features[keep_rows], dtype=np.float32)
+    return destinations, examples, kept
+
+
+def _examples(destinations, expected, sources, magnitude, context):
+    """Moved images first (the clearest evidence), the classes taken in turn, with the magnitude that moved them."""
+    labels = context["labels"]
+    off = [row for row in range(len(sources)) if destinations[row] != expected[row]]
+    seen, rank = {}, {}
+    for row in off:
+        key = (destinations[row] == OUTSIDE, labels[sources[row]])
+        rank[row] = seen.get(key, 0)
+        seen[key] = rank[row] + 1
+    off.sort(key=lambda row: (destinations[row] == OUTSIDE, rank[row], row))
+    return [(int(sources[row]), int(destinations[row]), magnitude) for row in off[:EVIDENCE_IMAGES]]
+
+
+def _confirm_unit(context, unit):
+    """Out-of-fold predictions of held-out originals by the model trained with the transform."""
+    train_features, train_labels, train_folds = unit
+    features, folds = context["features"], context["folds"]
+    predictions = np.empty(len(features), dtype=np.int64)
+    for fold in range(context["n_folds"]):
+        model = _fit_fold(context["template"], train_features, train_labels, train_folds, fold)
+        rows = folds == fold
+        predictions[rows] = model.predict_features(features[rows])
+    return predictions
 
 
 # --------------------------------------------------------------------------
-# the checker
+# the checker's stages
 
 
 def _sample_training(dataset, sample, rng):
@@ -387,6 +432,579 @@ def _sample_training(dataset, sample, rng):
     return chosen, np.array(labels, dtype=np.int64), classes
 
 
+def _checked_sample(dataset, sample, rng, warnings):
+    """Records, class indices and names of the sampled training images with usable classes."""
+    records, labels, classes = _sample_training(dataset, sample, rng)
+    counts = np.bincount(labels, minlength=len(classes))
+    small = [classes[c] for c in range(len(classes)) if counts[c] < MIN_PER_CLASS]
+    if small:
+        warnings.append(f"classes with fewer than {MIN_PER_CLASS} training images have no region "
+                        f"and are left out of the check: {', '.join(small)}")
+        keep_classes = [c for c in range(len(classes)) if counts[c] >= MIN_PER_CLASS]
+        keep = np.isin(labels, keep_classes)
+        records = [r for r, k in zip(records, keep) if k]
+        remap = {old: new for new, old in enumerate(keep_classes)}
+        labels = np.array([remap[c] for c in labels[keep]], dtype=np.int64)
+        classes = tuple(classes[c] for c in keep_classes)
+        counts = np.bincount(labels, minlength=len(classes))
+    if len(classes) < 2:
+        raise BadInputError(f"{dataset.root}: the label check needs at least two classes with "
+                            f"{MIN_PER_CLASS} or more training images each; found {len(classes)}.")
+    few = [classes[c] for c in range(len(classes)) if counts[c] < MIN_EVIDENCE]
+    if few:
+        warnings.append(f"classes with fewer than {MIN_EVIDENCE} training images are too few images "
+                        f"to judge: {', '.join(few)}")
+    return records, labels, classes
+
+
+@dataclass
+class _Baseline:
+    """Out-of-fold state of the originals shared by both stages."""
+
+    features: np.ndarray
+    folds: np.ndarray
+    models: list
+    predictions: np.ndarray
+    dest: np.ndarray
+    geometry: object
+    change: np.ndarray
+    leave: np.ndarray
+    cv_accuracy: float
+    chance: float
+    weak: bool
+
+
+def _fit_baseline(images, labels, n_classes, template, seed, workers, quiet):
+    """Fold models, out-of-fold predictions and regions of the original images."""
+    from sklearn.model_selection import StratifiedKFold
+
+    from augplan.measure.model import is_weak
+    from augplan.measure.stats import wilson_interval
+
+    features = template.featurize(images)
+    counts = np.bincount(labels, minlength=n_classes)
+    n_folds = int(min(FOLDS, counts.min()))
+    folds = np.empty(len(labels), dtype=np.int64)
+    splitter = StratifiedKFold(n_splits=n_folds, shuffle=True, random_state=seed)
+    for fold, (_, rows) in enumerate(splitter.split(features, labels)):
+        folds[rows] = fold
+    context = {"template": template, "features": features, "labels": labels, "folds": folds}
+    models = parallel_map(functools.partial(_fit_fold_unit, context), range(n_folds), workers=workers,
+                          desc="fitting the proxy on folds", quiet=quiet)
+    proba = _out_of_fold_proba(models, features, folds, n_classes)
+    predictions = np.argmax(proba, axis=1)
+    correct = int(np.sum(predictions == labels))
+    cv_accuracy = correct / len(labels)
+    chance = float(counts.max() / counts.sum())
+    weak = is_weak(cv_accuracy, wilson_interval(correct, len(labels))[0], chance)
+    geometry = _Geometry(features, labels, n_classes, seed)
+    dest = locate(geometry.held_out_ratios, proba, labels)
+    change = np.array([np.mean((dest[labels == c] != c) & (dest[labels == c] != OUTSIDE))
+                       for c in range(n_classes)])
+    leave = np.array([np.mean(dest[labels == c] == OUTSIDE) for c in range(n_classes)])
+    return _Baseline(features, folds, models, predictions, dest, geometry, change, leave, cv_accuracy, chance,
+                     weak)
+
+
+@dataclass
+class _Plan:
+    """What one transform is checked on: scope, expected classes, grid and training draws."""
+
+    scope: np.ndarray
+    expected: np.ndarray
+    values: list
+    ranges: list
+    draws: list
+
+
+def _plan_transform(transform, classes, labels, magnitudes, rng):
+    """Scope, expected class per class, grid values and, per range, one grid value per image."""
+    from augplan.augment.transforms import OPS, magnitude_grid
+
+    spec = OPS[transform.op]
+    checked = [c for c in range(len(classes)) if transform.applies_to(classes[c])]
+    scope = np.flatnonzero(np.isin(labels, checked))
+    relabel = dict(transform.relabel or {})
+    expected = np.array([classes.index(relabel[name]) if relabel.get(name) in classes else c
+                         for c, name in enumerate(classes)])
+    if spec.magnitude is None:
+        values = [None]
+    else:
+        values = [float(v) for v in magnitude_grid(transform, int(magnitudes))]
+        if values[0] <= spec.identity <= values[-1] and not any(
+                math.isclose(v, spec.identity, abs_tol=1e-12) for v in values):
+            values = sorted(values + [float(spec.identity)])
+    # The whole grid first, then the ranges nested around the identity (safe limit).
+    ranges = [list(values)] + (nested_ranges(values, spec.identity)[1:] if spec.magnitude else [])
+    # Positions in ``values``: each image trains at one grid value of each range.
+    draws = [np.array([values.index(v) for v in r])[rng.integers(0, len(r), size=len(scope))]
+             for r in ranges]
+    return _Plan(scope, expected, values, ranges, draws)
+
+
+def _run_screen(context, images, plans, baseline, unit_root, workers, quiet):
+    """Screen results ``{(transform, value position): (destinations, examples, kept rows)}``."""
+    from augplan.augment.transforms import OPS
+
+    work, known = [], {}
+    for t_index, plan in enumerate(plans):
+        if not len(plan.scope):
+            continue
+        transform = context["transforms"][t_index]
+        identity = OPS[transform.op].identity
+        for position, value in enumerate(plan.values):
+            keep = np.flatnonzero(np.any([d == position for d in plan.draws], axis=0))
+            # At the identity magnitude the images are the originals, whose
+            # out-of-fold destinations and features are already known (unless
+            # a relabel changes what they should be).
+            if value is not None and math.isclose(value, identity, abs_tol=1e-12) and not transform.relabel:
+                known[(t_index, position)] = (baseline.dest[plan.scope], [],
+                                              baseline.features[plan.scope][keep].astype(np.float32))
+            else:
+                work.append((t_index, position, keep))
+    rngs = unit_root.spawn(len(work))
+    units = [(t, plans[t].values[p], r, keep) for (t, p, keep), r in zip(work, rngs)]
+    _DECODED_SAMPLE.clear()
+    _DECODED_SAMPLE[context["sample_key"]] = images
+    try:
+        results = parallel_map(functools.partial(_screen_unit, context), units, workers=workers,
+                               desc="screening transforms", quiet=quiet)
+    finally:
+        _DECODED_SAMPLE.clear()
+    known.update({(t, p): result for (t, p, _), result in zip(work, results)})
+    return known
+
+
+def _screen_transform(plan, results, t_index, labels, baseline, n_classes):
+    """Per-magnitude screen rows, per-class screen counts and whether the screen clears."""
+    from augplan.measure.stats import wilson_interval
+
+    source_labels = labels[plan.scope]
+    checked = sorted(set(source_labels.tolist()))
+    rows, cleared, worst = [], bool(checked) and not baseline.weak, None
+    for position, value in enumerate(plan.values):
+        destinations = results[(t_index, position)][0]
+        moved_total = left_total = 0
+        for a in checked:
+            dest = destinations[source_labels == a]
+            moved = int(np.sum((dest != plan.expected[a]) & (dest != OUTSIDE)))
+            left = int(np.sum(dest == OUTSIDE))
+            cleared = cleared and screen_clears(moved, left, len(dest), baseline.change[a], baseline.leave[a])
+            moved_total, left_total = moved_total + moved, left_total + left
+        row = {"value": None if value is None else round(value, 4), "moved": moved_total,
+               "outside": left_total, "n": len(destinations)}
+        rows.append(row)
+        if worst is None or moved_total > worst["moved"]:
+            worst = row
+    n = worst["n"] if worst else 0
+    summary = {"change_rate": _rate(worst["moved"], n) if worst else 0.0,
+               "change_rate_ci": _interval(worst["moved"], n) if worst else [0.0, 1.0],
+               "leave_rate": _rate(worst["outside"], n) if worst else 0.0,
+               "leave_rate_ci": _interval(worst["outside"], n) if worst else [0.0, 1.0], "n": n}
+    magnitudes = [{"value": r["value"], "change_rate": _rate(r["moved"], r["n"]),
+                   "leave_rate": _rate(r["outside"], r["n"])} for r in rows if r["value"] is not None]
+    counts = {a: int(np.sum(source_labels == a)) for a in checked}
+    summary["screen_swaps"] = _screen_flows(plan, results, t_index, labels, baseline, range(len(plan.values)))
+    return cleared, checked, summary, magnitudes, counts
+
+
+def _training_set(plan, results, t_index, range_index, baseline, labels, mode):
+    """Features, labels and folds one augmented model trains on, for one range of one transform.
+
+    ``mode`` ``"replace"``: every image in scope is replaced by its
+    transformed copy (the transform with probability 1), so a transform that
+    gives class A's images B's look teaches the model that B's look means A.
+    ``"add"``: the originals plus one transformed copy of each image in scope,
+    as a recipe's copies join the originals in training. A copy sits in its
+    source's fold, so no image is predicted by a model that saw a copy of it.
+    """
+    draws = plan.draws[range_index]
+    copies = np.empty((len(plan.scope), baseline.features.shape[1]), dtype=np.float32)
+    for position in np.unique(draws):
+        kept_rows = np.flatnonzero(np.any([d == position for d in plan.draws], axis=0))
+        picked = np.flatnonzero(draws == position)
+        # ``kept`` holds the rows of ``kept_rows`` in order; find each picked row there.
+        copies[picked] = results[(t_index, position)][2][np.searchsorted(kept_rows, picked)]
+    copy_labels = plan.expected[labels[plan.scope]]
+    features = baseline.features.astype(np.float32)
+    if mode == "replace":
+        features[plan.scope] = copies
+        train_labels = labels.copy()
+        train_labels[plan.scope] = copy_labels
+        return features, train_labels, baseline.folds
+    return (np.concatenate([features, copies]), np.concatenate([labels, copy_labels]),
+            np.concatenate([baseline.folds, baseline.folds[plan.scope]]))
+
+
+MODES = ("replace", "add")
+
+
+def _run_confirmation(context, jobs, plans, screen, baseline, labels, workers, quiet):
+    """Out-of-fold predictions ``{(transform, range): {mode: predictions}}`` for each job."""
+    units = [(job, mode) for job in jobs for mode in MODES]
+    sets = [_training_set(plans[t], screen, t, r, baseline, labels, mode) for (t, r), mode in units]
+    results = parallel_map(functools.partial(_confirm_unit, context), sets, workers=workers,
+                           desc="confirming by training", quiet=quiet)
+    out = {job: {} for job in jobs}
+    for (job, mode), predictions in zip(units, results):
+        out[job][mode] = predictions
+    return out
+
+
+def _screen_flows(plan, results, t_index, labels, baseline, positions):
+    """Moves the screen saw: ``{(a, b): (share, moved, n)}`` at the grid value where most of a moved to b.
+
+    Among the grid values at ``positions``; only flows whose lower Wilson 95%
+    bound exceeds the share of a's held-out originals that land in b count.
+    """
+    from augplan.measure.stats import wilson_interval
+
+    source_labels = labels[plan.scope]
+    flows = {}
+    for a in sorted(set(source_labels.tolist())):
+        base = baseline.dest[labels == a]
+        for position in positions:
+            dest = results[(t_index, position)][0][source_labels == a]
+            counts = np.bincount(dest[dest >= 0], minlength=len(baseline.change))
+            for b in np.flatnonzero(counts):
+                share = counts[b] / len(dest)
+                if (b != plan.expected[a] and share > flows.get((a, int(b)), (0.0,))[0]
+                        and wilson_interval(int(counts[b]), len(dest))[0] > np.mean(base == b)):
+                    flows[(a, int(b))] = (float(share), int(counts[b]), len(dest))
+    return flows
+
+
+def _witnessed(plan, results, t_index, range_index, labels, baseline, n_classes):
+    """``W[a, b]``: within the range, the screen saw a's transformed images land in b (`_screen_flows`)."""
+    positions = sorted({plan.values.index(v) for v in plan.ranges[range_index]})
+    seen = np.zeros((n_classes, n_classes), dtype=bool)
+    for a, b in _screen_flows(plan, results, t_index, labels, baseline, positions):
+        seen[a, b] = True
+    return seen
+
+
+def _judge(labels, base_pred, predictions, n_classes, checked, weak, seen, rng):
+    """Confirmation verdict of one range: (verdict, class entries, passing and other pairs).
+
+    A pair breaks when the model trained on replaced images shows a rise of
+    the confusion ``B -> A`` that passes `pair_breaks` and the screen saw
+    A's transformed images land in B (``seen[A, B]``): two witnesses, so a
+    proxy that merely fails on a look it was not trained on (a domain
+    shift) cannot call a label changed. Safety is judged on the model
+    trained with the originals plus copies, as a recipe is used.
+    """
+    rng_replace, rng_add = rng.spawn(2)
+    _, replaced = compare_predictions(labels, base_pred, predictions["replace"], n_classes, rng_replace)
+    changes, pairs = compare_predictions(labels, base_pred, predictions["add"], n_classes, rng_add)
+    counts = np.bincount(labels, minlength=n_classes)
+    passing = [p for p in replaced if pair_breaks(p) and seen[p.target, p.source]
+               and counts[p.target] >= MIN_EVIDENCE]
+    culprits = {p.target for p in passing}
+    verdicts = {}
+    for change in changes:
+        own = class_verdict(change, [p for p in pairs if p.source == change.index])
+        verdicts[change.index] = "unverified" if own in ("safe", "breaks") and weak else own
+    if passing:
+        overall = "breaks"
+    elif all(v == "safe" for v in verdicts.values()):
+        overall = "safe"
+    else:
+        overall = "unverified"
+    entries = {}
+    for change in changes:
+        if change.index in checked:
+            verdict = "breaks" if change.index in culprits else verdicts[change.index]
+            entries[change.index] = {
+                "verdict": "unverified" if verdict == "breaks" and change.index not in culprits else verdict,
+                "n": change.n, "recall_base": round(change.recall_base, 4),
+                "recall_augmented": round(change.recall_augmented, 4), "recall_fall": round(change.fall, 4),
+                "recall_fall_ci": [round(change.low, 4), round(change.high, 4)]}
+    shown = {(p.source, p.target) for p in passing}
+    others = [p for p in replaced if (p.source, p.target) not in shown and p.rise > 0]
+    return overall, entries, passing, [(p, bool(seen[p.target, p.source])) for p in others]
+
+
+def _swap_rows(pairs, classes):
+    """Swaps in the transform's direction: a rise of the confusion ``B -> A`` on originals
+    means ``A``'s transformed images took ``B``'s look (``from`` A ``to`` B).
+
+    ``pairs`` holds PairChange items, or ``(PairChange, witnessed)`` for
+    the pairs that do not pass, with whether the screen saw the move.
+    """
+    rows = []
+    for item in pairs:
+        p, witnessed = item if isinstance(item, tuple) else (item, True)
+        rows.append({"from": classes[p.target], "to": classes[p.source],
+                     "confusion": f"{classes[p.source]} -> {classes[p.target]}", "rate": round(p.rise, 4),
+                     "rate_ci": [round(p.low, 4), round(p.high, 4)], "base_rate": round(p.base, 4),
+                     "augmented_rate": round(p.augmented, 4), "moved": p.moved, "n": p.n,
+                     "witnessed": witnessed})
+    rows.sort(key=lambda s: (-s["rate"], s["from"], s["to"]))
+    return rows
+
+
+def _can_swap_classes(transform):
+    """Whether the op can give an image another class's look as a whole (mirror, turn, hue)."""
+    from augplan.augment.transforms import OPS
+
+    if transform.op in SWAPPING_OPS:
+        return True
+    if transform.op != "rotate":
+        return False
+    value = transform.params[OPS["rotate"].magnitude]
+    low, high = (value, value) if np.ndim(value) == 0 else value
+    return low == high and abs(float(low)) >= TURN_DEGREES
+
+
+def _suggestion(transform, checked, entries, passing, classes):
+    """Relabel for confirmed swaps that close a cycle; `only` for the classes not at fault.
+
+    A confirmed confusion ``B -> A`` means the transformed images of ``A``
+    taught the model ``B``'s look: ``A``'s images take ``B``'s class. A
+    relabel is offered only for ops that can swap classes and only where
+    these moves close a cycle (``A -> B`` and ``B -> A``, or a hue turn's
+    ``A -> B -> C -> A``), never for a one-way move.
+    """
+    main = {}
+    for pair in sorted(passing, key=lambda p: -p.rise):
+        main.setdefault(pair.target, pair.source)
+    in_cycle = set()
+    if _can_swap_classes(transform) and transform.relabel is None:
+        for a in main:
+            path, node = [], a
+            while node in main and node not in path:
+                path.append(node)
+                node = main[node]
+            if node in path:
+                in_cycle.update(path[path.index(node):])
+    in_cycle &= set(checked)
+    suggestion = {}
+    if in_cycle:
+        suggestion["relabel"] = dict(sorted((classes[a], classes[main[a]]) for a in in_cycle))
+    at_fault = set(main) - in_cycle
+    keep = [a for a in checked if a not in at_fault and entries.get(a, {}).get("verdict") != TOO_FEW]
+    if at_fault and keep and len(keep) < len(checked):
+        suggestion["only"] = sorted(classes[a] for a in keep)
+    return suggestion or None
+
+
+def _safe_limit(plan, verdicts):
+    """Widest confirmed-safe range of the grid, ``[low, high]``, or None."""
+    for values, verdict in zip(plan.ranges, verdicts):
+        if verdict == "safe" and values and values[0] is not None and values[0] < values[-1]:
+            return [round(values[0], 4), round(values[-1], 4)]
+    return None
+
+
+def _options(sample, magnitudes, evidence_dir):
+    """Validate the checker's options; create the evidence folder."""
+    if sample is not None and (isinstance(sample, bool) or int(sample) != sample or sample < MIN_PER_CLASS):
+        raise BadInputError(f"--sample must be an integer of at least {MIN_PER_CLASS}; got {sample!r}.")
+    if isinstance(magnitudes, bool) or int(magnitudes) != magnitudes or magnitudes < 2:
+        raise BadInputError(f"magnitudes must be an integer of at least 2; got {magnitudes!r}.")
+    if evidence_dir is not None:
+        evidence_dir = Path(evidence_dir)
+        try:
+            evidence_dir.mkdir(parents=True, exist_ok=True)
+        except OSError as error:
+            raise BadInputError(f"--evidence {evidence_dir}: cannot create the folder ({error}).") from None
+    return evidence_dir
+
+
+class _Clock:
+    """Wall time of each stage into a caller's dict (or nowhere)."""
+
+    def __init__(self, timings):
+        import time
+
+        self._now, self.timings = time.perf_counter, timings
+        self._start = self._now()
+
+    def lap(self, stage):
+        now = self._now()
+        if self.timings is not None:
+            self.timings[stage] = now - self._start
+        self._start = now
+
+
+def _confirm_jobs(plans, cleared):
+    """(transform, range) pairs to train: the whole range of each uncleared transform, then its limits."""
+    whole = [(t, 0) for t, plan in enumerate(plans) if len(plan.scope) and not cleared[t]]
+    nested = [(t, r) for t, _ in whole for r in range(1, len(plans[t].ranges))]
+    return whole, nested
+
+
+def _confirm_all(context, plans, screen, screened, baseline, labels, n_classes, boot_rng, workers, quiet,
+                 clock):
+    """Judge every uncleared transform over its whole range, then the nested ranges of those not safe."""
+    whole, nested = _confirm_jobs(plans, [s[0] for s in screened])
+    boot = dict(zip(whole + nested, boot_rng.spawn(len(whole) + len(nested))))
+
+    def judge(jobs):
+        trained = _run_confirmation(context, jobs, plans, screen, baseline, labels, workers, quiet)
+        return {job: _judge(labels, baseline.predictions, trained[job], n_classes, screened[job[0]][1],
+                            baseline.weak, _witnessed(plans[job[0]], screen, *job, labels, baseline, n_classes),
+                            boot[job]) for job in jobs}
+
+    judged = judge(whole)
+    clock.lap("confirmation")
+    judged.update(judge([job for job in nested if judged[(job[0], 0)][0] != "safe"]))
+    clock.lap("safe limits")
+    return judged
+
+
+def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitudes=7, seed=0,
+                 workers=1, quiet=True, evidence_dir=None, timings=None):
+    """Check every transform of a recipe for label safety (screen, then confirmation).
+
+    Parameters
+    ----------
+    dataset : augplan.data.Dataset
+        Only its ``train`` split is used.
+    recipe : augplan.recipe.Recipe
+    model : augplan.measure.model.FeatureModel, optional
+        An unfitted model to use instead of the default one, in both stages.
+    sample : int, optional
+        At most this many training images per class (drawn with ``seed``).
+    size : int, default 64
+        Side of the squares images are read at.
+    magnitudes : int, default 7
+        Grid values per magnitude range (both ends included).
+    seed : int, default 0
+    workers : int, default 1
+        Processes for the work units; results do not depend on it.
+    quiet : bool, default True
+        Hide the progress bar.
+    evidence_dir : str or Path, optional
+        Folder for a contact sheet of moved and outside images of each
+        transform that breaks or is unverified.
+    timings : dict, optional
+        Filled with the wall time in seconds of each stage (``"baseline"``,
+        ``"screen"``, ``"confirmation"``, ``"safe limits"``); kept out of the
+        document so that it stays the same for the same seed.
+
+    Returns
+    -------
+    dict
+        The ``check --json`` document; ``decision_rule`` states the module's
+        rule. Each transform carries ``verdict``, ``decided_by`` (``"screen"``
+        or ``"confirmation"``), ``swaps`` (confirmed confusions, largest
+        first), ``other_swaps`` (rises that do not pass the rule),
+        ``classes``, ``magnitudes`` (screen rates per grid value) and
+        ``safe_limit``.
+
+    Raises
+    ------
+    BadInputError
+        Fewer than two classes with at least 3 training images, an unusable
+        ``sample``, ``magnitudes`` or ``evidence_dir``.
+    """
+    from augplan.data.dataset import load_images
+
+    evidence_dir = _options(sample, magnitudes, evidence_dir)
+    clock = _Clock(timings)
+    sample_rng, unit_root, draw_rng, boot_rng = np.random.default_rng(seed).spawn(4)
+    warnings = []
+    records, labels, classes = _checked_sample(dataset, sample, sample_rng, warnings)
+    images = load_images(records, size=size)
+    if model is None:
+        from augplan.measure.model import FeatureModel
+
+        model = FeatureModel(random_state=seed)
+    baseline = _fit_baseline(images, labels, len(classes), model, seed, workers, quiet)
+    if baseline.weak:
+        warnings.append(f"the feature model is weak (cross-validated accuracy {baseline.cv_accuracy:.2f}, "
+                        f"chance {baseline.chance:.2f}); nothing is called safe")
+    clock.lap("baseline")
+    transforms = list(recipe.transforms)
+    plans = [_plan_transform(t, classes, labels, magnitudes, rng)
+             for t, rng in zip(transforms, draw_rng.spawn(len(transforms)))]
+    context = {"transforms": transforms, "scope": [p.scope for p in plans], "records": records, "size": size,
+               "sample_key": _sample_key(records, size), "fill": recipe.fill, "template": model,
+               "models": baseline.models, "n_classes": len(classes), "geometry": baseline.geometry,
+               "evidence": evidence_dir is not None, "expected": [p.expected for p in plans],
+               "labels": labels, "folds": baseline.folds, "features": baseline.features,
+               "n_folds": len(baseline.models)}
+    screen = _run_screen(context, images, plans, baseline, unit_root, workers, quiet)
+    screened = [_screen_transform(plan, screen, t, labels, baseline, len(classes)) if len(plan.scope)
+                else (False, [], None, [], {}) for t, plan in enumerate(plans)]
+    clock.lap("screen")
+    judged = _confirm_all(context, plans, screen, screened, baseline, labels, len(classes), boot_rng,
+                          workers, quiet, clock)
+    report = [_entry(t, transforms[t], plans[t], screened[t], judged, classes, warnings)
+              for t in range(len(transforms))]
+    if evidence_dir is not None:
+        _attach_evidence(report, screen, plans, evidence_dir, transforms, records, labels, classes, recipe.fill,
+                         seed)
+    _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
+    return _document(recipe, baseline, labels, classes, report, warnings)
+
+
+def _document(recipe, baseline, labels, classes, report, warnings):
+    """The ``check --json`` document, typed."""
+    return CheckResult.from_json({
+        "recipe": recipe.name,
+        "model": {"cv_accuracy": round(baseline.cv_accuracy, 4), "chance": round(baseline.chance, 4),
+                  "weak": baseline.weak, "folds": len(baseline.models)},
+        "baseline": {classes[c]: {"change_rate": round(float(baseline.change[c]), 4),
+                                  "leave_rate": round(float(baseline.leave[c]), 4),
+                                  "cv_recall": round(float(np.mean(baseline.predictions[labels == c] == c)), 4)}
+                     for c in range(len(classes))},
+        "transforms": report,
+        "warnings": warnings,
+        "decision_rule": DECISION_RULE,
+        "n_images": int(len(labels)),
+    })
+
+
+def _entry(t_index, transform, plan, screened, judged, classes, warnings):
+    """The JSON entry of one transform from its screen and confirmation results."""
+    cleared, checked, summary, magnitudes, counts = screened
+    if not checked:
+        warnings.append(f"transform {t_index} ({transform.op}) applies to no class of the data; "
+                        f"nothing to check")
+    summary = dict(summary or {"change_rate": 0.0, "change_rate_ci": [0.0, 1.0], "leave_rate": 0.0,
+                               "leave_rate_ci": [0.0, 1.0], "n": 0, "screen_swaps": {}})
+    flows = summary.pop("screen_swaps")
+    screen_swaps = sorted(({"from": classes[a], "to": classes[b], "rate": round(share, 4), "moved": moved, "n": n}
+                           for (a, b), (share, moved, n) in flows.items()),
+                          key=lambda s: (-s["rate"], s["from"], s["to"]))
+    entry = {"index": t_index, "op": transform.op, "params": _json_params(transform), **summary,
+             "magnitudes": magnitudes, "screen_swaps": screen_swaps, "evidence_sheet": None}
+    if not checked:
+        entry.update(verdict="safe", decided_by="screen", swaps=[], other_swaps=[], classes={},
+                     safe_limit=None, suggestion=None)
+    elif cleared:
+        entry.update(verdict="safe", decided_by="screen", swaps=[], other_swaps=[],
+                     classes={classes[a]: {"verdict": "safe", "n": counts[a]} for a in checked},
+                     safe_limit=_safe_limit(plan, ["safe"]), suggestion=None)
+    else:
+        verdict, entries, passing, others = judged[(t_index, 0)]
+        limits = [judged[(t_index, r)][0] if (t_index, r) in judged else "unverified"
+                  for r in range(len(plan.ranges))]
+        entry.update(verdict=verdict, decided_by="confirmation", swaps=_swap_rows(passing, classes),
+                     other_swaps=_swap_rows(others, classes),
+                     classes={classes[a]: value for a, value in entries.items()},
+                     safe_limit=_safe_limit(plan, limits),
+                     suggestion=None if verdict != "breaks" else
+                     _suggestion(transform, checked, entries, passing, classes))
+    return entry
+
+
+def _attach_evidence(report, screen, plans, evidence_dir, transforms, records, labels, classes, fill, seed):
+    """Contact sheets of the screen's moved and outside images for every transform not safe."""
+    for entry, plan in zip(report, plans):
+        if entry["verdict"] == "safe":
+            continue
+        groups = [screen[(entry["index"], p)][1] for p in range(len(plan.values))
+                  if (entry["index"], p) in screen]
+        picked = _round_robin(groups, EVIDENCE_IMAGES)
+        if picked:
+            entry["evidence_sheet"] = _write_evidence(evidence_dir, entry["index"], transforms[entry["index"]],
+                                                      entry["verdict"], picked, records, labels, classes, fill,
+                                                      seed)
+
+
 def _rate(count, n):
     return round(count / n, 4) if n else 0.0
 
@@ -403,34 +1021,6 @@ def _json_params(transform):
     for key, value in transform.params.items():
         params[key] = [float(v) for v in value] if isinstance(value, (tuple, list)) else value
     return params
-
-
-def _suggestion(transform, checked, verdicts, flows, classes):
-    """Relabel for swap cycles among breaking classes; `only` for the safe ones."""
-    breaking = [a for a in checked if verdicts[a] == "breaks"]
-    main = {}
-    for a in breaking:
-        row = flows[a]
-        if row.sum() > 0:
-            main[a] = int(np.argmax(row))
-    in_cycle = set()
-    for a in main:
-        path, node = [], a
-        while node in main and node not in path:
-            path.append(node)
-            node = main[node]
-        if node in path:
-            in_cycle.update(path[path.index(node):])
-    suggestion = {}
-    if in_cycle:
-        relabel = dict(transform.relabel or {})
-        relabel.update({classes[a]: classes[main[a]] for a in sorted(in_cycle)})
-        suggestion["relabel"] = dict(sorted(relabel.items()))
-    safe = [a for a in checked if verdicts[a] == "safe"]
-    unresolved = [a for a in checked if verdicts[a] != "safe" and a not in in_cycle]
-    if unresolved and (safe or in_cycle):
-        suggestion["only"] = sorted(classes[a] for a in set(safe) | in_cycle)
-    return suggestion or None
 
 
 _EVIDENCE_CELL = 96
@@ -481,7 +1071,7 @@ def _write_evidence(evidence_dir, index, transform, verdict, examples, records, 
     return str(path)
 
 
-# The lighting factor each lighting op changes (augplan.factors names). When
+# The lighting factor each lighting op changes (augplan.measure.factors names). When
 # such a transform moves images into a class that this factor alone singles
 # out, while the two classes also differ in structure that lighting does not
 # touch, the proxy model may be following a lighting shortcut of the data
@@ -495,7 +1085,7 @@ def _separable_by_structure(images, labels, first, second, seed):
     """Whether two classes differ in lighting-blind gradient structure alone.
 
     Uses only the block-normalised oriented-gradient histograms of
-    `augplan.features.image_features` (Dalal & Triggs 2005), which a change
+    `augplan.measure.features.image_features` (Dalal & Triggs 2005), which a change
     of exposure or contrast barely moves; separable means a cross-validated
     balanced accuracy of at least 0.9 between the two classes.
     """
@@ -519,9 +1109,10 @@ def _singled_out(images, labels, classes, factor, seed):
 
 
 def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
-    """Turn ``breaks`` into ``unverified`` where the move follows a shortcut of the data.
+    """Mark moves that follow a shortcut of the data; ``breaks`` becomes ``unverified``.
 
-    A lighting transform breaks when its images land in another class B. If
+    A lighting transform that is not safe may move its images into another
+    class B (a confirmed swap, or a move the screen saw). If
     the lighting factor it changes (`LIGHTING_OP_FACTORS`) singles out B by
     itself in the training data (one-vs-rest balanced accuracy at least
     ``ONE_VS_REST_THRESHOLD``) while the source classes and B also differ in
@@ -529,7 +1120,7 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
     proxy model learned it as B's mark and its verdict cannot tell a changed
     label from a broken shortcut.
     A labelled field sample in which the factor still singles out B settles
-    it as a cue, and the verdict stays ``breaks``; otherwise a person must
+    it as a cue, and the verdict stays as confirmed; otherwise a person must
     look.
     """
     from augplan.thresholds import ONE_VS_REST_THRESHOLD
@@ -538,15 +1129,16 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
     field_records = [r for r in dataset.split("field") if r.label in classes]
     field_images = field_labels = None
     for entry in report:
-        if entry["verdict"] != "breaks":
+        if entry["verdict"] == "safe":
             continue
-        destinations = {swap["to"] for swap in entry["swaps"] if swap["rate"] >= 0.1}
+        moves = [swap for swap in entry["swaps"] + entry["screen_swaps"] if swap["rate"] >= 0.1]
+        destinations = {swap["to"] for swap in moves}
         for factor in LIGHTING_OP_FACTORS.get(entry["op"], ()):
             train_scores = _singled_out(images, labels, classes, factor, seed)
             hits = sorted(b for b in destinations if (train_scores.get(b) or 0.0) >= ONE_VS_REST_THRESHOLD
                           and all(_separable_by_structure(images, labels, classes.index(swap["from"]),
                                                           classes.index(b), seed)
-                                  for swap in entry["swaps"] if swap["to"] == b and swap["rate"] >= 0.1))
+                                  for swap in moves if swap["to"] == b))
             if not hits:
                 continue
             field_scores = {}
@@ -572,265 +1164,6 @@ def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):
                              f"that shortcut rather than the label; a person must look"
                              + ("" if field_scores else ", or a labelled field sample can settle it"))
             break
-
-
-def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitudes=7, seed=0,
-                 workers=1, quiet=True, evidence_dir=None):
-    """Check every transform of a recipe for label safety.
-
-    Parameters
-    ----------
-    dataset : augplan.data.Dataset
-        Only its ``train`` split is used.
-    recipe : augplan.recipe.Recipe
-    model : augplan.measure.model.FeatureModel, optional
-        An unfitted model to use instead of the default one.
-    sample : int, optional
-        At most this many training images per class (drawn with ``seed``).
-    size : int, default 64
-        Side of the squares images are read at.
-    magnitudes : int, default 7
-        Grid values per magnitude range (both ends included).
-    seed : int, default 0
-    workers : int, default 1
-        Processes for the (transform, magnitude) work units; results do not
-        depend on it.
-    quiet : bool, default True
-        Hide the progress bar.
-    evidence_dir : str or Path, optional
-        Folder for a contact sheet of moved and outside images of each
-        transform that breaks or is unverified.
-
-    Returns
-    -------
-    dict
-        The ``check --json`` document (docs/architecture.md, "Results"); ``decision_rule``
-        states the rule in the module docstring. Beyond the contract fields,
-        ``baseline`` holds each class's held-out rates, and each transform
-        carries ``n`` (images judged, pooled) and ``magnitudes`` (value,
-        verdict, change and leave rate at each grid value).
-
-    Raises
-    ------
-    BadInputError
-        Fewer than two classes with at least 3 training images, an unusable
-        ``sample``, ``magnitudes`` or ``evidence_dir``.
-    """
-    from augplan.data.dataset import load_images
-    from augplan.augment.transforms import OPS, magnitude_grid
-
-    if sample is not None and (isinstance(sample, bool) or int(sample) != sample or sample < MIN_PER_CLASS):
-        raise BadInputError(f"--sample must be an integer of at least {MIN_PER_CLASS}; got {sample!r}.")
-    if isinstance(magnitudes, bool) or int(magnitudes) != magnitudes or magnitudes < 2:
-        raise BadInputError(f"magnitudes must be an integer of at least 2; got {magnitudes!r}.")
-    if evidence_dir is not None:
-        evidence_dir = Path(evidence_dir)
-        try:
-            evidence_dir.mkdir(parents=True, exist_ok=True)
-        except OSError as error:
-            raise BadInputError(f"--evidence {evidence_dir}: cannot create the folder ({error}).") from None
-    rng = np.random.default_rng(seed)
-    sample_rng, unit_root = rng.spawn(2)
-    warnings = []
-
-    records, labels, classes = _sample_training(dataset, sample, sample_rng)
-    counts = np.bincount(labels, minlength=len(classes))
-    small = [classes[c] for c in range(len(classes)) if counts[c] < MIN_PER_CLASS]
-    if small:
-        warnings.append(f"classes with fewer than {MIN_PER_CLASS} training images have no region "
-                        f"and are left out of the check: {', '.join(small)}")
-        keep_classes = [c for c in range(len(classes)) if counts[c] >= MIN_PER_CLASS]
-        keep = np.isin(labels, keep_classes)
-        records = [r for r, k in zip(records, keep) if k]
-        remap = {old: new for new, old in enumerate(keep_classes)}
-        labels = np.array([remap[c] for c in labels[keep]], dtype=np.int64)
-        classes = tuple(classes[c] for c in keep_classes)
-        counts = np.bincount(labels, minlength=len(classes))
-    if len(classes) < 2:
-        raise BadInputError(f"{dataset.root}: the label check needs at least two classes with "
-                            f"{MIN_PER_CLASS} or more training images each; found {len(classes)}.")
-    few = [classes[c] for c in range(len(classes)) if counts[c] < 20]
-    if few:
-        warnings.append(f"classes with fewer than 20 training images give wide intervals: {', '.join(few)}")
-
-    images = load_images(records, size=size)
-    label_names = [classes[c] for c in labels]
-    if model is None:
-        from augplan.measure.model import FeatureModel
-
-        model = FeatureModel(random_state=seed)
-    features = model.featurize(images)
-    model.fit_features(features, np.array(label_names))
-    cv_accuracy = float(model.cv_accuracy_)
-    chance = float(getattr(model, "chance_", counts.max() / counts.sum()))
-    # Fallback when the model does not judge itself: a quarter of the way
-    # from chance to perfect (common practice, no source).
-    weak = bool(getattr(model, "weak_", cv_accuracy < beyond_chance(chance)))
-    if weak:
-        warnings.append(f"the feature model is weak (cross-validated accuracy {cv_accuracy:.2f}, "
-                        f"chance {chance:.2f}); verdicts are unreliable")
-
-    geometry = _Geometry(features, labels, len(classes), seed)
-    base_proba = _probabilities(model, features, classes)
-    base_dest = locate(geometry.held_out_ratios, base_proba, labels)
-    baseline_change = np.array([np.mean((base_dest[labels == c] != c) & (base_dest[labels == c] != OUTSIDE))
-                                for c in range(len(classes))])
-    baseline_leave = np.array([np.mean(base_dest[labels == c] == OUTSIDE) for c in range(len(classes))])
-
-    transforms = list(recipe.transforms)
-    scope, expected, units, unit_info, shortcuts = [], [], [], [], {}
-    for t_index, transform in enumerate(transforms):
-        spec = OPS[transform.op]
-        checked = [c for c in range(len(classes)) if transform.applies_to(classes[c])]
-        scope.append(np.flatnonzero(np.isin(labels, checked)))
-        relabel = dict(transform.relabel or {})
-        exp = np.array([classes.index(relabel[name]) if relabel.get(name) in classes else c
-                        for c, name in enumerate(classes)])
-        expected.append(exp)
-        if spec.magnitude is None:
-            grid, extra = [None], []
-        else:
-            grid = [float(v) for v in magnitude_grid(transform, int(magnitudes))]
-            identity = spec.identity
-            extra = ([identity] if grid[0] <= identity <= grid[-1] and
-                     not any(math.isclose(v, identity, abs_tol=1e-12) for v in grid) else [])
-        for value in grid + extra:
-            unit_info.append((t_index, value, value not in extra or value is None))
-            # At the identity magnitude the images are the originals, whose
-            # held-out destinations are already known (unless a relabel
-            # changes what they should be).
-            if value is None or not (math.isclose(value, spec.identity, abs_tol=1e-12)
-                                     and not transform.relabel):
-                units.append((t_index, value))
-            else:
-                shortcuts[(t_index, value)] = (base_dest[scope[t_index]], [])
-    unit_rngs = unit_root.spawn(len(units))
-    work = [(t, v, r) for (t, v), r in zip(units, unit_rngs)]
-    # Units carry the records (paths, or bytes with --ship-images), never the
-    # decoded images; this process's copy serves units run in it.
-    context = {"transforms": transforms, "scope": scope, "records": records, "size": size,
-               "sample_key": _sample_key(records, size), "fill": recipe.fill,
-               "model": model, "classes": classes, "geometry": geometry,
-               "evidence": evidence_dir is not None, "expected": expected, "labels": labels}
-    work = [item for item in work if len(scope[item[0]])]
-    _DECODED_SAMPLE.clear()
-    _DECODED_SAMPLE[context["sample_key"]] = images
-    try:
-        results = parallel_map(functools.partial(_run_unit, context), work, workers=workers,
-                               desc="checking transforms", quiet=quiet)
-    finally:
-        _DECODED_SAMPLE.clear()
-    by_unit = {(t, v): result for (t, v, _), result in zip(work, results)}
-    by_unit.update(shortcuts)
-
-    report = []
-    for t_index, transform in enumerate(transforms):
-        spec = OPS[transform.op]
-        sources = scope[t_index]
-        exp = expected[t_index]
-        checked = sorted(set(labels[sources].tolist()))
-        source_labels = labels[sources]
-        entry_units = [(v, pooled) for (t, v, pooled) in unit_info if t == t_index]
-        flows = {a: np.zeros(len(classes), dtype=np.int64) for a in checked}
-        moved_n = dict.fromkeys(checked, 0)
-        left_n = dict.fromkeys(checked, 0)
-        n_by_class = dict.fromkeys(checked, 0)
-        per_magnitude, examples = [], []
-        worst_by_class = dict.fromkeys(checked, "safe")
-        for value, pooled in entry_units:
-            if (t_index, value) not in by_unit:
-                continue
-            destinations, unit_examples = by_unit[(t_index, value)]
-            examples.append(unit_examples)
-            worst, m_moved, m_left = "safe", 0, 0
-            for a in checked:
-                dest = destinations[source_labels == a]
-                moved = int(np.sum((dest != exp[a]) & (dest != OUTSIDE)))
-                left = int(np.sum(dest == OUTSIDE))
-                verdict = class_verdict(moved, left, len(dest), baseline_change[a], baseline_leave[a],
-                                        weak=weak)
-                worst = max(worst, verdict, key=_RANK.get)
-                worst_by_class[a] = max(worst_by_class[a], verdict, key=_RANK.get)
-                m_moved, m_left = m_moved + moved, m_left + left
-                if pooled:
-                    n_by_class[a] += len(dest)
-                    moved_n[a] += moved
-                    left_n[a] += left
-                    for b in dest[(dest != exp[a]) & (dest != OUTSIDE)]:
-                        flows[a][b] += 1
-            if value is not None:
-                per_magnitude.append({"value": value, "verdict": worst,
-                                      "change_rate": _rate(m_moved, len(destinations)),
-                                      "leave_rate": _rate(m_left, len(destinations))})
-        class_entries, verdicts = {}, {}
-        for a in checked:
-            # Pooled over the range, or at any single magnitude of it: a range
-            # that breaks labels at one end breaks them in that share of draws.
-            verdicts[a] = max(class_verdict(moved_n[a], left_n[a], n_by_class[a],
-                                            baseline_change[a], baseline_leave[a], weak=weak),
-                              worst_by_class[a], key=_RANK.get)
-            class_entries[classes[a]] = {
-                "verdict": verdicts[a],
-                "change_rate": _rate(moved_n[a], n_by_class[a]),
-                "leave_rate": _rate(left_n[a], n_by_class[a]),
-                "n": n_by_class[a],
-            }
-        overall = max(verdicts.values(), key=_RANK.get, default="safe")
-        n_total = sum(n_by_class.values())
-        moved_total, left_total = sum(moved_n.values()), sum(left_n.values())
-        swaps = [{"from": classes[a], "to": classes[b], "rate": _rate(int(flows[a][b]), n_by_class[a]),
-                  "n": int(flows[a][b])}
-                 for a in checked for b in range(len(classes)) if flows[a][b] > 0]
-        swaps.sort(key=lambda s: (-s["rate"], -s["n"], s["from"], s["to"]))
-        limit = None
-        if spec.magnitude is not None and per_magnitude:
-            per_magnitude.sort(key=lambda m: m["value"])
-            limit = safe_limit([m["value"] for m in per_magnitude],
-                               [m["verdict"] for m in per_magnitude], spec.identity)
-            limit = None if limit is None else [round(v, 4) for v in limit]
-            for m in per_magnitude:
-                m["value"] = round(m["value"], 4)
-        if not checked:
-            warnings.append(f"transform {t_index} ({transform.op}) applies to no class of the data; "
-                            f"nothing to check")
-        sheet = None
-        if evidence_dir is not None and overall != "safe":
-            picked = _round_robin(examples, EVIDENCE_IMAGES)
-            if picked:
-                sheet = _write_evidence(evidence_dir, t_index, transform, overall, picked, records,
-                                        labels, classes, recipe.fill, seed)
-        report.append({
-            "index": t_index,
-            "op": transform.op,
-            "params": _json_params(transform),
-            "verdict": overall,
-            "change_rate": _rate(moved_total, n_total),
-            "change_rate_ci": _interval(moved_total, n_total),
-            "leave_rate": _rate(left_total, n_total),
-            "leave_rate_ci": _interval(left_total, n_total),
-            "n": n_total,
-            "swaps": swaps,
-            "classes": class_entries,
-            "magnitudes": per_magnitude,
-            "safe_limit": limit,
-            "suggestion": _suggestion(transform, checked, verdicts, flows, classes),
-            "evidence_sheet": sheet,
-        })
-
-    _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
-
-    return CheckResult.from_json({
-        "recipe": recipe.name,
-        "model": {"cv_accuracy": round(cv_accuracy, 4) if math.isfinite(cv_accuracy) else None,
-                  "chance": round(chance, 4), "weak": weak},
-        "baseline": {classes[c]: {"change_rate": round(float(baseline_change[c]), 4),
-                                  "leave_rate": round(float(baseline_leave[c]), 4)}
-                     for c in range(len(classes))},
-        "transforms": report,
-        "warnings": warnings,
-        "decision_rule": DECISION_RULE,
-        "n_images": int(len(labels)),
-    })
 
 
 def _round_robin(groups, limit):

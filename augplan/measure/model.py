@@ -19,7 +19,18 @@ from augplan.measure.stats import wilson_interval
 from augplan.parallel import single_threaded
 from augplan.thresholds import MAX_FOLDS, beyond_chance
 
-__all__ = ["FeatureModel"]
+__all__ = ["FeatureModel", "is_weak"]
+
+
+def is_weak(cv_accuracy, cv_low, chance):
+    """Whether a cross-validated accuracy is not clearly better than chance.
+
+    Weak when the accuracy is not finite, is below `beyond_chance` of
+    ``chance``, or its lower Wilson bound ``cv_low`` is at or below chance
+    (the margin could be luck on a small set). See `FeatureModel`'s ``weak_``.
+    """
+    cv_accuracy = float(cv_accuracy)
+    return bool(not np.isfinite(cv_accuracy) or cv_accuracy < beyond_chance(chance) or cv_low <= chance)
 
 
 def _count_folds(labels):
@@ -223,11 +234,7 @@ class FeatureModel(ClassifierMixin, BaseEstimator):
             self.cv_predictions_ = None
             self.cv_accuracy_ = float("nan")
             self.cv_accuracy_ci_ = (0.0, 1.0)
-        self.weak_ = bool(
-            folds < 2
-            or self.cv_accuracy_ < beyond_chance(self.chance_)
-            or self.cv_accuracy_ci_[0] <= self.chance_
-        )
+        self.weak_ = folds < 2 or is_weak(self.cv_accuracy_, self.cv_accuracy_ci_[0], self.chance_)
         self.scaler_ = StandardScaler().fit(features)
         scaled = self.scaler_.transform(features).astype(solver_dtype, copy=False)
         self.estimator_ = self._make_estimator(random_state).fit(scaled, labels)

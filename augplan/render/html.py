@@ -362,6 +362,11 @@ def _transform_text(step, fallback):
     return f"<strong>{_e(op)}</strong>" + (f" <span class=\"note\">{_e(text)}</span>" if text else "")
 
 
+def _stage_text(stage):
+    names = {"screen": "by the screen", "confirmation": "by training"}
+    return f'<br><span class="note">{names[stage]}</span>' if stage in names else ""
+
+
 def _swaps_text(swaps, limit=2):
     swaps = [s for s in (swaps or []) if isinstance(s, dict)]
     if not swaps:
@@ -432,7 +437,7 @@ def _check_section(entry, number, base_dir):
         rows.append([
             _e(index),
             _transform_text(step, transform),
-            _badge(transform.get("verdict")),
+            _badge(transform.get("verdict")) + _stage_text(transform.get("decided_by")),
             _rate_ci(transform.get("change_rate"), transform.get("change_rate_ci")),
             _rate_ci(transform.get("leave_rate"), transform.get("leave_rate_ci")),
             _swaps_text(transform.get("swaps")),
@@ -442,8 +447,8 @@ def _check_section(entry, number, base_dir):
         row_classes.append("")
     if rows:
         out.append(_table(
-            ["#", "transform", "verdict", "moved to another class<br>(95% CI)",
-             "left every class<br>(95% CI)", "main swaps", "safe limit", "what vetting did"],
+            ["#", "transform", "verdict", "moved to another class<br>(screen, 95% CI)",
+             "left every class<br>(screen, 95% CI)", "confirmed swaps", "safe limit", "what vetting did"],
             rows, numeric=(0, 3, 4), row_classes=row_classes, wide=True))
     else:
         out.append('<p class="note">The check recorded no transforms.</p>')
@@ -1050,8 +1055,21 @@ def _draws_block(entry, base_dir):
                       f"contact sheet of augmented draws of {name}", base_dir))
 
 
+_HOW_TO_READ_CHECK = ("<p><strong>How to read this.</strong> Each transform was judged in two stages. "
+                   "The <em>screen</em> applies it to every training image and asks, with a model that "
+                   "never saw that image, whether the transformed image still lands in its own class; "
+                   "a transform it clears is safe. Every other transform is <em>confirmed by "
+                   "training</em>: the same small model is trained with the transform and without it, "
+                   "and both are scored on original images they did not see. A transform breaks when "
+                   "one named class is then mistaken for another far more often, and the screen saw "
+                   "the transformed images land in that class; it is safe when no class loses more "
+                   "than the stated margin; otherwise it is unverified and a person must look.</p>")
+
+
 def _appendix(evidence, recipes):
     out = ['<section id="appendix"><h2>Appendix: decision rules</h2>']
+    if any((entry.get("check") or {}).get("decision_rule") for entry in recipes):
+        out.append(_HOW_TO_READ_CHECK)
     rules = []
     for entry in recipes:
         check_rule = (entry.get("check") or {}).get("decision_rule")

@@ -56,7 +56,10 @@ def _params_text(params):
 
 
 def _swaps_text(swaps, limit=3):
-    return "; ".join(f"{s['from']} -> {s['to']} {s['rate']:.0%} (n={s['n']})" for s in swaps[:limit])
+    return "; ".join(f"{s['from']} -> {s['to']} {s['rate']:+.0%} (n={s['n']})" for s in swaps[:limit])
+
+
+_STAGE = {"screen": "screen", "confirmation": "training"}
 
 
 def check_table(result):
@@ -64,17 +67,17 @@ def check_table(result):
     rows = []
     for t in result["transforms"]:
         rows.append([t["index"], f"{t['op']} {_params_text(t['params'])}", t["verdict"],
+                     _STAGE.get(t.get("decided_by"), "-"),
                      f"{t['change_rate']:.2f} {format_interval(*t['change_rate_ci'])}",
-                     f"{t.get('leave_rate', 0.0):.2f}", format_range(t.get("safe_limit"))])
+                     format_range(t.get("safe_limit"))])
     model = result["model"]
     head = (f"recipe {result['recipe']}: proxy model cross-validated accuracy "
             f"{model['cv_accuracy']:.2f} (chance {model.get('chance', float('nan')):.2f})")
-    table = format_table(["#", "transform", "verdict", "changed [95% CI]", "left", "safe limit"], rows)
+    table = format_table(["#", "transform", "verdict", "decided by", "moved [95% CI]", "safe limit"], rows)
     notes = []
     for t in result["transforms"]:
-        swaps = [swap for swap in t["swaps"] if swap["rate"] >= 0.05]
-        if swaps and t["verdict"] != "safe":
-            notes.append(f"#{t['index']} {t['op']} moves {_swaps_text(swaps)}")
+        if t["swaps"] and t["verdict"] != "safe":
+            notes.append(f"#{t['index']} {t['op']} confirmed swaps: {_swaps_text(t['swaps'])}")
         if t.get("suggestion"):
             suggestion = t["suggestion"]
             if "relabel" in suggestion:
@@ -84,8 +87,11 @@ def check_table(result):
                 notes.append(f"#{t['index']} {t['op']}: safe only for: {', '.join(suggestion['only'])}")
         if t.get("note"):
             notes.append(f"#{t['index']} {t['op']}: {t['note']}")
-    legend = ("changed: share of transformed images that land in another class;\n"
-              "left: share outside every class's region (nothing in the data can judge them)")
+    legend = ("decided by: screen (where transformed images land, out-of-fold) or training\n"
+              "(the proxy trained with the transform against it trained without, compared on\n"
+              "held-out originals); moved: the screen's share of transformed images landing in\n"
+              "another class, at the worst magnitude; swap A -> B +x%: the rise in B's\n"
+              "originals predicted as A once A's transformed images are learnt (n: B's images)")
     return "\n".join([wrap(head), table, *(wrap(note) for note in notes), legend])
 
 

@@ -70,13 +70,28 @@ def _collect_figures(entries, scratch):
     return figures
 
 
-def _drop_unsafe_rewrites(vetted, changes, rechecked):
-    """Remove relabelled or scoped steps whose re-check is not safe; update ``changes``."""
+def _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check):
+    """Undo relabelled or scoped steps whose re-check is not safe; update ``changes``.
+
+    A rejected rewrite falls back to the original step clipped to its safe
+    limit when the first check measured one, and is removed otherwise.
+    """
+    from augplan.vet.vetted_file import _clip_to_limit, _range_text
+
     kept = [change for change in changes if change["action"] != "remove"]
     verdicts = {t["index"]: t["verdict"] for t in rechecked["transforms"]}
+    entries = {t["index"]: t for t in check["transforms"]}
     steps = []
     for position, (change, step) in enumerate(zip(kept, vetted.transforms)):
         if change["action"] in ("relabel", "scope") and verdicts[position] != "safe":
+            original, entry = recipe.transforms[change["index"]], entries[change["index"]]
+            clipped = _clip_to_limit(original, entry)
+            if clipped is not None and clipped != original:
+                change["detail"] += (f"; re-checked as rewritten it is still {verdicts[position]}: "
+                                     f"clipped to the safe limit {_range_text(entry['safe_limit'])} instead")
+                change["action"] = "clip"
+                steps.append(clipped)
+                continue
             change["detail"] += f"; removed: re-checked as rewritten, it is still {verdicts[position]}"
             change["action"] = "remove"
             continue
@@ -224,7 +239,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                 # measure it, and drop a rewritten step that is still not safe.
                 rechecked = check_recipe(dataset, vetted, sample=sample, seed=seed, workers=workers,
                                          quiet=quiet)
-                vetted = _drop_unsafe_rewrites(vetted, changes, rechecked)
+                vetted = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
             unchanged = vetted.transforms == recipe.transforms
             signoff = _signoff_items(changes)
             if not unchanged:

@@ -79,7 +79,7 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     ----------
     recipe : augplan.recipe.Recipe
     check_result : dict
-        The document of ``augplan.invariance.check_recipe`` for this recipe.
+        The document of ``augplan.check.check.check_recipe`` for this recipe.
     approve : iterable of int
         Indices of unverified transforms a person has looked at and approved.
 
