@@ -31,7 +31,7 @@ _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 _JPEG_SIGNATURE = b"\xff\xd8\xff"
 # Evidence sheets are embedded with this many colours (median cut), which
 # keeps a report of many sheets small; the sheet files keep every colour.
-_EVIDENCE_COLOURS = 64
+_EVIDENCE_COLOURS = 32
 # Pairs listed in full; a long list is summarised (evidence.json keeps all).
 _LEAKS_SHOWN = 25
 _DASH = "\u2013"

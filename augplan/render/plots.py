@@ -34,7 +34,7 @@ def palette_png(image, colours=64):
     return buffer.getvalue()
 
 
-def jpeg_bytes(image, quality=75):
+def jpeg_bytes(image, quality=65):
     """Encode a PIL image as a baseline JPEG (4:2:0, no metadata): for photographs, not line art."""
     if not isinstance(image, Image.Image):
         raise TypeError(f"image must be a PIL image; got {type(image).__name__}")
@@ -110,7 +110,7 @@ def factor_grid(factors, *, title=None):
         figure.suptitle(title, fontsize=9)
     canvas.draw()
     width, height_px = canvas.get_width_height()
-    return palette_png(Image.frombuffer("RGBA", (width, height_px), canvas.buffer_rgba(), "raw", "RGBA", 0, 1))
+    return palette_png(Image.frombuffer("RGBA", (width, height_px), canvas.buffer_rgba(), "raw", "RGBA", 0, 1), 32)
 
 
 def with_factor_plots(result, plots_dir):
