@@ -5,6 +5,7 @@ partial file behind: the temporary file is removed on any exception,
 ``KeyboardInterrupt`` included.
 """
 
+import errno
 import os
 import tempfile
 from pathlib import Path
@@ -32,10 +33,15 @@ def write_bytes_atomic(path, data, *, durable=True):
         The destination path.
     """
     path = Path(path)
+    if path.is_dir():
+        raise IsADirectoryError(errno.EISDIR, "is a folder; expected the path of a file to write", str(path))
     # mkstemp creates 0600 files; give the output the permissions any new file gets.
     umask = os.umask(0)
     os.umask(umask)
-    handle, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        handle, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    except OSError as error:
+        raise _naming(error, path) from None
     try:
         with os.fdopen(handle, "wb") as tmp:
             tmp.write(data)
@@ -44,13 +50,20 @@ def write_bytes_atomic(path, data, *, durable=True):
                 os.fsync(tmp.fileno())
         os.chmod(tmp_name, 0o666 & ~umask)
         os.replace(tmp_name, path)
-    except BaseException:
+    except BaseException as error:
         try:
             os.unlink(tmp_name)
         except FileNotFoundError:
             pass
+        if isinstance(error, OSError):
+            raise _naming(error, path) from None
         raise
     return path
+
+
+def _naming(error, path):
+    """The same OS error, naming the output the user asked for, not our temporary file."""
+    return type(error)(error.errno, error.strerror or str(error), str(path))
 
 
 def write_text_atomic(path, text):

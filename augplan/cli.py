@@ -29,11 +29,15 @@ class ExitCode(IntEnum):
     INTERRUPTED = 130
 
 
+class _UsageError(BadInputError):
+    """A command-line usage fault; its text already starts with the command's name."""
+
+
 class _Parser(argparse.ArgumentParser):
     """An argument parser that raises instead of exiting, so main() returns codes."""
 
     def error(self, message):
-        raise BadInputError(f"{self.prog}: {message} (see '{self.prog} --help')")
+        raise _UsageError(f"{self.prog}: error: {message} (see '{self.prog} --help')")
 
 
 def _common(parser, *, data=True, json_flag=True):
@@ -42,9 +46,9 @@ def _common(parser, *, data=True, json_flag=True):
                             help="data folder (train/<class>/..., val/<class>/...) or a CSV manifest")
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
-    parser.add_argument("--seed", type=int, default=0, help="seed of the analysis (default 0)")
+    parser.add_argument("--seed", type=_seed, default=0, help="seed of the analysis (default 0)")
     if data:
-        parser.add_argument("--split-seed", type=int, default=0,
+        parser.add_argument("--split-seed", type=_seed, default=0,
                             help="seed of the stratified validation split made when DATA has no val/ "
                                  "(default 0); apart from --seed so the data stay the same across analyses")
     parser.add_argument("--quiet", action="store_true", help="no progress bars, no warnings on stderr")
@@ -52,6 +56,28 @@ def _common(parser, *, data=True, json_flag=True):
         parser.add_argument("--json", action="store_true",
                             help="print one JSON document on stdout; human text goes to stderr")
     parser.add_argument("--traceback", action="store_true", help="show the traceback of an unexpected error")
+
+
+def _seed(text):
+    """The one validation of --seed, shared by every command."""
+    from augplan.recipe.parse import MAX_SEED
+
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED}; got {text!r}") from None
+    if not 0 <= value <= MAX_SEED:
+        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED}; got {value}")
+    return value
+
+
+def _recipe_name(text):
+    from augplan.recipe.parse import recipe_name_fault
+
+    fault = recipe_name_fault(text)
+    if fault is not None:
+        raise argparse.ArgumentTypeError(f"a recipe name {fault}; got {text!r}")
+    return text
 
 
 def _positive_int(text):
@@ -74,6 +100,11 @@ def _workers(parser, *, ship_images=True):
         parser.add_argument("--ship-images", action="store_true",
                             help="send the image files' bytes to the workers with the work, for "
                                  "workers that cannot see the data folder (files held in memory)")
+
+
+def _cache_flag(parser):
+    parser.add_argument("--cache", type=Path, default=None, metavar="DIR",
+                        help="feature cache of the original images (default .augplan/features beside DATA)")
 
 
 def _execution(args):
@@ -122,13 +153,14 @@ def _build_parser():
                    help="carve this share of val out as a confirmation split scored once")
     p.add_argument("--ledger", type=Path, default=None,
                    help="results ledger (default .augplan/ledger.sqlite beside DATA)")
+    _cache_flag(p)
     p.add_argument("--field", type=Path, default=None, help="labelled field sample folder (default DATA/field)")
 
     p = commands.add_parser("draft", help="propose a candidate recipe from the data")
     _common(p, json_flag=False)
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
     p.add_argument("-o", "--output", required=True, type=Path, help="recipe YAML to write")
-    p.add_argument("--name", default="draft", help="name of the drafted recipe (default 'draft')")
+    p.add_argument("--name", type=_recipe_name, default="draft", help="name of the drafted recipe (default 'draft')")
 
     p = commands.add_parser("vet", help="the whole job: check, coverage, evaluate, report, vetted export")
     _common(p)
@@ -140,7 +172,9 @@ def _build_parser():
     p.add_argument("--approve", default="", help="indices of unverified transforms to keep, e.g. 3,5")
     p.add_argument("--repeats", type=_positive_int, default=5, help="evaluation repeats (default 5)")
     p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class for check")
-    p.add_argument("--ledger", type=Path, default=None, help="results ledger path")
+    p.add_argument("--ledger", type=Path, default=None,
+                   help="results ledger (default .augplan/ledger.sqlite beside DATA)")
+    _cache_flag(p)
 
     p = commands.add_parser("verify", help="check a vetted recipe's checksum and validity")
     _common(p, data=False)
@@ -200,10 +234,13 @@ def _open_data(args, *, field=None):
     return dataset.with_image_bytes() if getattr(args, "ship_images", False) else dataset
 
 
-def _read_recipes(paths):
-    from augplan.recipe.parse import read_recipe
+def _read_recipes(paths, dataset):
+    """Read each recipe and check its class names against the data's classes."""
+    from augplan.recipe.parse import check_recipe_classes, read_recipe
 
     recipes = [read_recipe(path) for path in paths]
+    for recipe in recipes:
+        check_recipe_classes(recipe, dataset.classes)
     names = [recipe.name for recipe in recipes]
     repeated = sorted({name for name in names if names.count(name) > 1})
     if repeated:
@@ -231,15 +268,38 @@ def _report_leaks(console, dataset):
     return leaks
 
 
+def _stores(args, dataset, console):
+    """The results ledger and feature cache of a run: outside the data folder.
+
+    Both default to ``.augplan/`` beside the data folder (for a manifest, the
+    folder it lies in). A cache folder that cannot be created (read-only
+    storage) turns the disk cache off with a warning instead of failing.
+    """
+    from augplan.workspace import ensure_outside_data
+
+    ledger = args.ledger or default_ledger(dataset.root)
+    cache = args.cache or default_feature_cache(dataset.root)
+    ensure_outside_data(ledger, dataset.root, what="results ledger")
+    ensure_outside_data(cache, dataset.root, what="feature cache")
+    try:
+        Path(cache).mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        if args.cache is not None:
+            raise
+        console.warn(f"{cache}: cannot hold the feature cache ({error.strerror}); features are computed "
+                     "afresh each run. Pass --cache DIR to keep them.")
+        cache = False
+    return ledger, cache
+
+
 def _run_preview(args, console):
     from augplan.render.sheets import preview_sheet, save_png
-    from augplan.recipe.parse import read_recipe
     import numpy as np
 
     dataset = _open_data(args)
     _report_dataset(console, dataset)
-    _ensure_parent(args.output, dataset)
-    recipe = read_recipe(args.recipe)
+    _ensure_parent(args.output, dataset, inputs=[args.recipe])
+    recipe = _read_recipes([args.recipe], dataset)[0]
     sheet = preview_sheet(dataset, recipe, per_class=args.per_class, draws=args.draws,
                           rng=np.random.default_rng(args.seed))
     save_png(sheet, args.output)
@@ -247,10 +307,14 @@ def _run_preview(args, console):
     return ExitCode.OK
 
 
-def _ensure_parent(path, dataset=None):
+def _ensure_parent(path, dataset=None, inputs=()):
     parent = Path(path).resolve().parent
     if not parent.is_dir():
         raise BadInputError(f"{path}: the folder {parent} does not exist")
+    for given in inputs:
+        if Path(path).exists() and Path(given).exists() and os.path.samefile(path, given):
+            raise BadInputError(f"{path}: is the input {given}; no output may replace an input. "
+                                "Choose another output file.")
     if dataset is not None:
         from augplan.workspace import ensure_outside_data
 
@@ -277,7 +341,7 @@ def _run_check(args, console):
     if args.evidence is not None:
         _ensure_parent(args.evidence, dataset)
     leaks = _report_leaks(console, dataset)
-    recipe = _read_recipes([args.recipe])[0]
+    recipe = _read_recipes([args.recipe], dataset)[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, evidence_dir=args.evidence)
     return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.check_table)
@@ -291,7 +355,7 @@ def _run_coverage(args, console):
     _report_dataset(console, dataset)
     if args.plots is not None:
         _ensure_parent(args.plots, dataset)
-    recipe = _read_recipes([args.recipe])[0]
+    recipe = _read_recipes([args.recipe], dataset)[0]
     result = analyse_coverage(dataset, recipe, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     if args.plots is not None:
         from augplan.render.plots import with_factor_plots
@@ -307,10 +371,11 @@ def _run_evaluate(args, console):
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
     leaks = _report_leaks(console, dataset)
-    recipes = _read_recipes(args.recipe)
+    recipes = _read_recipes(args.recipe, dataset)
+    ledger, cache = _stores(args, dataset, console)
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
-                              quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
-                              cache_dir=default_feature_cache(dataset.root), confirm_fraction=args.confirm_fraction)
+                              quiet=args.quiet, ledger_path=ledger, cache_dir=cache,
+                              confirm_fraction=args.confirm_fraction)
     return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.leaderboard_table)
 
 
@@ -341,11 +406,11 @@ def _run_vet(args, console):
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
-    recipes = _read_recipes(args.recipe)
+    recipes = _read_recipes(args.recipe, dataset)
+    ledger, cache = _stores(args, dataset, console)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
                           repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
-                          quiet=args.quiet, ledger_path=args.ledger or default_ledger(dataset.root),
-                          cache_dir=default_feature_cache(dataset.root))
+                          quiet=args.quiet, ledger_path=ledger, cache_dir=cache)
     _say_vetted(console, args, summary)
     return ExitCode.FLAGGED if summary.flagged else ExitCode.OK
 
@@ -424,6 +489,9 @@ def main(argv=None):
         return _COMMANDS[args.command](args, console)
     except SystemExit as stop:  # --help and --version
         return ExitCode.OK if stop.code in (0, None) else ExitCode.BAD_INPUT
+    except _UsageError as error:
+        print(error, file=sys.stderr)
+        return ExitCode.BAD_INPUT
     except BadInputError as error:
         print(f"augplan: error: {error}", file=sys.stderr)
         return ExitCode.BAD_INPUT

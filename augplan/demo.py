@@ -317,7 +317,7 @@ def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
     # The demo keeps its ledger beside its output folder, as a data set keeps it beside the data.
     ledger = default_ledger(Path(out_dir).resolve())
     ledger.parent.mkdir(parents=True, exist_ok=True)
-    return vet_recipes(dataset, recipes, out_dir, force=True, repeats=repeats, seed=seed, workers=workers,
+    return vet_recipes(dataset, recipes, out_dir, replace=True, repeats=repeats, seed=seed, workers=workers,
                        quiet=quiet, ledger_path=ledger, cache_dir=ledger.parent / "features")
 
 

@@ -129,16 +129,16 @@ def _class_symlink_loop(ctx):
 
 def _unreadable(ctx):
     # Tests run as root, where chmod 000 does not stop reading: permission
-    # denial is simulated by making Path.read_bytes raise for one file.
+    # denial is simulated by making os.open raise for one file.
     target = ctx.image("train/alpha/locked.png")
-    real_read = Path.read_bytes
+    real_open = os.open
 
-    def read_bytes(self):
-        if self.name == target.name:
-            raise PermissionError(13, "Permission denied", str(self))
-        return real_read(self)
+    def os_open(path, *args, **kwargs):
+        if Path(path).name == target.name:
+            raise PermissionError(13, "Permission denied", str(path))
+        return real_open(path, *args, **kwargs)
 
-    ctx.monkeypatch.setattr(Path, "read_bytes", read_bytes)
+    ctx.monkeypatch.setattr(os, "open", os_open)
     return ctx.preview()
 
 
@@ -271,9 +271,9 @@ RECIPE_CASES = [
     ("recipe-probability-negative",
      "name: t\ntransforms:\n  - op: flip\n    axis: horizontal\n    probability: -0.1\n",
      ["bad.yaml", "probability", "-0.1"]),
-    ("recipe-zoom-zero", "name: t\ntransforms:\n  - op: zoom\n    factor: 0\n", ["bad.yaml", "factor", "> 0"]),
+    ("recipe-zoom-zero", "name: t\ntransforms:\n  - op: zoom\n    factor: 0\n", ["bad.yaml", "factor", "between 0.1"]),
     ("recipe-zoom-negative", "name: t\ntransforms:\n  - op: zoom\n    factor: [-1, 1.2]\n",
-     ["bad.yaml", "factor", "> 0"]),
+     ["bad.yaml", "factor", "between 0.1"]),
     ("recipe-nan", "name: t\ntransforms:\n  - op: rotate\n    degrees: [.nan, 3]\n", ["bad.yaml", "degrees", "nan"]),
     ("recipe-infinite", "name: t\ntransforms:\n  - op: brightness\n    factor: [0.5, .inf]\n",
      ["bad.yaml", "factor", "inf"]),
@@ -284,11 +284,83 @@ RECIPE_CASES = [
     ("recipe-no-name", "transforms: []\n", ["bad.yaml", "name"]),
     ("recipe-bad-axis", "name: t\ntransforms:\n  - op: flip\n    axis: diagonal\n", ["bad.yaml", "axis", "diagonal"]),
     ("recipe-bad-fill", "name: t\nfill: wrap\n", ["bad.yaml", "fill", "wrap"]),
+    # sane bounds per field: values the engine cannot compute are refused by the checker
+    ("recipe-huge-degrees", "name: t\ntransforms:\n  - op: rotate\n    degrees: [-1e308, 1e308]\n",
+     ["bad.yaml line 4", "degrees", "between -360 and 360"]),
+    ("recipe-huge-blur", "name: t\ntransforms:\n  - op: blur\n    sigma: 1e308\n",
+     ["bad.yaml line 4", "sigma", "between 0 and 20"]),
+    ("recipe-tiny-zoom", "name: t\ntransforms:\n  - op: zoom\n    factor: 1e-300\n",
+     ["bad.yaml line 4", "factor", "between 0.1 and 10"]),
+    ("recipe-huge-noise", "name: t\ntransforms:\n  - op: noise\n    sigma: 1e308\n",
+     ["bad.yaml line 4", "sigma", "between 0 and 1"]),
+    ("recipe-huge-hue", "name: t\ntransforms:\n  - op: hue\n    degrees: [-400, 10]\n",
+     ["bad.yaml line 4", "degrees", "between -180 and 180"]),
+    ("recipe-billion-copies", "name: t\ncopies: 1000000000\n", ["bad.yaml line 2", "copies", "<= 1000"]),
+    ("recipe-huge-seed", "name: t\nseed: 1180591620717411303424\n", ["bad.yaml line 2", "seed", "<="]),
+    # names become file names (vet writes vetted-<name>.yaml): refused when read
+    ("recipe-name-with-slash", "name: a/b\n", ["bad.yaml line 1", "'name'", "file name", "a/b"]),
+    ("recipe-name-300-characters", f"name: {'n' * 300}\n", ["bad.yaml line 1", "'name'", "100 bytes"]),
+    ("recipe-name-leading-dot", "name: .hidden\n", ["bad.yaml line 1", "'name'", "'.'"]),
+    # relabel is one-to-one: two classes into one would merge them
+    ("recipe-relabel-two-into-one",
+     "name: t\ntransforms:\n  - op: flip\n    relabel: {alpha: beta, gamma: beta}\n",
+     ["bad.yaml line 4", "relabel", "one-to-one", "'alpha' and 'gamma'"]),
+    ("recipe-relabel-to-itself", "name: t\ntransforms:\n  - op: flip\n    relabel: {alpha: alpha}\n",
+     ["bad.yaml line 4", "relabel", "itself"]),
 ]
 
 
 def _recipe_case(text):
     return lambda ctx: ctx.recipe_text(text)
+
+
+def _class_case(step, command="preview"):
+    """A recipe whose scope or relabel names ``step``'s classes, run through ``command``."""
+    def build(ctx):
+        path = ctx.tmp / "scoped.yaml"
+        path.write_text(f"name: scoped\ncopies: 1\ntransforms:\n  - op: flip\n    {step}\n", encoding="utf-8")
+        if command == "preview":
+            return ctx.preview(recipe=path)
+        extra = {"evaluate": ["--repeats", "1"], "vet": ["-o", ctx.tmp / "vetted", "--repeats", "1"]}
+        return [command, ctx.data, "--recipe", path, "--quiet", *extra.get(command, [])]
+    return build
+
+
+def _recipe_fifo(ctx):
+    os.mkfifo(ctx.tmp / "fifo.yaml")
+    return ctx.preview(recipe=ctx.tmp / "fifo.yaml")
+
+
+def _recipe_dev_zero(ctx):
+    os.symlink("/dev/zero", ctx.tmp / "zero.yaml")
+    return ctx.preview(recipe=ctx.tmp / "zero.yaml")
+
+
+def _image_link_to_dev_zero(ctx):
+    os.symlink("/dev/zero", ctx.data / "train" / "alpha" / "zero.png")
+    return ctx.preview()
+
+
+def _image_link_to_fifo(ctx):
+    os.mkfifo(ctx.tmp / "pipe")
+    os.symlink(ctx.tmp / "pipe", ctx.data / "train" / "alpha" / "pipe.png")
+    return ctx.preview()
+
+
+def _image_fifo(ctx):
+    os.mkfifo(ctx.data / "train" / "alpha" / "fifo.png")
+    return ctx.preview()
+
+
+def _folder_symlink_out(ctx):
+    outside = ctx.image("../outside-folder-link.png")
+    os.symlink(outside, ctx.data / "train" / "alpha" / "link.png")
+    return ctx.preview()
+
+
+def _folder_symlink_inside(ctx):
+    os.symlink(ctx.data / "train" / "alpha" / "00.png", ctx.data / "train" / "alpha" / "same.png")
+    return ctx.preview("--strict")
 
 
 # --------------------------------------------------------------------------
@@ -332,6 +404,14 @@ def _manifest_symlink_out(ctx):
     ctx.image("../outside-link.png")
     os.symlink(ctx.tmp / "outside-link.png", ctx.data / "train" / "alpha" / "link.png")
     return _manifest(ctx, "\n".join(_manifest_rows(ctx) + ["train/alpha/link.png,alpha,train"]) + "\n")
+
+
+def _manifest_nul_byte(ctx):
+    return _manifest(ctx, "\n".join(_manifest_rows(ctx) + ["train/alpha/0\x000.png,alpha,train"]) + "\n")
+
+
+def _manifest_huge_field(ctx):
+    return _manifest(ctx, "\n".join(_manifest_rows(ctx) + ['"' + "x" * 140_000 + '",alpha,train']) + "\n")
 
 
 def _manifest_unknown_split(ctx):
@@ -382,6 +462,69 @@ def _evaluate_repeats_zero(ctx):
 
 def _seed_not_a_number(ctx):
     return ctx.preview("--seed", "seven")
+
+
+def _seed_for(command, value):
+    def build(ctx):
+        if command == "preview":
+            return ctx.preview("--seed", value)
+        extra = {"draft": ["-o", ctx.tmp / "draft.yaml"], "vet": ["--recipe", ctx.recipe, "-o", ctx.tmp / "v"],
+                 "check": ["--recipe", ctx.recipe], "coverage": ["--recipe", ctx.recipe],
+                 "evaluate": ["--recipe", ctx.recipe]}
+        return [command, ctx.data, *extra[command], "--seed", value]
+    return build
+
+
+def _ledger_inside_data(command):
+    def build(ctx):
+        extra = ["-o", ctx.tmp / "vetted"] if command == "vet" else []
+        return [command, ctx.data, "--recipe", ctx.recipe, "--repeats", "1", "--quiet", *extra,
+                "--ledger", ctx.data / "val" / "ledger.sqlite"]
+    return build
+
+
+def _cache_inside_data(ctx):
+    return ["evaluate", ctx.data, "--recipe", ctx.recipe, "--repeats", "1", "--quiet",
+            "--cache", ctx.data / "features"]
+
+
+def _preview_over_recipe(ctx):
+    return ["preview", ctx.data, "--recipe", ctx.recipe, "-o", ctx.recipe, "--per-class", "1", "--draws", "1"]
+
+
+def _preview_into_folder(ctx):
+    return ["preview", ctx.data, "--recipe", ctx.recipe, "-o", ctx.out, "--per-class", "1", "--draws", "1"]
+
+
+def _foreign_ledger(ctx):
+    import sqlite3
+
+    path = ctx.tmp / "contacts.sqlite"
+    with sqlite3.connect(path) as connection:
+        connection.execute("CREATE TABLE people (name TEXT)")
+    return ["history", "--ledger", path]
+
+
+def _damaged_ledger(ctx):
+    from augplan.evaluate import ledger
+
+    path = ctx.tmp / "ledger.sqlite"
+    ledger.store_results(path, fingerprint="f" * 64, settings_key="s" * 24, seed=0, repeats=1,
+                         baseline={}, results=[{"recipe_hash": f"{n:064x}", "name": "x" * 3000}
+                                               for n in range(40)])
+    data = bytearray(path.read_bytes())
+    data[4096:8192] = b"\xff" * 4096  # the second page overwritten
+    path.write_bytes(bytes(data))
+    return ["history", "--ledger", path]
+
+
+def _newer_ledger(ctx):
+    import sqlite3
+
+    path = ctx.tmp / "ledger.sqlite"
+    with sqlite3.connect(path) as connection:
+        connection.execute("PRAGMA user_version = 99")
+    return ["history", "--ledger", path]
 
 
 def _unknown_command(ctx):
@@ -438,6 +581,25 @@ CASES = [
     pytest.param(_manifest_symlink_out, ERROR, ["manifest.csv", "link.png", "outside the data folder"],
                  id="manifest-symlink-escapes"),
     pytest.param(_manifest_unknown_split, ERROR, ["manifest.csv", "holdout"], id="manifest-unknown-split"),
+    pytest.param(_manifest_nul_byte, ERROR, ["manifest.csv line", "NUL"], id="manifest-nul-byte"),
+    pytest.param(_manifest_huge_field, ERROR, ["manifest.csv line", "field larger"], id="manifest-field-over-limit"),
+    # files that are not what they seem: only regular files are read
+    pytest.param(_recipe_fifo, ERROR, ["fifo.yaml", "FIFO", "regular file"], id="recipe-is-a-fifo"),
+    pytest.param(_recipe_dev_zero, ERROR, ["zero.yaml", "device", "regular file"], id="recipe-is-dev-zero"),
+    pytest.param(_image_link_to_dev_zero, SKIP, ["zero.png", "outside the data folder"], id="image-link-to-dev-zero"),
+    pytest.param(_image_link_to_fifo, SKIP, ["pipe.png", "outside the data folder"], id="image-link-to-fifo"),
+    pytest.param(_image_fifo, SKIP, ["fifo.png", "FIFO", "regular file"], id="image-is-a-fifo"),
+    # one rule for folders and manifests: links are followed only within the data folder
+    pytest.param(_folder_symlink_out, SKIP, ["link.png", "outside the data folder"], id="folder-symlink-escapes"),
+    pytest.param(_folder_symlink_inside, ACCEPT, [], id="folder-symlink-within-data"),
+    # class names in only/except/relabel must be classes of the data
+    pytest.param(_class_case("only: [alphaa]"), ERROR,
+                 ["scoped.yaml line 5", "'only'", "alphaa", "closest class is 'alpha'"], id="only-misspelt-class"),
+    pytest.param(_class_case("except: [gamma]"), ERROR, ["scoped.yaml line 5", "'except'", "gamma", "lacks"],
+                 id="except-unknown-class"),
+    *[pytest.param(_class_case("relabel: {alpha: ghost, ghost: alpha}", command), ERROR,
+                   ["scoped.yaml line 5", "'relabel'", "ghost", "lacks"], id=f"relabel-ghost-class-{command}")
+      for command in ("preview", "check", "coverage", "evaluate", "vet")],
     # flags and outputs
     pytest.param(_strict_non_image, ERROR, ["readme.txt", "strict"], id="strict-non-image"),
     pytest.param(_output_in_missing_folder, ERROR, ["missing", "does not exist"], id="output-in-missing-folder"),
@@ -449,7 +611,24 @@ CASES = [
     pytest.param(_check_sample_zero, ERROR, ["--sample", "0"], id="check-sample-zero"),
     pytest.param(_evaluate_repeats_zero, ERROR, ["--repeats", "0"], id="evaluate-repeats-zero"),
     pytest.param(_seed_not_a_number, ERROR, ["--seed", "seven"], id="seed-not-a-number"),
+    *[pytest.param(_seed_for(command, value), ERROR, ["--seed", value], id=f"{command}-seed-{label}")
+      for command in ("preview", "check", "coverage", "evaluate", "draft", "vet")
+      for value, label in (("-1", "negative"), (str(2**70), "2-to-the-70"))],
+    pytest.param(lambda c: ["draft", c.data, "-o", c.tmp / "d.yaml", "--name", "a/b"], ERROR,
+                 ["--name", "file name", "a/b"], id="draft-name-not-file-safe"),
     pytest.param(_unknown_command, ERROR, ["frobnicate", "invalid choice"], id="unknown-command"),
+    # where augplan writes: never into the data, never over an input
+    *[pytest.param(_ledger_inside_data(command), ERROR, ["ledger.sqlite", "inside the data folder"],
+                   id=f"{command}-ledger-inside-data") for command in ("evaluate", "vet")],
+    pytest.param(_cache_inside_data, ERROR, ["features", "inside the data folder"], id="evaluate-cache-inside-data"),
+    pytest.param(_preview_over_recipe, ERROR, ["recipe.yaml", "no output may replace an input"],
+                 id="preview-output-is-the-recipe"),
+    pytest.param(_preview_into_folder, ERROR, ["out", "is a folder"], id="preview-output-is-a-folder"),
+    # damaged stores
+    pytest.param(_foreign_ledger, ERROR, ["contacts.sqlite", "another program", "--ledger"], id="ledger-of-another-program"),
+    pytest.param(_damaged_ledger, ERROR, ["ledger.sqlite", "--ledger", "move this file away"], id="ledger-damaged-pages"),
+    pytest.param(_newer_ledger, ERROR, ["ledger.sqlite", "schema version 99"], id="ledger-newer-schema"),
+    pytest.param(lambda c: ["verify", c.out], ERROR, ["out", "is a folder"], id="verify-a-folder"),
     pytest.param(_ledger_not_sqlite, ERROR, ["recipe.yaml", "ledger"], id="history-ledger-not-sqlite"),
     pytest.param(_same_recipe_twice, ERROR, ["tiny", "more than once"], id="evaluate-same-recipe-twice"),
 ]
@@ -476,6 +655,61 @@ def test_bad_input(build, expect, needles, tmp_path, monkeypatch, run_cli):
         assert needle in result.err, f"{needle!r} not in stderr: {result.err}"
 
 
+def test_largest_seed_runs_check(tmp_path, run_cli):
+    # The largest seed --seed accepts reaches every seeded library call.
+    from augplan.recipe.parse import MAX_SEED
+
+    data = write_tiny_dataset(tmp_path / "DATA")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("name: tiny\ncopies: 1\ntransforms:\n  - op: flip\n", encoding="utf-8")
+    result = run_cli("check", data, "--recipe", recipe, "--seed", MAX_SEED, "--sample", "3", "--quiet")
+    assert result.code in (0, 1), result.err
+
+
+@pytest.mark.parametrize("evidence", ["[1, 2]", "just words", "7"])
+def test_verify_evidence_that_is_not_a_mapping_fails_plainly(evidence, tmp_path, run_cli):
+    path = tmp_path / "vetted.yaml"
+    path.write_text(f"name: v\ntransforms: []\nevidence: {evidence}\nchecksum: abc\n", encoding="utf-8")
+    result = run_cli("verify", path)
+    assert "Traceback" not in result.err and "internal error" not in result.err
+    assert result.code == 1
+    assert "must be a mapping" in result.out
+
+
+def test_preview_over_the_recipe_leaves_the_recipe(tmp_path, run_cli):
+    data = write_tiny_dataset(tmp_path / "DATA")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("name: tiny\ntransforms: []\n", encoding="utf-8")
+    run_cli("preview", data, "--recipe", recipe, "-o", recipe)
+    assert recipe.read_text(encoding="utf-8") == "name: tiny\ntransforms: []\n"
+
+
+def test_foreign_sqlite_file_is_left_as_it_was(tmp_path, run_cli):
+    import hashlib
+    import sqlite3
+
+    path = tmp_path / "contacts.sqlite"
+    with sqlite3.connect(path) as connection:
+        connection.execute("CREATE TABLE people (name TEXT)")
+    before = hashlib.sha256(path.read_bytes()).hexdigest()
+    assert run_cli("history", "--ledger", path).code == 2
+    assert hashlib.sha256(path.read_bytes()).hexdigest() == before
+
+
+def test_unwritable_cache_place_warns_and_evaluates(tmp_path, run_cli):
+    # A file where the default .augplan/ folder would go stands in for read-only
+    # storage beside the data: the run goes on without a disk cache.
+    data = write_tiny_dataset(tmp_path / "DATA")
+    (tmp_path / ".augplan").write_text("in the way\n")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("name: tiny\ncopies: 1\ntransforms:\n  - op: flip\n", encoding="utf-8")
+    result = run_cli("evaluate", data, "--recipe", recipe, "--repeats", "1", "--json",
+                     "--ledger", tmp_path / "elsewhere" / "ledger.sqlite")
+    assert result.code in (0, 1), result.err
+    assert ".augplan" in result.err and "--cache" in result.err
+    assert (tmp_path / "elsewhere" / "ledger.sqlite").is_file()
+
+
 def test_exif_orientation_is_applied_on_read(tmp_path):
     # A 24 x 16 (H x W) image tagged Orientation 6 displays as 16 x 24.
     from augplan.data.dataset import read_image
@@ -500,6 +734,23 @@ def test_verify_missing_file_never_passes(tmp_path, run_cli):
     assert result.code != 0
     assert "Traceback" not in result.err
     assert "no-such-vetted.yaml" in result.out + result.err
+
+
+@pytest.mark.parametrize("damage", [np.full(7, np.nan, np.float32), np.zeros(7, np.float32)],
+                         ids=["all-nan", "wrong-length"])
+def test_damaged_cache_entry_is_recomputed_with_a_warning(tmp_path, run_cli, damage):
+    data = write_tiny_dataset(tmp_path / "DATA")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("name: tiny\ncopies: 1\ntransforms:\n  - op: flip\n", encoding="utf-8")
+    argv = ["evaluate", data, "--recipe", recipe, "--repeats", "1", "--json", "--cache", tmp_path / "cache"]
+    assert run_cli(*argv, "--ledger", tmp_path / "one.sqlite").code in (0, 1)
+    entry = next((tmp_path / "cache").rglob("*.npy"))
+    good = np.load(entry)
+    np.save(entry, damage)
+    result = run_cli(*argv, "--ledger", tmp_path / "two.sqlite")
+    assert result.code in (0, 1), result.err
+    assert "damaged feature-cache" in result.err
+    assert np.array_equal(np.load(entry), good)  # recomputed and rewritten
 
 
 @pytest.mark.parametrize("as_json", [False, True], ids=["table", "json"])

@@ -318,15 +318,15 @@ def _encoded(fmt):
 def test_permission_denied_is_listed(tmp_path, monkeypatch):
     _make_layout(tmp_path)
     locked = tmp_path / "train" / "ok" / "img0.png"
-    original = Path.read_bytes
+    original = os.open
 
-    def read_bytes(self):
-        # Running as root ignores chmod, so the denial is simulated at the read.
-        if self == locked:
-            raise PermissionError(13, "Permission denied", str(self))
-        return original(self)
+    def os_open(path, *args, **kwargs):
+        # Running as root ignores chmod, so the denial is simulated at the open.
+        if Path(path) == locked:
+            raise PermissionError(13, "Permission denied", str(path))
+        return original(path, *args, **kwargs)
 
-    monkeypatch.setattr(Path, "read_bytes", read_bytes)
+    monkeypatch.setattr(os, "open", os_open)
     dataset = open_dataset(tmp_path)
     assert dataset.skipped == [("train/ok/img0.png", "cannot read the file (permission denied)")]
 

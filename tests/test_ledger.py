@@ -105,6 +105,41 @@ def test_settings_key_changes_with_function_and_size(tmp_path):
     assert default_cache_dir(tmp_path / "DATA") == tmp_path.resolve() / ".augplan" / "features"
 
 
+def test_ledger_carries_its_schema_version(tmp_path):
+    path = tmp_path / "ledger.sqlite"
+    ledger.store_results(path, baseline={}, results=[_entry("a", "1" * 64, 0.0)], **KEYS)
+    with sqlite3.connect(path) as connection:
+        assert connection.execute("PRAGMA user_version").fetchone()[0] == ledger.LEDGER_VERSION
+
+
+def test_ledger_of_another_version_is_refused_untouched(tmp_path):
+    path = tmp_path / "ledger.sqlite"
+    with sqlite3.connect(path) as connection:
+        connection.execute(f"PRAGMA user_version = {ledger.LEDGER_VERSION + 1}")
+    with pytest.raises(BadInputError, match="schema version"):
+        ledger.store_results(path, baseline={}, results=[_entry("a", "1" * 64, 0.0)], **KEYS)
+    with sqlite3.connect(path) as connection:
+        assert connection.execute("SELECT count(*) FROM sqlite_master").fetchone()[0] == 0
+
+
+@pytest.mark.parametrize("row", [np.zeros(3, np.float32), np.full(5, np.nan, np.float32),
+                                 np.zeros((5, 1), np.float32)], ids=["wrong-length", "all-nan", "two-d"])
+def test_damaged_cache_row_is_a_miss_and_recorded(tmp_path, row):
+    cache = FeatureCache(tmp_path, "k" * 24, row_length=5)
+    cache.put("ab" * 32, row)
+    assert cache.get("ab" * 32) is None
+    assert cache.misses == 1 and len(cache.damaged) == 1
+    cache.put("ab" * 32, np.ones(5, np.float32))  # recomputed and rewritten
+    assert np.array_equal(cache.get("ab" * 32), np.ones(5, np.float32))
+
+
+def test_cache_row_of_garbage_bytes_is_a_miss(tmp_path):
+    cache = FeatureCache(tmp_path, "k" * 24, row_length=5)
+    cache.put("cd" * 32, np.ones(5, np.float32))
+    next(cache.folder.rglob("*.npy")).write_bytes(b"\x93NUMPY garbage")
+    assert cache.get("cd" * 32) is None and len(cache.damaged) == 1
+
+
 def test_run_details_come_back_by_run_number(tmp_path):
     path = tmp_path / "ledger.sqlite"
     details = {"scored_on": "val", "recipes": [{"name": "x", "gain": 0.02, "gain_ci": [-0.01, 0.05]}]}

@@ -156,11 +156,11 @@ MALFORMED = [
                  ["recipe.yaml line 4", "'factor' field of transform 1 (contrast)",
                   "yes/no value"], id="boolean-for-number"),
     pytest.param("name: x\ntransforms:\n  - op: zoom\n    factor: [0, 2]\n",
-                 ["recipe.yaml line 4", "numbers > 0", "[0, 2]"], id="zoom-not-positive"),
+                 ["recipe.yaml line 4", "numbers between 0.1 and 10", "[0, 2]"], id="zoom-not-positive"),
     pytest.param("name: x\ntransforms:\n  - op: shift\n    fraction: [-1.5, 0.1]\n",
                  ["recipe.yaml line 4", "between -1 and 1"], id="shift-out-of-range"),
     pytest.param("name: x\ntransforms:\n  - op: noise\n    sigma: -0.1\n",
-                 ["recipe.yaml line 4", "numbers >= 0", "-0.1"], id="negative-sigma"),
+                 ["recipe.yaml line 4", "numbers between 0 and 1", "-0.1"], id="negative-sigma"),
     pytest.param("name: x\ntransforms:\n  - op: flip\n    probability: 1.5\n",
                  ["recipe.yaml line 4", "'probability' field of transform 1 (flip)",
                   "between 0 and 1", "1.5"], id="probability-above-one"),
@@ -384,6 +384,24 @@ def test_schema_ops_and_fields_match_the_validator():
         assert declared == {"op", *fields, "probability", "only", "except", "relabel"}
 
 
+@pytest.mark.parametrize("op", [op for op in OP_FIELDS if op != "flip"])
+def test_schema_states_the_checkers_bounds(op):
+    schema = json.loads(RECIPE_SCHEMA_PATH.read_text(encoding="utf-8"))
+    field_name, minimum, maximum, exclusive = recipe_module.magnitude_bounds(op)
+    scalar, pair = schema["$defs"][f"op_{op}"]["properties"][field_name]["anyOf"]
+    for number in (scalar, *pair["prefixItems"]):
+        assert number.get("exclusiveMinimum" if exclusive else "minimum") == minimum
+        assert number.get("maximum") == maximum
+    # The bound is finite on both ends, so no magnitude overflows the engine.
+    assert minimum is not None and maximum is not None
+
+
+def test_schema_states_the_bounds_of_seed_and_copies():
+    schema = json.loads(RECIPE_SCHEMA_PATH.read_text(encoding="utf-8"))
+    assert schema["properties"]["seed"]["maximum"] == recipe_module.MAX_SEED
+    assert schema["properties"]["copies"]["maximum"] == recipe_module.MAX_COPIES
+
+
 def test_op_table_matches_the_transform_catalogue():
     transforms = pytest.importorskip("augplan.augment.transforms")
     assert set(OP_FIELDS) == set(transforms.OPS)
@@ -412,6 +430,11 @@ def test_schema_and_reader_accept_the_design_example():
     pytest.param("name: x\ntransforms:\n  - op: flip\n    only: [a]\n    except: [b]\n",
                  id="only-and-except"),
     pytest.param("name: x\ntransforms:\n  - op: flip\n    only: []\n", id="empty-only"),
+    pytest.param("name: x\ncopies: 1001\n", id="too-many-copies"),
+    pytest.param("name: x\ntransforms:\n  - op: rotate\n    degrees: 1e308\n", id="huge-degrees"),
+    pytest.param("name: x\ntransforms:\n  - op: noise\n    sigma: [0, 2]\n", id="noise-over-range"),
+    pytest.param("name: a/b\n", id="name-with-slash"),
+    pytest.param("name: .x\n", id="name-leading-dot"),
 ])
 def test_schema_and_reader_reject_the_same_malformed_documents(text):
     errors = list(_schema_validator().iter_errors(_load_document(text)))

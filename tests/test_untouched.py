@@ -154,9 +154,8 @@ def test_interrupted_vet_keeps_no_partial_files(space, tmp_path, monkeypatch, st
                          "--sample", "3", "--quiet"])
     assert code == 130
     assert "interrupted" in err and "Traceback" not in err
-    left = _left_over(out) if out.exists() else []
-    assert not any(name.endswith((".html", ".yaml", ".json", ".tmp")) for name in left), left
-    assert left == []
+    assert not out.exists()  # not even an empty -o folder
+    assert _left_over(tmp_path) == []  # nor a temporary folder beside it
     assert _snapshot(space) == before
 
 
@@ -168,3 +167,98 @@ def test_interrupted_atomic_write_leaves_nothing(tmp_path, monkeypatch):
     with pytest.raises(KeyboardInterrupt):
         augplan.atomic.write_text_atomic(tmp_path / "report.html", "<html></html>")
     assert list(tmp_path.iterdir()) == []
+
+
+# --------------------------------------------------------------------------
+# The CSV manifest form, end to end through every command
+
+
+@pytest.fixture(scope="module")
+def manifest_space(tmp_path_factory):
+    root = tmp_path_factory.mktemp("manifest")
+    data = write_tiny_dataset(root / "DATA", train=5, val=3)
+    rows = ["path,label,split"] + [f"{p.relative_to(data).as_posix()},{p.parent.name},{p.parent.parent.name}"
+                                   for p in sorted(data.rglob("*.png"))]
+    (data / "manifest.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    recipe = root / "recipe.yaml"
+    recipe.write_text(TINY_RECIPE, encoding="utf-8")
+    out = root / "out"
+    out.mkdir()
+    return SimpleNamespace(root=root, data=data, recipe=recipe, out=out, manifest=data / "manifest.csv")
+
+
+@pytest.mark.parametrize("command", [*COMMANDS, "vet", "verify"])
+def test_manifest_form_runs_every_command_outside_the_data(manifest_space, command):
+    space = manifest_space
+    as_given = SimpleNamespace(**{**vars(space), "data": space.manifest})
+    if command in ("vet", "verify"):
+        argv = ["vet", space.manifest, "--recipe", space.recipe, "-o", space.out / f"vet-{command}",
+                "--repeats", "2", "--sample", "3", "--quiet"]
+    else:
+        argv = COMMANDS[command][0](as_given)
+    before = _snapshot(space)
+    code, out, err = _run(argv)
+    assert "Traceback" not in err
+    assert code in (0, 1), err
+    if command == "verify":
+        code, out, err = _run(["verify", space.out / "vet-verify" / "vetted-recipe.yaml", "--data", space.manifest])
+        assert code == 0, out + err
+    assert _snapshot(space) == before
+    # The ledger and cache default to .augplan/ beside the manifest's folder.
+    if command in ("evaluate", "vet"):
+        assert (space.root / ".augplan" / "ledger.sqlite").is_file()
+
+
+# --------------------------------------------------------------------------
+# Full disk and replaced outputs
+
+
+def test_full_disk_during_vet_names_the_file_and_leaves_nothing(space, tmp_path, monkeypatch):
+    import augplan.vet.job
+
+    real_write = augplan.vet.job.write_bytes_atomic
+    calls = []
+
+    def write(path, data, **kwargs):
+        calls.append(path)
+        if len(calls) == 3:
+            raise OSError(28, "No space left on device", f"{path}.tmp")
+        return real_write(path, data, **kwargs)
+
+    monkeypatch.setattr(augplan.vet.job, "write_bytes_atomic", write)
+    out = tmp_path / "vet"
+    code, _, err = _run(["vet", space.data, "--recipe", space.recipe, "-o", out, "--repeats", "2",
+                         "--sample", "3", "--quiet"])
+    assert code == 2 and "Traceback" not in err
+    assert "No space left on device" in err and str(out) in err and ".tmp" not in err
+    assert not out.exists()
+    assert _left_over(tmp_path) == []  # no temporary folder either
+
+
+def test_replace_swaps_an_earlier_output_whole(space, tmp_path):
+    from augplan.data.dataset import open_dataset
+    from augplan.recipe.parse import read_recipe
+    from augplan.vet.job import vet_recipes
+
+    out = tmp_path / "demo-output"
+    out.mkdir()
+    (out / "report.html").write_text("old\n")
+    (out / "vetted-stale.yaml").write_text("old\n")
+    vet_recipes(open_dataset(space.data), [read_recipe(space.recipe)], out, replace=True, repeats=2, sample=3)
+    assert not (out / "vetted-stale.yaml").exists()
+    assert (out / "report.html").read_text() != "old\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["demo-output"]
+
+
+def test_replace_refuses_a_folder_that_is_no_earlier_output(space, tmp_path):
+    from augplan.data.dataset import open_dataset
+    from augplan.errors import BadInputError
+    from augplan.recipe.parse import read_recipe
+    from augplan.vet.job import vet_recipes
+
+    out = tmp_path / "mine"
+    out.mkdir()
+    (out / "notes.txt").write_text("mine\n")
+    with pytest.raises(BadInputError, match="not an earlier augplan output"):
+        vet_recipes(open_dataset(space.data), [read_recipe(space.recipe)], out, replace=True, repeats=2, sample=3)
+    assert sorted(p.name for p in out.iterdir()) == ["notes.txt"]

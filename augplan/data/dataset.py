@@ -38,6 +38,7 @@ import numpy as np
 from PIL import Image, ImageOps
 
 from augplan.errors import BadInputError
+from augplan.files import UnreadableFileError, read_regular_file
 from augplan.thresholds import NEAR_DUPLICATE_BITS, NEAR_DUPLICATE_SSIM
 
 __all__ = [
@@ -58,6 +59,12 @@ __all__ = [
 
 SPLITS = ("train", "val", "test", "field")
 
+
+#: Largest image file read (bytes): past any real photograph, and a bound on
+#: memory before a byte is read (common practice, no source).
+MAX_IMAGE_BYTES = 512 * 2**20
+#: Largest manifest file read (bytes): millions of rows.
+MAX_MANIFEST_BYTES = 256 * 2**20
 
 
 @dataclass(frozen=True)
@@ -409,12 +416,30 @@ def _label_of(name):
     return unicodedata.normalize("NFC", name)
 
 
+def _link_leads_outside(path, allowed):
+    """Where a file symlink leads when that is outside every folder of ``allowed``, else None.
+
+    One rule for folders and manifests alike: a link is followed only when
+    it resolves inside the data folder (or the separate field folder).
+    """
+    if not path.is_symlink():
+        return None
+    try:
+        real = path.resolve(strict=True)
+    except (OSError, RuntimeError):
+        return None  # a dangling link or loop: reading it reports the fault
+    if any(real.is_relative_to(folder) for folder in allowed):
+        return None
+    return real
+
+
 class _Scanner:
     """Reads file bytes, hashes and identifies them, and keeps the skip list."""
 
-    def __init__(self, root, strict):
+    def __init__(self, root, strict, allowed=None):
         self.root = root
         self.strict = strict
+        self.allowed = tuple(Path(folder).resolve() for folder in (allowed or (root,)))
         self.skipped = []
 
     def skip(self, relpath, reason, path=None):
@@ -436,8 +461,16 @@ class _Scanner:
         if path.is_dir():
             self.skip(relpath, "a folder, not an image file (subfolders of a class are not read)", path)
             return None
+        outside = _link_leads_outside(path, self.allowed)
+        if outside is not None:
+            self.skip(relpath, f"a symlink to {outside}, outside the data folder; links are followed "
+                               "only within it", path)
+            return None
         try:
-            data = path.read_bytes()
+            data = read_regular_file(path, limit=MAX_IMAGE_BYTES, what="image")
+        except UnreadableFileError as error:
+            self.skip(relpath, error.reason, path)
+            return None
         except PermissionError:
             self.skip(relpath, "cannot read the file (permission denied)", path)
             return None
@@ -512,17 +545,34 @@ def _scan_folders(root, scanner, field):
 _MANIFEST_COLUMNS = ("path", "label", "split")
 
 
+def _csv_rows(reader, manifest):
+    """The reader's rows; a row the csv module cannot read (a NUL byte, a field
+    over its size limit) is bad input naming the manifest's line."""
+    while True:
+        try:
+            row = next(reader)
+        except StopIteration:
+            return
+        except csv.Error as error:
+            raise BadInputError(f"{manifest} line {reader.line_num}: not a readable CSV row "
+                                f"({error})") from None
+        if any("\x00" in (value or "") for value in row.values() if isinstance(value, str)):
+            raise BadInputError(f"{manifest} line {reader.line_num}: the row holds a NUL byte; "
+                                "a manifest is plain text")
+        yield row
+
+
 def _read_manifest(manifest, root, scanner):
+    raw = read_regular_file(manifest, limit=MAX_MANIFEST_BYTES, what="manifest")
     try:
-        text = manifest.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise BadInputError(f"{manifest}: manifest file not found") from None
+        text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as error:
         raise BadInputError(f"{manifest}: manifest is not UTF-8 text ({error})") from None
-    except OSError as error:
-        raise BadInputError(f"{manifest}: cannot read the manifest ({error})") from None
     reader = csv.DictReader(io.StringIO(text, newline=""))
-    header = [name.strip() for name in (reader.fieldnames or [])]
+    try:
+        header = [name.strip() for name in (reader.fieldnames or [])]
+    except csv.Error as error:
+        raise BadInputError(f"{manifest} line {reader.line_num}: not a readable CSV row ({error})") from None
     missing = [name for name in _MANIFEST_COLUMNS if name not in header]
     if missing:
         raise BadInputError(
@@ -532,7 +582,7 @@ def _read_manifest(manifest, root, scanner):
     base = manifest.parent.resolve()
     resolved_root = root.resolve()
     records, seen = [], {}
-    for row in reader:
+    for row in _csv_rows(reader, manifest):
         where = f"{manifest} line {reader.line_num}"
         raw_path = (row.get("path") or "").strip()
         label = (row.get("label") or "").strip()
@@ -650,7 +700,13 @@ def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, seed=0,
     if not root.is_dir():
         raise BadInputError(f"{root}: expected a data folder, got a file")
     root = root.absolute()
-    scanner = _Scanner(root, strict)
+    if manifest is None and field is not None:
+        field = Path(field)
+        if not field.is_dir():
+            raise BadInputError(f"{field}: field folder not found (expected a folder "
+                                "of <class>/<images> or of images)")
+        field = field.absolute()
+    scanner = _Scanner(root, strict, allowed=(root,) if field is None or manifest is not None else (root, field))
 
     if manifest is not None:
         manifest = Path(manifest)
@@ -660,12 +716,6 @@ def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, seed=0,
         has_val = any(record.split == "val" for record in records)
         source = str(manifest)
     else:
-        if field is not None:
-            field = Path(field)
-            if not field.is_dir():
-                raise BadInputError(f"{field}: field folder not found (expected a folder "
-                                    "of <class>/<images> or of images)")
-            field = field.absolute()
         records, has_val = _scan_folders(root, scanner, field)
         source = str(root)
 

@@ -27,6 +27,7 @@ Validation, confirmation and field splits are scored the same way.
 
 import hashlib
 import json
+from collections import Counter
 from pathlib import Path
 
 import numpy as np
@@ -98,16 +99,27 @@ def _featurize_originals(records, feature_fn, size, cache, *, workers=1, quiet=T
     """
     records = list(records)
     rows = cache.lookup([r.sha256 for r in records])
-    missing = [i for i, row in enumerate(rows) if row is None]
-    if missing:
-        chunks = [missing[i:i + _CHUNK] for i in range(0, len(missing), _CHUNK)]
-        computed = parallel_map(_featurize_chunk,
-                                [([records[i] for i in chunk], feature_fn, size) for chunk in chunks],
-                                workers=workers, desc="features of originals", quiet=quiet)
-        for chunk, block in zip(chunks, computed):
-            for i, row in zip(chunk, block):
-                rows[i] = row
-                cache.put(records[i].sha256, row)
+    for _ in range(2):
+        missing = [i for i, row in enumerate(rows) if row is None]
+        if missing:
+            chunks = [missing[i:i + _CHUNK] for i in range(0, len(missing), _CHUNK)]
+            computed = parallel_map(_featurize_chunk,
+                                    [([records[i] for i in chunk], feature_fn, size) for chunk in chunks],
+                                    workers=workers, desc="features of originals", quiet=quiet)
+            for chunk, block in zip(chunks, computed):
+                for i, row in zip(chunk, block):
+                    rows[i] = row
+                    cache.put(records[i].sha256, row)
+        # A stored row of another length than the rows just computed (or than
+        # most stored rows) is damaged: recompute it once.
+        lengths = Counter(row.size for row in rows)
+        expected = rows[missing[0]].size if missing else (lengths.most_common(1)[0][0] if rows else 0)
+        wrong = [i for i, row in enumerate(rows) if row.size != expected]
+        if not wrong:
+            break
+        for i in wrong:
+            cache.mark_damaged(records[i].sha256)
+            rows[i] = None
     if not records:
         return np.zeros((0, 0), dtype=np.float32)
     return np.stack(rows).astype(np.float32, copy=False)
@@ -501,8 +513,8 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     ledger_path : str or Path, optional
         SQLite results ledger; results stored under the same keys are reused.
         ``None``: no ledger.
-    cache_dir : str or Path, optional
-        Folder of the feature cache of original images; default
+    cache_dir : str or Path or False, optional
+        ``False`` turns the disk cache off. Folder of the feature cache of original images; default
         ``<data parent>/.augplan/features``. Never inside the data folder.
     confirm_fraction : float, optional
         Without ``DATA/test/``, the share of each validation class set aside
@@ -564,7 +576,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     assemble = dict(repeats=repeats, seed=seed, confirm_source=confirm_source,
                     n_unlabelled_field=n_unlabelled, confirm_ignored=confirm_ignored)
 
-    stored_baseline, stored = None, {}
+    stored_baseline, stored, damaged = None, {}, []
     if ledger_path is not None:
         stored_baseline, stored = _ledger.lookup_stored(ledger_path, recipe_hashes=hashes, **ledger_keys)
     missing = [(recipe, h) for recipe, h in zip(recipes, hashes) if h not in stored]
@@ -575,8 +587,10 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
         # against the same deterministic baseline (same data, settings, seed,
         # repeats), so their results stand beside the new ones.
         root = Path(dataset.root).resolve()
-        cache_root = Path(cache_dir) if cache_dir is not None else default_cache_dir(root)
-        ensure_outside_data(cache_root, root, what="feature cache")
+        cache_root = None if cache_dir is False else (
+            Path(cache_dir) if cache_dir is not None else default_cache_dir(root))
+        if cache_root is not None:
+            ensure_outside_data(cache_root, root, what="feature cache")
         cache = FeatureCache(cache_root, feature_settings_key(model.feature_fn, size))
         base_scores, computed = _compute(dataset, [r for r, _ in missing], [h for _, h in missing], model,
                                          repeats=repeats, size=size, seed=seed, workers=workers,
@@ -584,8 +598,12 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
         if ledger_path is not None:
             _ledger.store_results(ledger_path, baseline=base_scores, results=computed, **ledger_keys)
         stored.update({result["recipe_hash"]: result for result in computed})
+        damaged = cache.damaged
     results = [stored[h] for h in hashes]
     document = _assemble(dataset, base_scores, results, from_ledger=not missing, **assemble)
+    if damaged:
+        document["warnings"].append(f"{len(damaged)} damaged feature-cache entries (for example "
+                                    f"{damaged[0]}) were recomputed and rewritten.")
     document["reused_from_ledger"] = [r.name for r, h in zip(recipes, hashes)
                                       if h not in {m for _, m in missing}]
 

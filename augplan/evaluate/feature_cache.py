@@ -75,17 +75,25 @@ class FeatureCache:
     settings_key : str
         From `feature_settings_key`; rows of different settings never mix.
 
+    row_length : int, optional
+        Length every row has; a stored row of another length is damaged.
+
     Attributes
     ----------
     hits, misses : int
         Lookups served from disk and lookups that found nothing, since creation.
+    damaged : list of Path
+        Stored rows that were unreadable, of the wrong shape or length, or
+        not finite: each counts as a miss, so it is recomputed and rewritten.
     """
 
-    def __init__(self, cache_dir, settings_key):
+    def __init__(self, cache_dir, settings_key, row_length=None):
         self.cache_dir = None if cache_dir is None else Path(cache_dir)
         self.settings_key = str(settings_key)
+        self.row_length = None if row_length is None else int(row_length)
         self.hits = 0
         self.misses = 0
+        self.damaged = []
         if self.cache_dir is not None:
             self.folder.mkdir(parents=True, exist_ok=True)
 
@@ -110,12 +118,28 @@ class FeatureCache:
         path = self._path(content_hash)
         try:
             row = np.load(path, allow_pickle=False)
-        except (FileNotFoundError, ValueError, OSError):
-            # A missing or unreadable row is recomputed and rewritten.
+        except FileNotFoundError:
+            self.misses += 1
+            return None
+        except (ValueError, OSError, EOFError):
+            row = None
+        if not self._sound(row):
+            # A damaged row is recomputed and rewritten.
+            self.damaged.append(path)
             self.misses += 1
             return None
         self.hits += 1
         return row
+
+    def mark_damaged(self, content_hash):
+        """Record a stored row found unfit by its user (wrong length); it is then recomputed."""
+        if self.cache_dir is not None:
+            self.damaged.append(self._path(content_hash))
+
+    def _sound(self, row):
+        return (isinstance(row, np.ndarray) and row.ndim == 1 and row.dtype.kind == "f"
+                and (self.row_length is None or row.size == self.row_length)
+                and bool(np.isfinite(row).all()))
 
     def put(self, content_hash, row):
         """Store one feature row (atomically); a no-op when disabled."""

@@ -10,7 +10,7 @@ closes its own connection, so a crash never leaves the database locked.
 
 import json
 import sqlite3
-from contextlib import closing
+from contextlib import contextmanager
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -45,28 +45,75 @@ CREATE TABLE IF NOT EXISTS runs (
     best_gain REAL,
     from_ledger INTEGER NOT NULL
 );
+CREATE TABLE IF NOT EXISTS run_details (
+    run_id INTEGER PRIMARY KEY,
+    details_json TEXT NOT NULL
+);
 """
+
+
+#: Schema version, kept in SQLite's ``user_version``; a ledger of another
+#: version (or another program's database) is refused, never altered.
+LEDGER_VERSION = 1
+_TABLES = {"evaluations", "runs", "run_details"}
+
+
+def _unusable(path, problem):
+    return BadInputError(f"{path}: {problem}; pass another --ledger path, or move this file away "
+                         "to start a new ledger.")
 
 
 def _connect(ledger_path, *, create):
     path = Path(ledger_path)
     if not create and not path.exists():
         return None
+    if path.is_dir():
+        raise _unusable(path, "is a folder, not a ledger file")
     if create:
         path.parent.mkdir(parents=True, exist_ok=True)
+    connection = None
     try:
         connection = sqlite3.connect(path, timeout=30)
-        connection.executescript(_SCHEMA)
-        columns = {row[1] for row in connection.execute("PRAGMA table_info(runs)")}
-        if "details_json" not in columns:  # a ledger written before runs kept their details
+        version = connection.execute("PRAGMA user_version").fetchone()[0]
+        tables = {row[0] for row in connection.execute(
+            "SELECT name FROM sqlite_master WHERE type='table' AND name NOT LIKE 'sqlite_%'")}
+        if version == 0 and tables and not tables <= _TABLES:
+            raise _unusable(path, f"an SQLite database of another program (tables: {', '.join(sorted(tables))}), "
+                                  "not an augplan ledger")
+        if version not in (0, LEDGER_VERSION):
+            raise _unusable(path, f"a ledger of schema version {version}; this augplan reads version "
+                                  f"{LEDGER_VERSION}")
+        if version == 0 or "run_details" not in tables:
+            # A new file, a ledger from before versions were kept (same tables), or
+            # one from before runs kept their scores: the missing tables are added.
             with connection:
-                connection.execute("ALTER TABLE runs ADD COLUMN details_json TEXT")
+                connection.executescript(_SCHEMA)
+                connection.execute(f"PRAGMA user_version = {LEDGER_VERSION}")
+        check = connection.execute("PRAGMA quick_check").fetchone()[0]
+        if check != "ok":
+            raise _unusable(path, f"the ledger is damaged (SQLite's check: {check})")
     except sqlite3.DatabaseError as error:
-        raise BadInputError(
-            f"{path}: not a usable augplan ledger (SQLite said: {error}); "
-            "pass another --ledger path or move this file away."
-        ) from error
+        if connection is not None:
+            connection.close()
+        raise _unusable(path, f"not a usable augplan ledger (SQLite said: {error})") from None
+    except BadInputError:
+        connection.close()
+        raise
     return connection
+
+
+@contextmanager
+def _session(ledger_path, *, create):
+    """A connection for one operation (None when the file is missing and
+    ``create`` is False); a database fault mid-way is bad input, not a crash."""
+    connection = _connect(ledger_path, create=create)
+    try:
+        yield connection
+    except sqlite3.DatabaseError as error:
+        raise _unusable(Path(ledger_path), f"not a usable augplan ledger (SQLite said: {error})") from None
+    finally:
+        if connection is not None:
+            connection.close()
 
 
 def _now():
@@ -83,11 +130,10 @@ def lookup_stored(ledger_path, *, fingerprint, settings_key, seed, repeats, reci
     results : dict
         ``{recipe_hash: result}`` for the recipes found.
     """
-    connection = _connect(ledger_path, create=False)
-    if connection is None:
-        return None, {}
     baseline, results = None, {}
-    with closing(connection):
+    with _session(ledger_path, create=False) as connection:
+        if connection is None:
+            return None, {}
         for recipe_hash in recipe_hashes:
             row = connection.execute(
                 "SELECT result_json, baseline_json FROM evaluations WHERE recipe_hash=? AND "
@@ -144,8 +190,7 @@ def store_results(ledger_path, *, fingerprint, settings_key, seed, repeats, base
     """
     baseline_text = json.dumps(baseline, sort_keys=True)
     created = _now()
-    connection = _connect(ledger_path, create=True)
-    with closing(connection), connection:
+    with _session(ledger_path, create=True) as connection, connection:
         connection.executemany(
             "INSERT OR REPLACE INTO evaluations VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
             [
@@ -163,17 +208,17 @@ def record_run(ledger_path, *, fingerprint, data_root, settings_key, seed, repea
     ``details`` is a JSON-able summary of the comparison (scores per recipe)
     that `run_details` returns.
     """
-    connection = _connect(ledger_path, create=True)
-    with closing(connection), connection:
-        connection.execute(
+    with _session(ledger_path, create=True) as connection, connection:
+        cursor = connection.execute(
             "INSERT INTO runs (created, fingerprint, data_root, settings_key, seed, repeats, "
-            "recipes_json, best_recipe, best_gain, from_ledger, details_json) "
-            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            "recipes_json, best_recipe, best_gain, from_ledger) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (_now(), fingerprint, None if data_root is None else str(data_root), settings_key,
              int(seed), int(repeats), json.dumps(list(recipe_names)), best_recipe,
-             None if best_gain is None else float(best_gain), int(bool(from_ledger)),
-             None if details is None else json.dumps(details, allow_nan=False)),
+             None if best_gain is None else float(best_gain), int(bool(from_ledger))),
         )
+        if details is not None:
+            connection.execute("INSERT INTO run_details (run_id, details_json) VALUES (?, ?)",
+                               (cursor.lastrowid, json.dumps(details, allow_nan=False)))
 
 
 def list_history(ledger_path, fingerprint=None):
@@ -193,16 +238,15 @@ def list_history(ledger_path, fingerprint=None):
         (names), "best_recipe", "best_gain", "seed", "repeats",
         "from_ledger"}`` per comparison; ``date`` is UTC.
     """
-    connection = _connect(ledger_path, create=False)
-    if connection is None:
-        return []
     query = ("SELECT id, created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, "
              "repeats, from_ledger FROM runs")
     arguments = ()
     if fingerprint is not None:
         query += " WHERE fingerprint=?"
         arguments = (fingerprint,)
-    with closing(connection):
+    with _session(ledger_path, create=False) as connection:
+        if connection is None:
+            return []
         rows = connection.execute(query + " ORDER BY id", arguments).fetchall()
     return [_run_row(row) for row in rows]
 
@@ -235,13 +279,14 @@ def run_details(ledger_path, run):
     BadInputError
         No ledger at the path, or no run with that number.
     """
-    connection = _connect(ledger_path, create=False)
-    if connection is None:
-        raise BadInputError(f"{ledger_path}: no results ledger here; pass --ledger or run 'augplan evaluate' first.")
-    with closing(connection):
+    with _session(ledger_path, create=False) as connection:
+        if connection is None:
+            raise BadInputError(f"{ledger_path}: no results ledger here; pass --ledger or run "
+                                "'augplan evaluate' first.")
         found = connection.execute(
             "SELECT id, created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, repeats, "
-            "from_ledger, settings_key, details_json FROM runs WHERE id=?", (int(run),)).fetchone()
+            "from_ledger, settings_key, details_json FROM runs LEFT JOIN run_details ON run_details.run_id = runs.id "
+            "WHERE id=?", (int(run),)).fetchone()
         count = connection.execute("SELECT COUNT(*) FROM runs").fetchone()[0]
     if found is None:
         raise BadInputError(f"{ledger_path}: no run {run} in the ledger (it holds {count} runs; "

@@ -44,10 +44,14 @@ import yaml
 
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
+from augplan.files import UnreadableFileError, read_regular_file
 
 __all__ = [
     "FILLS",
+    "MAX_COPIES",
+    "MAX_NAME_BYTES",
     "MAX_RECIPE_BYTES",
+    "MAX_SEED",
     "OP_FIELDS",
     "RECIPE_SCHEMA_PATH",
     "FrozenMap",
@@ -55,12 +59,14 @@ __all__ = [
     "RecipeError",
     "Transform",
     "canonical_json",
+    "check_recipe_classes",
     "dump_recipe",
     "parse_recipe",
     "parse_recipe_document",
     "read_recipe",
     "read_recipe_document",
     "recipe_hash",
+    "magnitude_bounds",
     "recipe_to_dict",
     "vetted_checksum",
     "write_recipe",
@@ -106,30 +112,65 @@ class _Bound:
 
     def describe(self):
         if self.minimum is not None and self.maximum is not None:
+            if self.exclusive_minimum:
+                return f"> {_number_text(self.minimum)} and <= {_number_text(self.maximum)}"
             return f"between {_number_text(self.minimum)} and {_number_text(self.maximum)}"
         if self.minimum is not None:
             return f"{'>' if self.exclusive_minimum else '>='} {_number_text(self.minimum)}"
         return ""
 
 
-_ANY = _Bound()
-_POSITIVE = _Bound(minimum=0.0, exclusive_minimum=True)
-_NON_NEGATIVE = _Bound(minimum=0.0)
+# Sane bounds: every value inside them is a meaningful augmentation that the
+# engine computes without overflow; values outside are typing slips (1e308)
+# or would wipe the image out. Common practice, no source: a full turn either
+# way, half the hue wheel either way, a tenfold zoom or tone change, a blur of
+# 20 pixels, noise as large as the whole 0..1 range.
+_TURN = _Bound(minimum=-360.0, maximum=360.0)
+_HALF_WHEEL = _Bound(minimum=-180.0, maximum=180.0)
+_ZOOM = _Bound(minimum=0.1, maximum=10.0)
+_TONE = _Bound(minimum=0.0, maximum=10.0, exclusive_minimum=True)
+_SATURATION = _Bound(minimum=0.0, maximum=10.0)
 _UNIT = _Bound(minimum=-1.0, maximum=1.0)
+_BLUR = _Bound(minimum=0.0, maximum=20.0)
+_NOISE = _Bound(minimum=0.0, maximum=1.0)
 
 #: op name -> (magnitude field or None, bound on each end of its range)
 _OP_RULES = {
     "flip": (None, None),
-    "rotate": ("degrees", _ANY),
-    "zoom": ("factor", _POSITIVE),
+    "rotate": ("degrees", _TURN),
+    "zoom": ("factor", _ZOOM),
     "shift": ("fraction", _UNIT),
-    "brightness": ("factor", _POSITIVE),
-    "contrast": ("factor", _POSITIVE),
-    "saturation": ("factor", _NON_NEGATIVE),
-    "hue": ("degrees", _ANY),
-    "blur": ("sigma", _NON_NEGATIVE),
-    "noise": ("sigma", _NON_NEGATIVE),
+    "brightness": ("factor", _TONE),
+    "contrast": ("factor", _TONE),
+    "saturation": ("factor", _SATURATION),
+    "hue": ("degrees", _HALF_WHEEL),
+    "blur": ("sigma", _BLUR),
+    "noise": ("sigma", _NOISE),
 }
+
+#: Largest ``copies``: a thousand augmented copies of every training image is
+#: far past any use and keeps memory bounded (common practice, no source).
+MAX_COPIES = 1000
+#: Longest recipe name in UTF-8 bytes; names become parts of file names
+#: (``vetted-<name>.yaml``), which most file systems cap at 255 bytes.
+MAX_NAME_BYTES = 100
+_FILE_SAFE_NAME = re.compile(r'[^./\\:*?"<>|\x00-\x1f\x7f][^/\\:*?"<>|\x00-\x1f\x7f]*')
+
+#: Largest seed: seeds reach scikit-learn's ``random_state``, which takes
+#: 0 .. 2**32 - 1 (and SQLite's 64-bit integers store them).
+MAX_SEED = 2**32 - 1
+
+def magnitude_bounds(op):
+    """``(field, minimum, maximum, exclusive_minimum)`` of an op's magnitude range.
+
+    ``field`` is None for an op without a magnitude (flip), and so are the
+    bounds. The shipped JSON Schema states the same bounds.
+    """
+    field_name, bound = _OP_RULES[op]
+    if field_name is None:
+        return (None, None, None, False)
+    return (field_name, bound.minimum, bound.maximum, bound.exclusive_minimum)
+
 
 #: op name -> the op's own fields (besides ``op`` and the common fields).
 OP_FIELDS = {op: (("axis",) if magnitude is None else (magnitude,))
@@ -205,6 +246,9 @@ class Transform:
         ``{class: new_class}``: the label follows the image when the step runs.
     line : int or None
         Line of the step in its source file; not part of equality.
+    field_lines : Mapping or None
+        Line of each of the step's fields in its source file; not part of
+        equality.
     """
 
     op: str
@@ -214,6 +258,7 @@ class Transform:
     exclude: tuple | None = None
     relabel: Mapping | None = None
     line: int | None = field(default=None, compare=False)
+    field_lines: Mapping | None = field(default=None, compare=False, repr=False)
 
     def __post_init__(self):
         # Normalise programmatic construction (dicts, lists, scalar ranges) to
@@ -230,6 +275,8 @@ class Transform:
                 object.__setattr__(self, name, tuple(value))
         if self.relabel is not None:
             object.__setattr__(self, "relabel", FrozenMap(self.relabel))
+        if self.field_lines is not None:
+            object.__setattr__(self, "field_lines", FrozenMap(self.field_lines))
 
     def applies_to(self, label):
         """Whether the step's class scope includes ``label``.
@@ -389,6 +436,21 @@ def _describe(value):
     return text
 
 
+def recipe_name_fault(name):
+    """What is wrong with ``name`` as a recipe name, or None when it is fine.
+
+    Names become parts of file names (``vetted-<name>.yaml``), so a name
+    that is no file name is refused when the recipe is read, not when the
+    last file of a long run is written.
+    """
+    if not isinstance(name, str) or not name.strip():
+        return "must be a non-empty text"
+    if len(name.encode("utf-8", "surrogatepass")) > MAX_NAME_BYTES or not _FILE_SAFE_NAME.fullmatch(name):
+        return (f"must serve as a file name: at most {MAX_NAME_BYTES} bytes in UTF-8, none of "
+                "/ \\ : * ? \" < > | or control characters, not starting with '.'")
+    return None
+
+
 def _is_number(value):
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
@@ -429,10 +491,11 @@ class _Checker:
             self.fail(self.first_line, "the recipe has no 'name' field; add one, "
                       "for example 'name: my-recipe' (it is used in reports).")
         name = data["name"]
-        if not isinstance(name, str) or not name.strip():
-            self.top_field_fail("name", "must be a non-empty text", name)
-        seed = self.integer("seed", data.get("seed", 0), minimum=0)
-        copies = self.integer("copies", data.get("copies", 4), minimum=1)
+        fault = recipe_name_fault(name)
+        if fault is not None:
+            self.top_field_fail("name", fault, name)
+        seed = self.integer("seed", data.get("seed", 0), minimum=0, maximum=MAX_SEED)
+        copies = self.integer("copies", data.get("copies", 4), minimum=1, maximum=MAX_COPIES)
         fill = data.get("fill", "reflect")
         if fill not in FILLS:
             self.top_field_fail("fill", f"must be one of {', '.join(FILLS)}", fill)
@@ -453,11 +516,11 @@ class _Checker:
         self.fail(self.top_lines.get(key, self.first_line),
                   f"the '{key}' field {allowed}; got {_describe(value)}.")
 
-    def integer(self, key, value, minimum):
+    def integer(self, key, value, minimum, maximum):
         # Integral floats (7.0) pass, as in JSON Schema's "integer" type.
         if not _is_number(value) or not math.isfinite(value) or value != int(value) \
-                or value < minimum:
-            self.top_field_fail(key, f"must be a whole number >= {minimum}", value)
+                or not minimum <= value <= maximum:
+            self.top_field_fail(key, f"must be a whole number >= {minimum} and <= {maximum}", value)
         return int(value)
 
     # -- one transform ----------------------------------------------------
@@ -512,7 +575,7 @@ class _Checker:
         exclude = self.classes(item["except"], "except", field_fail) if "except" in item else None
         relabel = self.relabel(item["relabel"], field_fail) if "relabel" in item else None
         return Transform(op=op, params=params, probability=float(probability), only=only,
-                         exclude=exclude, relabel=relabel, line=line)
+                         exclude=exclude, relabel=relabel, line=line, field_lines=lines)
 
     @staticmethod
     def magnitude(value, bound, key, field_fail):
@@ -556,6 +619,17 @@ class _Checker:
         pairs = [(self._class_name(k), self._class_name(v)) for k, v in value.items()]
         if any(k is None or v is None for k, v in pairs):
             field_fail("relabel", wanted, value)
+        for source, target in pairs:
+            if source == target:
+                field_fail("relabel", f"must move each class to another; '{source}' maps to itself "
+                           "(leave it out)", value)
+        targets = [target for _, target in pairs]
+        for target in targets:
+            sources = [source for source, other in pairs if other == target]
+            if len(sources) > 1:
+                # Two classes into one would merge them: the label can no longer follow the image.
+                field_fail("relabel", f"must be one-to-one; {' and '.join(map(repr, sources))} "
+                           f"both map to {target!r}", value)
         return dict(pairs)
 
 
@@ -635,20 +709,9 @@ def read_recipe_document(path, *, extra_fields=()):
     path = Path(path)
     source = str(path)
     try:
-        size = path.stat().st_size
-    except FileNotFoundError:
-        raise RecipeError(f"{source}: recipe file not found.") from None
-    except OSError as error:
-        raise RecipeError(f"{source}: cannot read the recipe ({error.strerror}).") from None
-    if path.is_dir():
-        raise RecipeError(f"{source}: is a folder; expected a recipe YAML file.")
-    if size > MAX_RECIPE_BYTES:
-        raise RecipeError(f"{source}: {size} bytes is too large for a recipe "
-                          f"(at most {MAX_RECIPE_BYTES} bytes); is this the right file?")
-    try:
-        raw = path.read_bytes()
-    except OSError as error:
-        raise RecipeError(f"{source}: cannot read the recipe ({error.strerror}).") from None
+        raw = read_regular_file(path, limit=MAX_RECIPE_BYTES, what="recipe")
+    except UnreadableFileError as error:
+        raise RecipeError(f"{source}: {error.reason}.") from None
     return parse_recipe_document(_decode(raw, source), source=source, extra_fields=extra_fields)
 
 
@@ -671,6 +734,40 @@ def read_recipe(path):
         than `MAX_RECIPE_BYTES` (refused before it is read).
     """
     return read_recipe_document(path)[0]
+
+
+def check_recipe_classes(recipe, classes):
+    """Refuse class names in ``only``/``except``/``relabel`` that the data lacks.
+
+    Parameters
+    ----------
+    recipe : Recipe
+    classes : sequence of str
+        The data set's training classes.
+
+    Raises
+    ------
+    RecipeError
+        Naming the recipe file, the transform's line, the unknown class and
+        the closest class name of the data.
+    """
+    classes = tuple(classes)
+    source = recipe.source or f"recipe '{recipe.name}'"
+    for number, step in enumerate(recipe.transforms, start=1):
+        named = [("only", name) for name in step.only or ()]
+        named += [("except", name) for name in step.exclude or ()]
+        for source_class, target_class in (step.relabel or {}).items():
+            named += [("relabel", source_class), ("relabel", target_class)]
+        for key, name in named:
+            if name in classes:
+                continue
+            line = (step.field_lines or {}).get(key, step.line)
+            where = f"{source} line {line}" if line is not None else source
+            closest = difflib.get_close_matches(str(name), classes, n=1, cutoff=0.0)
+            hint = f"the closest class is '{closest[0]}'; " if closest else ""
+            raise RecipeError(
+                f"{where}: the '{key}' field of transform {number} ({step.op}) names the class "
+                f"{name!r}, which the data lacks; {hint}the data's classes: {', '.join(classes)}.")
 
 
 def _range_out(pair):

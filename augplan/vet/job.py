@@ -6,6 +6,8 @@ interrupted run leaves the output folder without partial files.
 
 import dataclasses
 import json
+import os
+import shutil
 import sys
 import tempfile
 from pathlib import Path
@@ -13,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from augplan import __version__
-from augplan.atomic import write_bytes_atomic, write_text_atomic
+from augplan.atomic import write_bytes_atomic
 from augplan.cautions import CAUTIONS
 from augplan.coverage.coverage import analyse_coverage
 from augplan.data.dataset import find_duplicates, fingerprint
@@ -28,18 +30,80 @@ from augplan.results import VetResult
 __all__ = ["vet_recipes", "prepare_output"]
 
 
-def prepare_output(out_dir, *, force=False):
-    """Create ``out_dir``; refuse an existing non-empty one unless ``force``."""
+#: Files that mark a folder as an earlier vet output, which ``replace`` may swap out.
+_OUTPUT_MARKERS = ("report.html", "evidence.json")
+
+
+def prepare_output(out_dir, *, force=False, replace=False):
+    """Check that ``out_dir`` may receive the outputs; nothing is created yet.
+
+    An existing non-empty folder needs ``force`` (files of the same name are
+    overwritten) or ``replace`` (the whole folder is swapped for the new one;
+    only an earlier vet output, holding ``report.html`` or ``evidence.json``).
+    """
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():
         raise BadInputError(f"{out_dir}: exists and is not a folder; choose another output folder.")
-    if out_dir.is_dir() and any(out_dir.iterdir()) and not force:
-        raise BadInputError(f"{out_dir}: the output folder is not empty; pass --force to write into it "
-                            "or choose another folder.")
+    if out_dir.is_dir() and any(out_dir.iterdir()):
+        if replace and not any((out_dir / name).is_file() for name in _OUTPUT_MARKERS):
+            raise BadInputError(f"{out_dir}: not empty and not an earlier augplan output (no report.html); "
+                                "choose another output folder.")
+        if not (force or replace):
+            raise BadInputError(f"{out_dir}: the output folder is not empty; pass --force to write into it "
+                                "or choose another folder.")
     if not out_dir.parent.is_dir():
         raise BadInputError(f"{out_dir}: its parent folder {out_dir.parent} does not exist.")
-    out_dir.mkdir(exist_ok=True)
     return out_dir
+
+
+def _publish(files, out_dir, *, replace=False):
+    """Write ``files`` ({relative path: bytes}) to a temporary folder beside
+    ``out_dir``, then move them into place: all of them or, on any fault
+    (a full disk, Ctrl-C), none.
+
+    A missing or empty ``out_dir`` is replaced by the temporary folder in one
+    rename; with ``replace`` an earlier output is swapped out whole; else
+    (``--force``) the files are moved into the existing folder, the report last.
+    """
+    out_dir = Path(out_dir)
+    staging = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".tmp", dir=out_dir.parent))
+    retired = None
+    try:
+        for relpath, data in files.items():
+            target = staging / relpath
+            target.parent.mkdir(parents=True, exist_ok=True)
+            try:
+                write_bytes_atomic(target, data)
+            except OSError as error:  # name the output, not the staging folder
+                raise type(error)(error.errno, error.strerror, str(out_dir / relpath)) from None
+        if out_dir.is_dir() and not any(out_dir.iterdir()):
+            out_dir.rmdir()
+        elif out_dir.is_dir() and replace:
+            retired = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".old", dir=out_dir.parent))
+            os.replace(out_dir, retired / out_dir.name)
+        if not out_dir.exists():
+            os.replace(staging, out_dir)
+        else:
+            order = sorted(files, key=lambda name: name == "report.html")
+            for relpath in order:
+                (out_dir / relpath).parent.mkdir(parents=True, exist_ok=True)
+                os.replace(staging / relpath, out_dir / relpath)
+    except BaseException:
+        if retired is not None and not out_dir.exists():
+            os.replace(retired / out_dir.name, out_dir)  # put the earlier output back
+        raise
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+        if retired is not None:
+            shutil.rmtree(retired, ignore_errors=True)
+
+
+def _inside(path, folder):
+    try:
+        path.resolve().relative_to(Path(folder).resolve())
+    except ValueError:
+        return False
+    return True
 
 
 def _collect_figures(entries, scratch):
@@ -192,7 +256,7 @@ def _verdict_sentence(recipe_entries, evaluation, best):
 
 
 def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5, sample=None, seed=0,
-                workers=1, quiet=True, ledger_path=None, cache_dir=None):
+                workers=1, quiet=True, ledger_path=None, cache_dir=None, replace=False):
     """Vet recipes end to end and write the report, vetted recipes and evidence.
 
     Parameters
@@ -201,7 +265,10 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     recipes : list of augplan.recipe.Recipe
         Distinct names.
     out_dir : str or Path
-        Created; an existing non-empty folder needs ``force``.
+        Written at the end, all at once (a temporary folder beside it is
+        renamed into place); an existing non-empty folder needs ``force``
+        (same-named files are overwritten) or ``replace`` (an earlier output
+        is swapped out whole).
     approve : tuple of int
         Indices of unverified transforms a person approved (applies to every recipe).
     repeats, sample, seed, workers, quiet, ledger_path, cache_dir
@@ -219,7 +286,11 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     from augplan.render.html import render_report
 
     ensure_outside_data(out_dir, dataset.root)
-    out_dir = prepare_output(out_dir, force=force)
+    out_dir = prepare_output(out_dir, force=force, replace=replace)
+    for recipe in recipes:
+        if recipe.source is not None and _inside(Path(recipe.source), out_dir):
+            raise BadInputError(f"{recipe.source}: the recipe lies inside the output folder {out_dir}, "
+                                "whose files vet replaces; choose another output folder.")
     data_fingerprint = fingerprint(dataset)
     leaks = find_duplicates(dataset)
     created = creation_date()
@@ -313,16 +384,13 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         for name, data in figures.items():
             (scratch / "figures" / name).write_bytes(data)
         html = render_report(evidence_document, base_dir=scratch)
-        # Everything is computed: now write, each file atomically.
+        # Everything is computed: now write, all files or none.
         evidence_text = json.dumps(evidence_document, indent=2, allow_nan=False, default=str)
-        for name, text in documents.items():
-            write_text_atomic(out_dir / name, text)
-        if figures:
-            (out_dir / "figures").mkdir(exist_ok=True)
-            for name, data in figures.items():
-                write_bytes_atomic(out_dir / "figures" / name, data)
-        write_text_atomic(out_dir / "evidence.json", evidence_text + "\n")
-        write_text_atomic(out_dir / "report.html", html)
+        files = {name: text.encode("utf-8") for name, text in documents.items()}
+        files.update({f"figures/{name}": data for name, data in figures.items()})
+        files["evidence.json"] = (evidence_text + "\n").encode("utf-8")
+        files["report.html"] = html.encode("utf-8")
+        _publish(files, out_dir, replace=replace)
 
     unchanged = all(entry["vetted"]["unchanged"] for entry in entries)
     return VetResult(verdict=verdict, report=str(out_dir / "report.html"),

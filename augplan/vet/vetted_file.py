@@ -184,7 +184,9 @@ def verify_vetted(path, *, data=None):
         ``path``, ``ok``, ``format_ok``, ``checksum_ok``, ``fingerprint_match``
         (None without ``data``) and ``messages``.
     """
-    if not Path(path).is_file():
+    if Path(path).is_dir():
+        raise BadInputError(f"{path}: is a folder; expected a vetted recipe file (vetted-*.yaml).")
+    if not Path(path).exists():
         raise BadInputError(f"{path}: vetted recipe file not found.")
     messages = []
     result = {"path": str(path), "ok": False, "format_ok": False, "checksum_ok": False,
@@ -197,6 +199,11 @@ def verify_vetted(path, *, data=None):
     result["format_ok"] = True
     if evidence is None or checksum is None:
         messages.append(f"{path}: a valid recipe, but not a vetted one (no evidence or checksum).")
+        return VerifyResult.from_json(result)
+    if not isinstance(evidence, dict) or not isinstance(checksum, str):
+        messages.append(f"{path}: not a vetted recipe: its 'evidence' must be a mapping and its "
+                        f"'checksum' a text; got {type(evidence).__name__} and {type(checksum).__name__}. "
+                        "Vet it again.")
         return VerifyResult.from_json(result)
     expected = vetted_checksum(recipe, evidence)
     result["checksum_ok"] = checksum == expected
