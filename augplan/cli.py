@@ -7,7 +7,9 @@ import argparse
 import dataclasses
 import json
 import os
+import signal
 import sys
+import threading
 import traceback
 from enum import IntEnum
 from pathlib import Path
@@ -27,6 +29,7 @@ class ExitCode(IntEnum):
     BAD_INPUT = 2   # bad input or usage
     INTERNAL = 3    # a bug in augplan: please report it
     INTERRUPTED = 130
+    TERMINATED = 143  # 128 + SIGTERM, as a shell reports it
 
 
 class _UsageError(BadInputError):
@@ -123,7 +126,7 @@ def _build_parser():
 
     p = commands.add_parser("preview", help="contact sheet of originals and augmented draws per class")
     _common(p, json_flag=False)
-    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
+    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("-o", "--output", required=True, type=Path, help="PNG file to write")
     p.add_argument("--per-class", type=_positive_int, default=3, help="images per class (default 3)")
     p.add_argument("--draws", type=_positive_int, default=5, help="augmented draws per image (default 5)")
@@ -131,7 +134,7 @@ def _build_parser():
     p = commands.add_parser("check", help="label safety of each transform")
     _common(p)
     _workers(p)
-    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
+    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class")
     p.add_argument("--evidence", type=Path, default=None,
                    help="folder for contact sheets of the images that moved")
@@ -139,7 +142,7 @@ def _build_parser():
     p = commands.add_parser("coverage", help="nuisance widening, field coverage, shortcut audit")
     _common(p)
     _workers(p)
-    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML")
+    p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
     p.add_argument("--plots", type=Path, default=None,
                    help="folder for factors.png: every factor's histograms, one panel each")
@@ -147,7 +150,8 @@ def _build_parser():
     p = commands.add_parser("evaluate", help="score recipes against a no-augmentation baseline")
     _common(p)
     _workers(p)
-    p.add_argument("--recipe", required=True, type=Path, action="append", help="recipe YAML (repeatable)")
+    p.add_argument("--recipe", required=True, type=Path, action="append",
+                   help="recipe YAML (repeatable; '-': standard input)")
     p.add_argument("--repeats", type=_positive_int, default=5, help="independent draws and model seeds (default 5)")
     p.add_argument("--confirm-fraction", type=float, default=None,
                    help="carve this share of val out as a confirmation split scored once")
@@ -159,13 +163,14 @@ def _build_parser():
     p = commands.add_parser("draft", help="propose a candidate recipe from the data")
     _common(p, json_flag=False)
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
-    p.add_argument("-o", "--output", required=True, type=Path, help="recipe YAML to write")
+    p.add_argument("-o", "--output", required=True, type=Path, help="recipe YAML to write ('-': standard output)")
     p.add_argument("--name", type=_recipe_name, default="draft", help="name of the drafted recipe (default 'draft')")
 
     p = commands.add_parser("vet", help="the whole job: check, coverage, evaluate, report, vetted export")
     _common(p)
     _workers(p)
-    p.add_argument("--recipe", required=True, type=Path, action="append", help="recipe YAML (repeatable)")
+    p.add_argument("--recipe", required=True, type=Path, action="append",
+                   help="recipe YAML (repeatable; '-': standard input)")
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
     p.add_argument("-o", "--output", required=True, type=Path, help="output folder")
     p.add_argument("--force", action="store_true", help="write into an existing non-empty output folder")
@@ -236,9 +241,13 @@ def _open_data(args, *, field=None):
 
 def _read_recipes(paths, dataset):
     """Read each recipe and check its class names against the data's classes."""
-    from augplan.recipe.parse import check_recipe_classes, read_recipe
+    from augplan.recipe.parse import MAX_RECIPE_BYTES, check_recipe_classes, parse_recipe, read_recipe
 
-    recipes = [read_recipe(path) for path in paths]
+    if sum(str(path) == "-" for path in paths) > 1:
+        raise BadInputError("--recipe -: standard input can hold only one recipe")
+    # "-" reads standard input, bounded as a file is.
+    recipes = [parse_recipe(sys.stdin.buffer.read(MAX_RECIPE_BYTES + 1), source="<stdin>")
+               if str(path) == "-" else read_recipe(path) for path in paths]
     for recipe in recipes:
         check_recipe_classes(recipe, dataset.classes)
     names = [recipe.name for recipe in recipes]
@@ -257,15 +266,23 @@ def _report_dataset(console, dataset):
 
 
 def _report_leaks(console, dataset):
+    """Duplicates across splits; they are listed once, as one warning of the result (see `_with_leaks`)."""
     from augplan.data.dataset import find_duplicates
 
-    leaks = find_duplicates(dataset)
-    for leak in leaks[:20]:
-        console.warn(f"{leak['kind']} duplicate across splits: {leak['a']} and {leak['b']} "
-                     "(it inflates validation scores)")
-    if len(leaks) > 20:
-        console.warn(f"... and {len(leaks) - 20} more duplicate pairs")
-    return leaks
+    return find_duplicates(dataset)
+
+
+def _with_leaks(result, leaks):
+    """The result with its ``leaks`` and, when there are any, one warning naming them (JSON and text alike)."""
+    warnings = list(result.warnings)
+    if leaks:
+        kinds = ", ".join(f"{sum(l['kind'] == kind for l in leaks)} {kind}" for kind in ("exact", "near")
+                          if any(l["kind"] == kind for l in leaks))
+        shown = "; ".join(f"{l['a']} and {l['b']}" for l in leaks[:3])
+        more = f"; and {len(leaks) - 3} more" if len(leaks) > 3 else ""
+        warnings.append(f"{len(leaks)} duplicate pairs across splits ({kinds}) inflate validation scores: "
+                        f"{shown}{more} (every pair under 'leaks' in --json)")
+    return dataclasses.replace(result, leaks=leaks, warnings=warnings)
 
 
 def _stores(args, dataset, console):
@@ -344,7 +361,7 @@ def _run_check(args, console):
     recipe = _read_recipes([args.recipe], dataset)[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, evidence_dir=args.evidence)
-    return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.check_table)
+    return _emit(console, args, _with_leaks(result, leaks), tables.check_table)
 
 
 def _run_coverage(args, console):
@@ -376,7 +393,7 @@ def _run_evaluate(args, console):
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, ledger_path=ledger, cache_dir=cache,
                               confirm_fraction=args.confirm_fraction)
-    return _emit(console, args, dataclasses.replace(result, leaks=leaks), tables.leaderboard_table)
+    return _emit(console, args, _with_leaks(result, leaks), tables.leaderboard_table)
 
 
 def _run_draft(args, console):
@@ -385,8 +402,15 @@ def _run_draft(args, console):
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
-    _ensure_parent(args.output, dataset)
+    to_stdout = str(args.output) == "-"
+    if not to_stdout:
+        _ensure_parent(args.output, dataset)
     text = draft_recipe_text(dataset, name=args.name, seed=args.seed, quiet=args.quiet)
+    if to_stdout:  # "-" writes standard output; the note goes to stderr
+        console._write(sys.stdout, text)
+        print("augplan: drafted a recipe on standard output; run 'augplan check' on it before use",
+              file=sys.stderr)
+        return ExitCode.OK
     write_text_atomic(args.output, text)
     console.say(f"wrote {args.output}; run 'augplan check' on it before use")
     return ExitCode.OK
@@ -465,7 +489,7 @@ def _run_demo(args, console):
 
     summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     _say_vetted(console, args, summary)
-    return ExitCode.OK
+    return ExitCode.FLAGGED if summary.flagged else ExitCode.OK  # as vet exits
 
 
 _COMMANDS = {
@@ -474,8 +498,27 @@ _COMMANDS = {
 }
 
 
+class _Terminated(BaseException):
+    """SIGTERM arrived: unwound like Ctrl-C, so every output in progress is removed."""
+
+
+def _on_sigterm(signum, frame):
+    raise _Terminated()
+
+
 def main(argv=None):
     """Run augplan with ``argv`` (default ``sys.argv[1:]``) and return the exit code."""
+    previous = None
+    if threading.current_thread() is threading.main_thread():
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    try:
+        return _main(argv)
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+def _main(argv):
     argv = sys.argv[1:] if argv is None else list(argv)
     show_traceback = "--traceback" in argv
     try:
@@ -502,6 +545,9 @@ def main(argv=None):
     except KeyboardInterrupt:
         print("augplan: interrupted; no partial output was kept", file=sys.stderr)
         return ExitCode.INTERRUPTED
+    except _Terminated:
+        print("augplan: terminated (SIGTERM); no partial output was kept", file=sys.stderr)
+        return ExitCode.TERMINATED
     except Exception as error:  # a bug: say so plainly, traceback on request
         if show_traceback:
             traceback.print_exc()

@@ -34,8 +34,10 @@ versions.
 from __future__ import annotations
 
 import colorsys
+import contextlib
 import io
 import sys
+import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -295,7 +297,10 @@ DEMO_RECIPES = ("naive-draft.yaml", "cautious.yaml", "light-and-pose.yaml")
 def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
     """Vet the demo recipes on the demo scenario; the output folder is replaced.
 
-    Uses the committed ``demo_images/`` and ``recipes/`` of the repository.
+    Uses the checkout's ``demo_images/`` when it is there; otherwise (an
+    installed package) the scenario is drawn into a temporary folder first,
+    the same images `make_demo_dataset` always draws. The recipes come from
+    the checkout's ``recipes/``.
 
     Returns
     -------
@@ -309,16 +314,20 @@ def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
     from augplan.workspace import default_ledger
 
     paths = [DEFAULT_RECIPE_DIR / name for name in DEMO_RECIPES]
-    if not DEFAULT_DEMO_DIR.is_dir() or not all(path.is_file() for path in paths):
-        raise BadInputError(f"the demo needs {DEFAULT_DEMO_DIR} and the recipes in {DEFAULT_RECIPE_DIR}; "
+    if not all(path.is_file() for path in paths):
+        raise BadInputError(f"the demo needs the recipes in {DEFAULT_RECIPE_DIR}; "
                             "run it from a checkout of the augplan repository")
-    dataset = open_dataset(DEFAULT_DEMO_DIR)
     recipes = [read_recipe(path) for path in paths]
     # The demo keeps its ledger beside its output folder, as a data set keeps it beside the data.
     ledger = default_ledger(Path(out_dir).resolve())
     ledger.parent.mkdir(parents=True, exist_ok=True)
-    return vet_recipes(dataset, recipes, out_dir, replace=True, repeats=repeats, seed=seed, workers=workers,
-                       quiet=quiet, ledger_path=ledger, cache_dir=ledger.parent / "features")
+    with contextlib.ExitStack() as stack:
+        root = DEFAULT_DEMO_DIR
+        if not root.is_dir():
+            root = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="augplan-demo-"))) / "demo_images"
+            make_demo_dataset(root)
+        return vet_recipes(open_dataset(root), recipes, out_dir, replace=True, repeats=repeats, seed=seed,
+                           workers=workers, quiet=quiet, ledger_path=ledger, cache_dir=ledger.parent / "features")
 
 
 def main(argv=None):

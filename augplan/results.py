@@ -34,6 +34,7 @@ __all__ = [
     "RESULT_TYPES",
     "schema_path",
     "json_number",
+    "range_text",
 ]
 
 SCHEMA_DIR = Path(__file__).with_name("schemas")
@@ -140,8 +141,8 @@ class CoverageResult(_Result):
 
     @property
     def flagged(self):
-        """A shortcut is flagged and persists after augmentation."""
-        return any(row["flagged"] and row["persists"] for row in self.shortcuts)
+        """A shortcut is flagged and the recipe does not break its link (the words' rule, SHORTCUT_RULE)."""
+        return any(row["flagged"] and row.get("link") != "broken" for row in self.shortcuts)
 
 
 @dataclass(frozen=True, eq=False)
@@ -221,6 +222,18 @@ def schema_path(command):
     if command not in RESULT_TYPES:
         raise ValueError(f"no JSON document for command {command!r}; expected one of {', '.join(RESULT_TYPES)}")
     return SCHEMA_DIR / f"{command}.schema.json"
+
+
+def range_text(pair, digits=3):
+    """How a [low, high] range reads in every output: ``-6.67 to 6.67``.
+
+    One spelling for tables, the HTML report and vetted-recipe notes alike;
+    ``digits`` significant digits; a single value for low == high.
+    """
+    low, high = (float(v) for v in pair)
+    if low == high:
+        return f"{low:.{digits}g}"
+    return f"{low:.{digits}g} to {high:.{digits}g}"
 
 
 def json_number(x, digits=6):

@@ -22,6 +22,7 @@ __all__ = [
     "CONFIRM_CONFIDENCE",
     "TURN_DEGREES",
     "ONE_VS_REST_THRESHOLD",
+    "LINK_BROKEN_SHARE",
     "COVERAGE_NEIGHBOURS",
     "COVERAGE_FLOOR",
     "NEAR_DUPLICATE_BITS",
@@ -106,6 +107,11 @@ TURN_DEGREES = 45.0
 # than the two-class 0.75 because every class gets a try (common practice,
 # no source).
 ONE_VS_REST_THRESHOLD = 0.9
+# A recipe "breaks the link" of a shortcut only when the upper end of the 95 %
+# interval of the augmented score lies within this share of the gap from chance
+# to perfect above chance (0.55 for two classes, 0.28 for five); a lower score
+# that does not reach it only weakens the link (common practice, no source).
+LINK_BROKEN_SHARE = 0.1
 
 # --- coverage of a field sample (Naeem et al. 2020, "Reliable fidelity and
 # diversity metrics for generative models", ICML; k = 5 is the paper's choice)

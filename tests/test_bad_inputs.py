@@ -766,3 +766,20 @@ def test_coverage_runs_through_a_class_with_one_training_image(as_json, tmp_path
         assert json.loads(result.out)["recipe"] == "tiny"
     else:
         assert "tiny" in result.out
+
+
+def test_duplicates_across_splits_are_listed_once_in_json_and_text(tmp_path, run_cli):
+    import shutil
+
+    data = write_tiny_dataset(tmp_path / "DATA")
+    for n in range(4):  # four exact copies of training images in val
+        shutil.copy(data / "train" / "alpha" / f"0{n}.png", data / "val" / "alpha" / f"copy-{n}.png")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("name: tiny\ncopies: 1\ntransforms:\n  - op: flip\n", encoding="utf-8")
+    result = run_cli("check", data, "--recipe", recipe, "--sample", "3", "--json")
+    assert result.code in (0, 1), result.err
+    document = json.loads(result.out)
+    assert len(document["leaks"]) == 4
+    said = [line for line in result.err.splitlines() if "duplicate" in line]
+    assert len(said) == 1 and "4 duplicate pairs across splits (4 exact)" in said[0] and "1 more" in said[0]
+    assert [w for w in document["warnings"] if "duplicate" in w] == [said[0].removeprefix("warning: ")]

@@ -261,3 +261,41 @@ def test_demo_lighting_shortcut_is_shared_by_val_and_cleared_by_the_relighting_r
     assert "brightness" in cautious["val_shares_shortcut"]
     assert not _row(relit, "brightness")["persists"]
     assert relit["field_coverage"]["coverage_after"] > relit["field_coverage"]["coverage_before"]
+
+
+@pytest.mark.parametrize("augmented, n, chance, expected", [
+    # The cases: 0.61 -> 0.55 with chance 0.20, and 0.94 -> 0.90 with two classes.
+    (0.55, 180, 0.2, "weakened"),
+    (0.90, 180, 0.5, "weakened"),
+    # Near chance with a tight interval: Wilson upper end about 0.26 <= 0.28 at n = 400.
+    (0.22, 400, 0.2, "broken"),
+    # The same score on few images: the interval reaches past the bound.
+    (0.22, 20, 0.2, "weakened"),
+], ids=["five-classes-0.55", "two-classes-0.90", "near-chance-many", "near-chance-few"])
+def test_the_link_is_broken_only_within_a_margin_of_chance(augmented, n, chance, expected):
+    from augplan.measure.shortcuts import link_of
+
+    row = {"augmented": augmented, "persists": False}
+    link = link_of(row, {}, None, chance, n)
+    assert link["link"] == expected
+    low, high = link["augmented_ci"]
+    assert low <= augmented <= high
+    # Wilson interval of the score as a share of n images (scipy's binomtest gives the same bounds).
+    from scipy.stats import binomtest
+    ci = binomtest(int(round(augmented * n)), n).proportion_ci(0.95, method="wilson")
+    assert (low, high) == pytest.approx((ci.low, ci.high), abs=1e-5)  # stored to 6 significant digits
+    assert link["link_bound"] == pytest.approx(chance + 0.1 * (1 - chance))
+
+
+def test_a_persisting_shortcut_keeps_its_word():
+    from augplan.measure.shortcuts import link_of
+
+    assert link_of({"augmented": 0.95, "persists": True}, {}, None, 0.5, 100)["link"] == "persists"
+
+
+def test_the_link_of_a_one_class_shortcut_is_judged_against_one_vs_rest_chance():
+    from augplan.measure.shortcuts import link_of
+
+    row = {"augmented": 0.21, "persists": False}
+    by_class = {"augmented": {"crack": 0.80}}
+    assert link_of(row, by_class, "crack", 0.2, 400)["link"] == "weakened"

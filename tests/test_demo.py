@@ -7,6 +7,7 @@ of the glaze classes uses Python's colorsys as the independent HSV reference.
 
 import colorsys
 import hashlib
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -190,3 +191,28 @@ def test_demo_recipes_parse(name):
         assert flips and dict(flips[0].relabel) == {"chevron-left": "chevron-right",
                                                     "chevron-right": "chevron-left"}
         assert "brightness" in ops and "rotate" in ops
+
+
+def test_demo_runs_without_the_checkout_images_and_exits_like_vet(tmp_path, monkeypatch, capsys):
+    # An installed package has no demo_images/: the scenario is drawn into a temporary folder.
+    import json as json_module
+
+    from augplan import demo
+    from augplan.cli import main
+
+    drawn, real_make = [], demo.make_demo_dataset
+
+    def small_demo(root, **kwargs):
+        drawn.append(Path(root))
+        return real_make(root, n_train=14, n_val=6, n_field=8)
+
+    monkeypatch.setattr(demo, "DEFAULT_DEMO_DIR", tmp_path / "no-checkout" / "demo_images")
+    monkeypatch.setattr(demo, "DEMO_RECIPES", ("naive-draft.yaml",))
+    monkeypatch.setattr(demo, "make_demo_dataset", small_demo)
+    capsys.readouterr()
+    code = main(["demo", "-o", str(tmp_path / "out"), "--json", "--quiet"])
+    document = json_module.loads(capsys.readouterr().out)
+    assert code == (0 if document["unchanged"] else 1)  # the naive draft is changed: exit 1, as vet
+    assert code == 1
+    assert (tmp_path / "out" / "report.html").is_file()
+    assert drawn and not drawn[0].exists()  # the temporary scenario is gone

@@ -104,10 +104,14 @@ def test_unverified_shortcut_move_is_kept_when_the_recipe_breaks_that_shortcut()
                             _entry(2, "rotate", "safe"), _entry(3, "blur", "safe"),
                             _entry(4, "noise", "safe")]}
     check["transforms"][3].update(verdict="unverified", shortcut={"factor": "sharpness", "class": "x"})
-    cleared = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": False}]}
-    persisting = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": True}]}
+    cleared = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": False, "link": "broken"}]}
+    weakened = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": False, "link": "weakened"}]}
+    persisting = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": True, "link": "persists"}]}
     vetted, changes = vet_transforms(RECIPE, check, coverage_result=cleared)
-    assert changes[3]["action"] == "keep" and "shortcut" in changes[3]["detail"]
+    assert changes[3]["action"] == "keep" and "recipe breaks the sharpness shortcut" in changes[3]["detail"]
+    # Weakened, not broken: still kept (removing the step brings the shortcut back), and said so.
+    vetted, changes = vet_transforms(RECIPE, check, coverage_result=weakened)
+    assert changes[3]["action"] == "keep" and "recipe weakens the sharpness shortcut" in changes[3]["detail"]
     vetted, changes = vet_transforms(RECIPE, check, coverage_result=persisting)
     assert changes[3]["action"] == "remove"
 

@@ -9,6 +9,7 @@ ground truth drawn here, where the right verdict is known by construction.
 """
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -579,6 +580,25 @@ def test_relabel_only_for_two_way_swaps_of_ops_that_can_swap(transform, pairs, r
     entries = {0: {"verdict": "breaks"}, 1: {"verdict": "breaks"}, 2: {"verdict": "safe"}}
     suggestion = _suggestion(transform, [0, 1, 2], entries, _passing(*pairs), ("a", "b", "c"))
     assert (suggestion or {}).get("relabel") == relabel
+
+
+def test_evidence_sheet_heading_carries_the_final_verdict(small_demo, tmp_path, monkeypatch):
+    # The shortcut pass turns this move's "breaks" into "unverified"; the sheet
+    # of the images that moved must say the same.
+    import augplan.check.check as check_module
+
+    headings = {}
+    real_write = check_module._write_evidence
+
+    def spy(evidence_dir, index, transform, verdict, *rest):
+        headings[index] = verdict
+        return real_write(evidence_dir, index, transform, verdict, *rest)
+
+    monkeypatch.setattr(check_module, "_write_evidence", spy)
+    entry = check_recipe(open_dataset(small_demo), DARKEN, seed=0, evidence_dir=tmp_path)["transforms"][0]
+    assert entry["verdict"] == "unverified"
+    assert headings == {0: "unverified"}
+    assert Path(entry["evidence_sheet"]).is_file()
 
 
 def test_evidence_sheet_keeps_the_files_aspect_ratio_and_captions_the_magnitude(tmp_path):

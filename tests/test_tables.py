@@ -52,7 +52,7 @@ def test_cells_are_aligned_under_their_header():
     assert header.index("bb") == rule.rindex(" ") + 1 == rows[1].index("z")
 
 
-@pytest.mark.parametrize("value,expected", [([-15.0, 15.0], "-15..15"), ([1.0, 1.0], "1"),
+@pytest.mark.parametrize("value,expected", [([-15.0, 15.0], "-15 to 15"), ([1.0, 1.0], "1"),
                                             (None, "-"), ("horizontal", "horizontal")],
                          ids=["range", "fixed", "none", "text"])
 def test_format_range(value, expected):
@@ -69,3 +69,30 @@ def test_history_table_fits_and_marks_reused_results():
     assert max(len(line) for line in text.splitlines()) <= 80
     assert "ledger" in text.splitlines()[-1] and "+0.000" in text
     assert history_table([]) == "no evaluations in the ledger yet"
+
+
+def test_one_safe_limit_reads_the_same_everywhere():
+    # Table, HTML report and vetted-recipe note spell one limit one way.
+    from augplan.render.html import _limit_text
+    from augplan.results import range_text
+    from augplan.vet.vetted_file import vet_transforms
+    from augplan.recipe.parse import parse_recipe
+
+    limit = [-6.6667, 6.6667]
+    recipe = parse_recipe("name: r\ntransforms:\n  - op: rotate\n    degrees: [-20, 20]\n")
+    check = {"transforms": [{"index": 0, "op": "rotate", "verdict": "breaks", "safe_limit": limit}]}
+    _, changes = vet_transforms(recipe, check)
+    spelled = {format_range(limit), _limit_text({"safe_limit": limit}), changes[0]["detail"].split("limit ")[-1]}
+    assert spelled == {range_text(limit)} == {"-6.67 to 6.67"}
+
+
+@pytest.mark.parametrize("name, low, high, expected", [
+    ("hue", -75.2, 163.0, "285 to 163 (through 0)"),
+    ("hue", 220.0, 379.0, "220 to 19 (through 0)"),
+    ("orientation", -55.9, 93.0, "124 to 93 (through 0)"),
+    ("brightness", 0.2, 0.5, "0.2 to 0.5"),
+], ids=["hue-negative", "hue-past-360", "orientation", "linear"])
+def test_angle_ranges_print_on_their_circle(name, low, high, expected):
+    from augplan.render.text import factor_range
+
+    assert factor_range(name, low, high) == expected

@@ -262,3 +262,47 @@ def test_replace_refuses_a_folder_that_is_no_earlier_output(space, tmp_path):
     with pytest.raises(BadInputError, match="not an earlier augplan output"):
         vet_recipes(open_dataset(space.data), [read_recipe(space.recipe)], out, replace=True, repeats=2, sample=3)
     assert sorted(p.name for p in out.iterdir()) == ["notes.txt"]
+
+
+def test_sigterm_during_vet_exits_143_and_keeps_no_output(space, tmp_path, monkeypatch):
+    import os
+    import signal
+
+    import augplan.vet.job
+
+    def terminate(*args, **kwargs):
+        os.kill(os.getpid(), signal.SIGTERM)
+        raise AssertionError("SIGTERM was not handled")  # never reached: the handler raises first
+
+    monkeypatch.setattr(augplan.vet.job, "evaluate_recipes", terminate)
+    out = tmp_path / "vet"
+    before = _snapshot(space)
+    code, _, err = _run(["vet", space.data, "--recipe", space.recipe, "-o", out, "--repeats", "2",
+                         "--sample", "3", "--quiet"])
+    assert code == 143
+    assert "terminated" in err and "Traceback" not in err
+    assert not out.exists() and _left_over(tmp_path) == []
+    assert _snapshot(space) == before
+    import augplan.cli
+
+    assert signal.getsignal(signal.SIGTERM) is not augplan.cli._on_sigterm  # the earlier handler is back
+
+
+def test_recipe_from_standard_input(space, monkeypatch):
+    import sys
+
+    monkeypatch.setattr(sys, "stdin", io.TextIOWrapper(io.BytesIO(space.recipe.read_bytes())))
+    code, out, err = _run(["preview", space.data, "--recipe", "-", "-o", space.out / "stdin-sheet.png",
+                           "--per-class", "1", "--draws", "1"])
+    assert code == 0, err
+    assert (space.out / "stdin-sheet.png").is_file()
+    assert not (Path.cwd() / "-").exists()
+
+
+def test_draft_to_standard_output(space):
+    from augplan.recipe.parse import parse_recipe
+
+    code, out, err = _run(["draft", space.data, "-o", "-", "--quiet"])
+    assert code == 0, err
+    assert parse_recipe(out).name == "draft"
+    assert not (Path.cwd() / "-").exists()

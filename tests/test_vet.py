@@ -131,6 +131,43 @@ def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
     assert sentence.startswith(start) and "augplan changed draft" in sentence
 
 
+def _change_list(*pairs):
+    return [{"index": i, "op": "rotate", "verdict": verdict, "action": action, "detail": ""}
+            for i, (verdict, action) in enumerate(pairs)]
+
+
+@pytest.mark.parametrize("changes, unchanged, says, never", [
+    (_change_list(("safe", "keep"), ("unverified", "keep"), ("unverified", "keep")), True,
+     "2 kept transforms are unverified and need a person's sign-off", "kept its labels"),
+    (_change_list(("breaks", "remove"), ("unverified", "keep")), False,
+     "1 kept transform is unverified", "label-safe"),
+    (_change_list(("safe", "keep"), ("safe", "keep")), True, "every transform kept its labels", "sign-off"),
+], ids=["approved-unverified", "changed-and-unverified", "all-safe"])
+def test_verdict_sentence_claims_no_more_than_the_verdicts(changes, unchanged, says, never):
+    from augplan.vet.job import _verdict_sentence
+
+    best = {"name": "r", "gain": 0.02, "gain_ci": [0.01, 0.03]}
+    entries = [{"name": "r", "vetted": {"unchanged": unchanged, "changes": changes}}]
+    sentence = _verdict_sentence(entries, {"baseline": {"accuracy": 0.9}}, best)
+    assert says in sentence and never not in sentence
+
+
+@pytest.mark.parametrize("changes, says, never", [
+    (_change_list(("safe", "keep"), ("safe", "keep")), "every transform kept as written", "removed"),
+    (_change_list(("breaks", "remove"), ("safe", "clip")), "2 transforms relabelled, scoped, clipped or removed",
+     "sign-off"),
+    (_change_list(("unverified", "keep")), "1 kept transform is unverified", "clipped or removed"),
+], ids=["nothing-broke", "two-changed", "unverified-kept"])
+def test_vetted_file_header_says_what_vetting_did(changes, says, never):
+    from augplan.recipe.parse import parse_recipe
+    from augplan.vet.vetted_file import vetted_text
+
+    text = vetted_text(parse_recipe("name: v\n"), {"n": 1}, changes=changes)
+    header = "".join(line for line in text.splitlines(keepends=True) if line.startswith("#"))
+    assert says in header and never not in header
+    assert "Transforms that broke labels" not in header
+
+
 _ORIGINAL = ("name: o\ntransforms:\n  - op: hue\n    degrees: [-90, 90]\n  - op: rotate\n"
              "    degrees: [-30, 30]\n  - op: rotate\n    degrees: [-5, 5]\n")
 _REWRITTEN = ("name: v\ntransforms:\n  - op: rotate\n    degrees: [-30, 30]\n    only: [a]\n"
@@ -169,6 +206,20 @@ def test_a_rejected_rewrite_falls_back_to_the_safe_limit():
     assert [step.params["degrees"] for step in result.transforms] == [(-10.0, 10.0), (-5.0, 5.0)]
     assert result.transforms[0].only is None  # the original step, clipped; not the rejected scope
     assert changes[1]["action"] == "clip" and "safe limit" in changes[1]["detail"]
+
+
+def test_vetted_recipe_validates_against_the_shipped_schema(vetted):
+    import jsonschema
+    import yaml
+
+    from augplan.recipe.parse import RECIPE_SCHEMA_PATH
+
+    code, out, _ = vetted
+    schema = json.loads(RECIPE_SCHEMA_PATH.read_text(encoding="utf-8"))
+    document = yaml.safe_load((out / "vetted-recipe.yaml").read_text(encoding="utf-8"))
+    assert {"checksum", "evidence"} <= set(document)
+    errors = [e.message for e in jsonschema.Draft202012Validator(schema).iter_errors(document)]
+    assert not errors, errors
 
 
 def test_vet_json_carries_the_changes_and_the_signoff_list(vetted):

@@ -933,10 +933,11 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
                           workers, quiet, clock)
     report = [_entry(t, transforms[t], plans[t], screened[t], judged, classes, warnings)
               for t in range(len(transforms))]
+    _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
     if evidence_dir is not None:
+        # After the shortcut pass, so each sheet's heading carries the final verdict.
         _attach_evidence(report, screen, plans, evidence_dir, transforms, records, labels, classes, recipe.fill,
                          seed)
-    _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
     return _document(recipe, baseline, labels, classes, report, warnings)
 
 

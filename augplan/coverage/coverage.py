@@ -604,7 +604,7 @@ def _suggestions(samples, shortcuts, poorly_covered, size, messages):
     suggestions, sample_images = [], None
     for name in FACTORS:
         # A shortcut the recipe already breaks needs no further suggestion.
-        is_flagged = any(r["factor"] == name and r["flagged"] and r["persists"] for r in shortcuts)
+        is_flagged = any(r["factor"] == name and r["flagged"] and r["link"] != "broken" for r in shortcuts)
         if not (is_flagged or name in poorly_covered):
             continue
         if name == "sharpness" and sample_images is None:

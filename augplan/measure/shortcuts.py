@@ -18,8 +18,10 @@ import warnings
 import numpy as np
 
 from augplan.measure.factors import FACTORS
+from augplan.measure.stats import wilson_interval
 from augplan.results import json_number
-from augplan.thresholds import CHANCE_GAP_SHARE, MAX_FOLDS, ONE_VS_REST_THRESHOLD, beyond_chance
+from augplan.thresholds import (CHANCE_GAP_SHARE, CONFIDENCE, LINK_BROKEN_SHARE, MAX_FOLDS,
+                                ONE_VS_REST_THRESHOLD, beyond_chance)
 
 __all__ = [
     "ALL_FACTORS",
@@ -29,6 +31,7 @@ __all__ = [
     "shortcut_score",
     "factor_columns",
     "audit_shortcuts",
+    "link_of",
     "shortcut_messages",
 ]
 
@@ -41,7 +44,12 @@ SHORTCUT_RULE = (
     f"chance to perfect ({beyond_chance(0.5):g} for two classes), or, with more than two classes, when "
     "it tells one class from the rest with a one-vs-rest balanced accuracy of at "
     f"least {ONE_VS_REST_THRESHOLD:g}; it persists when the augmented training set still meets the same "
-    "test, and the validation split shares it when val meets it. When a labelled "
+    "test. The recipe breaks the link only when the upper end of the "
+    f"{CONFIDENCE:.0%} Wilson interval of the augmented score (the training images as the unit) lies "
+    f"within {LINK_BROKEN_SHARE:g} x (1 - chance) of chance ({beyond_chance(0.5, LINK_BROKEN_SHARE):g} "
+    "for two classes; for a factor that singles out one class, its one-vs-rest score against 0.5); "
+    "a score between the two only weakens the link. The validation split shares it when val meets it. "
+    "When a labelled "
     "field sample also meets the test, the factor is a cue that defines the class "
     "there and is not flagged. The all-factors "
     "row is for information only and never flagged: classes may differ in colour "
@@ -167,6 +175,48 @@ def _meets(row, by_class, driver, set_name, threshold):
     return score is not None and score >= ONE_VS_REST_THRESHOLD
 
 
+def link_of(row, by_class, driver, chance, n_images):
+    """Whether the recipe breaks, weakens or keeps a flagged shortcut (see SHORTCUT_RULE).
+
+    Parameters
+    ----------
+    row : dict
+        An audit row with ``augmented`` and ``persists``.
+    by_class : dict
+        One-vs-rest scores per set and class.
+    driver : str or None
+        The class the factor singles out; its one-vs-rest score is then judged
+        against 0.5, the score of guessing "this class or not".
+    chance : float
+        1 / n_classes.
+    n_images : int
+        Training images: the unit of the interval (an image's augmented
+        copies are not independent).
+
+    Returns
+    -------
+    dict
+        ``link`` ("broken", "weakened", "persists" or None when unscored),
+        ``augmented_ci`` (the Wilson interval [1]_ of the augmented score taken
+        as a share of ``n_images``) and ``link_bound`` (the near-chance bound
+        its upper end must reach down to).
+
+    References
+    ----------
+    .. [1] E. B. Wilson, "Probable inference, the law of succession, and
+       statistical inference", JASA 22(158), 209-212, 1927.
+    """
+    score, level = row.get("augmented"), chance
+    if driver is not None and (by_class.get("augmented") or {}).get(driver) is not None:
+        score, level = by_class["augmented"][driver], 0.5
+    if score is None or n_images < 1:
+        return {"link": None, "augmented_ci": None, "link_bound": None}
+    low, high = wilson_interval(int(round(score * n_images)), n_images, confidence=CONFIDENCE)
+    bound = beyond_chance(level, LINK_BROKEN_SHARE)
+    link = "persists" if row["persists"] else ("broken" if high <= bound else "weakened")
+    return {"link": link, "augmented_ci": [json_number(low), json_number(high)], "link_bound": json_number(bound)}
+
+
 def _audit_row(name, chosen, sets, n_classes, seed):
     threshold = shortcut_threshold(max(n_classes, 1))
     row, by_class = {"factor": name}, {}
@@ -193,6 +243,9 @@ def _audit_row(name, chosen, sets, n_classes, seed):
     flagged = flagged and not row["field_confirms"]
     row["flagged"] = bool(flagged)
     row["persists"] = bool(flagged and meets("augmented"))
+    n_images = len(sets["original"][1]) if "original" in sets else 0
+    row.update(link_of(row, by_class, driver, 1.0 / max(n_classes, 1), n_images) if flagged else
+               {"link": None, "augmented_ci": None, "link_bound": None})
     row["val_shares"] = bool(flagged and meets("val"))
     row["class"] = driver if (flagged or row["field_confirms"]) else None
     row["by_class"] = by_class
@@ -219,8 +272,9 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
     -------
     list of dict
         Rows with ``factor``, the four scores, ``chance``, ``field_confirms``,
-        ``flagged``, ``persists``, ``val_shares``, ``class``, ``by_class`` and
-        ``combined``, following `SHORTCUT_RULE`.
+        ``flagged``, ``persists``, ``link``, ``augmented_ci``, ``link_bound``,
+        ``val_shares``, ``class``, ``by_class`` and ``combined``, following
+        `SHORTCUT_RULE`.
     """
     names = list(FACTORS)
     return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed)
@@ -239,12 +293,17 @@ def _flagged_message(row, chance, threshold):
     text = (f"{row['factor']} {what} in the original training set (balanced accuracy "
             f"{_score_text(row, 'original')}; chance {chance:.2f}): a shortcut unless it is "
             f"the cue that defines the classes.")
-    if row["persists"]:
+    low_high = row.get("augmented_ci")
+    interval = f", {CONFIDENCE:.0%} interval {low_high[0]:.2f} to {low_high[1]:.2f}" if low_high else ""
+    if row.get("link") == "persists":
         text += (f" After augmentation it still does ({_score_text(row, 'augmented')}): the "
                  f"recipe does not break the link.")
-    elif row["augmented"] is not None:
-        text += (f" After augmentation it falls to {_score_text(row, 'augmented')}: the recipe "
-                 f"breaks the link.")
+    elif row.get("link") == "weakened":
+        text += (f" After augmentation it falls to {_score_text(row, 'augmented')}{interval}, above the "
+                 f"near-chance bound {row['link_bound']:.2f}: the recipe weakens the link but does not break it.")
+    elif row.get("link") == "broken":
+        text += (f" After augmentation it falls to {_score_text(row, 'augmented')}{interval}, within the "
+                 f"near-chance bound {row['link_bound']:.2f}: the recipe breaks the link.")
     return text
 
 

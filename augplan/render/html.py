@@ -23,6 +23,10 @@ import math
 import re
 from pathlib import Path
 
+from augplan.measure.factors import FACTORS
+from augplan.render.text import factor_range
+from augplan.results import range_text
+
 from augplan.render.plots import factor_grid, palette_png
 
 __all__ = ["render_report", "embed_png", "embed_image"]
@@ -373,7 +377,7 @@ def _swaps_text(swaps, limit=2):
         return _DASH
     parts = []
     for swap in swaps[:limit]:
-        n = f", n={swap['n']}" if _is_number(swap.get("n")) else ""
+        n = f", {swap['n']} images moved" if _is_number(swap.get("n")) else ""
         parts.append(f"<span class=\"swap\">{_e(swap.get('from', '?'))} \u2192 {_e(swap.get('to', '?'))} "
                      f"{_percent(swap.get('rate'))}{n}</span>")
     more = f"<br><span class=\"note\">and {len(swaps) - limit} more</span>" if len(swaps) > limit else ""
@@ -384,8 +388,8 @@ def _limit_text(transform):
     pair = transform.get("safe_limit")
     if isinstance(pair, (list, tuple)) and len(pair) == 2:
         if pair[0] == pair[1]:
-            return f"{_number(pair[0])} only (no change is safe)"
-        return f"{_number(pair[0])} to {_number(pair[1])}"
+            return f"{range_text(pair)} only (no change is safe)"
+        return range_text(pair)
     if transform.get("magnitudes"):
         return "no safe magnitude"
     return _DASH
@@ -529,11 +533,16 @@ def _suggestion_text(suggestion):
     return _value_text(suggestion)
 
 
-def _range_text(stats):
+def _range_text(stats, factor=None):
     if not isinstance(stats, dict):
         return _DASH
     low, high = stats.get("p05"), stats.get("p95")
-    text = f"{_number(low)} to {_number(high)}" if _is_number(low) and _is_number(high) else _DASH
+    circular = factor is not None and getattr(FACTORS.get(factor), "circular", False)
+    if _is_number(low) and _is_number(high):
+        # Angles on their own circle, as in the text table and the plots.
+        text = factor_range(factor, low, high) if circular else f"{_number(low)} to {_number(high)}"
+    else:
+        text = _DASH
     if _is_number(stats.get("std")):
         text += f" <span class=\"note\">(sd {_number(stats['std'])})</span>"
     return text
@@ -588,7 +597,7 @@ def _coverage_section(entry, number, base_dir):
         for factor, info in factors.items():
             info = info if isinstance(info, dict) else {}
             unit = f' <span class="note">({_e(info["unit"])})</span>' if info.get("unit") else ""
-            rows.append([_e(factor) + unit, _range_text(info.get("original")), _range_text(info.get("augmented")),
+            rows.append([_e(factor) + unit, _range_text(info.get("original"), factor), _range_text(info.get("augmented"), factor),
                          _widening(info.get("original"), info.get("augmented")), _field_text(info.get("field"))])
         out.append("<h4>How far the recipe widens each factor</h4>")
         out.append(_table(["factor", "original 5th to 95th percentile", "augmented 5th to 95th percentile",
@@ -604,6 +613,10 @@ def _coverage_section(entry, number, base_dir):
                 flags.append("shortcut")
             if s.get("persists"):
                 flags.append("survives the recipe")
+            elif s.get("link") == "weakened":
+                flags.append("weakened, not broken, by the recipe")
+            elif s.get("link") == "broken":
+                flags.append("broken by the recipe")
             if s.get("combined"):
                 flags.append("all factors together, for information")
             rows.append([_e(s.get("factor", "?")), _score_cell(s.get("original")), _score_cell(s.get("augmented")),

@@ -2,6 +2,9 @@
 
 import textwrap
 
+from augplan.measure.factors import FACTORS
+from augplan.results import range_text
+
 __all__ = ["format_table", "wrap", "check_table", "coverage_table", "leaderboard_table", "history_table",
            "run_table", "format_range", "format_interval"]
 
@@ -40,15 +43,23 @@ def format_interval(low, high, digits=2):
 
 
 def format_range(value, digits=3):
-    """A magnitude range as text: ``-15..15`` or a single value."""
+    """A magnitude range as text: ``-15 to 15`` (`augplan.results.range_text`) or a single value."""
     if value is None:
         return "-"
     if isinstance(value, (list, tuple)):
-        low, high = value
-        if low == high:
-            return f"{low:g}"
-        return f"{round(low, digits):g}..{round(high, digits):g}"
+        return range_text(value, digits)
     return str(value)
+
+
+def factor_range(name, low, high):
+    """A factor's 5-95% span; angles on their own circle (0-360 hue, 0-180 orientation), as the plots show."""
+    if low is None or high is None:
+        return "-"
+    factor = FACTORS.get(name)
+    if factor is None or not factor.circular:
+        return f"{low:.3g} to {high:.3g}"
+    low, high = low % factor.period, high % factor.period
+    return f"{low:.3g} to {high:.3g}" + (" (through 0)" if low > high else "")
 
 
 def _params_text(params):
@@ -56,7 +67,10 @@ def _params_text(params):
 
 
 def _swaps_text(swaps, limit=3):
-    return "; ".join(f"{s['from']} -> {s['to']} {s['rate']:+.0%} (n={s['n']})" for s in swaps[:limit])
+    # "moved of n": the count behind each rate and the images it is a share of.
+    return "; ".join(f"{s['from']} -> {s['to']} {s['rate']:+.0%} ({s['moved']} moved of {s['n']} images)"
+                     if "moved" in s else f"{s['from']} -> {s['to']} {s['rate']:+.0%} (of {s['n']} images)"
+                     for s in swaps[:limit])
 
 
 _STAGE = {"screen": "screen", "confirmation": "training"}
@@ -106,17 +120,19 @@ def coverage_table(result):
         original, augmented = factor["original"], factor["augmented"]
         field = factor.get("field")
         rows.append([name, f"{original['std']:.3g}", f"{augmented['std']:.3g}",
-                     f"{original['p05']:.3g}..{original['p95']:.3g}",
-                     f"{augmented['p05']:.3g}..{augmented['p95']:.3g}",
+                     factor_range(name, original['p05'], original['p95']),
+                     factor_range(name, augmented['p05'], augmented['p95']),
                      f"{field['coverage']:.0%}" if field else "-"])
     widening = format_table(["factor", "std orig", "std aug", "5-95% orig", "5-95% aug", "field in"], rows)
     rows = []
     for s in result["shortcuts"]:
-        flag = "FLAGGED" if s["flagged"] and s.get("persists") else ("cleared" if s["flagged"] else "")
+        link = s.get("link")
+        flag = ("" if not s["flagged"] else "cleared" if link == "broken"
+                else "weakened" if link == "weakened" else "FLAGGED")
         # A score is None where the audit could not be run (a class with one image).
         rows.append([s["factor"], *(_score_text(s.get(key)) for key in ("original", "augmented", "val", "field")),
                      f"{s['chance']:.2f}", flag])
-    audit = format_table(["shortcut factor", "train", "augmented", "val", "field", "chance", ""], rows)
+    audit = format_table(["shortcut factor", "train", "augmented", "val", "field", "chance", "status"], rows)
     parts = [f"recipe {result['recipe']}: nuisance factors", widening, "", "shortcut audit "
              "(cross-validated balanced accuracy of the class from the factor alone)", audit]
     coverage = result.get("field_coverage")
@@ -160,7 +176,7 @@ def leaderboard_table(result):
                      "LOSES" if r["flagged"] else ""])
     head = (f"scored on {result['scored_on']} ({base.get('n_images', '?')} original images), "
             f"{result['repeats']} repeats per recipe")
-    parts = [head, format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]", "Holm p", ""], rows)]
+    parts = [head, format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]", "Holm p", "status"], rows)]
     parts += _source_table(result, "confirm")
     parts += _source_table(result, "field")
     return "\n".join(parts)

@@ -140,7 +140,8 @@ def _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check):
     A rejected rewrite falls back to the original step clipped to its safe
     limit when the first check measured one, and is removed otherwise.
     """
-    from augplan.vet.vetted_file import _clip_to_limit, _range_text
+    from augplan.results import range_text
+    from augplan.vet.vetted_file import _clip_to_limit
 
     kept = [change for change in changes if change["action"] != "remove"]
     verdicts = {t["index"]: t["verdict"] for t in rechecked["transforms"]}
@@ -152,7 +153,7 @@ def _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check):
             clipped = _clip_to_limit(original, entry)
             if clipped is not None and clipped != original:
                 change["detail"] += (f"; re-checked as rewritten it is still {verdicts[position]}: "
-                                     f"clipped to the safe limit {_range_text(entry['safe_limit'])} instead")
+                                     f"clipped to the safe limit {range_text(entry['safe_limit'])} instead")
                 change["action"] = "clip"
                 steps.append(clipped)
                 continue
@@ -250,8 +251,18 @@ def _verdict_sentence(recipe_entries, evaluation, best):
     if accuracy is not None and accuracy >= 0.99:
         scores += f", which is saturated ({accuracy:.0%} without augmentation)"
     changed = [entry["name"] for entry in recipe_entries if not entry["vetted"]["unchanged"]]
-    tail = (f"augplan changed {', '.join(changed)} to make {'it' if len(changed) == 1 else 'them'} label-safe"
-            if changed else "every transform kept its labels")
+    unverified = sum(1 for entry in recipe_entries for change in entry["vetted"].get("changes", ())
+                     if change["verdict"] == "unverified" and change["action"] == "keep")
+    # Each claim follows the verdicts: "label-safe" only when no kept step is unverified.
+    if changed and not unverified:
+        tail = f"augplan changed {', '.join(changed)} to make {'it' if len(changed) == 1 else 'them'} label-safe"
+    elif changed:
+        tail = f"augplan changed {', '.join(changed)}"
+    else:
+        tail = "every transform was checked and kept as written" if unverified else "every transform kept its labels"
+    if unverified:
+        tail += (f"; {unverified} kept transform{'s are' if unverified > 1 else ' is'} unverified and "
+                 f"need{'' if unverified > 1 else 's'} a person's sign-off")
     return f"{lead}: {scores}; {tail}."
 
 
@@ -363,7 +374,8 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             signoff = [f"{item['index']} {item['op']}: {item['detail']}" for item in entry["vetted"]["signoff"]]
             if signoff:
                 evidence["needs_signoff"] = signoff
-            documents[f"vetted-{entry['name']}.yaml"] = vetted_text(vetted, evidence)
+            documents[f"vetted-{entry['name']}.yaml"] = vetted_text(vetted, evidence,
+                                                                    changes=entry["vetted"]["changes"])
         documents["vetted-recipe.yaml"] = documents[f"vetted-{best_entry['name']}.yaml"]
 
         verdict = _verdict_sentence(entries, evaluation, best_entry["vetted"]["score"])

@@ -19,7 +19,7 @@ import yaml
 from augplan import __version__
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
-from augplan.results import VerifyResult
+from augplan.results import VerifyResult, range_text
 from augplan.recipe.parse import RecipeError, canonical_json, read_recipe_document, recipe_to_dict, vetted_checksum
 
 __all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
@@ -31,10 +31,6 @@ def creation_date():
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
     seconds = int(epoch) if epoch and epoch.isdigit() else time.time()
     return time.strftime("%Y-%m-%d", time.gmtime(seconds))
-
-
-def _range_text(pair):
-    return f"[{pair[0]:.3g}, {pair[1]:.3g}]"
 
 
 def _intersect(range_pair, limit):
@@ -69,7 +65,7 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     - ``unverified``: kept as it is when ``i`` is in ``approve``, or when
       the checker traced it to a shortcut of the data (``shortcut``) that
       the coverage analysis shows this recipe breaks (its factor is flagged
-      and no longer persists): removing it would keep the shortcut, and a
+      and no longer persists: the recipe weakens or breaks its link): removing it would keep the shortcut, and a
       person signs it off from the evidence; otherwise clipped to its safe
       limit when it has one; otherwise removed.
     - ``safe``: clipped to its safe limit when the limit is narrower than the
@@ -93,8 +89,10 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     """
     approve = set(approve)
     entries = {entry["index"]: entry for entry in check_result["transforms"]}
-    broken_shortcuts = {row["factor"] for row in (coverage_result or {}).get("shortcuts", [])
-                        if row.get("flagged") and not row.get("persists")}
+    # The recipe's link to each shortcut it weakens or breaks (coverage's rule names which).
+    loosened = {row["factor"]: ("breaks" if row.get("link") == "broken" else "weakens")
+                for row in (coverage_result or {}).get("shortcuts", [])
+                if row.get("flagged") and not row.get("persists")}
     kept, changes = [], []
     for index, step in enumerate(recipe.transforms):
         entry = entries[index]
@@ -112,22 +110,23 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
             new_step = dataclasses.replace(step, only=only, exclude=None)
         elif verdict == "unverified" and index in approve:
             detail = "unverified, kept: approved by a person (--approve)"
-        elif verdict == "unverified" and (entry.get("shortcut") or {}).get("factor") in broken_shortcuts:
+        elif verdict == "unverified" and (entry.get("shortcut") or {}).get("factor") in loosened:
             factor = entry["shortcut"]["factor"]
-            detail = (f"unverified, kept: it breaks the {factor} shortcut of the data, and the proxy "
+            detail = (f"unverified, kept: the recipe {loosened[factor]} the {factor} shortcut of the data "
+                      "(coverage's link rule), and the proxy "
                       f"model's objection follows that shortcut; a person signs it off from the evidence")
         elif verdict in ("breaks", "unverified"):
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {_range_text(entry['safe_limit'])}"
+                detail = f"clipped to the safe limit {range_text(entry['safe_limit'])}"
             else:
                 action, new_step, detail = "remove", None, f"removed: {verdict}"
         else:
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {_range_text(entry['safe_limit'])}"
+                detail = f"clipped to the safe limit {range_text(entry['safe_limit'])}"
         if new_step is not None:
             kept.append(new_step)
         changes.append({"index": index, "op": step.op, "verdict": verdict, "action": action,
@@ -136,13 +135,32 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     return vetted, changes
 
 
-def vetted_text(recipe, evidence):
-    """The vetted recipe file's YAML text: recipe body, evidence, checksum."""
+def _header(changes):
+    """The file's opening comment: what vetting did, in words the changes bear out."""
+    if changes is None:
+        lines = ["# Vetted by augplan; what changed is in the evidence block."]
+    else:
+        altered = sum(1 for c in changes if c["action"] != "keep")
+        signoff = sum(1 for c in changes if c["action"] == "keep" and c["verdict"] == "unverified")
+        lines = [f"# Vetted by augplan: {altered} transform{'s' if altered != 1 else ''} relabelled, scoped, "
+                 "clipped or removed by the label-safety check." if altered else
+                 "# Vetted by augplan: every transform kept as written."]
+        if signoff:
+            lines.append(f"# {signoff} kept transform{'s are' if signoff != 1 else ' is'} unverified and "
+                         "need a person's sign-off (needs_signoff).")
+    return "\n".join(lines + ["# See the evidence block. Editing any value invalidates the checksum",
+                              "# ('augplan verify' tells)."]) + "\n"
+
+
+def vetted_text(recipe, evidence, *, changes=None):
+    """The vetted recipe file's YAML text: a header, recipe body, evidence, checksum.
+
+    ``changes`` (the per-transform changes of `vet_transforms`) word the
+    header; the checksum covers body and evidence only.
+    """
     evidence = json.loads(canonical_json(evidence))  # plain types only, so the YAML round-trips
     body = recipe_to_dict(recipe)
-    header = ("# Vetted by augplan. Transforms that broke labels were removed or rewritten;\n"
-              "# see the evidence block. Editing any value invalidates the checksum\n"
-              "# ('augplan verify' tells).\n")
+    header = _header(changes)
     text = yaml.safe_dump(body, sort_keys=False, default_flow_style=None, allow_unicode=True, width=100)
     text += yaml.safe_dump({"evidence": evidence}, sort_keys=True, default_flow_style=False,
                            allow_unicode=True, width=100)
