@@ -74,7 +74,7 @@ from scipy.spatial.distance import cdist
 from sklearn.decomposition import PCA
 from sklearn.preprocessing import StandardScaler
 
-from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, RECALL_MARGIN, TOO_FEW, class_verdict,
+from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, RECALL_MARGIN, class_verdict,
                              compare_predictions, pair_breaks)
 from augplan.errors import BadInputError
 from augplan.thresholds import (MAX_FOLDS, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
@@ -100,7 +100,6 @@ MIN_PER_CLASS = MIN_IMAGES_PER_CLASS
 FOLDS = MAX_FOLDS
 EVIDENCE_IMAGES = 8
 OUTSIDE = -1
-_RANK = {"safe": 0, TOO_FEW: 1, "unverified": 1, "breaks": 2}
 # Ops whose images can take another class's look as a whole (a mirror, a
 # turn of the image, a hue turn), so that a relabel can undo the swap.
 # Rotations, zooms and shifts only widen a class: never relabelled.
@@ -703,7 +702,8 @@ def _judge(labels, base_pred, predictions, n_classes, checked, weak, seen, rng):
     verdicts = {}
     for change in changes:
         own = class_verdict(change, [p for p in pairs if p.source == change.index])
-        verdicts[change.index] = "unverified" if own in ("safe", "breaks") and weak else own
+        # Only the two witnesses can say breaks; a weak proxy vouches for nothing.
+        verdicts[change.index] = "unverified" if own == "breaks" or (own == "safe" and weak) else own
     if passing:
         overall = "breaks"
     elif all(v == "safe" for v in verdicts.values()):
@@ -713,10 +713,8 @@ def _judge(labels, base_pred, predictions, n_classes, checked, weak, seen, rng):
     entries = {}
     for change in changes:
         if change.index in checked:
-            verdict = "breaks" if change.index in culprits else verdicts[change.index]
             entries[change.index] = {
-                "verdict": "unverified" if verdict == "breaks" and change.index not in culprits else verdict,
-                "n": change.n, "recall_base": round(change.recall_base, 4),
+                "verdict": "breaks" if change.index in culprits else verdicts[change.index], "n": change.n, "recall_base": round(change.recall_base, 4),
                 "recall_augmented": round(change.recall_augmented, 4), "recall_fall": round(change.fall, 4),
                 "recall_fall_ci": [round(change.low, 4), round(change.high, 4)]}
     shown = {(p.source, p.target) for p in passing}
@@ -757,7 +755,7 @@ def _can_swap_classes(transform):
 
 
 def _suggestion(transform, checked, entries, passing, classes):
-    """Relabel for confirmed swaps that close a cycle; `only` for the classes not at fault.
+    """Relabel for confirmed swaps that close a cycle; `only` for the safe classes and the cycle.
 
     A confirmed confusion ``B -> A`` means the transformed images of ``A``
     taught the model ``B``'s look: ``A``'s images take ``B``'s class. A
@@ -782,7 +780,7 @@ def _suggestion(transform, checked, entries, passing, classes):
     if in_cycle:
         suggestion["relabel"] = dict(sorted((classes[a], classes[main[a]]) for a in in_cycle))
     at_fault = set(main) - in_cycle
-    keep = [a for a in checked if a not in at_fault and entries.get(a, {}).get("verdict") != TOO_FEW]
+    keep = [a for a in checked if a in in_cycle or entries.get(a, {}).get("verdict") == "safe"]
     if at_fault and keep and len(keep) < len(checked):
         suggestion["only"] = sorted(classes[a] for a in keep)
     return suggestion or None
