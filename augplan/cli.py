@@ -144,7 +144,8 @@ def _build_parser():
     _workers(p)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
-    p.add_argument("--plots", type=Path, default=None, help="folder for one histogram PNG per factor")
+    p.add_argument("--plots", type=Path, default=None,
+                   help="folder for factors.png: every factor's histograms, one panel each")
 
     p = commands.add_parser("evaluate", help="score recipes against a no-augmentation baseline")
     _common(p)
@@ -187,8 +188,9 @@ def _build_parser():
 
     p = commands.add_parser("history", help="past comparisons stored in the results ledger")
     _common(p, data=False)
-    p.add_argument("data", metavar="DATA", nargs="?", type=Path, default=None,
-                   help="only comparisons on this data set")
+    p.add_argument("data", metavar="DATA|RUN", nargs="?", default=None,
+                   help="only comparisons on the data set DATA, or the details of run number RUN "
+                        "(as the list shows)")
     p.add_argument("--ledger", type=Path, default=None, help="results ledger path")
 
     p = commands.add_parser("demo", help="vet the bundled demo scenario")
@@ -441,6 +443,8 @@ def _say_vetted(console, args, summary):
     if args.json:
         console.emit_json(summary.to_json())
     console.say(summary.verdict)
+    for item in summary.get("signoff") or []:
+        console.say(f"sign-off needed: {item['recipe']} transform {item['index']} ({item['op']}): {item['detail']}")
     console.say(f"report: {summary.report}")
     console.say(f"vetted recipe: {summary.vetted_recipe}")
 
@@ -457,10 +461,19 @@ def _run_verify(args, console):
 
 
 def _run_history(args, console):
-    from augplan.evaluate.ledger import history
+    from augplan.evaluate.ledger import history, run_details
     from augplan.data.dataset import fingerprint, open_dataset
     from augplan.render import text as tables
+    from augplan.results import HistoryResult
 
+    if args.data is not None and args.data.isdigit() and not Path(args.data).exists():
+        ledger = args.ledger or default_ledger(None)
+        entry = run_details(ledger, int(args.data))
+        if args.json:
+            console.emit_json(HistoryResult(ledger=str(ledger), evaluations=[entry]).to_json())
+        else:
+            console.say(tables.run_table(entry))
+        return ExitCode.OK
     dataset = open_dataset(args.data) if args.data else None
     ledger = args.ledger or default_ledger(dataset.root if dataset else None)
     result = history(ledger, fingerprint=fingerprint(dataset) if dataset else None)

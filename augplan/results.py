@@ -186,6 +186,8 @@ class VetResult(_Result):
     evidence: str
     unchanged: bool
     best: str
+    changes: list = _optional()
+    signoff: list = _optional()
 
     @property
     def flagged(self):

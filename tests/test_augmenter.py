@@ -91,6 +91,93 @@ def test_bad_image_is_refused_clearly(aug, bad, message):
         aug(bad, rng=np.random.default_rng(0))
 
 
+# ---------------------------------------------------------------- hand-off to a training loop
+
+CLASSES = ["left", "right", "other"]  # index order of a training loop: 0 left, 1 right, 2 other
+
+
+def _always_flip():
+    return parse_recipe("name: f\ntransforms:\n  - op: flip\n    only: [left, right]\n"
+                        "    relabel: {left: right, right: left}\n")
+
+
+@pytest.mark.parametrize("label,expected", [(0, 1), (1, 0), (2, 2), (np.int64(0), 1)],
+                         ids=["left", "right", "unscoped-class", "numpy-int"])
+def test_integer_labels_map_through_classes(image, label, expected):
+    aug = Augmenter(_always_flip(), classes=CLASSES)
+    out, new_label = aug.apply(image, label, np.random.default_rng(0))
+    assert new_label == expected and isinstance(new_label, int)
+    # The flip ran exactly for the scoped classes: the label decides, not the index.
+    assert np.array_equal(out, image[:, ::-1]) == (label in (0, 1))
+
+
+def test_scoped_recipe_with_integer_label_and_no_classes_raises(image):
+    aug = Augmenter(_always_flip())
+    with pytest.raises(ValueError, match=r"classes=\[\.\.\.\]"):
+        aug.apply(image, 0, np.random.default_rng(0))
+
+
+def test_unscoped_recipe_passes_an_integer_label_through(image):
+    aug = Augmenter(parse_recipe("name: r\ntransforms:\n  - op: rotate\n    degrees: [-5, 5]\n"))
+    assert aug.apply(image, 4, np.random.default_rng(0))[1] == 4
+
+
+@pytest.mark.parametrize("classes,message", [
+    (["left", "other"], "'right'"), (["left", "left", "right"], "distinct"), ([], "at least one"),
+    ("left", "sequence")], ids=["missing-scoped-class", "repeated", "empty", "a-string"])
+def test_bad_class_lists_are_refused(classes, message):
+    with pytest.raises((ValueError, TypeError), match=message):
+        Augmenter(_always_flip(), classes=classes)
+
+
+def test_an_index_outside_the_classes_is_refused(image):
+    with pytest.raises(ValueError, match="outside classes"):
+        Augmenter(_always_flip(), classes=CLASSES).apply(image, 3, np.random.default_rng(0))
+
+
+@pytest.mark.parametrize("call", ["call", "apply"])
+def test_no_generator_raises_and_says_how_to_pass_one(aug, image, call):
+    with pytest.raises(TypeError, match=r"rng=np\.random\.default_rng\(seed\)"):
+        aug(image) if call == "call" else aug.apply(image, "left")
+
+
+def _vetted_file(tmp_path, evidence):
+    from augplan.vet.vetted_file import vetted_text
+
+    path = tmp_path / "vetted.yaml"
+    path.write_text(vetted_text(_always_flip(), evidence))
+    return path
+
+
+def test_vetted_file_carries_its_class_list(tmp_path, image):
+    aug = load_recipe(_vetted_file(tmp_path, {"classes": CLASSES}))
+    assert aug.classes == tuple(CLASSES)
+    assert aug.apply(image, 0, np.random.default_rng(0))[1] == 1
+
+
+def test_classes_given_to_load_recipe_win_over_the_files(tmp_path):
+    aug = load_recipe(_vetted_file(tmp_path, {"classes": CLASSES}), classes=["right", "left"])
+    assert aug.classes == ("right", "left")
+
+
+@pytest.mark.parametrize("edit", [("left, right]", "left]"), ("- other", "- others")],
+                         ids=["recipe-body", "evidence"])
+def test_edited_vetted_file_is_refused_unless_verify_is_off(tmp_path, edit):
+    from augplan.errors import BadInputError
+
+    path = _vetted_file(tmp_path, {"classes": CLASSES})
+    text = path.read_text()
+    assert edit[0] in text
+    path.write_text(text.replace(edit[0], edit[1], 1))
+    with pytest.raises(BadInputError, match="checksum does not match.*verify=False"):
+        load_recipe(path)
+    assert isinstance(load_recipe(path, verify=False), Augmenter)
+
+
+def test_plain_recipe_needs_no_checksum(aug):
+    assert aug.classes is None
+
+
 @pytest.mark.parametrize("shape", [(24, 32), (24, 32, 1)], ids=["2d", "1-channel"])
 def test_grey_image_comes_back_in_its_shape(aug, image, shape):
     grey = np.ascontiguousarray(image[..., 0]).reshape(shape)
@@ -129,3 +216,11 @@ def test_augmenter_and_apply_recipe_give_the_same_bytes(aug, image):
     ours, label = aug.apply(image, "left", np.random.default_rng(12))
     theirs, their_label = apply_recipe(image, aug.recipe, np.random.default_rng(12), "left")
     assert ours.tobytes() == theirs.tobytes() and label == their_label
+
+
+def test_apply_batch_maps_integer_labels_through_classes(image):
+    aug = Augmenter(_always_flip(), classes=CLASSES)
+    batch = np.stack([image, image, image])
+    out, labels = aug.apply_batch(batch, np.array([0, 1, 2]), np.random.default_rng(0))
+    assert labels == [1, 0, 2]
+    assert np.array_equal(out[0], image[:, ::-1]) and np.array_equal(out[2], image)

@@ -301,3 +301,18 @@ def test_ledger_reuses_the_recipes_it_has_and_trains_only_the_new_one(digits_dat
     assert partial["from_ledger"] is False and partial["reused_from_ledger"] == ["affine-kept"]
     # Reused and newly trained results are exactly those of a run without a ledger.
     assert partial["recipes"] == fresh["recipes"] and partial["baseline"] == fresh["baseline"]
+
+
+def test_confusion_matrices_agree_with_recall_and_accuracy(comparison):
+    # Every validation image is counted once per repeat; the diagonal over a
+    # row is that class's recall and the trace over the total the accuracy.
+    for block in [comparison["baseline"], *comparison["recipes"]]:
+        confusion = block["confusion"]
+        counts = np.array(confusion["counts"])
+        assert confusion["repeats"] == comparison["repeats"]
+        assert counts.shape == (10, 10)
+        assert (counts.sum(axis=1) == comparison["repeats"] * PER_CLASS["val"]).all()
+        for position, label in enumerate(confusion["classes"]):
+            recall = counts[position, position] / counts[position].sum()
+            assert recall == pytest.approx(block["per_class_recall"][label], abs=1e-6)  # rounded to 6 places
+        assert np.trace(counts) / counts.sum() == pytest.approx(block["accuracy"], abs=1e-6)

@@ -599,3 +599,36 @@ def test_evidence_sheet_heading_carries_the_final_verdict(small_demo, tmp_path, 
     assert entry["verdict"] == "unverified"
     assert headings == {0: "unverified"}
     assert Path(entry["evidence_sheet"]).is_file()
+
+
+def test_evidence_sheet_keeps_the_files_aspect_ratio_and_captions_the_magnitude(tmp_path):
+    from augplan.check.check import OUTSIDE, _write_evidence
+    from augplan.data.dataset import ImageRecord
+
+    records = []
+    for index, colour in enumerate(((220, 0, 0), (0, 0, 220))):
+        path = tmp_path / f"{index}.png"
+        Image.new("RGB", (40, 20), colour).save(path)  # 40 wide, 20 high
+        records.append(ImageRecord(path, path.name, "a", "train", ""))
+    transform = Transform("rotate", {"degrees": (-15.0, 15.0)})
+    sheet_path = _write_evidence(tmp_path, 0, transform, "breaks", [(0, 1, 15.0), (1, OUTSIDE, -15.0)], records,
+                                 np.array([0, 1]), ("a", "b"), "reflect", 0)
+    pixels = np.asarray(Image.open(sheet_path).convert("RGB")).astype(int)
+    red = (pixels[..., 0] > 200) & (pixels[..., 1] < 40) & (pixels[..., 2] < 40)
+    rows, columns = np.nonzero(red)
+    original = columns < columns.min() + 41  # the first column's cell: the original, never enlarged here
+    assert columns[original].max() - columns[original].min() + 1 == 40
+    assert rows[original].max() - rows[original].min() + 1 == 20
+
+
+@pytest.mark.parametrize("op,params,magnitude,caption", [
+    ("rotate", {"degrees": (-15.0, 15.0)}, 12.5, "+12.5\u00b0"),
+    ("zoom", {"factor": (0.8, 1.2)}, 1.07, "\u00d71.07"),
+    ("noise", {"sigma": (0.0, 0.05)}, 0.0133, "\u03c3 0.0133"),
+    ("shift", {"fraction": (-0.1, 0.1)}, -0.125, "shift -0.12"),
+    ("flip", {"axis": "horizontal"}, None, "flipped"),
+], ids=["degrees", "factor", "sigma", "fraction", "flip"])
+def test_evidence_captions_name_the_magnitude(op, params, magnitude, caption):
+    from augplan.check.check import _magnitude_caption
+
+    assert _magnitude_caption(Transform(op, params), magnitude) == caption

@@ -25,7 +25,7 @@ LAYERS = [
     {"check", "coverage", "evaluate"},
     {"vet"},
     {"render"},
-    {"demo"},
+    {"demo", "torch"},
     {"cli"},
     {"__init__", "__main__"},
 ]

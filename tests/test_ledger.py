@@ -138,3 +138,39 @@ def test_cache_row_of_garbage_bytes_is_a_miss(tmp_path):
     cache.put("cd" * 32, np.ones(5, np.float32))
     next(cache.folder.rglob("*.npy")).write_bytes(b"\x93NUMPY garbage")
     assert cache.get("cd" * 32) is None and len(cache.damaged) == 1
+
+
+def test_run_details_come_back_by_run_number(tmp_path):
+    path = tmp_path / "ledger.sqlite"
+    details = {"scored_on": "val", "recipes": [{"name": "x", "gain": 0.02, "gain_ci": [-0.01, 0.05]}]}
+    for names in (["x"], ["y"]):
+        ledger.record_run(path, fingerprint="a" * 64, data_root="/data", settings_key="k", seed=0, repeats=5,
+                          recipe_names=names, best_recipe=names[0], best_gain=0.02, from_ledger=False,
+                          details=details if names == ["x"] else None)
+    assert [row["run"] for row in ledger.list_history(path)] == [1, 2]
+    first, second = ledger.run_details(path, 1), ledger.run_details(path, 2)
+    assert first["details"] == details and first["fingerprint"] == "a" * 64 and first["recipes"] == ["x"]
+    assert second["details"] is None
+    with pytest.raises(BadInputError, match="no run 3 .*holds 2 runs"):
+        ledger.run_details(path, 3)
+
+
+def test_a_ledger_from_before_run_details_is_upgraded(tmp_path):
+    path = tmp_path / "ledger.sqlite"
+    with sqlite3.connect(path) as connection:  # the runs table as ledgers wrote it before details
+        connection.execute("CREATE TABLE runs (id INTEGER PRIMARY KEY AUTOINCREMENT, created TEXT NOT NULL, "
+                           "fingerprint TEXT NOT NULL, data_root TEXT, settings_key TEXT NOT NULL, seed INTEGER "
+                           "NOT NULL, repeats INTEGER NOT NULL, recipes_json TEXT NOT NULL, best_recipe TEXT, "
+                           "best_gain REAL, from_ledger INTEGER NOT NULL)")
+        connection.execute("INSERT INTO runs (created, fingerprint, data_root, settings_key, seed, repeats, "
+                           "recipes_json, best_recipe, best_gain, from_ledger) VALUES "
+                           "('2026-01-01 00:00:00', ?, '/d', 'k', 0, 5, '[\"old\"]', 'old', 0.0, 0)", ("c" * 64,))
+    assert ledger.run_details(path, 1)["details"] is None
+    ledger.record_run(path, fingerprint="c" * 64, data_root="/d", settings_key="k", seed=0, repeats=5,
+                      recipe_names=["new"], best_recipe="new", best_gain=0.0, from_ledger=False, details={"a": 1})
+    assert ledger.run_details(path, 2)["details"] == {"a": 1}
+
+
+def test_missing_ledger_has_no_run(tmp_path):
+    with pytest.raises(BadInputError, match="no results ledger"):
+        ledger.run_details(tmp_path / "absent.sqlite", 1)

@@ -313,7 +313,7 @@ def test_leaderboard_baseline_first_then_ranked_by_gain(tmp_path):
     header, rows = board[0], board[1:]
     assert "baseline" in rows[0][1]
     assert [row[1] for row in rows[1:]] == ["tiles-draft-vetted", "tiles-draft"]
-    gain = header.index("gain, percentage points [95% CI]")
+    gain = header.index("validation gain, points [95% CI]")
     assert rows[1][gain] == "+2.0 [+0.5, +3.5]"
     assert rows[1][header.index("p (Holm)")] == "0.020"
     assert "recommended" in rows[1][-1] and "loses accuracy" in rows[2][-1]
@@ -425,8 +425,8 @@ def test_bare_documents_render(evidence):
 def test_null_and_non_finite_numbers_print_as_dashes(tmp_path):
     evidence = _evidence(tmp_path)
     row = evidence["evaluation"]["recipes"][0]
-    row.update(gain=float("nan"), gain_ci=[None, None], p_value=float("inf"), accuracy=None,
-               accuracy_ci=None)
+    row.update(gain=float("nan"), gain_ci=[None, None], p_value=float("inf"), p_holm=float("inf"),
+               accuracy=None, accuracy_ci=None)
     board = _parse(render_report(evidence)).table_with("p (Holm)")
     drafted = next(r for r in board[1:] if r[1] == "tiles-draft")
     assert drafted[2] == drafted[3] == drafted[4] == "\u2013"
@@ -454,3 +454,117 @@ def test_plot_captions_name_the_factor_of_vets_figure_files():
     plots = ["figures/0-naive-draft-centroid_x.png", "figures/0-naive-draft-hue.png", "plots/area.png"]
     factors = {"centroid_x": {}, "hue": {}, "area": {}}
     assert [factor for factor, _ in _plot_items(plots, factors)] == ["centroid_x", "hue", "area"]
+
+
+# --------------------------------------------------------------------------
+# summary first: recommendation, changes, sign-off, cautions; then the detail
+
+
+def _with_summary_data(tmp_path):
+    evidence = _evidence(tmp_path)
+    entry = evidence["recipes"][0]
+    entry["vetted"]["changes"].append({"index": 2, "op": "hue", "verdict": "breaks", "action": "clip",
+                                       "detail": "clipped to the safe limit [-10, 10]"})
+    entry["vetted"]["signoff"] = [{"index": 0, "op": "flip", "detail": "unverified, kept: approved"}]
+    confusion = {"classes": ["chip-left", "chip-right"], "counts": [[9, 1], [3, 7]], "repeats": 5}
+    evidence["evaluation"]["recipes"][1].update(
+        confusion=confusion, per_class_recall={"chip-left": 0.9, "chip-right": 0.7},
+        field={"n_images": 30, "accuracy": 0.8, "accuracy_ci": [0.6, 0.9], "gain": 0.1, "gain_ci": [0.02, 0.2]})
+    evidence["evaluation"]["baseline"]["per_class_recall"] = {"chip-left": 0.8, "chip-right": 0.75}
+    evidence["data"]["class_counts"] = {"chip-left": {"train": 40, "val": 20, "field": 15},
+                                        "chip-right": {"train": 40, "val": 20, "field": 15}}
+    return evidence
+
+
+def _section_of(page, tag_id):
+    start = next(i for i, (_, attrs) in enumerate(page.tags) if attrs.get("id") == tag_id)
+    return start
+
+
+def test_summary_holds_the_verdict_changes_sign_off_and_cautions_before_any_table(tmp_path):
+    evidence = _with_summary_data(tmp_path)
+    page = _parse(render_report(evidence))
+    first_table = next(i for i, (tag, _) in enumerate(page.tags) if tag == "table")
+    for tag_id in ("summary", "verdict", "signoff", "cautions"):
+        assert _section_of(page, tag_id) < first_table
+    text = page.all_text
+    assert "tiles-draft \u2192 tiles-draft-vetted: flip relabelled; hue clipped to [-10, 10]; 1 kept" in text
+    assert "tiles-draft, transform 0 (flip)" in text and "unverified, kept: approved" in text
+    assert "Evidence: accuracy gains of the linear proxy model" in text
+    assert "the labelled field sample (30 images) and validation, 5 training repeats" in text
+
+
+def test_sign_off_links_to_the_evidence_sheet_of_its_transform(tmp_path):
+    page = _parse(render_report(_with_summary_data(tmp_path)))
+    ids = {attrs["id"] for _, attrs in page.tags if "id" in attrs}
+    links = [attrs["href"] for tag, attrs in page.tags if tag == "a" and "Sign" not in attrs.get("href", "")]
+    assert "#evidence-0-0" in links and "evidence-0-0" in ids
+    figure = next(i for i, (_, attrs) in enumerate(page.tags) if attrs.get("id") == "evidence-0-0")
+    assert page.tags[figure][0] == "figure" and page.tags[figure + 1][0] == "img"
+
+
+def test_no_sign_off_is_said_plainly(tmp_path):
+    text = _parse(render_report(_evidence(tmp_path))).all_text
+    assert "Sign-off needed None: every transform kept is verified safe" in text
+
+
+def test_leaderboard_follows_the_recorded_ranking_and_shows_field_beside_validation(tmp_path):
+    evidence = _with_summary_data(tmp_path)
+    evidence["ranking"] = ["tiles-draft", "tiles-draft-vetted"]  # not the order of the validation gain
+    evidence["ranking_rule"] = "a stated rule."
+    page = _parse(render_report(evidence))
+    board = page.table_with("field gain, points [95% CI]")
+    header, rows = board[0], board[1:]
+    assert [row[1] for row in rows[1:]] == ["tiles-draft", "tiles-draft-vetted"]
+    vetted = rows[2]
+    assert vetted[header.index("validation gain, points [95% CI]")] == "+2.0 [+0.5, +3.5]"
+    assert vetted[header.index("field gain, points [95% CI]")] == "+10.0 [+2.0, +20.0]"
+    assert vetted[header.index("field accuracy [95% CI]")] == "80.0% [60.0%, 90.0%]"
+    assert "Ordered by the rule that makes the recommendation: a stated rule." in page.all_text
+
+
+def test_per_class_table_has_images_and_recall_under_baseline_and_recipe(tmp_path):
+    page = _parse(render_report(_with_summary_data(tmp_path)))
+    table = page.table_with("recall, no augmentation")
+    assert table[0][5] == "recall, tiles-draft-vetted"
+    assert table[1] == ["chip-left", "40", "20", "15", "80.0%", "90.0%", "+10.0"]
+    assert table[2] == ["chip-right", "40", "20", "15", "75.0%", "70.0%", "-5.0"]
+
+
+def test_confusion_matrix_of_the_recommended_recipe(tmp_path):
+    page = _parse(render_report(_with_summary_data(tmp_path)))
+    table = page.table_with("true \\ predicted")
+    assert table == [["true \\ predicted", "chip-left", "chip-right"], ["chip-left", "9", "1"],
+                     ["chip-right", "3", "7"]]
+    assert "summed over 5 training repeats" in page.all_text
+
+
+def test_each_recipe_collapses_and_the_rules_appear_once(tmp_path):
+    evidence = _evidence(tmp_path)
+    second = copy.deepcopy(evidence["recipes"][0])
+    second["name"] = "second"
+    evidence["recipes"].append(second)
+    page_text = render_report(evidence)
+    page = _parse(page_text)
+    details = [attrs for tag, attrs in page.tags if tag == "details"]
+    assert len(details) == 2 and all("open" not in attrs for attrs in details)
+    rule = evidence["recipes"][0]["check"]["decision_rule"]
+    assert page.all_text.count(rule) == 1
+    assert page.all_text.count(evidence["recipes"][0]["coverage"]["shortcut_rule"]) == 1
+    appendix = _section_of(page, "appendix")
+    assert appendix > max(i for i, (tag, _) in enumerate(page.tags) if tag == "details")
+
+
+def test_factor_histograms_are_one_figure_of_small_multiples(tmp_path):
+    evidence = _evidence(tmp_path)
+    evidence["recipes"][0]["coverage"].pop("plots")
+    block = {"histogram": {"edges": [0.0, 0.5, 1.0], "counts": [3, 1]}}
+    evidence["recipes"][0]["coverage"]["factors"] = {
+        name: {"unit": "u", "original": block, "augmented": block, "field": {"summary": block}}
+        for name in ("brightness", "contrast", "hue")}
+    page = _parse(render_report(evidence))
+    grids = [attrs for tag, attrs in page.tags if tag == "img" and "nuisance factors" in attrs.get("alt", "")]
+    assert len(grids) == 1
+    data = base64.b64decode(grids[0]["src"].split(",", 1)[1])
+    with Image.open(io.BytesIO(data)) as image:
+        assert image.format == "PNG" and image.mode == "P"  # palette: line art needs no more

@@ -320,6 +320,13 @@ def test_summarise_predictions_against_sklearn():
         assert summary["per_class_recall"][name] == pytest.approx(np.mean(y_pred[mask] == name))
 
 
+def test_confusion_counts_every_pair_in_class_order():
+    # Counted by hand: true a -> (a, b, a), true b -> (b), true c -> (a, c).
+    summary = summarise_predictions(["a", "a", "a", "b", "c", "c"], ["a", "b", "a", "b", "a", "c"],
+                                    ["c", "a", "b"])
+    assert summary["confusion"] == [[1, 1, 0], [0, 2, 1], [0, 0, 1]]
+
+
 def test_summarise_predictions_absent_class_is_none():
     summary = summarise_predictions(["a", "b", "a"], ["a", "a", "a"], ["a", "b", "c"])
     assert summary["per_class_recall"] == {"a": 1.0, "b": 0.0, "c": None}

@@ -1,16 +1,21 @@
 """vet end to end on a small copy of the demo scenario (invented ground truth:
 mirror-image chevrons, glazes told apart only by hue, a dim-light class)."""
 
+import contextlib
+import io
 import json
 import pickle
 from html.parser import HTMLParser
+from pathlib import Path
 
+import jsonschema
 import numpy as np
 import pytest
 
 import augplan
 from augplan.cli import main
 from augplan.demo import DEFAULT_RECIPE_DIR, make_demo_dataset
+from augplan.results import schema_path
 
 
 @pytest.fixture(scope="module")
@@ -19,9 +24,17 @@ def vetted(tmp_path_factory):
     data = root / "data"
     make_demo_dataset(data, n_train=14, n_val=6, n_field=8)
     out = root / "out"
-    code = main(["vet", str(data), "--recipe", str(DEFAULT_RECIPE_DIR / "naive-draft.yaml"),
-                 "-o", str(out), "--repeats", "2", "--quiet", "--ledger", str(root / "ledger.sqlite")])
+    stdout = io.StringIO()
+    with contextlib.redirect_stdout(stdout):
+        code = main(["vet", str(data), "--recipe", str(DEFAULT_RECIPE_DIR / "naive-draft.yaml"),
+                     "-o", str(out), "--repeats", "2", "--quiet", "--ledger", str(root / "ledger.sqlite"),
+                     "--json"])
+    (root / "vet.json").write_text(stdout.getvalue())
     return code, out, data
+
+
+def _vet_json(out):
+    return json.loads((out.parent / "vet.json").read_text())
 
 
 def _changes(out, name):
@@ -86,7 +99,7 @@ def test_report_is_self_contained_with_verdict_first(vetted):
     html = (out / "report.html").read_text()
     parser = _Links()
     parser.feed(html)  # html.parser of the standard library
-    assert all(ref.startswith(("data:image/png;base64,", "#")) for ref in parser.references)
+    assert all(ref.startswith(("data:image/png;base64,", "data:image/jpeg;base64,", "#")) for ref in parser.references)
     verdict = json.loads((out / "evidence.json").read_text())["verdict"]
     assert verdict.split(";")[0] in html
     assert html.index(verdict.split(";")[0]) < html.index("<table")
@@ -210,3 +223,50 @@ def test_vetted_recipe_validates_against_the_shipped_schema(vetted):
     assert {"checksum", "evidence"} <= set(document)
     errors = [e.message for e in jsonschema.Draft202012Validator(schema).iter_errors(document)]
     assert not errors, errors
+
+
+def test_vet_json_carries_the_changes_and_the_signoff_list(vetted):
+    _, out, _ = vetted
+    summary = _vet_json(out)
+    evidence = json.loads((out / "evidence.json").read_text())
+    entry = evidence["recipes"][0]
+    assert [c["recipe"] for c in summary["changes"]] == ["naive-draft"]
+    assert summary["changes"][0]["transforms"] == entry["vetted"]["changes"]
+    assert summary["changes"][0]["unchanged"] is False
+    expected = [(c["index"], c["op"]) for c in entry["vetted"]["changes"]
+                if c["verdict"] == "unverified" and c["action"] == "keep"]
+    assert [(s["index"], s["op"]) for s in summary["signoff"]] == expected
+    for item in summary["signoff"]:
+        assert item["recipe"] == "naive-draft" and item["detail"]
+        assert item["evidence_sheet"] is None or Path(item["evidence_sheet"]).is_file()
+
+
+def test_vetted_file_carries_the_class_list_for_integer_labels(vetted):
+    _, out, data = vetted
+    aug = augplan.load_recipe(out / "vetted-recipe.yaml")
+    classes = sorted(p.name for p in (data / "train").iterdir())
+    assert list(aug.classes) == classes
+    image = np.random.default_rng(0).integers(0, 256, (64, 64, 3), dtype=np.uint8)
+    left = classes.index("chevron-left")
+    labels = {aug.apply(image, left, np.random.default_rng(s))[1] for s in range(40)}
+    assert labels == {left, classes.index("chevron-right")}  # the vetted relabel, on integer labels
+
+
+def test_history_run_shows_the_vet_runs_scores(vetted, capsys):
+    _, out, _ = vetted
+    ledger = out.parent / "ledger.sqlite"
+    assert main(["history", "--ledger", str(ledger)]) == 0
+    listing = capsys.readouterr().out
+    assert listing.splitlines()[0].split()[0] == "run"
+    assert main(["history", "1", "--ledger", str(ledger), "--json"]) == 0
+    document = json.loads(capsys.readouterr().out)
+    schema = json.loads(schema_path("history").read_text(encoding="utf-8"))
+    jsonschema.Draft202012Validator(schema).validate(document)  # the same schema as the list's
+    (run,) = document["evaluations"]
+    names = [r["name"] for r in run["details"]["recipes"]]
+    assert names == ["naive-draft", "naive-draft-vetted"] and run["run"] == 1
+    assert main(["history", "1", "--ledger", str(ledger)]) == 0
+    text = capsys.readouterr().out
+    assert "naive-draft-vetted" in text and "no augmentation" in text
+    assert main(["history", "99", "--ledger", str(ledger)]) == 2
+    assert "no run 99" in capsys.readouterr().err

@@ -378,14 +378,14 @@ def _screen_unit(context, unit):
     ratios = context["geometry"].ratios(features, sources)
     expected = context["expected"][transform_index][context["labels"][sources]]
     destinations = locate(ratios, proba, expected)
-    examples = _examples(destinations, expected, sources, moved_images, context) if context["evidence"] else []
+    examples = _examples(destinations, expected, sources, magnitude, context) if context["evidence"] else []
     # Rows the confirmation trains on at this magnitude (one per image).
     kept = np.asarray(features[keep_rows], dtype=np.float32)
     return destinations, examples, kept
 
 
-def _examples(destinations, expected, sources, moved_images, context):
-    """Moved images first (the clearest evidence), the classes taken in turn."""
+def _examples(destinations, expected, sources, magnitude, context):
+    """Moved images first (the clearest evidence), the classes taken in turn, with the magnitude that moved them."""
     labels = context["labels"]
     off = [row for row in range(len(sources)) if destinations[row] != expected[row]]
     seen, rank = {}, {}
@@ -394,7 +394,7 @@ def _examples(destinations, expected, sources, moved_images, context):
         rank[row] = seen.get(key, 0)
         seen[key] = rank[row] + 1
     off.sort(key=lambda row: (destinations[row] == OUTSIDE, rank[row], row))
-    return [(int(sources[row]), int(destinations[row]), moved_images[row]) for row in off[:EVIDENCE_IMAGES]]
+    return [(int(sources[row]), int(destinations[row]), magnitude) for row in off[:EVIDENCE_IMAGES]]
 
 
 def _confirm_unit(context, unit):
@@ -934,7 +934,8 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
     if evidence_dir is not None:
         # After the shortcut pass, so each sheet's heading carries the final verdict.
-        _attach_evidence(report, screen, plans, evidence_dir, transforms, images, labels, classes)
+        _attach_evidence(report, screen, plans, evidence_dir, transforms, records, labels, classes, recipe.fill,
+                         seed)
     return _document(recipe, baseline, labels, classes, report, warnings)
 
 
@@ -989,7 +990,7 @@ def _entry(t_index, transform, plan, screened, judged, classes, warnings):
     return entry
 
 
-def _attach_evidence(report, screen, plans, evidence_dir, transforms, images, labels, classes):
+def _attach_evidence(report, screen, plans, evidence_dir, transforms, records, labels, classes, fill, seed):
     """Contact sheets of the screen's moved and outside images for every transform not safe."""
     for entry, plan in zip(report, plans):
         if entry["verdict"] == "safe":
@@ -999,7 +1000,8 @@ def _attach_evidence(report, screen, plans, evidence_dir, transforms, images, la
         picked = _round_robin(groups, EVIDENCE_IMAGES)
         if picked:
             entry["evidence_sheet"] = _write_evidence(evidence_dir, entry["index"], transforms[entry["index"]],
-                                                      entry["verdict"], picked, images, labels, classes)
+                                                      entry["verdict"], picked, records, labels, classes, fill,
+                                                      seed)
 
 
 def _rate(count, n):
@@ -1020,17 +1022,49 @@ def _json_params(transform):
     return params
 
 
-def _write_evidence(evidence_dir, index, transform, verdict, examples, images, labels, classes):
-    """Contact sheet of moved and outside images: one row per image, original then transformed."""
+_EVIDENCE_CELL = 96
+
+
+# Short enough to fit under the smallest evidence cell (64 pixels at 12 points).
+_MAGNITUDE_FORMATS = {"degrees": "{:+.3g}\u00b0", "factor": "\u00d7{:.3g}", "sigma": "\u03c3 {:.3g}",
+                      "fraction": "shift {:+.2g}"}
+
+
+def _magnitude_caption(transform, magnitude):
+    """``+15°``, ``×1.2``, ``σ 0.02``: the magnitude a pair of an evidence sheet shows."""
+    from augplan.augment.transforms import OPS
+
+    field = OPS[transform.op].magnitude
+    if field is None or magnitude is None:
+        return "flipped" if transform.op == "flip" else transform.op
+    return _MAGNITUDE_FORMATS.get(field, field + " {:.3g}").format(magnitude)
+
+
+def _write_evidence(evidence_dir, index, transform, verdict, examples, records, labels, classes, fill, seed):
+    """Contact sheet of moved and outside images: one row per image, original then transformed.
+
+    The pair is drawn from the image file at its own aspect ratio (the check
+    itself ran on the squares the proxy model reads), with the transform at
+    the magnitude that moved it, captioned with that magnitude.
+    """
+    from augplan.augment.transforms import OPS, params_at
+    from augplan.data.dataset import read_record
     from augplan.render.sheets import contact_sheet, save_png
 
-    rows, row_labels = [], []
-    for source, destination, moved in examples:
+    function = OPS[transform.op].function
+    originals = [read_record(records[source], max_side=_EVIDENCE_CELL) for source, _, _ in examples]
+    # Never enlarged past the largest image shown: a small image keeps its own pixels.
+    cell = max(8, min(_EVIDENCE_CELL, max(max(image.shape[:2]) for image in originals)))
+    rows, row_labels, captions = [], [], []
+    draw_rngs = np.random.default_rng([seed, index]).spawn(len(examples))
+    for (source, destination, magnitude), original, rng in zip(examples, originals, draw_rngs):
+        params = params_at(transform, 0.0 if magnitude is None else magnitude, fill)
         target = "outside" if destination == OUTSIDE else classes[destination]
-        rows.append([images[source], moved])
+        rows.append([original, function(original, params, rng)])
         row_labels.append(f"{classes[labels[source]]} -> {target}")
-    sheet = contact_sheet(rows, row_labels, column_labels=["original", "transformed"],
-                          title=f"transform {index} ({transform.op}): {verdict}")
+        captions.append(["", _magnitude_caption(transform, magnitude)])
+    sheet = contact_sheet(rows, row_labels, column_labels=["original", "transformed"], cell=cell,
+                          title=f"transform {index} ({transform.op}): {verdict}", captions=captions)
     path = Path(evidence_dir) / f"transform-{index:02d}-{transform.op}.png"
     save_png(sheet, path)
     return str(path)

@@ -643,7 +643,9 @@ def analyse_coverage(dataset, recipe, *, field=None, size=64, seed=0, workers=1,
     -------
     augplan.results.CoverageResult
         The ``coverage --json`` document, with the factor values behind it
-        in ``samples`` (for `augplan.render.plots`).
+        in ``samples`` (for `augplan.render.plots`). Each factor carries
+        histograms of the original, augmented and field values on shared
+        edges, which `augplan.render.plots.factor_grid` draws.
 
     Raises
     ------

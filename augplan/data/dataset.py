@@ -50,6 +50,7 @@ __all__ = [
     "open_dataset",
     "stratified_choice",
     "read_image",
+    "read_record",
     "load_images",
     "fingerprint",
     "perceptual_hash",
@@ -337,6 +338,14 @@ def read_image(path, max_side=None):
             raise ValueError(f"max_side must be a positive integer or None; got {max_side!r}")
         max_side = int(max_side)
     return _decode(path, max_side=max_side)
+
+
+def read_record(record, max_side=None):
+    """`read_image` of an `ImageRecord`: from the bytes it carries (``record.data``), else its file."""
+    if max_side is not None and (isinstance(max_side, bool) or not isinstance(max_side, (int, np.integer))
+                                 or max_side < 1):
+        raise ValueError(f"max_side must be a positive integer or None; got {max_side!r}")
+    return _decode(record.path, max_side=None if max_side is None else int(max_side), data=record.data)
 
 
 def load_images(records, size=64):

@@ -227,6 +227,8 @@ def _score(y_true, predictions, classes, rng):
         "balanced_accuracy": _round(summary["balanced_accuracy"]),
         "macro_f1": _round(summary["macro_f1"]),
         "per_class_recall": {c: _round(v) for c, v in summary["per_class_recall"].items()},
+        # Pooled over repeats: each validation image counts once per repeat.
+        "confusion": {"classes": list(classes), "counts": summary["confusion"], "repeats": int(repeats)},
         "repeat_accuracy": [_round(v) for v in correct.mean(axis=1)],
     }, correct
 
@@ -400,6 +402,7 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
         entry.update({k: val[k] for k in ("accuracy", "accuracy_ci", "balanced_accuracy", "macro_f1",
                                           "per_class_recall", "repeat_accuracy", "gain", "gain_ci",
                                           "p_value")})
+        entry["confusion"] = val.get("confusion")  # absent from results stored by older versions
         entry["p_holm"] = _round_p(adjusted)
         entry["per_class_gain"] = val["per_class_gain"]
         entry["flagged"] = bool(val["gain_ci"][1] < 0)
@@ -446,6 +449,7 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
     base_val = base_scores["val"]
     baseline = {k: base_val[k] for k in ("n_images", "accuracy", "accuracy_ci", "balanced_accuracy",
                                          "macro_f1", "per_class_recall", "repeat_accuracy")}
+    baseline["confusion"] = base_val.get("confusion")
     return {
         "baseline": baseline,
         "recipes": entries,
@@ -525,6 +529,16 @@ def _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys, splits, r
         _ledger.store_results(ledger_path, baseline=base_scores, results=computed, **ledger_keys)
     stored.update({result["recipe_hash"]: result for result in computed})
     return base_scores, stored, missing, cache.damaged
+
+
+def _run_summary(document):
+    """What the ledger keeps of one comparison for ``augplan history RUN``."""
+    keys = ("name", "recipe_hash", "accuracy", "accuracy_ci", "gain", "gain_ci", "p_value", "p_holm",
+            "flagged", "field")
+    return {"scored_on": document["scored_on"],
+            "baseline": {k: document["baseline"][k] for k in ("n_images", "accuracy", "accuracy_ci")},
+            "recipes": [{k: row.get(k) for k in keys} for row in document["recipes"]],
+            "warnings": list(document["warnings"])}
 
 
 def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0, workers=1,
@@ -617,5 +631,6 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
         best = max(document["recipes"], key=lambda e: e["gain"])
         _ledger.record_run(ledger_path, data_root=dataset.root,
                            recipe_names=[r.name for r in recipes], best_recipe=best["name"],
-                           best_gain=best["gain"], from_ledger=document["from_ledger"], **ledger_keys)
+                           best_gain=best["gain"], from_ledger=document["from_ledger"],
+                           details=_run_summary(document), **ledger_keys)
     return EvaluateResult.from_json(document)

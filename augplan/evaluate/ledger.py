@@ -16,7 +16,8 @@ from pathlib import Path
 
 from augplan.errors import BadInputError
 
-__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history", "history"]
+__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history", "history",
+           "run_details"]
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS evaluations (
@@ -44,13 +45,17 @@ CREATE TABLE IF NOT EXISTS runs (
     best_gain REAL,
     from_ledger INTEGER NOT NULL
 );
+CREATE TABLE IF NOT EXISTS run_details (
+    run_id INTEGER PRIMARY KEY,
+    details_json TEXT NOT NULL
+);
 """
 
 
 #: Schema version, kept in SQLite's ``user_version``; a ledger of another
 #: version (or another program's database) is refused, never altered.
 LEDGER_VERSION = 1
-_TABLES = {"evaluations", "runs"}
+_TABLES = {"evaluations", "runs", "run_details"}
 
 
 def _unusable(path, problem):
@@ -78,8 +83,9 @@ def _connect(ledger_path, *, create):
         if version not in (0, LEDGER_VERSION):
             raise _unusable(path, f"a ledger of schema version {version}; this augplan reads version "
                                   f"{LEDGER_VERSION}")
-        if version == 0:
-            # A new file, or a ledger from before versions were kept: same tables.
+        if version == 0 or "run_details" not in tables:
+            # A new file, a ledger from before versions were kept (same tables), or
+            # one from before runs kept their scores: the missing tables are added.
             with connection:
                 connection.executescript(_SCHEMA)
                 connection.execute(f"PRAGMA user_version = {LEDGER_VERSION}")
@@ -196,16 +202,23 @@ def store_results(ledger_path, *, fingerprint, settings_key, seed, repeats, base
 
 
 def record_run(ledger_path, *, fingerprint, data_root, settings_key, seed, repeats,
-               recipe_names, best_recipe, best_gain, from_ledger):
-    """Append one comparison to the history (see `list_history`)."""
+               recipe_names, best_recipe, best_gain, from_ledger, details=None):
+    """Append one comparison to the history (see `list_history` and `run_details`).
+
+    ``details`` is a JSON-able summary of the comparison (scores per recipe)
+    that `run_details` returns.
+    """
     with _session(ledger_path, create=True) as connection, connection:
-        connection.execute(
+        cursor = connection.execute(
             "INSERT INTO runs (created, fingerprint, data_root, settings_key, seed, repeats, "
             "recipes_json, best_recipe, best_gain, from_ledger) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (_now(), fingerprint, None if data_root is None else str(data_root), settings_key,
              int(seed), int(repeats), json.dumps(list(recipe_names)), best_recipe,
              None if best_gain is None else float(best_gain), int(bool(from_ledger))),
         )
+        if details is not None:
+            connection.execute("INSERT INTO run_details (run_id, details_json) VALUES (?, ?)",
+                               (cursor.lastrowid, json.dumps(details, allow_nan=False)))
 
 
 def list_history(ledger_path, fingerprint=None):
@@ -225,7 +238,7 @@ def list_history(ledger_path, fingerprint=None):
         (names), "best_recipe", "best_gain", "seed", "repeats",
         "from_ledger"}`` per comparison; ``date`` is UTC.
     """
-    query = ("SELECT created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, "
+    query = ("SELECT id, created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, "
              "repeats, from_ledger FROM runs")
     arguments = ()
     if fingerprint is not None:
@@ -235,12 +248,53 @@ def list_history(ledger_path, fingerprint=None):
         if connection is None:
             return []
         rows = connection.execute(query + " ORDER BY id", arguments).fetchall()
-    return [
-        {"date": created, "fingerprint": fp[:12], "data": data_root, "recipes": json.loads(names),
-         "best_recipe": best_recipe, "best_gain": best_gain, "seed": seed, "repeats": repeats,
-         "from_ledger": bool(from_ledger)}
-        for created, fp, data_root, names, best_recipe, best_gain, seed, repeats, from_ledger in rows
-    ]
+    return [_run_row(row) for row in rows]
+
+
+def _run_row(row):
+    run, created, fp, data_root, names, best_recipe, best_gain, seed, repeats, from_ledger = row
+    return {"run": run, "date": created, "fingerprint": fp[:12], "data": data_root, "recipes": json.loads(names),
+            "best_recipe": best_recipe, "best_gain": best_gain, "seed": seed, "repeats": repeats,
+            "from_ledger": bool(from_ledger)}
+
+
+def run_details(ledger_path, run):
+    """One past comparison with its scores.
+
+    Parameters
+    ----------
+    ledger_path : str or Path
+    run : int
+        The run number `list_history` shows.
+
+    Returns
+    -------
+    dict
+        The `list_history` row plus ``"fingerprint"`` in full, ``"settings_key"``
+        and ``"details"`` (the scores recorded with the run; None for a run
+        recorded before runs kept them).
+
+    Raises
+    ------
+    BadInputError
+        No ledger at the path, or no run with that number.
+    """
+    with _session(ledger_path, create=False) as connection:
+        if connection is None:
+            raise BadInputError(f"{ledger_path}: no results ledger here; pass --ledger or run "
+                                "'augplan evaluate' first.")
+        found = connection.execute(
+            "SELECT id, created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, repeats, "
+            "from_ledger, settings_key, details_json FROM runs LEFT JOIN run_details ON run_details.run_id = runs.id "
+            "WHERE id=?", (int(run),)).fetchone()
+        count = connection.execute("SELECT COUNT(*) FROM runs").fetchone()[0]
+    if found is None:
+        raise BadInputError(f"{ledger_path}: no run {run} in the ledger (it holds {count} runs; "
+                            "'augplan history' lists them).")
+    entry = _run_row(found[:10])
+    entry.update(fingerprint=found[2], settings_key=found[10],
+                 details=None if found[11] is None else json.loads(found[11]))
+    return entry
 
 
 def history(ledger_path, fingerprint=None):

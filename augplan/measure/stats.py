@@ -415,15 +415,16 @@ def summarise_predictions(y_true, y_pred, classes):
     -------
     dict
         ``{"n", "accuracy", "balanced_accuracy", "macro_f1",
-        "per_class_recall": {class: recall or None}}`` with plain Python
-        numbers, ready for JSON.
+        "per_class_recall": {class: recall or None}, "confusion"}`` with plain
+        Python numbers, ready for JSON; ``confusion[i][j]`` counts the
+        predictions of ``classes[j]`` for true ``classes[i]``.
 
     Notes
     -----
     Balanced accuracy and macro F1 average over the classes of ``classes``
     that occur in ``y_true``, so an unused class does not drag them down.
     """
-    from sklearn.metrics import f1_score, recall_score
+    from sklearn.metrics import confusion_matrix, f1_score, recall_score
 
     y_true = np.asarray(y_true)
     y_pred = np.asarray(y_pred)
@@ -447,4 +448,5 @@ def summarise_predictions(y_true, y_pred, classes):
             (c.item() if isinstance(c, np.generic) else c): (float(r) if ok else None)
             for c, r, ok in zip(classes, recalls, present)
         },
+        "confusion": confusion_matrix(y_true, y_pred, labels=classes).tolist(),
     }

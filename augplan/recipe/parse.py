@@ -59,6 +59,7 @@ __all__ = [
     "Recipe",
     "RecipeError",
     "Transform",
+    "canonical_json",
     "check_recipe_classes",
     "dump_recipe",
     "parse_recipe",
@@ -68,6 +69,7 @@ __all__ = [
     "recipe_hash",
     "magnitude_bounds",
     "recipe_to_dict",
+    "vetted_checksum",
     "write_recipe",
 ]
 
@@ -791,6 +793,19 @@ def recipe_hash(recipe):
     the recipe came from and how it was spelled (scalar or range, defaults
     written or left out).
     """
-    text = json.dumps(recipe_to_dict(recipe), sort_keys=True, separators=(",", ":"),
-                      ensure_ascii=True, allow_nan=False)
-    return hashlib.sha256(text.encode("ascii")).hexdigest()
+    return hashlib.sha256(canonical_json(recipe_to_dict(recipe)).encode("ascii")).hexdigest()
+
+
+def canonical_json(document):
+    """The canonical JSON text of a plain document: keys sorted, no whitespace, ASCII only."""
+    return json.dumps(document, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
+
+
+def vetted_checksum(recipe, evidence):
+    """sha256 hex of the canonical JSON of ``{"recipe": body, "evidence": evidence}``.
+
+    The checksum a vetted recipe file carries: it changes when any value of
+    the recipe body or of its evidence block is edited.
+    """
+    document = {"recipe": recipe_to_dict(recipe), "evidence": evidence}
+    return hashlib.sha256(canonical_json(document).encode("ascii")).hexdigest()

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import base64
 import html
+import io
 import math
 import re
 from pathlib import Path
@@ -26,9 +27,15 @@ from augplan.measure.factors import FACTORS
 from augplan.render.text import factor_range
 from augplan.results import range_text
 
-__all__ = ["render_report", "embed_png"]
+from augplan.render.plots import factor_grid, palette_png
+
+__all__ = ["render_report", "embed_png", "embed_image"]
 
 _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+_JPEG_SIGNATURE = b"\xff\xd8\xff"
+# Evidence sheets are embedded with this many colours (median cut), which
+# keeps a report of many sheets small; the sheet files keep every colour.
+_EVIDENCE_COLOURS = 32
 # Pairs listed in full; a long list is summarised (evidence.json keeps all).
 _LEAKS_SHOWN = 25
 _DASH = "\u2013"
@@ -42,25 +49,37 @@ _BADGE = {
 _STYLE = """
 :root { --ink: #1b1b1b; --muted: #555; --rule: #c9c9c9; --soft: #f4f4f2; }
 * { box-sizing: border-box; }
-body { margin: 0 auto; max-width: 72rem; padding: 1rem 1.25rem 3rem; color: var(--ink);
-       font: 15px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, Helvetica, Arial, sans-serif; }
-h1 { font-size: 1rem; font-weight: 600; color: var(--muted); margin: 0 0 .4rem; letter-spacing: .02em; }
-h2 { font-size: 1.3rem; margin: 2.2rem 0 .6rem; padding-bottom: .2rem; border-bottom: 2px solid var(--ink); }
-h3 { font-size: 1.05rem; margin: 1.6rem 0 .5rem; }
-p, li { max-width: 60rem; }
-.verdict { font-size: 1.35rem; line-height: 1.35; font-weight: 600; margin: .2rem 0 .5rem;
-           padding: .7rem .9rem; border-left: 6px solid var(--ink); background: var(--soft); }
-.meta { color: var(--muted); font-size: .88rem; margin: 0 0 .8rem; }
+body { margin: 0 auto; max-width: 78rem; padding: .6rem 1.25rem 3rem; color: var(--ink);
+       font: 15px/1.4 system-ui, -apple-system, "Segoe UI", Roboto, Helvetica, Arial, sans-serif; }
+h1 { font-size: .95rem; font-weight: 600; color: var(--muted); margin: 0 0 .2rem; letter-spacing: .02em; }
+h2 { font-size: 1.2rem; margin: 1.8rem 0 .5rem; padding-bottom: .15rem; border-bottom: 2px solid var(--ink); }
+h3 { font-size: 1.05rem; margin: 1.3rem 0 .4rem; }
+h4 { font-size: .98rem; margin: 1rem 0 .35rem; }
+p, li { max-width: 64rem; }
+.summary { margin: .3rem 0 1rem; }
+.summary h2 { font-size: 1rem; border: 0; margin: 0 0 .25rem; padding: 0; }
+.summary ul { margin: 0; padding-left: 1.1rem; }
+.summary li { margin: .1rem 0; }
+.verdict { font-size: 1.22rem; line-height: 1.32; font-weight: 600; margin: .2rem 0 .35rem;
+           padding: .55rem .8rem; border-left: 6px solid var(--ink); background: var(--soft); }
+.source { font-size: .9rem; color: var(--muted); margin: 0 0 .5rem; }
+.cols { display: grid; grid-template-columns: 1fr 1fr; gap: .6rem 1.2rem; }
+.box { border: 1px solid var(--rule); padding: .45rem .8rem; }
+.signoff { border: 2px solid var(--ink); }
+.meta { color: var(--muted); font-size: .85rem; margin: 0 0 .3rem; }
 .meta span { margin-right: 1.2rem; white-space: nowrap; }
-.cautions { border: 2px solid #8a5a00; background: #fff6e0; padding: .5rem 1rem; margin: .8rem 0 1rem; }
-.cautions h2 { border: 0; margin: .3rem 0; font-size: 1.05rem; }
-.cautions ul { margin: .2rem 0 .4rem; padding-left: 1.2rem; }
+.cautions { border: 2px solid #8a5a00; background: #fff6e0; padding: .4rem .8rem; margin: .6rem 0 0;
+            font-size: .9rem; }
+.cautions ul { margin: .1rem 0 .2rem; padding-left: 1.2rem; }
 .note { color: var(--muted); font-size: .9rem; }
 .warn { border-left: 4px solid #8a5a00; padding: .2rem .7rem; margin: .5rem 0; }
-nav ol { margin: .2rem 0; padding-left: 1.4rem; columns: 2; max-width: 44rem; }
+details.recipe { border: 1px solid var(--rule); margin: .5rem 0; padding: 0 .8rem; }
+details.recipe > summary { cursor: pointer; padding: .5rem 0; font-size: 1.02rem; }
+details.recipe[open] > summary { border-bottom: 1px solid var(--rule); }
 .scroll { overflow-x: auto; margin: .5rem 0 1rem; }
 table { border-collapse: collapse; font-size: .9rem; min-width: 28rem; }
 table.wide { width: 100%; }
+table.confusion { min-width: 0; }
 .swap { display: inline-block; min-width: 12rem; }
 th, td { border: 1px solid var(--rule); padding: .3rem .5rem; text-align: left; vertical-align: top; }
 th { background: var(--soft); font-weight: 600; }
@@ -77,13 +96,13 @@ tr.best td, tr.flagged td { font-weight: 600; }
 figure { margin: .8rem 0 1.2rem; }
 figure img { display: block; max-width: 100%; height: auto; border: 1px solid var(--rule); }
 figcaption { font-size: .88rem; color: var(--muted); margin-top: .25rem; }
-.plots { display: flex; flex-wrap: wrap; gap: 1rem; }
-.plots figure { flex: 1 1 20rem; max-width: 34rem; }
+.plots { display: flex; flex-wrap: wrap; gap: 1rem; align-items: flex-start; }
+.plots figure { flex: 0 1 auto; max-width: 34rem; }
 code { font-size: .88em; background: var(--soft); padding: 0 .2rem; word-break: break-all; }
-@media (max-width: 40rem) {
+@media (max-width: 52rem) {
   body { padding: .6rem .7rem 2rem; font-size: 14px; }
-  .verdict { font-size: 1.15rem; }
-  nav ol { columns: 1; }
+  .verdict { font-size: 1.1rem; }
+  .cols { grid-template-columns: 1fr; }
 }
 @media print {
   body { max-width: none; padding: 0; font-size: 10.5pt; }
@@ -91,9 +110,10 @@ code { font-size: .88em; background: var(--soft); padding: 0 .2rem; word-break: 
   .scroll { overflow: visible; }
   table { min-width: 0; width: 100%; }
   thead { display: table-header-group; }
-  tr, figure, img, .cautions, .verdict { break-inside: avoid; page-break-inside: avoid; }
-  h2, h3 { break-after: avoid; page-break-after: avoid; }
-  nav { display: none; }
+  tr, figure, img, .cautions, .verdict, .box { break-inside: avoid; page-break-inside: avoid; }
+  h2, h3, h4 { break-after: avoid; page-break-after: avoid; }
+  details.recipe { border: 0; padding: 0; }
+  details::details-content { content-visibility: visible; display: block; }
   .badge { background: none; }
 }
 """
@@ -235,27 +255,80 @@ def embed_png(path, *, base_dir=None):
        Edition)", 2003, section 5.2 (PNG signature).
     .. [2] L. Masinter, "The 'data' URL scheme", RFC 2397, 1998.
     """
+    data = _read_figure(path, base_dir)
+    if data is None or not data.startswith(_PNG_SIGNATURE):
+        return None
+    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+
+
+def _read_figure(path, base_dir):
+    """The bytes of a figure file (relative paths against ``base_dir``), or None."""
     if not path:
         return None
     path = Path(path)
     if not path.is_absolute() and base_dir is not None:
         path = Path(base_dir) / path
     try:
-        data = path.read_bytes()
+        return path.read_bytes()
     except OSError:
         return None
-    if not data.startswith(_PNG_SIGNATURE):
+
+
+def embed_image(path, *, base_dir=None):
+    """A data URI for a PNG or JPEG file that decodes (told by its signature), or None; see `embed_png`."""
+    data = _read_figure(path, base_dir)
+    return None if data is None else _data_uri(data)
+
+
+def _data_uri(data):
+    """``data:`` URI of PNG or JPEG bytes that decode, else None.
+
+    The type is told by the signature (PNG section 5.2; JPEG's start-of-image
+    marker, ITU-T T.81 annex B) and the bytes are decoded once, so the page
+    never holds an image a browser would show as broken.
+    """
+    if data.startswith(_PNG_SIGNATURE):
+        mime = "image/png"
+    elif data.startswith(_JPEG_SIGNATURE):
+        mime = "image/jpeg"
+    else:
         return None
-    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+    from PIL import Image, UnidentifiedImageError
+
+    try:
+        with Image.open(io.BytesIO(data)) as image:
+            image.load()
+    except (OSError, UnidentifiedImageError, ValueError, SyntaxError):
+        return None
+    return f"data:{mime};base64," + base64.b64encode(data).decode("ascii")
 
 
-def _figure(path, caption, alt, base_dir):
-    uri = embed_png(path, base_dir=base_dir)
+def _as_palette(uri, colours):
+    """A PNG data URI re-encoded as a palette PNG of ``colours`` colours (smaller for a page)."""
+    from PIL import Image
+
+    with Image.open(io.BytesIO(base64.b64decode(uri.split(",", 1)[1]))) as image:
+        return palette_png(image, colours)
+
+
+def _inline_figure(data, caption, alt, *, css=""):
+    uri = _data_uri(data) if data else None
+    if uri is None:
+        return ""
+    return (f'<figure class="{css}"><img src="{uri}" alt="{_e(alt)}">'
+            f"<figcaption>{_e(caption)}</figcaption></figure>")
+
+
+def _figure(path, caption, alt, base_dir, *, anchor=None, colours=None):
+    uri = embed_image(path, base_dir=base_dir)
+    if uri is not None and colours:
+        uri = _data_uri(_as_palette(uri, colours)) or uri
     if uri is None:
         if not path:
             return ""
         return f'<p class="note">Figure not available: <code>{_e(path)}</code></p>'
-    return (f'<figure><img src="{uri}" alt="{_e(alt)}">'
+    id_attr = f' id="{anchor}"' if anchor else ""
+    return (f'<figure{id_attr}><img src="{uri}" alt="{_e(alt)}">'
             f"<figcaption>{_e(caption)}</figcaption></figure>")
 
 
@@ -279,29 +352,9 @@ def _head(evidence):
         meta.append(f"<span>data <code>{_e(data.get('root'))}</code></span>")
     if evidence.get("best"):
         meta.append(f"<span>recommended: <strong>{_e(evidence.get('best'))}</strong> (vetted)</span>")
+    del verdict  # the verdict opens the summary
     return ("<header><h1>augplan vet: augmentation recipe report</h1>"
-            f'<p class="verdict" id="verdict">{_e(verdict)}</p>'
             f'<p class="meta">{" ".join(meta)}</p></header>')
-
-
-def _cautions(evidence):
-    cautions = [c for c in (evidence.get("cautions") or []) if c]
-    if not cautions:
-        return ""
-    return ('<section class="cautions" id="cautions"><h2>Cautions</h2>'
-            f"{_list(cautions)}</section>")
-
-
-def _contents(recipes):
-    items = []
-    for number, entry in enumerate(recipes):
-        name = entry.get("name", f"recipe {number + 1}")
-        items.append(f'<li><a href="#{_anchor("recipe", name, number)}">Recipe {_e(name)}: label safety</a></li>')
-        items.append(f'<li><a href="#{_anchor("coverage", name, number)}">Recipe {_e(name)}: coverage '
-                     "and shortcuts</a></li>")
-    items.append('<li><a href="#leaderboard">Leaderboard</a></li>')
-    items.append('<li><a href="#data-notes">Data notes</a></li>')
-    return f'<nav><strong>Contents</strong><ol>{"".join(items)}</ol></nav>'
 
 
 def _transform_text(step, fallback):
@@ -356,12 +409,11 @@ def _vetting_text(change, suggestion):
 
 
 def _check_section(entry, number, base_dir):
-    name = entry.get("name", f"recipe {number + 1}")
     check = entry.get("check") or {}
     vetted = entry.get("vetted") or {}
     steps = (entry.get("recipe") or {}).get("transforms") or []
     changes = {c.get("index"): c for c in (vetted.get("changes") or []) if isinstance(c, dict)}
-    out = [f'<section id="{_anchor("recipe", name, number)}"><h2>Recipe {_e(name)}: label safety</h2>']
+    out = ["<section><h3>Label safety</h3>"]
     facts = []
     if entry.get("source"):
         facts.append(f"file <code>{_e(entry['source'])}</code>")
@@ -405,30 +457,25 @@ def _check_section(entry, number, base_dir):
     else:
         out.append('<p class="note">The check recorded no transforms.</p>')
     if check.get("decision_rule"):
-        out.append("<p><strong>How to read this.</strong> Each transform was judged in two stages. "
-                   "The <em>screen</em> applies it to every training image and asks, with a model that "
-                   "never saw that image, whether the transformed image still lands in its own class; "
-                   "a transform it clears is safe. Every other transform is <em>confirmed by "
-                   "training</em>: the same small model is trained with the transform and without it, "
-                   "and both are scored on original images they did not see. A transform breaks when "
-                   "one named class is then mistaken for another far more often, and the screen saw "
-                   "the transformed images land in that class; it is safe when no class loses more "
-                   "than the stated margin; otherwise it is unverified and a person must look.</p>")
-        out.append(f"<p><strong>Decision rule.</strong> {_e(check['decision_rule'])}</p>")
+        out.append('<p class="note">Verdicts follow the label-safety rule in the '
+                   '<a href="#appendix">appendix</a>.</p>')
     for warning in check.get("warnings") or []:
         out.append(f'<p class="warn">{_e(warning)}</p>')
 
     sheets = [t for t in transforms if t.get("evidence_sheet")]
     if sheets:
         out.append("<h3>Images that moved</h3>"
-                   '<p class="note">Each pair shows an original and the transformed image; the caption '
-                   "says its class and where the transformed image landed (another class, or outside "
-                   "every class).</p>")
+                   '<p class="note">Each pair shows an original at its own aspect ratio and the transformed '
+                   "image, captioned with the magnitude; the row label says its class and where the "
+                   "transformed image landed (another class, or outside every class).</p>")
         out.append('<div class="plots">')
         for transform in sheets:
             caption = (f"transform {transform.get('index', '?')} ({transform.get('op', '?')}): "
-                       f"{transform.get('verdict', 'unknown')}")
-            out.append(_figure(transform["evidence_sheet"], caption, f"evidence sheet, {caption}", base_dir))
+                       f"{transform.get('verdict', 'unknown')}; shown in {_EVIDENCE_COLOURS} colours, "
+                       f"the full-colour sheet is {transform['evidence_sheet']}")
+            out.append(_figure(transform["evidence_sheet"], caption, f"evidence sheet, {caption}", base_dir,
+                               anchor=_evidence_anchor(number, transform.get("index", "x")),
+                               colours=_EVIDENCE_COLOURS))
         out.append("</div>")
 
     out.append(_vetted_block(vetted))
@@ -439,7 +486,7 @@ def _check_section(entry, number, base_dir):
 def _vetted_block(vetted):
     if not vetted:
         return ""
-    out = ["<h3>The vetted recipe</h3>"]
+    out = ["<h4>The vetted recipe</h4>"]
     name = vetted.get("name")
     if vetted.get("unchanged"):
         out.append(f"<p>Every transform is kept as written; the vetted recipe is <strong>{_e(name)}</strong>.</p>")
@@ -541,10 +588,15 @@ def _score_cell(value):
 def _coverage_section(entry, number, base_dir):
     name = entry.get("name", f"recipe {number + 1}")
     coverage = entry.get("coverage") or {}
-    out = [f'<section id="{_anchor("coverage", name, number)}"><h2>Recipe {_e(name)}: coverage and shortcuts</h2>']
+    out = [f'<section id="{_anchor("coverage", name, number)}"><h3>Coverage and shortcuts</h3>']
+    grid = factor_grid(coverage.get("factors")) if isinstance(coverage.get("factors"), dict) else None
+    if grid:
+        out.append(_inline_figure(grid, "original (solid), augmented (dashed) and field (dotted) distribution "
+                                  "of every nuisance factor, each panel on its own scale",
+                                  f"histograms of the nuisance factors of {name}", css="wide"))
     plots = _plot_items(coverage.get("plots"), coverage.get("factors") or ())
     if plots:
-        out.append("<h3>Nuisance factors: original, augmented and field</h3>")
+        out.append("<h4>Nuisance factors: original, augmented and field</h4>")
         out.append('<div class="plots">')
         for factor, path in plots:
             out.append(_figure(path, f"{factor}: original, augmented and field distributions",
@@ -559,7 +611,7 @@ def _coverage_section(entry, number, base_dir):
             unit = f' <span class="note">({_e(info["unit"])})</span>' if info.get("unit") else ""
             rows.append([_e(factor) + unit, _range_text(info.get("original"), factor), _range_text(info.get("augmented"), factor),
                          _widening(info.get("original"), info.get("augmented")), _field_text(info.get("field"))])
-        out.append("<h3>How far the recipe widens each factor</h3>")
+        out.append("<h4>How far the recipe widens each factor</h4>")
         out.append(_table(["factor", "original 5th to 95th percentile", "augmented 5th to 95th percentile",
                            "spread widened", "field sample (share covered; distance before \u2192 after)"],
                           rows, numeric=(3,)))
@@ -583,14 +635,14 @@ def _coverage_section(entry, number, base_dir):
                          _score_cell(s.get("val")), _score_cell(s.get("field")), _score_cell(s.get("chance")),
                          f"<span class=\"flag\">{_e(', '.join(flags))}</span>" if flags else "no"])
             classes.append("flagged" if s.get("flagged") else "")
-        out.append("<h3>Shortcut audit</h3>"
+        out.append("<h4>Shortcut audit</h4>"
                    '<p class="note">How well the class can be told from one factor alone (cross-validated '
                    "balanced accuracy). Far above chance means the factor is a shortcut a model can learn "
                    "instead of the object.</p>")
         out.append(_table(["factor", "original train", "augmented train", "validation", "field", "chance",
                            "flag"], rows, numeric=(1, 2, 3, 4, 5), row_classes=classes))
     if coverage.get("shortcut_rule"):
-        out.append(f"<p><strong>Shortcut rule.</strong> {_e(coverage['shortcut_rule'])}</p>")
+        out.append('<p class="note">Flags follow the shortcut rule in the <a href="#appendix">appendix</a>.</p>')
     for message in coverage.get("messages") or []:
         out.append(f'<p class="warn">{_e(message)}</p>')
     suggestions = [_suggestion_text(s) for s in (coverage.get("suggestions") or [])]
@@ -614,7 +666,7 @@ def _field_coverage(field):
     """
     if not isinstance(field, dict) or not field:
         return ""
-    out = ["<h3>Field coverage</h3>"]
+    out = ["<h4>Field coverage</h4>"]
     if "before" not in field and "after" not in field:
         # Flat form of augplan.coverage: density_before, coverage_after, ...
         flat = {"before": {}, "after": {}}
@@ -651,6 +703,22 @@ def _field_coverage(field):
     return "".join(out)
 
 
+def _ci_text(value, interval, signed=True):
+    if not _is_number(value):
+        return _DASH
+    return _points_ci(value, interval, signed)
+
+
+def _accuracy_text(block):
+    if not isinstance(block, dict):
+        return _DASH
+    text = _percent(block.get("accuracy"), 1)
+    pair = _pair(block.get("accuracy_ci"))
+    if pair and _is_number(block.get("accuracy")):
+        text += f" [{_percent(pair[0], 1)}, {_percent(pair[1], 1)}]"
+    return text
+
+
 def _leaderboard(evidence):
     evaluation = evidence.get("evaluation") or {}
     recipes = evidence.get("recipes") or []
@@ -658,19 +726,15 @@ def _leaderboard(evidence):
     if not evaluation:
         out.append('<p class="note">No evaluation was recorded.</p></section>')
         return "".join(out)
-    vetted_names = {(e.get("vetted") or {}).get("name") for e in recipes if not (e.get("vetted") or {}).get("unchanged")}
-    best_name = None
-    for e in recipes:
-        if e.get("name") == evidence.get("best"):
-            best_name = (e.get("vetted") or {}).get("name") or e.get("name")
+    vetted_names = {(e.get("vetted") or {}).get("name") for e in recipes
+                    if isinstance(e, dict) and not (e.get("vetted") or {}).get("unchanged")}
+    best_name = (_recommended_row(evidence) or {}).get("name")
     baseline = evaluation.get("baseline") or {}
-    rows = [["", "no augmentation (baseline)", _percent(baseline.get("accuracy"), 1)
-             + (f" [{_percent(_pair(baseline.get('accuracy_ci'))[0], 1)}, "
-                f"{_percent(_pair(baseline.get('accuracy_ci'))[1], 1)}]" if _pair(baseline.get("accuracy_ci")) else ""),
-             _DASH, _DASH, _DASH, "reference"]]
+    field = evaluation.get("field") or {}
+    rows = [["", "no augmentation (baseline)", _accuracy_text(baseline), _DASH, _DASH,
+             _accuracy_text(field.get("baseline")), _DASH, "reference"]]
     row_classes = ["baseline"]
-    scored = [r for r in (evaluation.get("recipes") or []) if isinstance(r, dict)]
-    ranked = sorted(scored, key=lambda r: -(r["gain"] if _is_number(r.get("gain")) else -math.inf))
+    ranked = _ranked_rows(evidence)
     for rank, row in enumerate(ranked, start=1):
         flags = []
         if row.get("name") == best_name:
@@ -682,17 +746,19 @@ def _leaderboard(evidence):
         pair = _pair(row.get("gain_ci"))
         if pair and pair[0] > 0 and not row.get("flagged"):
             flags.append("gain above zero")
-        accuracy = _percent(row.get("accuracy"), 1)
-        acc_pair = _pair(row.get("accuracy_ci"))
-        if acc_pair:
-            accuracy += f" [{_percent(acc_pair[0], 1)}, {_percent(acc_pair[1], 1)}]"
-        rows.append([str(rank), _e(row.get("name", "?")), accuracy,
-                     _points_ci(row.get("gain"), row.get("gain_ci")), _p(row.get("p_value")),
-                     _p(row.get("p_holm")), _e(", ".join(flags)) or _DASH])
+        row_field = row.get("field") if isinstance(row.get("field"), dict) else {}
+        rows.append([str(rank), _e(row.get("name", "?")), _accuracy_text(row),
+                     _ci_text(row.get("gain"), row.get("gain_ci")), _p(row.get("p_holm")),
+                     _accuracy_text(row_field) if row_field else _DASH,
+                     _ci_text(row_field.get("gain"), row_field.get("gain_ci")),
+                     _e(", ".join(flags)) or _DASH])
         row_classes.append("best" if row.get("name") == best_name else "")
-    out.append(_table(["rank", "recipe", "validation accuracy [95% CI]",
-                       "gain, percentage points [95% CI]", "p (sign-flip, per image)", "p (Holm)", "flags"],
-                      rows, numeric=(0, 2, 3, 4, 5), row_classes=row_classes))
+    rule = evidence.get("ranking_rule")
+    if rule:
+        out.append(f'<p class="note">Ordered by the rule that makes the recommendation: {_e(rule)}</p>')
+    out.append(_table(["rank", "recipe", "validation accuracy [95% CI]", "validation gain, points [95% CI]",
+                       "p (Holm)", "field accuracy [95% CI]", "field gain, points [95% CI]", "flags"],
+                      rows, numeric=(0, 2, 3, 4, 5, 6), row_classes=row_classes))
 
     facts = []
     if evaluation.get("scored_on"):
@@ -701,13 +767,12 @@ def _leaderboard(evidence):
         facts.append(f"augmented validation images: {_e(evaluation['augmented_validation_images'])}")
     if evaluation.get("repeats") is not None:
         facts.append(f"repeats per recipe: {_e(evaluation['repeats'])}")
-    if evaluation.get("accuracy_interval"):
-        facts.append(f"intervals: {_e(evaluation['accuracy_interval'])}")
+    if field.get("n_images") is not None:
+        facts.append(f"field sample: {_e(field['n_images'])} labelled images")
     if facts:
         out.append(f"<p class=\"note\">{'; '.join(facts)}.</p>")
     out.append(_per_class_table(ranked))
     out.append(_confirm_block(evaluation.get("confirm")))
-    out.append(_field_block(evaluation.get("field"), ranked))
     for warning in evaluation.get("warnings") or []:
         out.append(f'<p class="warn">{_e(warning)}</p>')
     out.append("</section>")
@@ -755,16 +820,6 @@ def _confirm_block(confirm):
     note = f'<p class="note">{_e(confirm["note"])}.</p>' if confirm.get("note") else ""
     return (f"<h3>Confirmation on {_e(confirm.get('source', 'a held-out split'))}{n}</h3>" + note
             + _table(["model", "accuracy [95% CI]"], rows))
-
-
-def _field_block(field, ranked):
-    if not isinstance(field, dict) or not field:
-        return ""
-    n = f" ({field['n_images']} images)" if _is_number(field.get("n_images")) else ""
-    rows = [["no augmentation (baseline)", _short_score(field.get("baseline"))]]
-    rows += [[_e(r.get("name", "?")), _short_score(r.get("field"))] for r in ranked if r.get("field")]
-    note = f'<p class="note">{_e(field["note"])}.</p>' if field.get("note") else ""
-    return f"<h3>Field sample{n}</h3>" + note + _table(["model", "accuracy [95% CI]"], rows)
 
 
 def _data_notes(evidence):
@@ -815,6 +870,252 @@ def _data_notes(evidence):
     return "".join(out)
 
 
+def _evidence_anchor(number, index):
+    return f"evidence-{number}-{index}"
+
+
+def _change_phrase(change):
+    """``flip relabelled``: what vetting did to one transform, in a few words."""
+    op = change.get("op") or "?"
+    action = change.get("action")
+    detail = str(change.get("detail") or "")
+    if action == "relabel":
+        return f"{op} relabelled"
+    if action == "scope":
+        return f"{op} scoped" + (f" ({detail.replace('applied only to ', 'only ')})" if detail else "")
+    if action == "clip":
+        limit = detail[detail.index("["):] if "[" in detail else ""
+        return f"{op} clipped to {limit}" if limit else f"{op} clipped"
+    if action == "remove":
+        reason = detail.rpartition("; ")[2] if "; " in detail else detail
+        return f"{op} removed" + (f" ({reason.replace('removed: ', '')})" if reason else "")
+    return f"{op} kept"
+
+
+def _changes_list(recipes):
+    items = []
+    for number, entry in enumerate(recipes):
+        name = entry.get("name", f"recipe {number + 1}")
+        vetted = entry.get("vetted") or {}
+        changes = [c for c in (vetted.get("changes") or []) if isinstance(c, dict)]
+        link = f'<a href="#{_anchor("recipe", name, number)}"><strong>{_e(name)}</strong></a>'
+        if vetted.get("unchanged") or not changes:
+            kept = f"{len(changes)} transform{'s' if len(changes) != 1 else ''}" if changes else "as written"
+            items.append(f"<li>{link}: kept ({_e(kept)} unchanged)</li>")
+            continue
+        changed = [c for c in changes if c.get("action") != "keep"]
+        phrases = [_change_phrase(c) for c in changed]
+        kept = len(changes) - len(changed)
+        if kept:
+            phrases.append(f"{kept} kept")
+        target = f" \u2192 {_e(vetted['name'])}" if vetted.get("name") else ""
+        items.append(f"<li>{link}{target}: {_e('; '.join(phrases))}</li>")
+    if not items:
+        return ""
+    return f'<div class="box"><h2>What vetting changed</h2><ul>{"".join(items)}</ul></div>'
+
+
+def _signoff_list(recipes):
+    items = []
+    for number, entry in enumerate(recipes):
+        name = entry.get("name", f"recipe {number + 1}")
+        sheets = {t.get("index"): t.get("evidence_sheet") for t in ((entry.get("check") or {}).get("transforms")
+                                                                   or []) if isinstance(t, dict)}
+        for item in (entry.get("vetted") or {}).get("signoff") or []:
+            if not isinstance(item, dict):
+                continue
+            index = item.get("index")
+            where = (_evidence_anchor(number, index) if sheets.get(index)
+                     else _anchor("recipe", name, number))
+            items.append(f'<li><a href="#{where}">{_e(name)}, transform {_e(index)} ({_e(item.get("op", "?"))})'
+                         f"</a>: {_e(item.get('detail') or 'unverified, kept')}</li>")
+    if not items:
+        body = "<p>None: every transform kept is verified safe, rewritten, clipped or removed.</p>"
+    else:
+        body = f"<ul>{''.join(items)}</ul>"
+    return f'<div class="box signoff" id="signoff"><h2>Sign-off needed</h2>{body}</div>'
+
+
+def _evidence_source(evidence):
+    """Which model and which images the recommendation rests on, in one line."""
+    evaluation = evidence.get("evaluation") or {}
+    model = evaluation.get("model")
+    model_text = (model.get("name") if isinstance(model, dict) else model) or "the linear proxy model"
+    recommended = _recommended_row(evidence) or {}
+    parts = []
+    field = recommended.get("field") or {}
+    if _is_number(field.get("gain")):
+        n = field.get("n_images")
+        parts.append("the labelled field sample" + (f" ({n} images)" if _is_number(n) else ""))
+    baseline = evaluation.get("baseline") or {}
+    n_val = baseline.get("n_images")
+    scored_on = str(evaluation.get("scored_on") or "val")
+    scored_on = "validation" + scored_on[3:] if scored_on.startswith("val") else scored_on
+    parts.append(scored_on + (f" ({n_val} images)" if _is_number(n_val) else ""))
+    repeats = evaluation.get("repeats")
+    tail = f", {repeats} training repeat{'s' if repeats != 1 else ''}" if _is_number(repeats) else ""
+    return (f"Evidence: accuracy gains of {_e(model_text)} trained with each recipe against the same model "
+            f"trained without augmentation, scored on {_e(' and '.join(parts))}{_e(tail)}; "
+            "validation images are never augmented.")
+
+
+def _summary(evidence, recipes):
+    verdict = evidence.get("verdict") or "No verdict was recorded for this run."
+    cautions = [c for c in (evidence.get("cautions") or []) if c]
+    out = ['<section id="summary" class="summary">',
+           f'<p class="verdict" id="verdict">{_e(verdict)}</p>']
+    if evidence.get("evaluation"):
+        out.append(f'<p class="source">{_evidence_source(evidence)}</p>')
+    out.append('<div class="cols">' + _changes_list(recipes) + _signoff_list(recipes) + "</div>")
+    if cautions:
+        out.append('<div class="cautions" id="cautions"><h2>Cautions</h2>' + _list(cautions) + "</div>")
+    out.append("</section>")
+    return "".join(out)
+
+
+def _recommended_row(evidence):
+    """The evaluation row of the recommended (vetted) recipe, or None."""
+    evaluation = evidence.get("evaluation") or {}
+    wanted = None
+    for entry in evidence.get("recipes") or []:
+        if isinstance(entry, dict) and entry.get("name") == evidence.get("best"):
+            wanted = (entry.get("vetted") or {}).get("name") or entry.get("name")
+    for row in evaluation.get("recipes") or []:
+        if isinstance(row, dict) and row.get("name") == wanted:
+            return row
+    return None
+
+
+def _ranked_rows(evidence):
+    """Scored rows in the order of the recommendation rule (``evidence["ranking"]``, else by gain)."""
+    scored = [r for r in ((evidence.get("evaluation") or {}).get("recipes") or []) if isinstance(r, dict)]
+    order = evidence.get("ranking")
+    if isinstance(order, list) and order:
+        position = {name: i for i, name in enumerate(order)}
+        return sorted(scored, key=lambda r: position.get(r.get("name"), len(position)))
+    return sorted(scored, key=lambda r: -(r["gain"] if _is_number(r.get("gain")) else -math.inf))
+
+
+def _per_class_section(evidence):
+    evaluation = evidence.get("evaluation") or {}
+    recommended = _recommended_row(evidence)
+    baseline = (evaluation.get("baseline") or {}).get("per_class_recall")
+    data = evidence.get("data") or {}
+    classes = list(data.get("classes") or (baseline or {}).keys())
+    if not classes or not isinstance(baseline, dict):
+        return ""
+    counts = data.get("class_counts") if isinstance(data.get("class_counts"), dict) else {}
+    recall = (recommended or {}).get("per_class_recall") or {}
+    name = (recommended or {}).get("name")
+    rows = []
+    for label in classes:
+        n = counts.get(label) if isinstance(counts.get(label), dict) else {}
+        base, new = baseline.get(label), recall.get(label)
+        change = _points(new - base) if _is_number(base) and _is_number(new) else _DASH
+        rows.append([_e(label), _number(n.get("train")), _number(n.get("val")), _number(n.get("field")),
+                     _percent(base, 1), _percent(new, 1), change])
+    head = ["class", "train images", "validation images", "field images", "recall, no augmentation",
+            f"recall, {_e(name) if name else 'recommended recipe'}", "change, points"]
+    return ('<section id="per-class"><h2>Per class, on validation</h2>'
+            '<p class="note">Recall is the share of a class\'s validation images predicted as that class, '
+            "averaged over the training repeats.</p>"
+            + _table(head, rows, numeric=(1, 2, 3, 4, 5, 6)) + "</section>")
+
+
+def _confusion_section(evidence):
+    row = _recommended_row(evidence)
+    confusion = (row or {}).get("confusion")
+    if not isinstance(confusion, dict):
+        return ""
+    classes, counts = confusion.get("classes") or [], confusion.get("counts") or []
+    if not classes or len(counts) != len(classes):
+        return ""
+    cells = []
+    for label, line in zip(classes, counts):
+        total = sum(v for v in line if _is_number(v)) or 1
+        row_cells = [f"<th scope=\"row\">{_e(label)}</th>"]
+        for value in line:
+            share = value / total if _is_number(value) else 0.0
+            # Shade by the share of the true class's images; the number is printed too.
+            row_cells.append(f'<td class="num" style="background: rgba(0, 90, 170, {0.75 * share:.2f});'
+                             f'{" color: #fff;" if share > 0.55 else ""}">{_number(value)}</td>')
+        cells.append(row_cells)
+    header = "".join(f'<th scope="col" class="num">{_e(c)}</th>' for c in classes)
+    body = "".join("<tr>" + "".join(r) + "</tr>" for r in cells)
+    repeats = confusion.get("repeats")
+    note = (f"Counts of validation predictions of {_e(row.get('name'))}, summed over "
+            f"{_e(repeats)} training repeats; rows are the true class, columns the predicted class."
+            if repeats else "Rows are the true class, columns the predicted class.")
+    return ('<section id="confusion"><h2>Confusion matrix of the recommended recipe</h2>'
+            f'<p class="note">{note}</p><div class="scroll"><table class="confusion"><thead><tr>'
+            f"<th scope=\"col\">true \\ predicted</th>{header}</tr></thead><tbody>{body}</tbody></table></div>"
+            "</section>")
+
+
+def _recipe_details(entry, number, base_dir):
+    name = entry.get("name", f"recipe {number + 1}")
+    transforms = [t for t in ((entry.get("check") or {}).get("transforms") or []) if isinstance(t, dict)]
+    tally = {}
+    for t in transforms:
+        tally[t.get("verdict") or "unknown"] = tally.get(t.get("verdict") or "unknown", 0) + 1
+    status = ", ".join(f"{n} {v}" for v, n in sorted(tally.items()))
+    vetted = entry.get("vetted") or {}
+    after = ("kept as written" if vetted.get("unchanged")
+             else f"vetted as {vetted['name']}" if vetted.get("name") else "")
+    summary = (f"<summary>Recipe <strong>{_e(name)}</strong>: {len(transforms)} transforms"
+               + (f" ({_e(status)})" if status else "") + (f"; {_e(after)}" if after else "") + "</summary>")
+    body = [_check_section(entry, number, base_dir), _draws_block(entry, base_dir),
+            _coverage_section(entry, number, base_dir)]
+    return (f'<details class="recipe" id="{_anchor("recipe", name, number)}">{summary}'
+            + "".join(body) + "</details>")
+
+
+def _draws_block(entry, base_dir):
+    sheet = entry.get("draws_sheet")
+    if not sheet:
+        return ""
+    name = (entry.get("vetted") or {}).get("name") or entry.get("name", "?")
+    return ("<h3>Augmented draws</h3>"
+            + _figure(sheet, f"recipe {name} (as vetted): an original of each class, then independent draws",
+                      f"contact sheet of augmented draws of {name}", base_dir))
+
+
+_HOW_TO_READ_CHECK = ("<p><strong>How to read this.</strong> Each transform was judged in two stages. "
+                   "The <em>screen</em> applies it to every training image and asks, with a model that "
+                   "never saw that image, whether the transformed image still lands in its own class; "
+                   "a transform it clears is safe. Every other transform is <em>confirmed by "
+                   "training</em>: the same small model is trained with the transform and without it, "
+                   "and both are scored on original images they did not see. A transform breaks when "
+                   "one named class is then mistaken for another far more often, and the screen saw "
+                   "the transformed images land in that class; it is safe when no class loses more "
+                   "than the stated margin; otherwise it is unverified and a person must look.</p>")
+
+
+def _appendix(evidence, recipes):
+    out = ['<section id="appendix"><h2>Appendix: decision rules</h2>']
+    if any((entry.get("check") or {}).get("decision_rule") for entry in recipes):
+        out.append(_HOW_TO_READ_CHECK)
+    rules = []
+    for entry in recipes:
+        check_rule = (entry.get("check") or {}).get("decision_rule")
+        if check_rule and ("Label safety", check_rule) not in rules:
+            rules.append(("Label safety", check_rule))
+        shortcut_rule = (entry.get("coverage") or {}).get("shortcut_rule")
+        if shortcut_rule and ("Shortcuts", shortcut_rule) not in rules:
+            rules.append(("Shortcuts", shortcut_rule))
+    if evidence.get("ranking_rule"):
+        rules.append(("Recommendation and leaderboard order", evidence["ranking_rule"]))
+    interval = (evidence.get("evaluation") or {}).get("accuracy_interval")
+    if interval:
+        rules.append(("Intervals", interval))
+    if not rules:
+        out.append('<p class="note">No decision rules were recorded.</p>')
+    for title, text in rules:
+        out.append(f"<p><strong>{_e(title)}.</strong> {_e(text)}</p>")
+    out.append("</section>")
+    return "".join(out)
+
+
 def render_report(evidence, *, base_dir=None):
     """Render the evidence document of ``augplan vet`` as one self-contained HTML page.
 
@@ -839,11 +1140,13 @@ def render_report(evidence, *, base_dir=None):
     title = "augplan report"
     if recipes:
         title += ": " + ", ".join(str(r.get("name", "?")) for r in recipes)
-    body = [_head(evidence), _cautions(evidence), _contents(recipes)]
-    for number, entry in enumerate(recipes):
-        body.append(_check_section(entry, number, base_dir))
-        body.append(_coverage_section(entry, number, base_dir))
-    body.append(_leaderboard(evidence))
+    body = [_head(evidence), _summary(evidence, recipes), _leaderboard(evidence), _per_class_section(evidence),
+            _confusion_section(evidence)]
+    if recipes:
+        body.append('<h2 id="recipes">Recipes</h2><p class="note">Open a recipe for its label-safety table, '
+                    "evidence sheets, augmented draws, coverage and shortcut audit.</p>")
+    body.extend(_recipe_details(entry, number, base_dir) for number, entry in enumerate(recipes))
+    body.append(_appendix(evidence, recipes))
     body.append(_data_notes(evidence))
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"

@@ -1,90 +1,136 @@
-"""Figures of the coverage analysis: one histogram PNG per nuisance factor."""
+"""Figures of analysis results: drawn here from the data the analyses return.
+
+The analyses return numbers (histogram counts, rates); this module is the
+only one that turns them into pictures. Figures are encoded compactly: an
+8-bit palette PNG for line art (a few flat colours, so the palette is
+lossless in practice) and JPEG for photographic contact sheets, so a report
+that embeds many of them stays small.
+"""
 
 import dataclasses
 import io
 from pathlib import Path
 
 import numpy as np
+from PIL import Image
 
 from augplan.atomic import write_bytes_atomic
-from augplan.coverage.coverage import histogram_edges
-from augplan.measure.factors import FACTORS
 
-__all__ = ["factor_plot_pngs", "write_factor_plots", "with_factor_plots"]
+__all__ = ["factor_grid", "palette_png", "jpeg_bytes", "with_factor_plots"]
+
+# Colours that stay apart for the common colour-vision deficiencies
+# (Okabe and Ito's palette, 2008) and in greyscale print by line style.
+_SOURCES = (("original", "#0072B2", "-"), ("augmented", "#D55E00", "--"), ("field", "#009E73", ":"))
+_COLUMNS = 4
 
 
-def factor_plot_pngs(samples):
-    """One PNG per factor with the original, augmented and field histograms overlaid.
+def palette_png(image, colours=64):
+    """Encode a PIL image as an 8-bit palette PNG of at most ``colours`` colours (no metadata)."""
+    if not isinstance(image, Image.Image):
+        raise TypeError(f"image must be a PIL image; got {type(image).__name__}")
+    quantised = image.convert("RGB").quantize(colors=int(colours), method=Image.Quantize.MEDIANCUT, dither=0)
+    buffer = io.BytesIO()
+    quantised.save(buffer, format="PNG", optimize=True)
+    return buffer.getvalue()
+
+
+def jpeg_bytes(image, quality=65):
+    """Encode a PIL image as a baseline JPEG (4:2:0, no metadata): for photographs, not line art."""
+    if not isinstance(image, Image.Image):
+        raise TypeError(f"image must be a PIL image; got {type(image).__name__}")
+    buffer = io.BytesIO()
+    image.convert("RGB").save(buffer, format="JPEG", quality=int(quality), optimize=True)
+    return buffer.getvalue()
+
+
+def _density(histogram):
+    edges = np.asarray(histogram["edges"], dtype=np.float64)
+    counts = np.asarray(histogram["counts"], dtype=np.float64)
+    total = counts.sum()
+    if total <= 0 or edges.size != counts.size + 1:
+        return None
+    return edges, counts / (total * np.diff(edges))
+
+
+def factor_grid(factors, *, title=None):
+    """Small multiples of every factor's histograms on one figure: original, augmented, field.
 
     Parameters
     ----------
-    samples : dict
-        ``{"original": {name: values}, "augmented": {...}, "field": {...} or None}``
-        (``CoverageResult.samples``).
+    factors : dict
+        The ``factors`` block of a coverage result: per factor ``{"unit",
+        "original": {"histogram": {"edges", "counts"}}, "augmented": {...},
+        "field": {"summary": {...}}}``. All histograms of one factor share
+        their edges.
+    title : str, optional
 
     Returns
     -------
-    dict of str -> bytes
-        ``{"<factor>.png": PNG bytes}`` in `FACTORS` order.
+    bytes or None
+        A palette PNG; None when no factor has a histogram.
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    pngs = {}
-    for name, factor in FACTORS.items():
-        field = samples.get("field")
-        field_values = None if field is None else field[name]
-        edges = histogram_edges(factor, samples["original"][name], samples["augmented"][name], field_values)
-        figure = Figure(figsize=(5.0, 3.2), dpi=100)
-        FigureCanvasAgg(figure)
-        axes = figure.add_subplot()
-        for label, values, colour in (("original", samples["original"][name], "tab:blue"),
-                                      ("augmented", samples["augmented"][name], "tab:orange"),
-                                      ("field", field_values, "tab:green")):
-            if values is None:
-                continue
-            values = values[np.isfinite(values)]
-            if values.size == 0:
-                continue
-            if factor.circular:
-                values = values % factor.period
-            axes.hist(values, bins=edges, density=True, histtype="step", linewidth=1.6,
-                      color=colour, label=f"{label} (n={values.size})")
-        axes.set_xlabel(f"{name} ({factor.unit})")
-        axes.set_ylabel("density")
-        if axes.get_legend_handles_labels()[0]:  # a factor with no finite values draws no curve
-            axes.legend(fontsize=8)
-        figure.tight_layout()
-        buffer = io.BytesIO()
-        figure.savefig(buffer, format="png", metadata={"Software": None})
-        pngs[f"{name}.png"] = buffer.getvalue()
-    return pngs
-
-
-def write_factor_plots(samples, plots_dir):
-    """Write `factor_plot_pngs` into ``plots_dir`` (created if missing), each file atomically.
-
-    Returns
-    -------
-    list of Path
-    """
-    plots_dir = Path(plots_dir)
-    plots_dir.mkdir(parents=True, exist_ok=True)
-    return [write_bytes_atomic(plots_dir / name, data) for name, data in factor_plot_pngs(samples).items()]
+    panels = []
+    for name, info in (factors or {}).items():
+        if not isinstance(info, dict):
+            continue
+        field = (info.get("field") or {}).get("summary") or {}
+        curves = []
+        for (source, colour, style), block in zip(_SOURCES, (info.get("original"), info.get("augmented"), field)):
+            histogram = (block or {}).get("histogram")
+            density = _density(histogram) if isinstance(histogram, dict) else None
+            if density is not None:
+                curves.append((source, colour, style, density, int(sum(histogram["counts"]))))
+        if curves:
+            panels.append((name, info.get("unit"), curves))
+    if not panels:
+        return None
+    rows = -(-len(panels) // _COLUMNS)
+    height = 1.75 * rows + (0.35 if title else 0.0) + 0.3
+    figure = Figure(figsize=(2.6 * _COLUMNS, height), dpi=90)
+    canvas = FigureCanvasAgg(figure)
+    # Fixed margins in inches (title band, legend band) instead of a layout pass, which would draw twice.
+    axes_grid = figure.subplots(rows, _COLUMNS, squeeze=False, gridspec_kw={
+        "left": 0.02, "right": 0.99, "wspace": 0.12, "hspace": 0.75,
+        "top": 1 - ((0.35 if title else 0.0) + 0.25) / height, "bottom": 0.55 / height})
+    for axes, (name, unit, curves) in zip(axes_grid.ravel(), panels):
+        for source, colour, style, (edges, density), n in curves:
+            axes.stairs(density, edges, color=colour, linestyle=style, linewidth=1.4, label=f"{source} (n={n})")
+        axes.set_title(f"{name}" + (f" ({unit})" if unit else ""), fontsize=8.5)
+        axes.tick_params(labelsize=7, length=2)
+        axes.set_yticks([])
+    for axes in axes_grid.ravel()[len(panels):]:
+        axes.set_axis_off()
+    handles, labels = axes_grid.ravel()[0].get_legend_handles_labels()
+    figure.legend(handles, [label.split(" (")[0] for label in labels], loc="lower center", ncol=3, fontsize=8,
+                  frameon=False)
+    if title:
+        figure.suptitle(title, fontsize=9)
+    canvas.draw()
+    width, height_px = canvas.get_width_height()
+    return palette_png(Image.frombuffer("RGBA", (width, height_px), canvas.buffer_rgba(), "raw", "RGBA", 0, 1), 32)
 
 
 def with_factor_plots(result, plots_dir):
-    """Write ``result``'s factor plots into ``plots_dir``; the result with their paths under ``plots``.
+    """Write ``result``'s factor histograms as ``plots_dir/factors.png``; the result with its path under ``plots``.
 
     Parameters
     ----------
     result : augplan.results.CoverageResult
-        From `augplan.coverage.coverage.analyse_coverage` (it carries the samples).
+        From `augplan.coverage.coverage.analyse_coverage`.
     plots_dir : str or Path
+        Created if missing; the file is written atomically.
 
     Returns
     -------
     augplan.results.CoverageResult
     """
-    written = write_factor_plots(result.samples, plots_dir)
-    return dataclasses.replace(result, plots=[str(path) for path in written])
+    plots_dir = Path(plots_dir)
+    plots_dir.mkdir(parents=True, exist_ok=True)
+    data = factor_grid(result["factors"], title=f"recipe {result['recipe']}")
+    if data is None:
+        return dataclasses.replace(result, plots=[])
+    written = write_bytes_atomic(plots_dir / "factors.png", data)
+    return dataclasses.replace(result, plots=[str(written)])

@@ -184,7 +184,7 @@ def _shorten_title(text):
     return text if len(text) <= 120 else text[:117] + "..."
 
 
-def preview_sheet(dataset, recipe, *, per_class=3, draws=5, rng):
+def preview_sheet(dataset, recipe, *, per_class=3, draws=5, rng, cell=96):
     """Contact sheet of a recipe on a data set: originals and augmented draws.
 
     For every training class, the first ``per_class`` training images in
@@ -205,11 +205,13 @@ def preview_sheet(dataset, recipe, *, per_class=3, draws=5, rng):
     rng : numpy.random.Generator
         One child generator is spawned per shown image, so a row does not
         depend on how many rows come before it.
+    cell : int, default 96
+        Side of each cell in pixels.
 
     Returns
     -------
     PIL.Image.Image
-        The sheet, cells 96 pixels wide; images larger than that are
+        The sheet, cells ``cell`` pixels wide; images larger than that are
         downsized as they are read, smaller ones are augmented at their own
         size and enlarged only for display.
     """
@@ -221,9 +223,10 @@ def preview_sheet(dataset, recipe, *, per_class=3, draws=5, rng):
             raise ValueError(f"{name} must be a positive integer; got {value!r}")
     if not isinstance(rng, np.random.Generator):
         raise TypeError(f"rng must be a numpy.random.Generator; got {type(rng).__name__}")
+    if isinstance(cell, bool) or not isinstance(cell, (int, np.integer)) or cell < 8:
+        raise ValueError(f"cell must be an integer of at least 8 pixels; got {cell!r}")
     if not isinstance(dataset, Dataset):
         dataset = open_dataset(dataset)
-    cell = 96
 
     train = dataset.split("train")
     chosen = []

@@ -6,7 +6,7 @@ from augplan.measure.factors import FACTORS
 from augplan.results import range_text
 
 __all__ = ["format_table", "wrap", "check_table", "coverage_table", "leaderboard_table", "history_table",
-           "format_range", "format_interval"]
+           "run_table", "format_range", "format_interval"]
 
 
 def _cut(text, limit):
@@ -186,9 +186,42 @@ def history_table(rows):
     """Past comparisons from the results ledger, newest last."""
     if not rows:
         return "no evaluations in the ledger yet"
-    table = [[row["date"][:16], row["fingerprint"], len(row["recipes"]), row["repeats"],
+    table = [[row.get("run", "-"), row["date"][:16], row["fingerprint"], len(row["recipes"]), row["repeats"],
               row["best_recipe"] or "-",
               "-" if row["best_gain"] is None else f"{row['best_gain']:+.3f}",
               "ledger" if row["from_ledger"] else ""]
              for row in rows]
-    return format_table(["date", "data", "recipes", "repeats", "best recipe", "gain", "reused"], table)
+    return format_table(["run", "date", "data", "recipes", "reps", "best recipe", "gain", "reused"], table)
+
+
+def _gain_text(row):
+    if row.get("gain") is None:
+        return "-"
+    text = f"{row['gain']:+.3f}"
+    if row.get("gain_ci"):
+        text += " " + format_interval(*row["gain_ci"], digits=3)
+    return text
+
+
+def run_table(entry):
+    """One past comparison (``augplan history RUN``): its settings, then a score per recipe."""
+    lines = [f"run {entry['run']}, {entry['date']} UTC: data {entry['data'] or '-'}",
+             f"  fingerprint {entry['fingerprint']}", f"  seed {entry['seed']}, {entry['repeats']} repeats, "
+             f"settings {entry['settings_key']}" + (", served from the ledger" if entry["from_ledger"] else "")]
+    details = entry.get("details")
+    if not details:
+        lines.append("  this run was recorded without its scores; recipes: " + ", ".join(entry["recipes"]))
+        return "\n".join(lines)
+    baseline = details["baseline"]
+    lines.append(f"  scored on {details['scored_on']} ({baseline['n_images']} images); no augmentation: "
+                 f"accuracy {baseline['accuracy']:.3f} " + format_interval(*baseline["accuracy_ci"], digits=3))
+    rows = []
+    for row in details["recipes"]:
+        field = row.get("field") or {}
+        rows.append([row["name"], f"{row['accuracy']:.3f}", _gain_text(row),
+                     "-" if row.get("p_holm") is None else f"{row['p_holm']:.3g}",
+                     _gain_text(field) if field else "-", "loses" if row.get("flagged") else ""])
+    lines.append(format_table(["recipe", "accuracy", "gain [95% CI]", "p (Holm)", "field gain", "flag"], rows,
+                              max_cell=26))
+    lines.extend(wrap(f"warning: {text}") for text in details.get("warnings") or [])
+    return "\n".join(lines)

@@ -12,6 +12,8 @@ import sys
 import tempfile
 from pathlib import Path
 
+import numpy as np
+
 from augplan import __version__
 from augplan.atomic import write_bytes_atomic
 from augplan.cautions import CAUTIONS
@@ -104,24 +106,26 @@ def _inside(path, folder):
     return True
 
 
-def _collect_figures(entries, plot_pngs):
-    """The evidence sheets (read from the checker's scratch folder) and factor plots of every recipe.
+def _collect_figures(entries):
+    """The evidence sheets (read from the checker's scratch folder) and draws sheet of every recipe.
 
     The paths in the entries become ``figures/<name>``, relative to the output
     folder, before anything reads them; the report is rendered from a staging
     folder laid out the same way.
     """
     figures = {}
-    for number, (entry, pngs) in enumerate(zip(entries, plot_pngs)):
+    for number, entry in enumerate(entries):
         for transform in entry["check"]["transforms"]:
             sheet = transform.get("evidence_sheet")
             if sheet and Path(sheet).is_file():
                 name = f"{number}-{entry['name']}-transform-{transform['index']}.png"
                 figures[name] = Path(sheet).read_bytes()
                 transform["evidence_sheet"] = f"figures/{name}"
-        names = [f"{number}-{entry['name']}-{plot}" for plot in pngs]
-        figures.update(zip(names, pngs.values()))
-        entry["coverage"]["plots"] = [f"figures/{name}" for name in names]
+        sheet = entry.get("draws_sheet")
+        if sheet and Path(sheet).is_file():
+            name = f"{number}-{entry['name']}-draws.jpg"
+            figures[name] = Path(sheet).read_bytes()
+            entry["draws_sheet"] = f"figures/{name}"
     return figures
 
 
@@ -155,6 +159,20 @@ def _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check):
     return dataclasses.replace(vetted, transforms=tuple(steps))
 
 
+def _signoff_items(changes):
+    """The transforms a person must approve: unverified ones that vetting kept."""
+    return [{"index": c["index"], "op": c["op"], "detail": c["detail"]}
+            for c in changes if c["verdict"] == "unverified" and c["action"] == "keep"]
+
+
+def _evidence_sheet(entry, index, out_dir):
+    """Path of the written evidence sheet of transform ``index`` of a recipe entry, or None."""
+    for transform in entry["check"]["transforms"]:
+        if transform["index"] == index and transform.get("evidence_sheet"):
+            return str(out_dir / transform["evidence_sheet"])
+    return None
+
+
 def _vetted_name(recipe):
     return f"{recipe.name}-vetted"
 
@@ -167,6 +185,41 @@ def _stage(quiet, text):
 def _field_gain(score):
     field = score.get("field") or {}
     return field.get("gain") if field.get("gain") is not None else float("-inf")
+
+
+RANKING_RULE = ("recipes are ranked by their validation gain over no augmentation; a tie (a saturated "
+                "validation split scores every recipe alike) goes to the larger gain on the labelled field "
+                "sample; the recommendation is the highest-ranked vetted recipe.")
+
+
+def _rank_key(score):
+    """Order of the leaderboard and of the recommendation (see `RANKING_RULE`)."""
+    return (score["gain"], _field_gain(score))
+
+
+def _class_counts(dataset):
+    counts = {label: dict.fromkeys(("train", "val", "test", "field"), 0) for label in dataset.classes}
+    for record in dataset.records:
+        if record.label in counts:
+            counts[record.label][record.split] += 1
+    return counts
+
+
+# Draws shown per recipe: one training image per class and five draws of it,
+# in cells small enough that a report of several recipes stays compact.
+_DRAWS_SHEET = {"per_class": 1, "draws": 5, "cell": 64}
+
+
+def _draws_sheet(dataset, recipe, path, *, seed, number):
+    """A contact sheet of augmented draws of ``recipe`` (as `preview` draws it), written as JPEG."""
+    from augplan.render.plots import jpeg_bytes
+    from augplan.render.sheets import preview_sheet
+
+    if not dataset.split("train"):
+        return None
+    sheet = preview_sheet(dataset, recipe, rng=np.random.default_rng([seed, number]), **_DRAWS_SHEET)
+    write_bytes_atomic(path, jpeg_bytes(sheet))
+    return str(path)
 
 
 def _gain_text(block):
@@ -230,7 +283,11 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     Returns
     -------
     augplan.results.VetResult
-        ``verdict``, ``report``, ``vetted_recipe``, ``evidence``, ``unchanged``, ``best``.
+        ``verdict``, ``report``, ``vetted_recipe``, ``evidence``, ``unchanged``,
+        ``best``, ``changes`` and ``signoff``: ``changes`` lists per recipe what
+        vetting did to each transform (``action`` keep, relabel, scope, clip or
+        remove); ``signoff`` lists the transforms a person must approve, each
+        with its evidence sheet.
     """
     ensure_outside_data(out_dir, dataset.root)
     out_dir = prepare_output(out_dir, force=force, replace=replace)
@@ -241,13 +298,12 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     settings = dict(sample=sample, seed=seed, workers=workers, quiet=quiet)
     with tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
         scratch = Path(scratch)
-        entries, vetted_recipes, plot_pngs = [], [], []
+        entries, vetted_recipes = [], []
         for number, recipe in enumerate(recipes):
             _stage(quiet, f"[{number + 1}/{len(recipes)}] {recipe.name}: label safety and coverage")
-            entry, vetted, pngs = _vet_one(dataset, recipe, scratch / f"evidence-{number}", approve, settings)
+            entry, vetted = _vet_one(dataset, recipe, scratch, number, approve, settings)
             entries.append(entry)
             vetted_recipes.append(vetted)
-            plot_pngs.append(pngs)
 
         _stage(quiet, "scoring every recipe and its vetted form against no augmentation")
         to_score = list(recipes) + [v for v, e in zip(vetted_recipes, entries) if not e["vetted"]["unchanged"]]
@@ -256,33 +312,43 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         scores = {row["name"]: row for row in evaluation["recipes"]}
         for entry, vetted in zip(entries, vetted_recipes):
             entry["vetted"]["score"] = scores[vetted.name]
-        # Best validation gain; a tie (a saturated validation split scores every
-        # recipe alike) goes to the better gain on the labelled field sample.
-        best_entry = max(entries, key=lambda e: (e["vetted"]["score"]["gain"], _field_gain(e["vetted"]["score"])))
+        ranking = [row["name"] for row in sorted(evaluation["recipes"], key=_rank_key, reverse=True)]
+        by_vetted_name = {entry["vetted"]["name"]: entry for entry in entries}
+        best_entry = next(by_vetted_name[name] for name in ranking if name in by_vetted_name)
 
         header = {"augplan_version": __version__, "created": creation_date(), "data_fingerprint": fingerprint(dataset)}
         documents = {f"vetted-{entry['name']}.yaml": vetted_text(vetted, _vetted_evidence(entry, vetted, evaluation,
-                                                                                          header, seed),
+                                                                                          header, seed,
+                                                                                          dataset.classes),
                                                                      changes=entry["vetted"]["changes"])
                      for entry, vetted in zip(entries, vetted_recipes)}
         documents["vetted-recipe.yaml"] = documents[f"vetted-{best_entry['name']}.yaml"]
         verdict = _verdict_sentence(entries, evaluation, best_entry["vetted"]["score"])
-        figures = _collect_figures(entries, plot_pngs)
-        evidence_document = _evidence_document(dataset, entries, evaluation, best_entry, verdict, header, seed)
+        figures = _collect_figures(entries)
+        evidence_document = _evidence_document(dataset, entries, evaluation, best_entry, verdict, header, seed,
+                                               ranking)
         html = _render_with_figures(evidence_document, figures, scratch / "staged")
         # Everything is computed: now write, all files or none.
         _publish(_output_files(documents, figures, evidence_document, html), out_dir, replace=replace)
 
     return VetResult(verdict=verdict, report=str(out_dir / "report.html"),
                      vetted_recipe=str(out_dir / "vetted-recipe.yaml"), evidence=str(out_dir / "evidence.json"),
-                     unchanged=all(entry["vetted"]["unchanged"] for entry in entries), best=best_entry["name"])
+                     unchanged=all(entry["vetted"]["unchanged"] for entry in entries), best=best_entry["name"],
+                     changes=[{"recipe": entry["name"], "vetted": entry["vetted"]["name"],
+                               "unchanged": entry["vetted"]["unchanged"], "transforms": entry["vetted"]["changes"]}
+                              for entry in entries],
+                     signoff=[{"recipe": entry["name"], **item,
+                               "evidence_sheet": _evidence_sheet(entry, item["index"], out_dir)}
+                              for entry in entries for item in entry["vetted"]["signoff"]])
 
 
-def _vet_one(dataset, recipe, evidence_dir, approve, settings):
-    """Check, coverage and the vetted form of one recipe: its evidence entry, vetted recipe, plot PNGs."""
-    from augplan.render.plots import factor_plot_pngs
+def _vet_one(dataset, recipe, scratch, number, approve, settings):
+    """Check, coverage and the vetted form of recipe ``number``: its evidence entry and vetted recipe.
 
-    check = check_recipe(dataset, recipe, evidence_dir=evidence_dir, **settings)
+    Evidence sheets and the draws sheet are written into ``scratch``; the
+    factor histograms stay data, drawn by the report.
+    """
+    check = check_recipe(dataset, recipe, evidence_dir=scratch / f"evidence-{number}", **settings)
     coverage = analyse_coverage(dataset, recipe, seed=settings["seed"], workers=settings["workers"],
                                 quiet=settings["quiet"])
     vetted, changes = vet_transforms(recipe, check, approve=approve, coverage_result=coverage)
@@ -293,16 +359,19 @@ def _vet_one(dataset, recipe, evidence_dir, approve, settings):
         rechecked = check_recipe(dataset, vetted, **settings).to_json()
         vetted = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
     unchanged = vetted.transforms == recipe.transforms
+    signoff = _signoff_items(changes)
     if not unchanged:
         vetted = dataclasses.replace(vetted, name=_vetted_name(recipe))
+    draws = _draws_sheet(dataset, vetted, scratch / f"draws-{number}.jpg", seed=settings["seed"], number=number)
     entry = {"name": recipe.name, "source": recipe.source, "recipe": recipe_to_dict(recipe),
              "recipe_hash": recipe_hash(recipe), "check": check.to_json(), "coverage": coverage.to_json(),
+             "draws_sheet": draws,
              "vetted": {"name": vetted.name, "recipe": recipe_to_dict(vetted),
-                        "changes": changes, "unchanged": unchanged, "recheck": rechecked}}
-    return entry, vetted, factor_plot_pngs(coverage.samples)
+                        "changes": changes, "signoff": signoff, "unchanged": unchanged, "recheck": rechecked}}
+    return entry, vetted
 
 
-def _vetted_evidence(entry, vetted, evaluation, header, seed):
+def _vetted_evidence(entry, vetted, evaluation, header, seed, classes):
     """The evidence block written into one vetted recipe file (and covered by its checksum)."""
     score = entry["vetted"]["score"]
     evidence = {
@@ -323,23 +392,25 @@ def _vetted_evidence(entry, vetted, evaluation, header, seed):
     if field.get("gain") is not None:
         evidence["field"] = {"gain": field["gain"], "gain_ci": field["gain_ci"],
                              "n_images": field.get("n_images")}
-    signoff = [f"{c['index']} {c['op']}: {c['detail']}" for c in entry["vetted"]["changes"]
-               if c["verdict"] == "unverified" and c["action"] == "keep"]
+    evidence["classes"] = list(classes)
+    signoff = [f"{item['index']} {item['op']}: {item['detail']}" for item in entry["vetted"]["signoff"]]
     if signoff:
         evidence["needs_signoff"] = signoff
     return evidence
 
 
-def _evidence_document(dataset, entries, evaluation, best_entry, verdict, header, seed):
+def _evidence_document(dataset, entries, evaluation, best_entry, verdict, header, seed, ranking):
     """The whole job's evidence (``evidence.json``), which the report is rendered from."""
     return {
         "augplan_version": header["augplan_version"], "created": header["created"], "verdict": verdict,
         "data": {"root": str(dataset.root), "fingerprint": header["data_fingerprint"],
                  "classes": list(dataset.classes),
                  "counts": {split: len(dataset.split(split)) for split in ("train", "val", "test", "field")},
+                 "class_counts": _class_counts(dataset),
                  "val_from_train": dataset.val_from_train, "split_seed": dataset.split_seed,
                  "skipped": [list(item) for item in dataset.skipped], "leaks": find_duplicates(dataset)},
         "recipes": entries, "evaluation": evaluation.to_json(), "best": best_entry["name"],
+        "ranking": ranking, "ranking_rule": RANKING_RULE,
         "cautions": list(CAUTIONS), "seed": seed,
     }
 

@@ -8,7 +8,6 @@ edited one.
 """
 
 import dataclasses
-import hashlib
 import json
 import math
 import os
@@ -21,7 +20,7 @@ from augplan import __version__
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
 from augplan.results import VerifyResult, range_text
-from augplan.recipe.parse import RecipeError, read_recipe_document, recipe_to_dict
+from augplan.recipe.parse import RecipeError, canonical_json, read_recipe_document, recipe_to_dict, vetted_checksum
 
 __all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
            "verify_vetted", "creation_date"]
@@ -136,17 +135,6 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     return vetted, changes
 
 
-def _canonical(document):
-    return json.dumps(document, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
-                      allow_nan=False)
-
-
-def vetted_checksum(recipe, evidence):
-    """sha256 hex of the canonical JSON of ``{"recipe": body, "evidence": evidence}``."""
-    document = {"recipe": recipe_to_dict(recipe), "evidence": evidence}
-    return hashlib.sha256(_canonical(document).encode("ascii")).hexdigest()
-
-
 def _header(changes):
     """The file's opening comment: what vetting did, in words the changes bear out."""
     if changes is None:
@@ -170,7 +158,7 @@ def vetted_text(recipe, evidence, *, changes=None):
     ``changes`` (the per-transform changes of `vet_transforms`) word the
     header; the checksum covers body and evidence only.
     """
-    evidence = json.loads(_canonical(evidence))  # plain types only, so the YAML round-trips
+    evidence = json.loads(canonical_json(evidence))  # plain types only, so the YAML round-trips
     body = recipe_to_dict(recipe)
     header = _header(changes)
     text = yaml.safe_dump(body, sort_keys=False, default_flow_style=None, allow_unicode=True, width=100)
