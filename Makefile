@@ -6,17 +6,18 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 EXTRAS := test,cnn
-# PIP_CONSTRAINT (not only -c) so the isolated build of the editable install
+CONSTRAINTS := $(CURDIR)/constraints.txt
+# PIP_CONSTRAINT as well as -c, so the isolated build of the editable install
 # takes the same setuptools.
-PIP_PINNED := PIP_CONSTRAINT=$(CURDIR)/constraints.txt $(BIN)/python -m pip
+PIP_PINNED := PIP_CONSTRAINT=$(CONSTRAINTS) $(BIN)/python -m pip
 REFRESH := .venv-refresh
 
 .PHONY: demo test install bench constraints clean
 
 $(STAMP): pyproject.toml constraints.txt
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
-	$(PIP_PINNED) install --quiet --upgrade pip
-	$(PIP_PINNED) install --quiet -e '.[$(EXTRAS)]'
+	$(PIP_PINNED) install --quiet -c $(CONSTRAINTS) --upgrade pip
+	$(PIP_PINNED) install --quiet -c $(CONSTRAINTS) -e '.[$(EXTRAS)]'
 	touch $(STAMP)
 
 install: $(STAMP)
