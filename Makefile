@@ -22,8 +22,10 @@ $(STAMP): pyproject.toml constraints.txt
 
 install: $(STAMP)
 
+# The demo's naive recipe has steps that break labels on purpose, so vet's
+# exit 1 (it changed a recipe) is the demo's expected outcome; 2 or more fails.
 demo: $(STAMP)
-	$(BIN)/augplan demo
+	$(BIN)/augplan demo || [ $$? -eq 1 ]
 
 test: $(STAMP)
 	$(BIN)/python -m pytest
