@@ -568,6 +568,10 @@ def _passing(*pairs):
 @pytest.mark.parametrize("transform, pairs, relabel", [
     (Transform("flip", {"axis": "horizontal"}), [(0, 1), (1, 0)], {"a": "b", "b": "a"}),
     (Transform("rotate", {"degrees": 180}), [(0, 1), (1, 0)], {"a": "b", "b": "a"}),
+    # A fixed hue turn does the same to every image: a relabel can undo it.
+    (Transform("hue", {"degrees": 120}), [(0, 1), (1, 0)], {"a": "b", "b": "a"}),
+    # A hue range also draws small turns that keep the label: never relabelled.
+    (Transform("hue", {"degrees": (-150, 150)}), [(0, 1), (1, 0)], None),
     # A rotation range, zoom or shift only widens a class: never relabelled.
     (Transform("rotate", {"degrees": (-10, 10)}), [(0, 1), (1, 0)], None),
     (Transform("zoom", {"factor": (0.9, 1.1)}), [(0, 1), (1, 0)], None),

@@ -742,16 +742,23 @@ def _swap_rows(pairs, classes):
 
 
 def _can_swap_classes(transform):
-    """Whether the op can give an image another class's look as a whole (mirror, turn, hue)."""
+    """Whether the op can give an image another class's look as a whole (mirror, turn, hue).
+
+    A relabel applies to every draw of the step, so the step must do the
+    same thing to every image it changes: a mirror, or a fixed turn. A hue or
+    rotation *range* also draws small turns that keep the label; relabelling
+    those would teach wrong labels, so a range is clipped or scoped instead.
+    """
     from augplan.augment.transforms import OPS
 
-    if transform.op in SWAPPING_OPS:
+    if transform.op == "flip":
         return True
-    if transform.op != "rotate":
+    if transform.op not in SWAPPING_OPS + ("rotate",):
         return False
-    value = transform.params[OPS["rotate"].magnitude]
+    value = transform.params[OPS[transform.op].magnitude]
     low, high = (value, value) if np.ndim(value) == 0 else value
-    return low == high and abs(float(low)) >= TURN_DEGREES
+    smallest_turn = TURN_DEGREES if transform.op == "rotate" else 0.0
+    return low == high and abs(float(low)) > 0 and abs(float(low)) >= smallest_turn
 
 
 def _suggestion(transform, checked, entries, passing, classes):
