@@ -105,6 +105,14 @@ def _workers(parser, *, ship_images=True):
                                  "workers that cannot see the data folder (files held in memory)")
 
 
+def _model_flag(parser):
+    from augplan.evaluate.models import MODEL_CHOICES
+
+    parser.add_argument("--model", default="linear", metavar="NAME",
+                        help=f"model each recipe is scored with: {MODEL_CHOICES} (your training "
+                             "function; see the README)")
+
+
 def _cache_flag(parser):
     parser.add_argument("--cache", type=Path, default=None, metavar="DIR",
                         help="feature cache of the original images (default .augplan/features beside DATA)")
@@ -158,6 +166,7 @@ def _build_parser():
     p.add_argument("--ledger", type=Path, default=None,
                    help="results ledger (default .augplan/ledger.sqlite beside DATA)")
     _cache_flag(p)
+    _model_flag(p)
     p.add_argument("--field", type=Path, default=None, help="labelled field sample folder (default DATA/field)")
 
     p = commands.add_parser("draft", help="propose a candidate recipe from the data")
@@ -180,6 +189,7 @@ def _build_parser():
     p.add_argument("--ledger", type=Path, default=None,
                    help="results ledger (default .augplan/ledger.sqlite beside DATA)")
     _cache_flag(p)
+    _model_flag(p)
 
     p = commands.add_parser("verify", help="check a vetted recipe's checksum and validity")
     _common(p, data=False)
@@ -392,7 +402,7 @@ def _run_evaluate(args, console):
     ledger, cache = _stores(args, dataset, console)
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, ledger_path=ledger, cache_dir=cache,
-                              confirm_fraction=args.confirm_fraction)
+                              confirm_fraction=args.confirm_fraction, model=args.model)
     return _emit(console, args, _with_leaks(result, leaks), tables.leaderboard_table)
 
 
@@ -434,7 +444,7 @@ def _run_vet(args, console):
     ledger, cache = _stores(args, dataset, console)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
                           repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
-                          quiet=args.quiet, ledger_path=ledger, cache_dir=cache)
+                          quiet=args.quiet, ledger_path=ledger, cache_dir=cache, model=args.model)
     _say_vetted(console, args, summary)
     return ExitCode.FLAGGED if summary.flagged else ExitCode.OK
 

@@ -153,10 +153,13 @@ class CoverageResult(_Result):
 
 @dataclass(frozen=True, eq=False)
 class EvaluateResult(_Result):
-    """``augplan evaluate``: each recipe scored against no augmentation."""
+    """``augplan evaluate``: each recipe scored against no augmentation, by the model it names."""
 
+    model: Mapping
     baseline: Mapping
     recipes: list
+    best: Any
+    best_rule: str
     scored_on: str
     accuracy_interval: str
     gain_test: str
@@ -172,7 +175,8 @@ class EvaluateResult(_Result):
 
     @property
     def flagged(self):
-        """Some recipe is flagged (its gain interval lies below zero)."""
+        """Some recipe is flagged: its gain interval lies below zero on a model that learns from
+        pixels (``cnn`` or the team's); the linear proxy's sign alone never flags."""
         return any(row["flagged"] for row in self.recipes)
 
 
@@ -182,10 +186,11 @@ class VetResult(_Result):
 
     verdict: str
     report: str
-    vetted_recipe: str
+    vetted_recipe: Any
     evidence: str
     unchanged: bool
-    best: str
+    best: Any
+    model: str = _optional()
     changes: list = _optional()
     signoff: list = _optional()
 

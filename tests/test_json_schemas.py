@@ -32,7 +32,7 @@ def outputs(tmp_path_factory):
         "history": ["history", "--ledger", ledger],
         "vet": ["vet", data, "--recipe", recipe, "-o", root / "out", "--repeats", "1", "--sample", "3",
                 "--ledger", ledger],
-        "verify": ["verify", root / "out" / "vetted-recipe.yaml", "--data", data],
+        "verify": ["verify", root / "out" / "vetted-naive-draft.yaml", "--data", data],
     }
     documents = {}
     for command, argv in commands.items():

@@ -117,21 +117,44 @@ def test_load_recipe_on_the_vetted_recipe(vetted):
     assert labels == {"chevron-left", "chevron-right"}  # the flip's relabel, applied with probability 0.5
 
 
+_LINEAR = {"name": "linear", "description": "the linear proxy", "note": "biased against augmentation"}
+_CNN = {"name": "cnn", "description": "a small network", "note": None}
+
+
+def _evaluation(model=_LINEAR):
+    return {"baseline": {"accuracy": 0.9}, "model": model}
+
+
 @pytest.mark.parametrize("gain_ci,field_ci,start", [
-    ((0.01, 0.05), None, "Use best-one:"),
-    ((-0.02, 0.03), None, "No recipe shows a clear gain"),
-    ((-0.09, -0.01), None, "No recipe beats no augmentation"),
-    ((0.0, 0.0), (0.2, 0.4), "Use best-one:"),
-], ids=["val-gain", "unclear", "loses", "field-gain"])
+    ((0.01, 0.05), None, "Use best-one (scored with the linear proxy):"),
+    ((-0.02, 0.03), None, "No recipe shows a clear gain; best-one gains most"),
+    ((0.0, 0.0), (0.2, 0.4), "Use best-one (scored with the linear proxy):"),
+], ids=["val-gain", "unclear", "field-gain"])
 def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
     from augplan.vet.job import _verdict_sentence
 
-    best = {"name": "best-one", "gain": sum(gain_ci) / 2, "gain_ci": list(gain_ci)}
+    best = {"name": "best-one", "gain": sum(gain_ci) / 2 + 0.005, "gain_ci": list(gain_ci)}
     if field_ci:
         best["field"] = {"gain": sum(field_ci) / 2, "gain_ci": list(field_ci)}
     entries = [{"name": "draft", "vetted": {"unchanged": False}}]
-    sentence = _verdict_sentence(entries, {"baseline": {"accuracy": 0.9}}, best)
+    sentence = _verdict_sentence(entries, _evaluation(), best, best)
     assert sentence.startswith(start) and "augplan changed draft" in sentence
+
+
+@pytest.mark.parametrize("model, says", [
+    (_LINEAR, "(whose gains are biased against augmentation: this is not evidence of harm; its order puts "
+              "least-bad first"),
+    (_CNN, "scored with the cnn model; the highest-ranked is least-bad"),
+], ids=["linear", "cnn"])
+def test_verdict_sentence_names_no_best_when_none_gains(model, says):
+    from augplan.vet.job import _verdict_sentence
+
+    top = {"name": "least-bad", "gain": -0.015, "gain_ci": [-0.03, -0.002]}
+    entries = [{"name": "draft", "vetted": {"unchanged": True}}]
+    sentence = _verdict_sentence(entries, _evaluation(model), None, top)
+    assert sentence.startswith("No recipe beat no augmentation on validation")
+    assert says in sentence
+    assert "Use " not in sentence and "best" not in sentence
 
 
 def _change_list(*pairs):
@@ -151,7 +174,7 @@ def test_verdict_sentence_claims_no_more_than_the_verdicts(changes, unchanged, s
 
     best = {"name": "r", "gain": 0.02, "gain_ci": [0.01, 0.03]}
     entries = [{"name": "r", "vetted": {"unchanged": unchanged, "changes": changes}}]
-    sentence = _verdict_sentence(entries, {"baseline": {"accuracy": 0.9}}, best)
+    sentence = _verdict_sentence(entries, _evaluation(), best, best)
     assert says in sentence and never not in sentence
 
 

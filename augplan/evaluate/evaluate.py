@@ -5,14 +5,21 @@ images plus ``copies`` augmented draws of each (labels from the recipe), once
 per repeat with fresh draws and a fresh model seed; the baseline trains on
 the originals alone. Every model is scored on original validation images.
 
-Why validation can never be augmented: the only function that calls
-the transform engine (`augplan.augment.transforms.augment_batch`) is `_train_one` (run by `_train_and_predict`); it receives
-training records and the *feature rows* of the evaluation images, never an
-evaluation image. Evaluation images (val, test, field) are read and
-featurised by `_featurize_originals`, which takes no recipe. So the count of
-augmented validation images in the output is zero by construction, and
-``tests/test_evaluate.py`` proves it with a transform that records every
-image it sees.
+The model is the ``--model`` choice (`augplan.evaluate.models`): the linear
+proxy (``linear``, the default), a small convolutional network (``cnn``,
+fresh draws of every image each epoch) or the team's own training function
+(``module:callable``). Every result names it.
+
+Why validation can never be augmented, for every model: the transform
+engine (`augplan.augment.transforms.augment_batch`) is called only by
+`_augmented_copies` and `_EpochDraws`, and both are handed training images
+alone, inside `_train_one` (the linear proxy) or `_train_one_on_images`
+(the other models). Evaluation images (val, test, field) are read by
+`_featurize_originals` or `_load_originals`, which take no recipe, and go
+only to the trained model's ``predict``. So the count of augmented
+validation images in the output is zero by construction, and
+``tests/test_evaluate.py`` proves it for every model with a transform that
+records every image it sees.
 
 Statistics (see `augplan.stats`): validation images are the sampling unit.
 Each image's correctness is averaged over the repeats of an arm; the gain is
@@ -37,6 +44,7 @@ from augplan.measure import stats
 from augplan.data.dataset import Dataset, fingerprint, load_images, stratified_choice
 from augplan.errors import BadInputError
 from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
+from augplan.evaluate.models import scoring_model
 from augplan.parallel import parallel_map, resolve_workers, single_threaded
 from augplan.recipe.parse import Recipe, recipe_hash
 from augplan.results import EvaluateResult
@@ -44,7 +52,8 @@ from augplan.thresholds import MANY_RECIPES_WARNING_LIMIT
 from augplan.workspace import ensure_outside_data
 from augplan.augment.transforms import augment_batch
 
-__all__ = ["evaluate_recipes", "MANY_RECIPES_WARNING_LIMIT", "GAIN_RULE"]
+__all__ = ["evaluate_recipes", "best_recipe", "rank_key", "gain_verdict", "MANY_RECIPES_WARNING_LIMIT", "GAIN_RULE",
+           "BEST_RULE"]
 
 
 # Images per chunk when reading and featurising. Fixed (never derived from
@@ -61,6 +70,11 @@ GAIN_RULE = ("image is the unit: per-image correctness averaged over repeats; ga
              "p-value from one paired sign-flip permutation test over the per-image differences "
              "(the interval holds every gain the test does not reject), so p < 0.05 exactly when "
              "the 95% interval excludes zero")
+
+BEST_RULE = ("recipes are ranked by their validation gain over no augmentation, a tie (a saturated validation "
+             "split scores every recipe alike) going to the larger gain on the labelled field sample; the best is "
+             "the highest-ranked recipe with at least one transform, no gain below zero and a gain above zero; "
+             "when no recipe has one, none is best: no recipe beat no augmentation")
 
 
 # --------------------------------------------------------------------------
@@ -152,8 +166,29 @@ def _train_and_predict(unit):
         return _train_one(unit)
 
 
+def _augmented_copies(records, recipe, draws_seq, size, chunk_done):
+    """The recipe's ``copies`` draws of each training image, chunk by chunk.
+
+    ``chunk_done(images, labels)`` receives each chunk of draws (with their
+    labels after relabels); only training records ever reach here.
+    """
+    image_seqs = draws_seq.spawn(len(records))
+    for start in range(0, len(records), _CHUNK):
+        chunk = records[start:start + _CHUNK]
+        generators = [np.random.default_rng(seq) for seq in image_seqs[start:start + len(chunk)]]
+        batch, batch_labels = augment_batch(load_images(chunk, size), recipe, generators,
+                                            [r.label for r in chunk], recipe.copies)
+        chunk_done(batch, batch_labels)
+
+
+def _adds_draws(recipe):
+    # A recipe without transforms adds only exact duplicates of the originals,
+    # so it is trained like the baseline (the same data, without the copies).
+    return recipe is not None and recipe.copies > 0 and bool(recipe.transforms)
+
+
 def _train_one(unit):
-    """Train one model (one recipe, one repeat) and predict evaluation features.
+    """Train the linear proxy once (one recipe, one repeat) and predict evaluation features.
 
     ``unit`` holds the training records and their original feature rows, the
     recipe (``None`` for the baseline), a seed sequence, and the feature rows
@@ -165,31 +200,93 @@ def _train_one(unit):
     dict
         ``{"predictions": {split: labels}, "augmented": n augmented rows}``.
     """
-    (model, recipe, train_records, train_features, eval_features, size, seed_sequence) = unit
+    (scoring, recipe, train_records, train_features, eval_features, size, seed_sequence) = unit
+    model = scoring.template
     model_seq, draws_seq = seed_sequence.spawn(2)
-    labels = np.array([r.label for r in train_records], dtype=object)
-    blocks, block_labels = [train_features], [labels]
-    augmented = 0
-    # A recipe without transforms adds only exact duplicates of the originals,
-    # so it is trained like the baseline (the same data, without the copies).
-    if recipe is not None and recipe.copies > 0 and recipe.transforms:
-        image_seqs = draws_seq.spawn(len(train_records))
-        for start in range(0, len(train_records), _CHUNK):
-            chunk = train_records[start:start + _CHUNK]
-            originals = load_images(chunk, size)
-            generators = [np.random.default_rng(seq) for seq in image_seqs[start:start + len(chunk)]]
-            batch, batch_labels = augment_batch(originals, recipe, generators, [r.label for r in chunk],
-                                                recipe.copies)
-            blocks.append(np.asarray(model.feature_fn(batch), dtype=np.float32))
-            block_labels.append(np.array(batch_labels, dtype=object))
-            augmented += len(batch_labels)
-            del batch, originals
+    blocks = [train_features]
+    block_labels = [np.array([r.label for r in train_records], dtype=object)]
+
+    def keep_features(batch, batch_labels):
+        blocks.append(np.asarray(model.feature_fn(batch), dtype=np.float32))
+        block_labels.append(np.array(batch_labels, dtype=object))
+
+    if _adds_draws(recipe):
+        _augmented_copies(train_records, recipe, draws_seq, size, keep_features)
     features = np.concatenate(blocks, axis=0)
     targets = np.concatenate(block_labels).astype(str)
     random_state = int(model_seq.generate_state(1)[0] % (2**31 - 1))
     predict = _fit(_new_model(model, random_state), features, targets)
     predictions = {split: (np.asarray(predict(F)).astype(str) if len(F) else np.zeros(0, dtype=str))
                    for split, F in eval_features.items()}
+    return {"predictions": predictions, "augmented": len(features) - len(train_records)}
+
+
+class _EpochDraws:
+    """One fresh draw of every training image through the recipe, each epoch.
+
+    Called by the network's training loop as ``draw(images, labels, rng)``;
+    each call spawns new per-image generators from the unit's seed sequence,
+    so epoch ``e`` of a repeat always sees the same draws.
+    """
+
+    def __init__(self, recipe, seed_sequence):
+        self.recipe, self.seed_sequence, self.count = recipe, seed_sequence, 0
+
+    def __call__(self, images, labels, rng):
+        generators = [np.random.default_rng(seq) for seq in self.seed_sequence.spawn(len(images))]
+        batch, new_labels = augment_batch(images, self.recipe, generators, list(labels), 1)
+        self.count += len(batch)
+        return batch, np.asarray(new_labels)
+
+
+def _load_originals(records, size):
+    """Original evaluation images, as they are: no recipe is in reach here."""
+    return load_images(records, size) if records else np.zeros((0, size, size, 3), dtype=np.uint8)
+
+
+def _train_on_images(unit):
+    """Run `_train_one_on_images` with one BLAS and OpenCV thread; see `_single_thread`."""
+    with _single_thread():
+        return _train_one_on_images(unit)
+
+
+def _train_one_on_images(unit):
+    """Train a model that learns from pixels (``cnn`` or the team's) once and predict evaluation images.
+
+    The network draws every training image afresh each epoch
+    (`_EpochDraws`); the team's function gets the originals plus the
+    recipe's ``copies`` draws, with integer labels indexing ``classes``.
+    Evaluation images are read from their records by `_load_originals` and
+    handed to ``predict`` only.
+
+    Returns
+    -------
+    dict
+        ``{"predictions": {split: labels}, "augmented": n augmented images trained on}``.
+    """
+    (scoring, recipe, train_records, classes, eval_records, size, seed_sequence) = unit
+    model_seq, draws_seq = seed_sequence.spawn(2)
+    images = load_images(train_records, size)
+    labels = np.array([r.label for r in train_records]).astype(str)
+    draw = None
+    if _adds_draws(recipe) and scoring.fresh_draws_each_epoch:
+        draw = _EpochDraws(recipe, draws_seq)
+    elif _adds_draws(recipe):
+        blocks, block_labels = [images], [labels]
+        _augmented_copies(train_records, recipe, draws_seq, size,
+                          lambda batch, batch_labels: (blocks.append(batch),
+                                                       block_labels.append(np.asarray(batch_labels).astype(str))))
+        images, labels = np.concatenate(blocks), np.concatenate(block_labels)
+    names = np.asarray(classes).astype(str)
+    if scoring.fresh_draws_each_epoch:
+        predictor, decode = scoring.train(images, labels, np.random.default_rng(model_seq), draw), np.asarray
+    else:  # the team's contract: integer labels indexing the sorted classes
+        targets = np.searchsorted(names, labels)
+        predictor = scoring.train(images, targets, np.random.default_rng(model_seq))
+        decode = names.__getitem__
+    predictions = {split: np.asarray(decode(predictor.predict(_load_originals(records, size)))).astype(str)
+                   for split, records in eval_records.items()}
+    augmented = draw.count if draw is not None else len(images) - len(train_records)
     return {"predictions": predictions, "augmented": augmented}
 
 
@@ -312,23 +409,23 @@ def _file_digest(*modules):
     return digest.hexdigest()
 
 
-def _settings_key(model, size, confirm_fraction, dataset):
+def _settings_key(scoring, size, confirm_fraction, dataset):
     """Key of everything besides data, seed and repeats that shapes a result."""
     import augplan.augment.transforms as transforms_module
     import sys
 
-    estimator = getattr(model, "estimator", None)
-    text = json.dumps({
-        "features": feature_settings_key(model.feature_fn, size),
-        "model": f"{type(model).__module__}.{type(model).__qualname__}",
-        "estimator": None if estimator is None else repr(estimator),
-        "confirm_fraction": confirm_fraction,
-        "split_seed": dataset.split_seed,
-        "val_from_train": dataset.val_from_train,
-        # An edit of the scoring, transform or model code invalidates old results.
-        "code": _file_digest(sys.modules[__name__], transforms_module, stats,
-                             sys.modules[type(model).__module__]),
-    }, sort_keys=True)
+    settings = {"model": scoring.settings(), "size": size, "confirm_fraction": confirm_fraction,
+                "split_seed": dataset.split_seed, "val_from_train": dataset.val_from_train}
+    code = [sys.modules[__name__], transforms_module, stats]
+    if scoring.uses_features:
+        settings["features"] = feature_settings_key(scoring.feature_fn, size)
+        code.append(sys.modules[type(scoring.template).__module__])
+    elif scoring.name == "cnn":
+        code.append(sys.modules["augplan.measure.convnet"])
+    # An edit of the scoring, transform or model code invalidates old results
+    # (the team's own code is theirs to version: its name is in the key).
+    settings["code"] = _file_digest(*code)
+    text = json.dumps(settings, sort_keys=True, default=repr)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:24]
 
 
@@ -336,24 +433,26 @@ def _settings_key(model, size, confirm_fraction, dataset):
 # The comparison
 
 
-def _compute(dataset, recipes, hashes, model, *, repeats, size, seed, workers, quiet, cache,
+def _compute(dataset, recipes, hashes, scoring, *, repeats, size, seed, workers, quiet, cache,
              splits):
     """Train every (recipe, repeat) and score; returns the ledger-shaped results."""
     classes = list(dataset.classes)
     train = dataset.split("train")
-    train_features = _featurize_originals(train, model.feature_fn, size, cache,
-                                          workers=workers, quiet=quiet)
-    eval_features = {name: _featurize_originals(records, model.feature_fn, size, cache,
-                                                workers=workers, quiet=quiet)
-                     for name, records in splits.items()}
     truth = {name: np.array([r.label for r in records]).astype(str) for name, records in splits.items()}
-
     arms = [(None, _BASELINE_KEY)] + [(recipe, int(h, 16)) for recipe, h in zip(recipes, hashes)]
-    units = [(model, recipe, train, train_features, eval_features, size,
-              _seed_sequence(seed, key, _PURPOSE_TRAIN, r))
+    if scoring.uses_features:
+        train_features = _featurize_originals(train, scoring.feature_fn, size, cache,
+                                              workers=workers, quiet=quiet)
+        eval_features = {name: _featurize_originals(records, scoring.feature_fn, size, cache,
+                                                    workers=workers, quiet=quiet)
+                         for name, records in splits.items()}
+        train_unit, shared = _train_and_predict, (train_features, eval_features)
+    else:
+        train_unit, shared = _train_on_images, (classes, splits)
+    units = [(scoring, recipe, train, *shared, size, _seed_sequence(seed, key, _PURPOSE_TRAIN, r))
              for recipe, key in arms for r in range(repeats)]
-    outputs = parallel_map(_train_and_predict, units, workers=workers,
-                           desc="training per recipe and repeat", quiet=quiet)
+    outputs = parallel_map(train_unit, units, workers=workers,
+                           desc=f"training the {scoring.name} model per recipe and repeat", quiet=quiet)
 
     def stacked(arm_index, split):
         rows = outputs[arm_index * repeats:(arm_index + 1) * repeats]
@@ -390,22 +489,58 @@ def _short(score):
     return {k: score[k] for k in keys if k in score}
 
 
-def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n_unlabelled_field,
+def gain_verdict(gain_ci):
+    """``gains``, ``no difference`` or ``loses``: where the 95% gain interval lies (`GAIN_RULE`)."""
+    low, high = gain_ci
+    return "gains" if low > 0 else "loses" if high < 0 else "no difference"
+
+
+def _field_gain(entry):
+    field = entry.get("field") or {}
+    return field.get("gain")
+
+
+def rank_key(entry):
+    """Sort key of a recipe row by `BEST_RULE`: validation gain, then the labelled field's gain."""
+    field_gain = _field_gain(entry)
+    return (entry["gain"], float("-inf") if field_gain is None else field_gain)
+
+
+def best_recipe(entries):
+    """The recipe row `BEST_RULE` calls best, or None when no recipe beat no augmentation.
+
+    Parameters
+    ----------
+    entries : sequence of dict
+        ``evaluate`` recipe rows (``name``, ``gain``, ``field``, ``n_transforms``).
+    """
+    def gains(entry):
+        values = [entry["gain"]] + ([] if _field_gain(entry) is None else [_field_gain(entry)])
+        return entry["n_transforms"] > 0 and min(values) >= 0 and max(values) > 0
+
+    return max((e for e in entries if gains(e)), key=rank_key, default=None)
+
+
+def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, seed, confirm_source, n_unlabelled_field,
               confirm_ignored, from_ledger):
     """Build the ``evaluate --json`` document from per-arm scores."""
     warnings = []
+    model = scoring.describe()
     p_holm = stats.holm([r["scores"]["val"]["p_value"] for r in results])
     entries = []
-    for result, adjusted in zip(results, p_holm):
+    for result, adjusted, count in zip(results, p_holm, n_transforms):
         val = result["scores"]["val"]
-        entry = {"name": result["name"], "recipe_hash": result["recipe_hash"]}
+        entry = {"name": result["name"], "recipe_hash": result["recipe_hash"], "n_transforms": count}
         entry.update({k: val[k] for k in ("accuracy", "accuracy_ci", "balanced_accuracy", "macro_f1",
                                           "per_class_recall", "repeat_accuracy", "gain", "gain_ci",
                                           "p_value")})
         entry["confusion"] = val.get("confusion")  # absent from results stored by older versions
         entry["p_holm"] = _round_p(adjusted)
         entry["per_class_gain"] = val["per_class_gain"]
-        entry["flagged"] = bool(val["gain_ci"][1] < 0)
+        entry["verdict"] = gain_verdict(val["gain_ci"])
+        # The linear proxy's gains are biased against augmentation: its sign
+        # alone never calls a recipe harmful (LINEAR_PROXY_NOTE).
+        entry["flagged"] = entry["verdict"] == "loses" and scoring.name != "linear"
         entry["augmented_training_images"] = result["augmented_training_images"]
         entry["confirm"] = None
         entry["field"] = _short(result["scores"]["field"]) if "field" in base_scores else None
@@ -419,7 +554,7 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
         confirm = {"source": confirm_source, "n_images": base_scores["confirm"]["n_images"],
                    "recipe": results[best]["name"], "baseline": _short(base_scores["confirm"]),
                    "recipe_scores": chosen,
-                   "note": "the recipe with the best validation gain and the baseline, scored once"}
+                   "note": "the recipe with the highest validation gain and the baseline, scored once"}
     elif len(results) > MANY_RECIPES_WARNING_LIMIT:
         warnings.append(
             f"{len(results)} recipes compared without a confirmation split: choosing among many "
@@ -450,9 +585,15 @@ def _assemble(dataset, base_scores, results, *, repeats, seed, confirm_source, n
     baseline = {k: base_val[k] for k in ("n_images", "accuracy", "accuracy_ci", "balanced_accuracy",
                                          "macro_f1", "per_class_recall", "repeat_accuracy")}
     baseline["confusion"] = base_val.get("confusion")
+    if model["note"]:
+        warnings.append(model["note"][0].upper() + model["note"][1:] + ".")
+    best = best_recipe(entries)
     return {
+        "model": model,
         "baseline": baseline,
         "recipes": entries,
+        "best": None if best is None else best["name"],
+        "best_rule": BEST_RULE,
         "scored_on": scored_on,
         "accuracy_interval": "95% Wilson interval over validation images (mean accuracy of the repeats)",
         "gain_test": GAIN_RULE,
@@ -495,17 +636,23 @@ def _scoring_splits(dataset, confirm_fraction, seed):
     return splits, confirm_source, confirm_ignored, len(field_records) - len(labelled_field)
 
 
-def _feature_cache(dataset, cache_dir, model, size):
-    """The cache of original images' features, beside the data (never inside it); ``cache_dir=False``: none."""
+def _feature_cache(dataset, cache_dir, scoring, size):
+    """The cache of original images' features, beside the data (never inside it); ``cache_dir=False``: none.
+
+    Only the linear proxy reads features: for the other models the cache
+    stores nothing (a folder given is still checked).
+    """
     root = Path(dataset.root).resolve()
     cache_root = None if cache_dir is False else (
         Path(cache_dir) if cache_dir is not None else default_cache_dir(root))
     if cache_root is not None:
         ensure_outside_data(cache_root, root, what="feature cache")
-    return FeatureCache(cache_root, feature_settings_key(model.feature_fn, size))
+    if not scoring.uses_features:
+        return FeatureCache(None, scoring.name)
+    return FeatureCache(cache_root, feature_settings_key(scoring.feature_fn, size))
 
 
-def _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys, splits, run):
+def _scores(dataset, recipes, hashes, scoring, ledger_path, ledger_keys, splits, run):
     """Baseline and recipe scores: from the ledger where it has them, trained for the rest.
 
     Returns the baseline scores, ``{recipe_hash: result}``, the ``(recipe,
@@ -521,8 +668,8 @@ def _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys, splits, r
     # Only the recipes the ledger lacks are trained; stored ones were scored
     # against the same deterministic baseline (same data, settings, seed,
     # repeats), so their results stand beside the new ones.
-    cache = _feature_cache(dataset, run["cache_dir"], model, run["size"])
-    base_scores, computed = _compute(dataset, [r for r, _ in missing], [h for _, h in missing], model,
+    cache = _feature_cache(dataset, run["cache_dir"], scoring, run["size"])
+    base_scores, computed = _compute(dataset, [r for r, _ in missing], [h for _, h in missing], scoring,
                                      repeats=run["repeats"], size=run["size"], seed=run["seed"],
                                      workers=run["workers"], quiet=run["quiet"], cache=cache, splits=splits)
     if ledger_path is not None:
@@ -555,9 +702,12 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     repeats : int, default 5
         Training repeats per recipe, each with fresh augmentation draws and
         a fresh model seed.
-    model : augplan.measure.model.FeatureModel, optional
-        Template of the model (its feature function and estimator); default
-        ``FeatureModel()``. Must be picklable when ``workers != 1``.
+    model : {'linear', 'cnn'} or str or FeatureModel, default 'linear'
+        The model each arm trains (`augplan.evaluate.models`): ``'linear'``,
+        the proxy; ``'cnn'``, a small convolutional network (the ``cnn``
+        extra); ``'module:callable'``, the team's own training function; a
+        `FeatureModel` is the linear proxy with that template (picklable when
+        ``workers != 1``). Every result names it.
     size : int, default 64
         Side images are downsized to (and augmented at).
     seed : int, default 0
@@ -601,26 +751,24 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     .. [2] S. Holm, Scandinavian Journal of Statistics 6(2), 65-70, 1979.
     """
     recipes = _check_inputs(dataset, recipes, repeats, size, seed, workers, confirm_fraction)
-    if model is None:
-        from augplan.measure.model import FeatureModel
-
-        model = FeatureModel()
+    scoring = scoring_model(model)
     repeats, size, seed = int(repeats), int(size), int(seed)
 
     splits, confirm_source, confirm_ignored, n_unlabelled = _scoring_splits(dataset, confirm_fraction, seed)
 
     hashes = [recipe_hash(r) for r in recipes]
     data_key = fingerprint(dataset)
-    settings_key = _settings_key(model, size, confirm_fraction, dataset)
+    settings_key = _settings_key(scoring, size, confirm_fraction, dataset)
     ledger_keys = dict(fingerprint=data_key, settings_key=settings_key, seed=seed, repeats=repeats)
-    assemble = dict(repeats=repeats, seed=seed, confirm_source=confirm_source,
+    assemble = dict(scoring=scoring, repeats=repeats, seed=seed, confirm_source=confirm_source,
                     n_unlabelled_field=n_unlabelled, confirm_ignored=confirm_ignored)
 
-    base_scores, stored, missing, damaged = _scores(dataset, recipes, hashes, model, ledger_path, ledger_keys,
+    base_scores, stored, missing, damaged = _scores(dataset, recipes, hashes, scoring, ledger_path, ledger_keys,
                                                     splits, dict(repeats=repeats, size=size, seed=seed,
                                                                  workers=workers, quiet=quiet, cache_dir=cache_dir))
     results = [stored[h] for h in hashes]
-    document = _assemble(dataset, base_scores, results, from_ledger=not missing, **assemble)
+    document = _assemble(dataset, base_scores, results, n_transforms=[len(r.transforms) for r in recipes],
+                         from_ledger=not missing, **assemble)
     if damaged:
         document["warnings"].append(f"{len(damaged)} damaged feature-cache entries (for example "
                                     f"{damaged[0]}) were recomputed and rewritten.")
@@ -628,9 +776,9 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
                                       if h not in {m for _, m in missing}]
 
     if ledger_path is not None:
-        best = max(document["recipes"], key=lambda e: e["gain"])
+        best = best_recipe(document["recipes"])
         _ledger.record_run(ledger_path, data_root=dataset.root,
-                           recipe_names=[r.name for r in recipes], best_recipe=best["name"],
-                           best_gain=best["gain"], from_ledger=document["from_ledger"],
+                           recipe_names=[r.name for r in recipes], best_recipe=best and best["name"],
+                           best_gain=best and best["gain"], from_ledger=document["from_ledger"],
                            details=_run_summary(document), **ledger_keys)
     return EvaluateResult.from_json(document)

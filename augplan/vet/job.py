@@ -21,7 +21,8 @@ from augplan.coverage.coverage import analyse_coverage
 from augplan.data.dataset import find_duplicates, fingerprint
 from augplan.errors import BadInputError
 from augplan.workspace import ensure_outside_data
-from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate.evaluate import BEST_RULE, best_recipe, evaluate_recipes, rank_key
+from augplan.evaluate.models import scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
 from augplan.recipe.parse import recipe_hash, recipe_to_dict
@@ -182,21 +183,6 @@ def _stage(quiet, text):
         print(f"augplan vet: {text}", file=sys.stderr, flush=True)
 
 
-def _field_gain(score):
-    field = score.get("field") or {}
-    return field.get("gain") if field.get("gain") is not None else float("-inf")
-
-
-RANKING_RULE = ("recipes are ranked by their validation gain over no augmentation; a tie (a saturated "
-                "validation split scores every recipe alike) goes to the larger gain on the labelled field "
-                "sample; the recommendation is the highest-ranked vetted recipe.")
-
-
-def _rank_key(score):
-    """Order of the leaderboard and of the recommendation (see `RANKING_RULE`)."""
-    return (score["gain"], _field_gain(score))
-
-
 def _class_counts(dataset):
     counts = {label: dict.fromkeys(("train", "val", "test", "field"), 0) for label in dataset.classes}
     for record in dataset.records:
@@ -227,21 +213,37 @@ def _gain_text(block):
     return f"{block['gain']:+.2f} [95% CI {low:+.2f}, {high:+.2f}]"
 
 
-def _verdict_sentence(recipe_entries, evaluation, best):
-    """The report's first line: what to use, how much it gains, what augplan changed."""
-    field = best.get("field") or {}
+def _model_phrase(model):
+    return "the linear proxy" if model["name"] == "linear" else f"the {model['name']} model"
+
+
+def _verdict_sentence(recipe_entries, evaluation, best, top):
+    """The report's first line: what to use, how much it gains, what augplan changed.
+
+    ``best`` is the score row `BEST_RULE` picks (None when no recipe beat no
+    augmentation); ``top`` is the highest-ranked vetted row, whose figures
+    are quoted either way.
+    """
+    model = evaluation["model"]
+    row = best if best is not None else top
+    field = row.get("field") or {}
     has_field = field.get("gain") is not None
-    helps = best["gain_ci"][0] > 0 or (has_field and field["gain_ci"][0] > 0)
-    loses = best["gain_ci"][1] < 0 and not (has_field and field["gain_ci"][0] > 0)
-    if loses:
-        lead = f"No recipe beats no augmentation; the least harmful is {best['name']}"
-    elif helps:
-        lead = f"Use {best['name']}"
+    if best is None:
+        where = "validation or the labelled field sample" if has_field else "validation"
+        lead = f"No recipe beat no augmentation on {where}, scored with {_model_phrase(model)}"
+        if model["name"] == "linear":
+            lead += (" (whose gains are biased against augmentation: this is not evidence of harm; its order "
+                     f"puts {top['name']} first; score with --model cnn before deciding)")
+        else:
+            lead += f"; the highest-ranked is {top['name']}"
+    elif best["gain_ci"][0] > 0 or (has_field and field["gain_ci"][0] > 0):
+        lead = f"Use {best['name']} (scored with {_model_phrase(model)})"
     else:
-        lead = f"No recipe shows a clear gain; the best is {best['name']}"
+        lead = (f"No recipe shows a clear gain; {best['name']} gains most, scored with {_model_phrase(model)}, "
+                "and its interval spans zero")
     scores = (f"gain over no augmentation {_gain_text(field)} on the labelled field sample and "
-              f"{_gain_text(best)} on validation" if has_field
-              else f"validation gain over no augmentation {_gain_text(best)}")
+              f"{_gain_text(row)} on validation" if has_field
+              else f"validation gain over no augmentation {_gain_text(row)}")
     accuracy = evaluation["baseline"].get("accuracy")
     if accuracy is not None and accuracy >= 0.99:
         scores += f", which is saturated ({accuracy:.0%} without augmentation)"
@@ -262,7 +264,7 @@ def _verdict_sentence(recipe_entries, evaluation, best):
 
 
 def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5, sample=None, seed=0,
-                workers=1, quiet=True, ledger_path=None, cache_dir=None, replace=False):
+                workers=1, quiet=True, ledger_path=None, cache_dir=None, replace=False, model=None):
     """Vet recipes end to end and write the report, vetted recipes and evidence.
 
     Parameters
@@ -279,17 +281,23 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         Indices of unverified transforms a person approved (applies to every recipe).
     repeats, sample, seed, workers, quiet, ledger_path, cache_dir
         Passed to the check, coverage and evaluation steps.
+    model : str, optional
+        The model recipes are scored with (`augplan.evaluate.evaluate_recipes`'s
+        ``model``): ``'linear'`` (default), ``'cnn'`` or ``'module:callable'``.
+        The label-safety check always uses the linear proxy.
 
     Returns
     -------
     augplan.results.VetResult
         ``verdict``, ``report``, ``vetted_recipe``, ``evidence``, ``unchanged``,
-        ``best``, ``changes`` and ``signoff``: ``changes`` lists per recipe what
+        ``best``, ``changes`` and ``signoff``: ``best`` and ``vetted_recipe``
+        are None when no recipe beat no augmentation (`BEST_RULE`); ``changes`` lists per recipe what
         vetting did to each transform (``action`` keep, relabel, scope, clip or
         remove); ``signoff`` lists the transforms a person must approve, each
         with its evidence sheet.
     """
     ensure_outside_data(out_dir, dataset.root)
+    scoring = scoring_model(model)  # a bad --model fails before the long steps
     out_dir = prepare_output(out_dir, force=force, replace=replace)
     for recipe in recipes:
         if recipe.source is not None and _inside(Path(recipe.source), out_dir):
@@ -308,13 +316,15 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         _stage(quiet, "scoring every recipe and its vetted form against no augmentation")
         to_score = list(recipes) + [v for v, e in zip(vetted_recipes, entries) if not e["vetted"]["unchanged"]]
         evaluation = evaluate_recipes(dataset, to_score, repeats=repeats, seed=seed, workers=workers,
-                                      quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir)
+                                      quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir, model=scoring)
         scores = {row["name"]: row for row in evaluation["recipes"]}
         for entry, vetted in zip(entries, vetted_recipes):
             entry["vetted"]["score"] = scores[vetted.name]
-        ranking = [row["name"] for row in sorted(evaluation["recipes"], key=_rank_key, reverse=True)]
+        ranking = [row["name"] for row in sorted(evaluation["recipes"], key=rank_key, reverse=True)]
         by_vetted_name = {entry["vetted"]["name"]: entry for entry in entries}
-        best_entry = next(by_vetted_name[name] for name in ranking if name in by_vetted_name)
+        top_entry = next(by_vetted_name[name] for name in ranking if name in by_vetted_name)
+        best_row = best_recipe([row for row in evaluation["recipes"] if row["name"] in by_vetted_name])
+        best_entry = None if best_row is None else by_vetted_name[best_row["name"]]
 
         header = {"augplan_version": __version__, "created": creation_date(), "data_fingerprint": fingerprint(dataset)}
         documents = {f"vetted-{entry['name']}.yaml": vetted_text(vetted, _vetted_evidence(entry, vetted, evaluation,
@@ -322,8 +332,9 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                                                                                           dataset.classes),
                                                                      changes=entry["vetted"]["changes"])
                      for entry, vetted in zip(entries, vetted_recipes)}
-        documents["vetted-recipe.yaml"] = documents[f"vetted-{best_entry['name']}.yaml"]
-        verdict = _verdict_sentence(entries, evaluation, best_entry["vetted"]["score"])
+        if best_entry is not None:
+            documents["vetted-recipe.yaml"] = documents[f"vetted-{best_entry['name']}.yaml"]
+        verdict = _verdict_sentence(entries, evaluation, best_row, top_entry["vetted"]["score"])
         figures = _collect_figures(entries)
         evidence_document = _evidence_document(dataset, entries, evaluation, best_entry, verdict, header, seed,
                                                ranking)
@@ -332,8 +343,10 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         _publish(_output_files(documents, figures, evidence_document, html), out_dir, replace=replace)
 
     return VetResult(verdict=verdict, report=str(out_dir / "report.html"),
-                     vetted_recipe=str(out_dir / "vetted-recipe.yaml"), evidence=str(out_dir / "evidence.json"),
-                     unchanged=all(entry["vetted"]["unchanged"] for entry in entries), best=best_entry["name"],
+                     vetted_recipe=None if best_entry is None else str(out_dir / "vetted-recipe.yaml"),
+                     evidence=str(out_dir / "evidence.json"),
+                     unchanged=all(entry["vetted"]["unchanged"] for entry in entries),
+                     best=None if best_entry is None else best_entry["name"], model=evaluation["model"]["name"],
                      changes=[{"recipe": entry["name"], "vetted": entry["vetted"]["name"],
                                "unchanged": entry["vetted"]["unchanged"], "transforms": entry["vetted"]["changes"]}
                               for entry in entries],
@@ -383,7 +396,8 @@ def _vetted_evidence(entry, vetted, evaluation, header, seed, classes):
                      for t in entry["check"]["transforms"]],
         "changes": [f"{c['index']} {c['op']}: {c['action']}" + (f" ({c['detail']})" if c["detail"] else "")
                     for c in entry["vetted"]["changes"]],
-        "validation": {"scored_on": evaluation["scored_on"], "gain": score["gain"],
+        "validation": {"scored_with": evaluation["model"]["name"], "scored_on": evaluation["scored_on"],
+                       "gain": score["gain"],
                        "gain_ci": score["gain_ci"], "p_holm": score["p_holm"],
                        "repeats": evaluation["repeats"]},
         "seeds": {"analysis": seed, "recipe": vetted.seed},
@@ -409,8 +423,9 @@ def _evidence_document(dataset, entries, evaluation, best_entry, verdict, header
                  "class_counts": _class_counts(dataset),
                  "val_from_train": dataset.val_from_train, "split_seed": dataset.split_seed,
                  "skipped": [list(item) for item in dataset.skipped], "leaks": find_duplicates(dataset)},
-        "recipes": entries, "evaluation": evaluation.to_json(), "best": best_entry["name"],
-        "ranking": ranking, "ranking_rule": RANKING_RULE,
+        "recipes": entries, "evaluation": evaluation.to_json(),
+        "best": None if best_entry is None else best_entry["name"],
+        "ranking": ranking, "ranking_rule": BEST_RULE,
         "cautions": list(CAUTIONS), "seed": seed,
     }
 

@@ -1,0 +1,224 @@
+"""The models a recipe can be scored with: ``linear``, ``cnn`` or the team's own.
+
+`scoring_model(spec)` turns the ``--model`` choice into one of three
+picklable descriptions, each with a ``name`` (which every result carries)
+and a ``settings()`` mapping (part of the results ledger's key):
+
+``linear``
+    `LinearProxy`: the feature model of `augplan.measure.model` (image
+    features, a standardised logistic regression). Fast, and its features
+    of the originals are cached. Trained on the originals plus the recipe's
+    ``copies`` draws of each. Its gains are biased against augmentation (a
+    linear model on fixed features cannot absorb the extra variety that a
+    network learns from), so its *order* of recipes is its evidence, not
+    the sign of a gain.
+``cnn``
+    `ConvNet`: `augplan.measure.convnet.ConvNetClassifier`, a small
+    convolutional network trained with torch on the CPU (the ``cnn``
+    extra). Every epoch draws every training image afresh through the
+    recipe, as the training team's loader does; ``copies`` does not apply.
+``module:callable``
+    `TeamTrainer`: the team's own training function, imported by name. See
+    `TeamTrainer` for its contract.
+
+Every model is scored on original validation images only (see
+`augplan.evaluate.evaluate`).
+"""
+
+import importlib
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from augplan.errors import BadInputError
+
+__all__ = ["LinearProxy", "ConvNet", "TeamTrainer", "scoring_model", "MODEL_CHOICES", "LINEAR_PROXY_NOTE"]
+
+MODEL_CHOICES = "linear (default), cnn, or module:callable"
+
+LINEAR_PROXY_NOTE = ("scored with the linear proxy, whose gains are biased against augmentation: its order of "
+                     "recipes is the evidence, not the sign of a gain; score with --model cnn (or your own "
+                     "training function) before calling a recipe harmful")
+
+_CALLABLE_SPEC = re.compile(r"^[A-Za-z_][\w.]*:[A-Za-z_]\w*$")
+
+
+@dataclass(frozen=True)
+class LinearProxy:
+    """The linear proxy: `augplan.measure.model.FeatureModel` on image features.
+
+    Parameters
+    ----------
+    template : FeatureModel, optional
+        The feature function and estimator to clone; default ``FeatureModel()``.
+    """
+
+    template: object = None
+    name: str = field(default="linear", init=False)
+    uses_features = True
+    fresh_draws_each_epoch = False
+
+    def __post_init__(self):
+        if self.template is None:
+            from augplan.measure.model import FeatureModel
+
+            object.__setattr__(self, "template", FeatureModel())
+
+    @property
+    def feature_fn(self):
+        return self.template.feature_fn
+
+    def settings(self):
+        estimator = getattr(self.template, "estimator", None)
+        return {"name": self.name,
+                "model": f"{type(self.template).__module__}.{type(self.template).__qualname__}",
+                "estimator": None if estimator is None else repr(estimator)}
+
+    def describe(self):
+        return {"name": self.name,
+                "description": "image features and a standardised logistic regression (the linear proxy)",
+                "note": LINEAR_PROXY_NOTE}
+
+
+@dataclass(frozen=True)
+class ConvNet:
+    """The small convolutional network (`augplan.measure.convnet.ConvNetClassifier`).
+
+    Parameters
+    ----------
+    params : dict, optional
+        Constructor parameters of `ConvNetClassifier`; default its defaults.
+    """
+
+    params: tuple = ()
+    name: str = field(default="cnn", init=False)
+    uses_features = False
+    fresh_draws_each_epoch = True
+
+    def __post_init__(self):
+        try:
+            import augplan.measure.convnet  # noqa: F401  (fail here, not in a worker)
+        except ImportError as error:
+            raise BadInputError(f"--model cnn needs PyTorch: pip install 'augplan[cnn]' ({error})") from None
+
+    def build(self):
+        from augplan.measure.convnet import ConvNetClassifier
+
+        return ConvNetClassifier(**dict(self.params))
+
+    def train(self, images, labels, rng, draw):
+        return self.build().fit(images, labels, rng, draw=draw)
+
+    def settings(self):
+        return {"name": self.name, **self.build().get_params()}
+
+    def describe(self):
+        params = self.build().get_params()
+        return {"name": self.name,
+                "description": (f"a small convolutional network (torch, CPU): widths {list(params['widths'])}, "
+                                f"{params['epochs']} epochs (at least {params['min_steps']} steps), AdamW at "
+                                f"{params['learning_rate']:g}; fresh draws of every image each epoch"),
+                "note": None}
+
+
+@dataclass(frozen=True)
+class TeamTrainer:
+    """The team's own training function, ``module:callable``.
+
+    Contract: ``callable(images, labels, rng)`` receives the training set as
+    augplan made it (the originals plus the recipe's ``copies`` draws of
+    each) as a uint8 array ``(N, H, W, 3)``, integer labels ``(N,)`` that
+    index the data's sorted class names, and a `numpy.random.Generator`
+    (its only source of randomness, for a result that repeats); it returns
+    an object whose ``predict(images)`` gives one integer label per image
+    of a uint8 batch. augplan calls ``predict`` on original validation
+    images only.
+    """
+
+    spec: str
+    uses_features = False
+    fresh_draws_each_epoch = False
+
+    def __post_init__(self):
+        self.function()  # a bad name fails here, with the flag's name
+
+    @property
+    def name(self):
+        return self.spec
+
+    def function(self):
+        module_name, _, attribute = self.spec.partition(":")
+        try:
+            module = importlib.import_module(module_name)
+        except Exception as error:  # the team's module may raise anything on import
+            raise BadInputError(f"--model {self.spec}: cannot import module {module_name!r} "
+                                f"({type(error).__name__}: {error})") from None
+        function = getattr(module, attribute, None)
+        if not callable(function):
+            raise BadInputError(f"--model {self.spec}: module {module_name!r} has no callable {attribute!r}")
+        return function
+
+    def train(self, images, labels, rng, draw=None):
+        trained = self.function()(images, labels, rng)
+        if not callable(getattr(trained, "predict", None)):
+            raise BadInputError(f"--model {self.spec}: the training function must return an object with "
+                                f"predict(images); got {type(trained).__name__}")
+        return _CheckedPredictor(trained, self.spec, int(labels.max()) + 1 if len(labels) else 0)
+
+    def settings(self):
+        return {"name": self.spec}
+
+    def describe(self):
+        return {"name": self.spec, "description": f"the team's training function {self.spec}", "note": None}
+
+
+class _CheckedPredictor:
+    """The team's predictor, its answers checked: one integer class index per image."""
+
+    def __init__(self, predictor, spec, n_classes):
+        self.predictor, self.spec, self.n_classes = predictor, spec, n_classes
+
+    def predict(self, images):
+        predicted = np.asarray(self.predictor.predict(images))
+        if (predicted.shape != (len(images),) or not np.issubdtype(predicted.dtype, np.integer)
+                or (predicted.size and (predicted.min() < 0 or predicted.max() >= self.n_classes))):
+            raise BadInputError(f"--model {self.spec}: predict must return one integer class index in "
+                                f"[0, {self.n_classes}) per image; got {predicted.dtype} {predicted.shape}")
+        return predicted
+
+
+def scoring_model(spec=None):
+    """The scoring model for a ``--model`` choice.
+
+    Parameters
+    ----------
+    spec : str, FeatureModel, LinearProxy, ConvNet, TeamTrainer or None
+        ``"linear"`` (and None), ``"cnn"``, ``"module:callable"``; a
+        `FeatureModel` is the linear proxy with that template.
+
+    Returns
+    -------
+    LinearProxy, ConvNet or TeamTrainer
+
+    Raises
+    ------
+    BadInputError
+        An unknown name, a callable that cannot be imported, or torch missing
+        for ``cnn``.
+    """
+    if isinstance(spec, (LinearProxy, ConvNet, TeamTrainer)):
+        return spec
+    if spec is None or spec == "linear":
+        return LinearProxy()
+    if spec == "cnn":
+        return ConvNet()
+    if isinstance(spec, str):
+        if not _CALLABLE_SPEC.match(spec):
+            raise BadInputError(f"--model must be {MODEL_CHOICES}; got {spec!r}")
+        return TeamTrainer(spec)
+    from augplan.measure.model import FeatureModel
+
+    if isinstance(spec, FeatureModel):
+        return LinearProxy(spec)
+    raise BadInputError(f"model must be {MODEL_CHOICES}, or a FeatureModel; got {type(spec).__name__}")
