@@ -456,7 +456,11 @@ def _say_vetted(console, args, summary):
     for item in summary.get("signoff") or []:
         console.say(f"sign-off needed: {item['recipe']} transform {item['index']} ({item['op']}): {item['detail']}")
     console.say(f"report: {summary.report}")
-    console.say(f"vetted recipe: {summary.vetted_recipe}")
+    if summary.vetted_recipe is not None:
+        console.say(f"vetted recipe: {summary.vetted_recipe}")
+    else:
+        console.say("no vetted-recipe.yaml: no recipe beat no augmentation (each recipe's vetted-NAME.yaml "
+                    "is written beside the report)")
 
 
 def _run_verify(args, console):

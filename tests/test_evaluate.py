@@ -325,3 +325,38 @@ def test_confusion_matrices_agree_with_recall_and_accuracy(comparison):
             recall = counts[position, position] / counts[position].sum()
             assert recall == pytest.approx(block["per_class_recall"][label], abs=1e-6)  # rounded to 6 places
         assert np.trace(counts) / counts.sum() == pytest.approx(block["accuracy"], abs=1e-6)
+
+
+def _row(name, gain, n_transforms=2, field_gain=None):
+    row = {"name": name, "gain": gain, "n_transforms": n_transforms}
+    if field_gain is not None:
+        row["field"] = {"gain": field_gain}
+    return row
+
+
+@pytest.mark.parametrize("rows, best", [
+    ([_row("a", -0.015), _row("b", -0.039)], None),
+    ([_row("a", -0.015), _row("emptied", 0.0, n_transforms=0)], None),
+    ([_row("a", 0.0), _row("b", 0.0)], None),
+    ([_row("a", 0.01), _row("b", 0.03), _row("emptied", 0.05, n_transforms=0)], "b"),
+    ([_row("a", 0.0, field_gain=0.29), _row("b", 0.0, field_gain=0.1)], "a"),
+    ([_row("a", 0.02, field_gain=-0.05), _row("b", 0.01, field_gain=0.0)], "b"),
+], ids=["all-negative", "emptied-at-zero", "all-zero", "largest-gain", "field-breaks-tie",
+        "no-gain-below-zero"])
+def test_best_is_never_a_recipe_below_zero_nor_an_empty_one(rows, best):
+    from augplan.evaluate.evaluate import best_recipe
+
+    chosen = best_recipe(rows)
+    assert (None if chosen is None else chosen["name"]) == best
+
+
+def test_history_records_no_best_when_no_recipe_gains(digits_data, cache_dir, tmp_path):
+    from augplan.render.text import history_table
+
+    ledger_path = tmp_path / "ledger.sqlite"
+    document = evaluate_recipes(digits_data, [FLIPS], repeats=1, size=SIZE, cache_dir=cache_dir,
+                                ledger_path=ledger_path)
+    assert document["recipes"][0]["gain"] < 0 and document["best"] is None
+    row = ledger.history(ledger_path)["evaluations"][-1]
+    assert row["best_recipe"] is None
+    assert "none gained" in history_table([row])

@@ -85,17 +85,12 @@ def test_command_leaves_data_untouched(space, command):
     assert _snapshot(space) == before
 
 
-# vet.py is still being finished: its _collect_figures reads coverage "plots" as a
-# mapping while analyse_coverage returns a list (internal error, exit 3). Remove
-# this marker once vet runs end to end.
-
-
 def test_vet_leaves_data_untouched(space):
     code, err, before, after = _vet_once(space)
     assert "Traceback" not in err
     assert code in (0, 1), err
     assert (space.out / "vet" / "report.html").is_file()
-    assert (space.out / "vet" / "vetted-recipe.yaml").is_file()
+    assert (space.out / "vet" / "vetted-tiny.yaml").is_file()
     assert after == before
 
 
@@ -103,7 +98,7 @@ def test_verify_leaves_data_untouched(space):
     code, err, _, _ = _vet_once(space)
     assert code in (0, 1), err
     before = _snapshot(space)
-    code, out, err = _run(["verify", space.out / "vet" / "vetted-recipe.yaml", "--data", space.data])
+    code, out, err = _run(["verify", space.out / "vet" / "vetted-tiny.yaml", "--data", space.data])
     assert "Traceback" not in err
     assert code == 0, out + err  # same data as at vetting, checksum intact
     assert _snapshot(space) == before
@@ -201,7 +196,7 @@ def test_manifest_form_runs_every_command_outside_the_data(manifest_space, comma
     assert "Traceback" not in err
     assert code in (0, 1), err
     if command == "verify":
-        code, out, err = _run(["verify", space.out / "vet-verify" / "vetted-recipe.yaml", "--data", space.manifest])
+        code, out, err = _run(["verify", space.out / "vet-verify" / "vetted-tiny.yaml", "--data", space.manifest])
         assert code == 0, out + err
     assert _snapshot(space) == before
     # The ledger and cache default to .augplan/ beside the manifest's folder.

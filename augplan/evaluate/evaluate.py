@@ -681,8 +681,8 @@ def _scores(dataset, recipes, hashes, scoring, ledger_path, ledger_keys, splits,
 def _run_summary(document):
     """What the ledger keeps of one comparison for ``augplan history RUN``."""
     keys = ("name", "recipe_hash", "accuracy", "accuracy_ci", "gain", "gain_ci", "p_value", "p_holm",
-            "flagged", "field")
-    return {"scored_on": document["scored_on"],
+            "verdict", "flagged", "field")
+    return {"model": document["model"]["name"], "scored_on": document["scored_on"],
             "baseline": {k: document["baseline"][k] for k in ("n_images", "accuracy", "accuracy_ci")},
             "recipes": [{k: row.get(k) for k in keys} for row in document["recipes"]],
             "warnings": list(document["warnings"])}

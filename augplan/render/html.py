@@ -743,6 +743,8 @@ def _leaderboard(evidence):
             flags.append("vetted")
         if row.get("flagged"):
             flags.append("loses accuracy")
+        elif row.get("verdict") == "loses":
+            flags.append("lower on the linear proxy")
         pair = _pair(row.get("gain_ci"))
         if pair and pair[0] > 0 and not row.get("flagged"):
             flags.append("gain above zero")
@@ -753,6 +755,11 @@ def _leaderboard(evidence):
                      _ci_text(row_field.get("gain"), row_field.get("gain_ci")),
                      _e(", ".join(flags)) or _DASH])
         row_classes.append("best" if row.get("name") == best_name else "")
+    model = evaluation.get("model") or {}
+    if model:
+        note = f" {model['note'][0].upper()}{model['note'][1:]}." if model.get("note") else ""
+        out.append(f'<p class="note">Scored with the <strong>{_e(model.get("name"))}</strong> model: '
+                   f'{_e(model.get("description"))}.{_e(note)}</p>')
     rule = evidence.get("ranking_rule")
     if rule:
         out.append(f'<p class="note">Ordered by the rule that makes the recommendation: {_e(rule)}</p>')

@@ -170,16 +170,28 @@ def leaderboard_table(result):
     """The leaderboard of an ``evaluate`` result, baseline first, then other sources."""
     base = result["baseline"]
     rows = [["baseline", f"{base['accuracy']:.2f} {format_interval(*base['accuracy_ci'])}", "-", "-", ""]]
+    model = result.get("model") or {"name": "linear"}
     for r in sorted(result["recipes"], key=lambda r: -r["gain"]):
         rows.append([r["name"], f"{r['accuracy']:.2f} {format_interval(*r['accuracy_ci'])}",
                      f"{r['gain']:+.2f} {_signed_interval(*r['gain_ci'])}", f"{r['p_holm']:.2g}",
-                     "LOSES" if r["flagged"] else ""])
-    head = (f"scored on {result['scored_on']} ({base.get('n_images', '?')} original images), "
-            f"{result['repeats']} repeats per recipe")
-    parts = [head, format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]", "Holm p", "status"], rows)]
+                     _verdict_text(r, model["name"])])
+    head = (f"scored with the {model['name']} model on {result['scored_on']} "
+            f"({base.get('n_images', '?')} original images), {result['repeats']} repeats per recipe")
+    parts = [head, format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]", "Holm p", "verdict"], rows)]
     parts += _source_table(result, "confirm")
     parts += _source_table(result, "field")
+    if "best" in result:
+        parts.append(f"best: {result['best']}" if result["best"] else
+                     f"best: none (no recipe beat no augmentation, by the {model['name']} model)")
     return "\n".join(parts)
+
+
+def _verdict_text(row, model_name):
+    """The verdict column: the gain interval's word; the linear proxy's loss is not called harm."""
+    verdict = row.get("verdict", "")
+    if verdict == "loses":
+        return "LOSES" if row["flagged"] else "lower (proxy)" if model_name == "linear" else "loses"
+    return verdict
 
 
 def history_table(rows):
@@ -187,8 +199,9 @@ def history_table(rows):
     if not rows:
         return "no evaluations in the ledger yet"
     table = [[row.get("run", "-"), row["date"][:16], row["fingerprint"], len(row["recipes"]), row["repeats"],
-              row["best_recipe"] or "-",
-              "-" if row["best_gain"] is None else f"{row['best_gain']:+.3f}",
+              # Runs recorded before the best rule may hold a best whose gain is not above zero.
+              row["best_recipe"] if row["best_gain"] is not None and row["best_gain"] > 0 else "none gained",
+              "-" if row["best_gain"] is None or row["best_gain"] <= 0 else f"{row['best_gain']:+.3f}",
               "ledger" if row["from_ledger"] else ""]
              for row in rows]
     return format_table(["run", "date", "data", "recipes", "reps", "best recipe", "gain", "reused"], table)
@@ -213,15 +226,17 @@ def run_table(entry):
         lines.append("  this run was recorded without its scores; recipes: " + ", ".join(entry["recipes"]))
         return "\n".join(lines)
     baseline = details["baseline"]
-    lines.append(f"  scored on {details['scored_on']} ({baseline['n_images']} images); no augmentation: "
+    model = details.get("model", "linear")  # runs recorded before --model were all the linear proxy's
+    lines.append(f"  scored with the {model} model on {details['scored_on']} ({baseline['n_images']} images); "
+                 "no augmentation: "
                  f"accuracy {baseline['accuracy']:.3f} " + format_interval(*baseline["accuracy_ci"], digits=3))
     rows = []
     for row in details["recipes"]:
         field = row.get("field") or {}
         rows.append([row["name"], f"{row['accuracy']:.3f}", _gain_text(row),
                      "-" if row.get("p_holm") is None else f"{row['p_holm']:.3g}",
-                     _gain_text(field) if field else "-", "loses" if row.get("flagged") else ""])
-    lines.append(format_table(["recipe", "accuracy", "gain [95% CI]", "p (Holm)", "field gain", "flag"], rows,
+                     _gain_text(field) if field else "-", _verdict_text(row, model)])
+    lines.append(format_table(["recipe", "accuracy", "gain [95% CI]", "p (Holm)", "field gain", "verdict"], rows,
                               max_cell=26))
     lines.extend(wrap(f"warning: {text}") for text in details.get("warnings") or [])
     return "\n".join(lines)

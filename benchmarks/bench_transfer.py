@@ -1,0 +1,155 @@
+"""Do the proxy's gains carry over to a network? (a measurement, not a test)
+
+On two real data sets with overlapping classes, six recipes are scored three
+ways with `augplan.evaluate.evaluate_recipes`:
+
+- ``linear``: the linear proxy (3 repeats);
+- ``cnn``: the small network with its documented defaults (3 repeats);
+- ``reference``: the same network trained twice as long (``epochs`` and
+  ``min_steps`` doubled), with 6 repeats: the long-trained run the others
+  are held against.
+
+Data:
+
+- scikit-learn's digits (UCI optdigits), written as 32x32 PNGs: 50 training
+  images per class, the other 1,297 for validation;
+- the committed Fashion-MNIST subset (tests/data/, see its README): 100
+  training images per class from the training file, the 50 per class from
+  the t10k file for validation, at 32x32.
+
+Printed per data set: the three gain tables, the Spearman rank correlation
+of the gains between each pair (`scipy.stats.spearmanr`), and two
+agreements with the reference: of the point gain's sign, and of the verdict
+(``gains`` / ``no difference`` / ``loses``, where the 95% interval lies).
+Target: the ``cnn`` column's signs agree with the reference on at least 5
+of the 6 recipes.
+
+Run: ``.venv/bin/python benchmarks/bench_transfer.py [--workers 2] [--data digits fashion]``.
+It takes about half an hour on 2 cores.
+"""
+
+import argparse
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+from PIL import Image
+from scipy.stats import spearmanr
+
+from augplan.data.dataset import open_dataset
+from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate.models import ConvNet
+from augplan.measure.convnet import ConvNetClassifier
+from augplan.recipe.parse import Recipe, Transform
+
+SIZE = 32
+FASHION = Path(__file__).resolve().parents[1] / "tests" / "data" / "fashion-mnist-subset.npz"
+
+RECIPES = [
+    Recipe(name="flip-h", transforms=(Transform("flip", {"axis": "horizontal"}, probability=0.5),)),
+    Recipe(name="small-affine", transforms=(Transform("rotate", {"degrees": (-10.0, 10.0)}),
+                                            Transform("shift", {"fraction": (-0.08, 0.08)}))),
+    Recipe(name="zoom", transforms=(Transform("zoom", {"factor": (0.9, 1.1)}),)),
+    Recipe(name="lighting", transforms=(Transform("brightness", {"factor": (0.8, 1.25)}),
+                                        Transform("contrast", {"factor": (0.8, 1.25)}))),
+    Recipe(name="blur-noise", transforms=(Transform("blur", {"sigma": (0.0, 0.8)}),
+                                          Transform("noise", {"sigma": (0.0, 0.03)}))),
+    Recipe(name="rotate-45", transforms=(Transform("rotate", {"degrees": (-45.0, 45.0)}),)),
+]
+
+
+def _save(image, folder, name):
+    folder.mkdir(parents=True, exist_ok=True)
+    Image.fromarray(image).resize((SIZE, SIZE), Image.Resampling.BILINEAR).convert("RGB").save(folder / name)
+
+
+def write_digits(root, per_class=50):
+    from sklearn.datasets import load_digits
+
+    digits = load_digits()
+    order = np.random.default_rng(0).permutation(len(digits.target))
+    taken = dict.fromkeys(range(10), 0)
+    for index in order:
+        label = int(digits.target[index])
+        split = "train" if taken[label] < per_class else "val"
+        taken[label] += 1
+        # 0..16 ink levels -> white paper, dark ink.
+        _save((255 - digits.images[index] * (255 / 16)).astype(np.uint8), root / split / f"d{label}",
+              f"{index}.png")
+    return open_dataset(root)
+
+
+def write_fashion(root):
+    with np.load(FASHION) as arrays:
+        names = [str(n).replace("/", "-").replace(" ", "-").lower() for n in arrays["class_names"]]
+        for split, key in (("train", "train"), ("val", "test")):
+            for index, (image, label) in enumerate(zip(arrays[f"{key}_images"], arrays[f"{key}_labels"])):
+                _save(image, root / split / names[label], f"{index:04d}.png")
+    return open_dataset(root)
+
+
+def _models():
+    defaults = ConvNetClassifier().get_params()
+    longer = (("epochs", 2 * defaults["epochs"]), ("min_steps", 2 * defaults["min_steps"]))
+    return {"linear": ("linear", 3), "cnn": ("cnn", 3), "reference": (ConvNet(params=longer), 6)}
+
+
+def _verdict(row):
+    low, high = row["gain_ci"]
+    return "+" if low > 0 else "-" if high < 0 else "0"
+
+
+def _table(name, document):
+    base = document["baseline"]
+    lines = [f"  {name}: baseline accuracy {base['accuracy']:.3f} [{base['accuracy_ci'][0]:.3f}, "
+             f"{base['accuracy_ci'][1]:.3f}]"]
+    for row in document["recipes"]:
+        lines.append(f"    {row['name']:<14} gain {row['gain']:+.4f} [{row['gain_ci'][0]:+.4f}, "
+                     f"{row['gain_ci'][1]:+.4f}]  p_holm {row['p_holm']:.3g}  {row['verdict']}")
+    return "\n".join(lines)
+
+
+def compare(documents):
+    """Spearman correlations and agreements with the reference, as printable lines."""
+    gains = {name: np.array([row["gain"] for row in doc["recipes"]]) for name, doc in documents.items()}
+    verdicts = {name: [_verdict(row) for row in doc["recipes"]] for name, doc in documents.items()}
+    lines = []
+    for a, b in (("linear", "cnn"), ("linear", "reference"), ("cnn", "reference")):
+        rho = spearmanr(gains[a], gains[b]).statistic
+        signs = int(np.sum(np.sign(gains[a]) == np.sign(gains[b])))
+        agree = sum(x == y for x, y in zip(verdicts[a], verdicts[b]))
+        lines.append(f"  {a} vs {b}: Spearman {rho:+.2f}; point-gain signs agree on {signs} of {len(gains[a])}; "
+                     f"verdicts agree on {agree} of {len(gains[a])}")
+    target = int(np.sum(np.sign(gains["cnn"]) == np.sign(gains["reference"])))
+    lines.append(f"  target (cnn signs agree with the reference on >= 5 of 6): "
+                 f"{'met' if target >= 5 else 'NOT met'} ({target} of {len(gains['cnn'])})")
+    return lines
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--data", nargs="+", choices=("digits", "fashion"), default=["digits", "fashion"])
+    args = parser.parse_args(argv)
+    writers = {"digits": write_digits, "fashion": write_fashion}
+    for data_name in args.data:
+        with tempfile.TemporaryDirectory() as scratch:
+            dataset = writers[data_name](Path(scratch) / "DATA")
+            counts = {s: len(dataset.split(s)) for s in ("train", "val")}
+            print(f"{data_name}: {counts['train']} training and {counts['val']} validation images at "
+                  f"{SIZE}x{SIZE}, {len(RECIPES)} recipes", flush=True)
+            documents = {}
+            for name, (model, repeats) in _models().items():
+                start = time.perf_counter()
+                documents[name] = evaluate_recipes(dataset, RECIPES, repeats=repeats, size=SIZE, seed=0,
+                                                   workers=args.workers, cache_dir=False, model=model)
+                print(_table(f"{name} ({repeats} repeats, {time.perf_counter() - start:.0f} s)", documents[name]),
+                      flush=True)
+            print("\n".join(compare(documents)), flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
