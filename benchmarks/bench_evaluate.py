@@ -33,27 +33,27 @@ SIZE = 64
 CLASSES = 10
 
 
-def _synthetic_image(label, rng):
+def _synthetic_image(label, rng, size=SIZE):
     """A class-coded bar (angle by class) on a noisy, randomly lit background."""
-    y, x = np.mgrid[0:SIZE, 0:SIZE] / (SIZE - 1) - 0.5
+    y, x = np.mgrid[0:size, 0:size] / (size - 1) - 0.5
     angle = np.pi * label / CLASSES + rng.normal(0, 0.08)
     offset = rng.normal(0, 0.05)
     distance = np.abs(x * np.sin(angle) - y * np.cos(angle) - offset)
     bar = (distance < 0.06 + 0.01 * rng.random()).astype(np.float32)
-    background = rng.uniform(0.2, 0.6) + rng.normal(0, 0.05, (SIZE, SIZE))
+    background = rng.uniform(0.2, 0.6) + rng.normal(0, 0.05, (size, size))
     tint = rng.uniform(0.8, 1.2, 3)
     image = (background[..., None] * tint + bar[..., None] * 0.4) * 255
     return np.clip(image, 0, 255).astype(np.uint8)
 
 
-def write_dataset(root, n_train, n_val, seed=0):
+def write_dataset(root, n_train, n_val, seed=0, size=SIZE):
     rng = np.random.default_rng(seed)
     for split, total in (("train", n_train), ("val", n_val)):
         for index in range(total):
             label = index % CLASSES
             folder = root / split / f"c{label}"
             folder.mkdir(parents=True, exist_ok=True)
-            Image.fromarray(_synthetic_image(label, rng)).save(folder / f"{index:05d}.png")
+            Image.fromarray(_synthetic_image(label, rng, size)).save(folder / f"{index:05d}.png")
     return open_dataset(root)
 
 

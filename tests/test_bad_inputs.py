@@ -475,6 +475,13 @@ def _seed_for(command, value):
     return build
 
 
+def _model_for(command, value):
+    def build(ctx):
+        extra = ["-o", ctx.tmp / "v"] if command == "vet" else []
+        return [command, ctx.data, "--recipe", ctx.recipe, *extra, "--model", value]
+    return build
+
+
 def _ledger_inside_data(command):
     def build(ctx):
         extra = ["-o", ctx.tmp / "vetted"] if command == "vet" else []
@@ -614,6 +621,12 @@ CASES = [
     *[pytest.param(_seed_for(command, value), ERROR, ["--seed", value], id=f"{command}-seed-{label}")
       for command in ("preview", "check", "coverage", "evaluate", "draft", "vet")
       for value, label in (("-1", "negative"), (str(2**70), "2-to-the-70"))],
+    *[pytest.param(_model_for(command, value), ERROR, ["--model", *needles], id=f"{command}-model-{label}")
+      for command in ("evaluate", "vet")
+      for value, label, needles in (("svm", "unknown", ["'svm'", "linear (default), cnn, or module:callable"]),
+                                    ("no_such_team_module:fit", "missing-module", ["cannot import module"]),
+                                    ("team_training:returns_no_predictor", "no-predictor",
+                                     ["must return an object with predict"]))],
     pytest.param(lambda c: ["draft", c.data, "-o", c.tmp / "d.yaml", "--name", "a/b"], ERROR,
                  ["--name", "file name", "a/b"], id="draft-name-not-file-safe"),
     pytest.param(_unknown_command, ERROR, ["frobnicate", "invalid choice"], id="unknown-command"),

@@ -97,13 +97,14 @@ def test_check_json_same_on_cluster(cluster, recipe, tmp_path):
     assert json.loads(out)["transforms"]
 
 
-def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path):
-    local_code, local_out, local_err = _evaluate(tmp_path / "local", recipe)
+@pytest.mark.parametrize("model", ["linear", "cnn"])
+def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path, model):
+    local_code, local_out, local_err = _evaluate(tmp_path / "local", recipe, "--model", model)
     assert local_code in (0, 1), local_err
     document = json.loads(local_out)
-    assert document["from_ledger"] is False
+    assert document["from_ledger"] is False and document["model"]["name"] == model
     assert min(document["recipes"][0]["repeat_accuracy"]) < 1.0  # the comparison is not trivially equal
-    code, out, err = _evaluate(tmp_path / "cluster", recipe, "--cluster", cluster.scheduler_address)
+    code, out, err = _evaluate(tmp_path / "cluster", recipe, "--model", model, "--cluster", cluster.scheduler_address)
     assert (code, out) == (local_code, local_out), err
 
 

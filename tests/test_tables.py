@@ -15,10 +15,11 @@ CHECK = {
                     "suggestion": {"only": [LONG, LONG + "-3"]}, "note": "a person must look"}],
 }
 EVALUATION = {
+    "model": {"name": "cnn", "description": "a small network", "note": None},
     "scored_on": "val", "repeats": 5,
     "baseline": {"n_images": 75, "accuracy": 1.0, "accuracy_ci": [0.951, 1.0]},
     "recipes": [{"name": LONG, "accuracy": 0.867, "accuracy_ci": [0.77, 0.93], "gain": -0.133,
-                 "gain_ci": [-0.207, -0.067], "p_holm": 3.8e-6, "flagged": True,
+                 "gain_ci": [-0.207, -0.067], "p_holm": 3.8e-6, "verdict": "loses", "flagged": True,
                  "field": {"accuracy": 0.57, "accuracy_ci": [0.46, 0.66], "gain": -0.13,
                            "gain_ci": [-0.22, -0.05]}}],
     "field": {"n_images": 90, "baseline": {"accuracy": 0.7, "accuracy_ci": [0.6, 0.78]}},
@@ -46,6 +47,17 @@ def test_leaderboard_flags_a_losing_recipe_and_shows_the_field():
     assert "a-rather-long-class-n\u2026" in text  # long names are cut, not the flags
 
 
+def test_leaderboard_names_its_model_and_never_calls_a_proxy_loss_harm():
+    linear = {**EVALUATION, "model": {"name": "linear", "description": "proxy", "note": "biased"},
+              "recipes": [{**EVALUATION["recipes"][0], "flagged": False}], "best": None}
+    text = leaderboard_table(linear)
+    assert text.startswith("scored with the linear proxy on val")
+    assert "no augmentation: accuracy 1.00 [0.95, 1.00]" in text
+    assert "lower (proxy)" in text and "LOSES" not in text
+    assert "best: none (no recipe beat no augmentation, by the linear proxy)" in text
+    assert leaderboard_table(EVALUATION).startswith("scored with the cnn model on val")
+
+
 def test_cells_are_aligned_under_their_header():
     text = format_table(["a", "bb"], [["x", "y"], ["long", "z"]])
     header, rule, *rows = text.splitlines()
@@ -63,11 +75,11 @@ def test_history_table_fits_and_marks_reused_results():
     from augplan.render.text import history_table
 
     rows = [{"date": "2026-12-01 22:33:10", "fingerprint": "053b80240e6f", "data": "/a/very/long/path" * 5,
-             "recipes": ["cautious", "naive-draft"], "best_recipe": "cautious", "best_gain": 0.0,
+             "recipes": ["cautious", "naive-draft"], "best_recipe": "cautious", "best_gain": 0.031,
              "seed": 0, "repeats": 2, "from_ledger": True}]
     text = history_table(rows)
     assert max(len(line) for line in text.splitlines()) <= 80
-    assert "ledger" in text.splitlines()[-1] and "+0.000" in text
+    assert "ledger" in text.splitlines()[-1] and "cautious" in text and "+0.031" in text
     assert history_table([]) == "no evaluations in the ledger yet"
 
 
@@ -96,3 +108,14 @@ def test_angle_ranges_print_on_their_circle(name, low, high, expected):
     from augplan.render.text import factor_range
 
     assert factor_range(name, low, high) == expected
+
+
+@pytest.mark.parametrize("gain", [0.0, -0.015], ids=["zero", "negative"])
+def test_history_never_calls_a_recipe_without_a_gain_best(gain):
+    # Runs recorded before the best rule stored the largest gain, even below zero.
+    from augplan.render.text import history_table
+
+    row = {"date": "2026-12-01 22:33:10", "fingerprint": "053b80240e6f", "recipes": ["a", "b"],
+           "best_recipe": "a", "best_gain": gain, "seed": 0, "repeats": 2, "from_ledger": False}
+    last = history_table([row]).splitlines()[-1]
+    assert "none gained" in last and " a " not in last

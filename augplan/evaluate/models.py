@@ -33,7 +33,7 @@ import numpy as np
 
 from augplan.errors import BadInputError
 
-__all__ = ["LinearProxy", "ConvNet", "TeamTrainer", "scoring_model", "MODEL_CHOICES", "LINEAR_PROXY_NOTE"]
+__all__ = ["LinearProxy", "ConvNet", "TeamTrainer", "scoring_model", "model_phrase", "MODEL_CHOICES", "LINEAR_PROXY_NOTE"]
 
 MODEL_CHOICES = "linear (default), cnn, or module:callable"
 
@@ -186,6 +186,11 @@ class _CheckedPredictor:
             raise BadInputError(f"--model {self.spec}: predict must return one integer class index in "
                                 f"[0, {self.n_classes}) per image; got {predicted.dtype} {predicted.shape}")
         return predicted
+
+
+def model_phrase(name):
+    """How outputs name a scoring model: ``the linear proxy``, ``the cnn model``, ``the model pkg:fit``."""
+    return "the linear proxy" if name == "linear" else f"the {name} model" if name == "cnn" else f"the model {name}"
 
 
 def scoring_model(spec=None):

@@ -2,6 +2,7 @@
 
 import textwrap
 
+from augplan.evaluate.models import model_phrase
 from augplan.measure.factors import FACTORS
 from augplan.results import range_text
 
@@ -169,20 +170,21 @@ def _source_table(result, source):
 def leaderboard_table(result):
     """The leaderboard of an ``evaluate`` result, baseline first, then other sources."""
     base = result["baseline"]
-    rows = [["baseline", f"{base['accuracy']:.2f} {format_interval(*base['accuracy_ci'])}", "-", "-", ""]]
     model = result.get("model") or {"name": "linear"}
-    for r in sorted(result["recipes"], key=lambda r: -r["gain"]):
-        rows.append([r["name"], f"{r['accuracy']:.2f} {format_interval(*r['accuracy_ci'])}",
-                     f"{r['gain']:+.2f} {_signed_interval(*r['gain_ci'])}", f"{r['p_holm']:.2g}",
-                     _verdict_text(r, model["name"])])
-    head = (f"scored with the {model['name']} model on {result['scored_on']} "
-            f"({base.get('n_images', '?')} original images), {result['repeats']} repeats per recipe")
-    parts = [head, format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]", "Holm p", "verdict"], rows)]
+    # Recipe accuracies without their intervals (the gain carries the
+    # interval that matters), so the verdict fits 80 columns.
+    rows = [[r["name"], f"{r['accuracy']:.2f}", f"{r['gain']:+.2f} {_signed_interval(*r['gain_ci'])}",
+             f"{r['p_holm']:.2g}", _verdict_text(r, model["name"])]
+            for r in sorted(result["recipes"], key=lambda r: -r["gain"])]
+    head = wrap(f"scored with {model_phrase(model['name'])} on {result['scored_on']} "
+                f"({base.get('n_images', '?')} original images), {result['repeats']} repeats per recipe; "
+                f"no augmentation: accuracy {base['accuracy']:.2f} {format_interval(*base['accuracy_ci'])}")
+    parts = [head, format_table(["recipe", "accuracy", "gain [95% CI]", "Holm p", "verdict"], rows)]
     parts += _source_table(result, "confirm")
     parts += _source_table(result, "field")
     if "best" in result:
         parts.append(f"best: {result['best']}" if result["best"] else
-                     f"best: none (no recipe beat no augmentation, by the {model['name']} model)")
+                     f"best: none (no recipe beat no augmentation, by {model_phrase(model['name'])})")
     return "\n".join(parts)
 
 
@@ -227,7 +229,7 @@ def run_table(entry):
         return "\n".join(lines)
     baseline = details["baseline"]
     model = details.get("model", "linear")  # runs recorded before --model were all the linear proxy's
-    lines.append(f"  scored with the {model} model on {details['scored_on']} ({baseline['n_images']} images); "
+    lines.append(f"  scored with {model_phrase(model)} on {details['scored_on']} ({baseline['n_images']} images); "
                  "no augmentation: "
                  f"accuracy {baseline['accuracy']:.3f} " + format_interval(*baseline["accuracy_ci"], digits=3))
     rows = []

@@ -22,7 +22,7 @@ from augplan.data.dataset import find_duplicates, fingerprint
 from augplan.errors import BadInputError
 from augplan.workspace import ensure_outside_data
 from augplan.evaluate.evaluate import BEST_RULE, best_recipe, evaluate_recipes, rank_key
-from augplan.evaluate.models import scoring_model
+from augplan.evaluate.models import model_phrase, scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
 from augplan.recipe.parse import recipe_hash, recipe_to_dict
@@ -213,10 +213,6 @@ def _gain_text(block):
     return f"{block['gain']:+.2f} [95% CI {low:+.2f}, {high:+.2f}]"
 
 
-def _model_phrase(model):
-    return "the linear proxy" if model["name"] == "linear" else f"the {model['name']} model"
-
-
 def _verdict_sentence(recipe_entries, evaluation, best, top):
     """The report's first line: what to use, how much it gains, what augplan changed.
 
@@ -225,21 +221,22 @@ def _verdict_sentence(recipe_entries, evaluation, best, top):
     are quoted either way.
     """
     model = evaluation["model"]
+    phrase = model_phrase(model["name"])
     row = best if best is not None else top
     field = row.get("field") or {}
     has_field = field.get("gain") is not None
     if best is None:
         where = "validation or the labelled field sample" if has_field else "validation"
-        lead = f"No recipe beat no augmentation on {where}, scored with {_model_phrase(model)}"
+        lead = f"No recipe beat no augmentation on {where}, scored with {phrase}"
         if model["name"] == "linear":
             lead += (" (whose gains are biased against augmentation: this is not evidence of harm; its order "
                      f"puts {top['name']} first; score with --model cnn before deciding)")
         else:
             lead += f"; the highest-ranked is {top['name']}"
     elif best["gain_ci"][0] > 0 or (has_field and field["gain_ci"][0] > 0):
-        lead = f"Use {best['name']} (scored with {_model_phrase(model)})"
+        lead = f"Use {best['name']} (scored with {phrase})"
     else:
-        lead = (f"No recipe shows a clear gain; {best['name']} gains most, scored with {_model_phrase(model)}, "
+        lead = (f"No recipe shows a clear gain; {best['name']} gains most, scored with {phrase}, "
                 "and its interval spans zero")
     scores = (f"gain over no augmentation {_gain_text(field)} on the labelled field sample and "
               f"{_gain_text(row)} on validation" if has_field
