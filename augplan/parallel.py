@@ -19,6 +19,7 @@ import contextlib
 import functools
 import re
 import sys
+import warnings
 from collections import deque
 from dataclasses import dataclass
 
@@ -168,8 +169,15 @@ def parallel_map(function, items, *, workers=1, desc="working", quiet=True):
     from joblib import Parallel, delayed
 
     runner = Parallel(n_jobs=workers, return_as="generator")
-    results = runner(delayed(_call_plain)(function, item) for item in items)
-    return list(progress(results, desc=desc, total=len(items), quiet=quiet))
+    with warnings.catch_warnings():
+        # joblib's process pool replaces a worker whose memory grew by more
+        # than a fixed amount since it started, warning each time; a worker
+        # that loaded torch for the cnn model always has. Work units are pure
+        # functions of their arguments, so a replaced worker changes no result.
+        warnings.filterwarnings("ignore", message="A worker stopped while some jobs were given",
+                                category=UserWarning)
+        results = runner(delayed(_call_plain)(function, item) for item in items)
+        return list(progress(results, desc=desc, total=len(items), quiet=quiet))
 
 
 # ------------------------------------------------------------------ Dask

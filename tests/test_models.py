@@ -159,3 +159,14 @@ def test_the_network_gives_the_same_json_for_one_seed_across_worker_counts(digit
                                          workers=workers, cache_dir=False, model=SMALL_CNN), sort_keys=True)
              for workers in (1, 2)]
     assert texts[0] == texts[1]
+
+
+def test_an_edited_team_module_is_not_served_from_the_ledger(tmp_path, monkeypatch):
+    # The ledger's key carries the module's bytes (hashlib's sha256 as the reference).
+    module = tmp_path / "edited_team.py"
+    module.write_text("def fit(images, labels, rng):\n    return None\n", encoding="utf-8")
+    monkeypatch.syspath_prepend(str(tmp_path))
+    before = scoring_model("edited_team:fit").settings()
+    assert before["module_sha256"] == hashlib.sha256(module.read_bytes()).hexdigest()
+    module.write_text("def fit(images, labels, rng):\n    return 1\n", encoding="utf-8")
+    assert scoring_model("edited_team:fit").settings() != before

@@ -11,6 +11,7 @@ from pathlib import Path
 import jsonschema
 import numpy as np
 import pytest
+import yaml
 
 import augplan
 from augplan.cli import main
@@ -293,3 +294,21 @@ def test_history_run_shows_the_vet_runs_scores(vetted, capsys):
     assert "naive-draft-vetted" in text and "no augmentation" in text
     assert main(["history", "99", "--ledger", str(ledger)]) == 2
     assert "no run 99" in capsys.readouterr().err
+
+
+def test_vet_with_the_teams_model_names_it_everywhere(tiny_dataset, tiny_recipe, tmp_path, run_cli):
+    out = tmp_path / "out"
+    result = run_cli("vet", tiny_dataset, "--recipe", tiny_recipe, "-o", out, "--repeats", "1", "--sample", "3",
+                     "--model", "team_training:fit_nearest_mean", "--quiet", "--json", "--ledger",
+                     tmp_path / "ledger.sqlite")
+    assert result.code in (0, 1), result.err
+    summary = json.loads(result.out)
+    assert summary["model"] == "team_training:fit_nearest_mean"
+    evidence = json.loads((out / "evidence.json").read_text())
+    assert evidence["evaluation"]["model"]["name"] == "team_training:fit_nearest_mean"
+    assert "scored with the model team_training:fit_nearest_mean" in summary["verdict"]
+    vetted = yaml.safe_load((out / "vetted-tiny.yaml").read_text(encoding="utf-8"))
+    assert vetted["evidence"]["validation"]["scored_with"] == "team_training:fit_nearest_mean"
+    assert "team_training:fit_nearest_mean" in (out / "report.html").read_text(encoding="utf-8")
+    # vetted-recipe.yaml exists exactly when a recipe beat no augmentation.
+    assert (out / "vetted-recipe.yaml").is_file() == (summary["best"] is not None)

@@ -25,9 +25,11 @@ Every model is scored on original validation images only (see
 `augplan.evaluate.evaluate`).
 """
 
+import hashlib
 import importlib
 import re
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
@@ -167,7 +169,12 @@ class TeamTrainer:
         return _CheckedPredictor(trained, self.spec, int(labels.max()) + 1 if len(labels) else 0)
 
     def settings(self):
-        return {"name": self.spec}
+        # The module's bytes are in the results ledger's key, so an edited
+        # training function is trained afresh rather than served from the ledger.
+        module = importlib.import_module(self.spec.partition(":")[0])
+        path = getattr(module, "__file__", None)
+        digest = hashlib.sha256(Path(path).read_bytes()).hexdigest() if path else None
+        return {"name": self.spec, "module_sha256": digest}
 
     def describe(self):
         return {"name": self.spec, "description": f"the team's training function {self.spec}", "note": None}
