@@ -97,15 +97,30 @@ def test_check_json_same_on_cluster(cluster, recipe, tmp_path):
     assert json.loads(out)["transforms"]
 
 
-@pytest.mark.parametrize("model", ["linear", "cnn"])
-def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path, model):
-    local_code, local_out, local_err = _evaluate(tmp_path / "local", recipe, "--model", model)
+def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path):
+    local_code, local_out, local_err = _evaluate(tmp_path / "local", recipe)
     assert local_code in (0, 1), local_err
     document = json.loads(local_out)
-    assert document["from_ledger"] is False and document["model"]["name"] == model
+    assert document["from_ledger"] is False
     assert min(document["recipes"][0]["repeat_accuracy"]) < 1.0  # the comparison is not trivially equal
-    code, out, err = _evaluate(tmp_path / "cluster", recipe, "--model", model, "--cluster", cluster.scheduler_address)
+    code, out, err = _evaluate(tmp_path / "cluster", recipe, "--cluster", cluster.scheduler_address)
     assert (code, out) == (local_code, local_out), err
+
+
+def test_the_network_scores_the_same_on_cluster(cluster, recipe, tmp_path):
+    from augplan.data.dataset import open_dataset
+    from augplan.evaluate.evaluate import evaluate_recipes
+    from augplan.evaluate.models import ConvNet
+    from augplan.recipe.parse import read_recipe
+
+    # A short network: the point is the execution layer, not the network's accuracy.
+    model = ConvNet(params=(("widths", (4, 8)), ("epochs", 5), ("min_steps", 20)))
+    dataset = open_dataset(_fresh_data(tmp_path))
+    runs = [evaluate_recipes(dataset, [read_recipe(recipe)], repeats=2, seed=3, size=16, cache_dir=False,
+                             model=model, workers=workers)
+            for workers in (1, Cluster(cluster.scheduler_address))]
+    assert runs[0]["model"]["name"] == "cnn"
+    assert json.dumps(runs[0], sort_keys=True) == json.dumps(runs[1], sort_keys=True)
 
 
 def test_shipped_images_need_no_shared_folder(cluster, recipe, tmp_path):

@@ -155,8 +155,10 @@ def test_the_network_sees_fresh_draws_every_epoch(cnn_comparison):
 
 def test_the_network_gives_the_same_json_for_one_seed_across_worker_counts(digits_data):
     recipe = Recipe(name="affine-1", copies=1, transforms=SMALL_AFFINE.transforms)
+    # Shorter still: the point is the determinism, not the accuracy.
+    model = ConvNet(params=(("widths", (4, 8)), ("epochs", 3), ("min_steps", 10)))
     texts = [json.dumps(evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=5,
-                                         workers=workers, cache_dir=False, model=SMALL_CNN), sort_keys=True)
+                                         workers=workers, cache_dir=False, model=model), sort_keys=True)
              for workers in (1, 2)]
     assert texts[0] == texts[1]
 
