@@ -13,7 +13,6 @@ import time
 
 import numpy as np
 import pytest
-from PIL import Image
 
 import augplan.augment.transforms as transforms
 from augplan.evaluate import ledger
@@ -23,6 +22,7 @@ from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.measure.features import image_features
 from augplan.measure.model import FeatureModel
 from augplan.recipe.parse import Recipe, Transform
+from conftest import write_digits_dataset
 
 SIZE = 32
 PER_CLASS = {"train": 15, "val": 30, "field": 10}
@@ -37,29 +37,10 @@ SMALL_AFFINE = Recipe(name="small-affine", copies=4, transforms=(
 ))
 
 
-def _write_digits(root):
-    from sklearn.datasets import load_digits
-
-    digits = load_digits()
-    rng = np.random.default_rng(0)
-    for digit in range(10):
-        indices = rng.permutation(np.flatnonzero(digits.target == digit))
-        start = 0
-        for split, count in PER_CLASS.items():
-            folder = root / split / f"d{digit}"
-            folder.mkdir(parents=True)
-            for index in indices[start:start + count]:
-                # 0..16 ink levels -> white paper, dark ink, as on a scanned form.
-                grey = (255 - digits.images[index] * (255 / 16)).astype(np.uint8)
-                image = Image.fromarray(grey).resize((SIZE, SIZE), Image.Resampling.BILINEAR)
-                image.convert("RGB").save(folder / f"{index}.png")
-            start += count
-
-
 @pytest.fixture(scope="module")
 def digits_data(tmp_path_factory):
     root = tmp_path_factory.mktemp("digits") / "DATA"
-    _write_digits(root)
+    write_digits_dataset(root, PER_CLASS, size=SIZE)
     return open_dataset(root)
 
 
