@@ -123,12 +123,11 @@ def test_p_value_and_interval_agree_on_every_digits_recipe(comparison):
 
 
 def test_p_value_and_interval_agree_on_every_demo_recipe(tmp_path):
-    from augplan.demo import DEFAULT_DEMO_DIR, DEFAULT_RECIPE_DIR, DEMO_RECIPES
-    from augplan.recipe.parse import read_recipe
+    from augplan.demo import DEFAULT_DEMO_DIR, read_demo_recipes
 
     if not DEFAULT_DEMO_DIR.is_dir():
         pytest.skip("demo_images/ is not part of this installation")
-    recipes = [read_recipe(DEFAULT_RECIPE_DIR / name) for name in DEMO_RECIPES]
+    recipes = read_demo_recipes()
     document = evaluate_recipes(open_dataset(DEFAULT_DEMO_DIR), recipes, repeats=2, cache_dir=tmp_path)
     assert [e["name"] for e in document["recipes"]] == ["naive-draft", "cautious", "light-and-pose"]
     for entry in document["recipes"]:
