@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import colorsys
 import contextlib
+import importlib.resources
 import io
 import sys
 import tempfile
@@ -52,10 +53,13 @@ __all__ = [
     "CLASSES",
     "DEMO_SEED",
     "DEFAULT_DEMO_DIR",
+    "DEMO_RECIPE_DIR",
+    "DEMO_RECIPES",
     "SPLIT_CONDITIONS",
     "CaptureConditions",
     "render_tile",
     "make_demo_dataset",
+    "read_demo_recipes",
     "main",
 ]
 
@@ -290,8 +294,32 @@ def make_demo_dataset(root, *, seed=DEMO_SEED, n_train=36, n_val=15, n_field=18)
     return written
 
 
-DEFAULT_RECIPE_DIR = Path(__file__).resolve().parent.parent / "recipes"
+# The demo recipes ship inside the package (package data, see pyproject.toml),
+# so an installed augplan runs the demo without a checkout.
+DEMO_RECIPE_DIR = importlib.resources.files("augplan") / "demo_recipes"
 DEMO_RECIPES = ("naive-draft.yaml", "cautious.yaml", "light-and-pose.yaml")
+
+
+def read_demo_recipes():
+    """The demo recipes (`DEMO_RECIPES`), read from the package through `importlib.resources`.
+
+    Raises
+    ------
+    BadInputError
+        A recipe is missing from this installation (names it).
+    """
+    from augplan.errors import BadInputError
+    from augplan.recipe.parse import read_recipe
+
+    recipes = []
+    for name in DEMO_RECIPES:
+        resource = DEMO_RECIPE_DIR / name
+        if not resource.is_file():
+            raise BadInputError(f"the demo recipe {name} is missing from this installation of augplan "
+                                f"({DEMO_RECIPE_DIR}): reinstall the package")
+        with importlib.resources.as_file(resource) as path:
+            recipes.append(read_recipe(path))
+    return recipes
 
 
 def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
@@ -299,8 +327,8 @@ def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
 
     Uses the checkout's ``demo_images/`` when it is there; otherwise (an
     installed package) the scenario is drawn into a temporary folder first,
-    the same images `make_demo_dataset` always draws. The recipes come from
-    the checkout's ``recipes/``.
+    the same images `make_demo_dataset` always draws. The recipes ship in
+    the package (`read_demo_recipes`).
 
     Returns
     -------
@@ -308,16 +336,10 @@ def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
         The summary of `augplan.vet.vet_recipes`.
     """
     from augplan.data.dataset import open_dataset
-    from augplan.errors import BadInputError
-    from augplan.recipe.parse import read_recipe
     from augplan.vet.job import vet_recipes
     from augplan.workspace import default_ledger
 
-    paths = [DEFAULT_RECIPE_DIR / name for name in DEMO_RECIPES]
-    if not all(path.is_file() for path in paths):
-        raise BadInputError(f"the demo needs the recipes in {DEFAULT_RECIPE_DIR}; "
-                            "run it from a checkout of the augplan repository")
-    recipes = [read_recipe(path) for path in paths]
+    recipes = read_demo_recipes()
     # The demo keeps its ledger beside its output folder, as a data set keeps it beside the data.
     ledger = default_ledger(Path(out_dir).resolve())
     ledger.parent.mkdir(parents=True, exist_ok=True)

@@ -27,6 +27,8 @@ __all__ = [
     "COVERAGE_FLOOR",
     "NEAR_DUPLICATE_BITS",
     "NEAR_DUPLICATE_SSIM",
+    "NEAR_DUPLICATE_WINDOW",
+    "NEAR_DUPLICATE_LOCAL_DIFFERENCE",
     "MANY_RECIPES_WARNING_LIMIT",
     "MAX_FOLDS",
 ]
@@ -133,6 +135,22 @@ NEAR_DUPLICATE_BITS = 6
 # practice, no source; a noised JPEG copy of skimage's camera scores 0.997,
 # distinct drawn tiles of the demo at most 0.87).
 NEAR_DUPLICATE_SSIM = 0.9
+# SSIM alone passes distinct thin strokes on a plain background: the shared
+# background fills most windows, so two different handwritten 1s score up to
+# 0.95. A candidate must also show no patch drawn differently: after the
+# best gain-and-offset match of grey codes, the residual averaged over every
+# NEAR_DUPLICATE_WINDOW x NEAR_DUPLICATE_WINDOW window (of the 64 x 64 view:
+# wider than the thin lines that re-encoding and resampling leave along
+# edges, about one cell of an 8 x 8 digit) stays at most
+# NEAR_DUPLICATE_LOCAL_DIFFERENCE of the image's own range (max - min).
+# Chosen here, no source; measured on scikit-learn's digits (UCI optdigits,
+# 8 x 8 upscaled to 8-64 px, nearest/bilinear/bicubic, both polarities):
+# every distinct pair that passes the hash and SSIM scores at least 0.144,
+# while copies re-encoded as JPEG quality 90, resized by 2-4 % or brightened
+# by 5 % (gain or offset) score at most 0.085 for digits and 0.122 for
+# scikit-image's sample images (a 64 px silhouette resized).
+NEAR_DUPLICATE_WINDOW = 9
+NEAR_DUPLICATE_LOCAL_DIFFERENCE = 0.13
 
 # --- evaluation
 # More recipes than this compared on validation alone draws a warning that

@@ -47,6 +47,46 @@ def write_tiny_dataset(root, classes=TINY_CLASSES, train=5, val=3, side=16, seed
     return root
 
 
+def write_digits_dataset(root, per_class, *, size=32, resample=Image.Resampling.BILINEAR, ink="dark", seed=0):
+    """Write scikit-learn's digits as ``root/<split>/d<digit>/<index>.png`` and return ``root``.
+
+    The data: scikit-learn's bundled copy of the UCI optical recognition of
+    handwritten digits test set, 8 x 8 grey images with ink levels 0..16.
+
+    Parameters
+    ----------
+    per_class : dict
+        split -> images per class, taken in turn from one seeded permutation
+        of each class; ``None`` takes every image of the class left.
+    size : int
+        Side of the written RGB PNG; 8 keeps the original grid.
+    resample : PIL.Image.Resampling
+        Filter of the upscaling.
+    ink : {'dark', 'light'}
+        ``'dark'``: ``255 - v * 255 / 16``, dark ink on white paper, as on a
+        scanned form; ``'light'``: ``v * 255 / 16``, light ink on black.
+    """
+    from sklearn.datasets import load_digits
+
+    digits = load_digits()
+    rng = np.random.default_rng(seed)
+    root = Path(root)
+    for digit in range(10):
+        indices = rng.permutation(np.flatnonzero(digits.target == digit))
+        start = 0
+        for split, count in per_class.items():
+            stop = len(indices) if count is None else start + count
+            folder = root / split / f"d{digit}"
+            folder.mkdir(parents=True, exist_ok=True)
+            for index in indices[start:stop]:
+                levels = digits.images[index] * (255 / 16)
+                grey = (255 - levels if ink == "dark" else levels).astype(np.uint8)
+                image = Image.fromarray(grey).resize((size, size), resample)
+                image.convert("RGB").save(folder / f"{index}.png")
+            start = stop
+    return root
+
+
 @pytest.fixture
 def tiny_dataset(tmp_path):
     """``tmp_path/DATA``: 2 classes x (5 train + 3 val) images of 16x16."""

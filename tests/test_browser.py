@@ -15,7 +15,7 @@ import pytest
 
 from _chromium import Browser, find_chromium
 from augplan.cli import main
-from augplan.demo import DEFAULT_RECIPE_DIR, make_demo_dataset
+from augplan.demo import DEMO_RECIPE_DIR, make_demo_dataset
 
 CHROMIUM = find_chromium()
 pytestmark = pytest.mark.skipif(
@@ -36,7 +36,7 @@ def report(tmp_path_factory):
     arguments = ["vet", str(data), "-o", str(out), "--repeats", "1", "--quiet",
                  "--ledger", str(root / "ledger.sqlite")]
     for name in RECIPES:
-        arguments += ["--recipe", str(DEFAULT_RECIPE_DIR / f"{name}.yaml")]
+        arguments += ["--recipe", str(DEMO_RECIPE_DIR / f"{name}.yaml")]
     assert main(arguments) in (0, 1)
     return out / "report.html"
 

@@ -249,13 +249,13 @@ def test_demo_lighting_shortcut_is_shared_by_val_and_cleared_by_the_relighting_r
     # The demo scenario (augplan/demo.py) is invented ground truth: cracked
     # tiles photographed dim in train and val, every class under wide lighting
     # in the labelled field sample.
-    from augplan.demo import DEFAULT_RECIPE_DIR, make_demo_dataset
+    from augplan.demo import DEMO_RECIPE_DIR, make_demo_dataset
     from augplan.recipe.parse import read_recipe
 
     make_demo_dataset(tmp_path, n_train=16, n_val=8, n_field=10)
     dataset = open_dataset(tmp_path)
-    cautious = coverage.analyse_coverage(dataset, read_recipe(DEFAULT_RECIPE_DIR / "cautious.yaml"))
-    relit = coverage.analyse_coverage(dataset, read_recipe(DEFAULT_RECIPE_DIR / "light-and-pose.yaml"))
+    cautious = coverage.analyse_coverage(dataset, read_recipe(DEMO_RECIPE_DIR / "cautious.yaml"))
+    relit = coverage.analyse_coverage(dataset, read_recipe(DEMO_RECIPE_DIR / "light-and-pose.yaml"))
     row = _row(cautious, "brightness")
     assert row["flagged"] and row["class"] == "hairline-crack" and row["val_shares"] and row["persists"]
     assert "brightness" in cautious["val_shares_shortcut"]

@@ -168,17 +168,11 @@ def test_committed_demo_images_match_the_generator(tmp_path):
                 assert path.read_bytes() == (shipped / split / label / path.name).read_bytes()
 
 
-RECIPES = demo.DEFAULT_DEMO_DIR.parent / "recipes"
-
-
 @pytest.mark.parametrize("name", ["naive-draft", "cautious", "light-and-pose"])
 def test_demo_recipes_parse(name):
     from augplan.recipe.parse import read_recipe
 
-    path = RECIPES / f"{name}.yaml"
-    if not path.is_file():
-        pytest.skip("recipes/ is not part of this installation")
-    recipe = read_recipe(path)
+    recipe = read_recipe(demo.DEMO_RECIPE_DIR / f"{name}.yaml")
     assert recipe.name == name
     ops = [t.op for t in recipe.transforms]
     if name == "naive-draft":
@@ -216,3 +210,50 @@ def test_demo_runs_without_the_checkout_images_and_exits_like_vet(tmp_path, monk
     assert code == 1
     assert (tmp_path / "out" / "report.html").is_file()
     assert drawn and not drawn[0].exists()  # the temporary scenario is gone
+
+
+def test_installed_wheel_runs_the_demo_outside_the_checkout(tmp_path):
+    # A wheel built from a copy of the checkout's sources, installed into a
+    # folder of its own and run from a third: no demo_images/, no checkout on
+    # the path, and the recipes must come from the package data.
+    import json as json_module
+    import os
+    import shutil
+    import subprocess
+    import sys
+    import zipfile
+
+    pytest.importorskip("setuptools")  # the wheel is built without build isolation, offline
+    checkout = Path(__file__).resolve().parent.parent
+    source = tmp_path / "source"
+    source.mkdir()
+    for name in ("pyproject.toml", "README.md"):
+        shutil.copy(checkout / name, source / name)
+    shutil.copytree(checkout / "augplan", source / "augplan", ignore=shutil.ignore_patterns("__pycache__"))
+    pip = [sys.executable, "-m", "pip", "--disable-pip-version-check", "--no-input"]
+    built = subprocess.run(pip + ["wheel", "--no-deps", "--no-build-isolation", "--no-index", "-w",
+                                  str(tmp_path / "wheels"), str(source)], capture_output=True, text=True)
+    assert built.returncode == 0, built.stderr
+    (wheel,) = (tmp_path / "wheels").glob("augplan-*.whl")
+    listed = zipfile.ZipFile(wheel).namelist()
+    assert all(f"augplan/demo_recipes/{name}" in listed for name in demo.DEMO_RECIPES), listed
+
+    target = tmp_path / "installed"
+    installed = subprocess.run(pip + ["install", "--no-deps", "--no-index", "--target", str(target), str(wheel)],
+                               capture_output=True, text=True)
+    assert installed.returncode == 0, installed.stderr
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    # The installed copy comes first on the path; the dependencies come from this environment.
+    environment = {**os.environ, "PYTHONPATH": str(target)}
+    run = subprocess.run([str(target / "bin" / "augplan"), "demo", "-o", str(tmp_path / "out"), "--quiet"],
+                         cwd=elsewhere, env=environment, capture_output=True, text=True, timeout=900)
+    assert run.returncode in (0, 1), run.stderr  # vet's exit codes: 1 when vetting changed a recipe
+    assert (tmp_path / "out" / "report.html").is_file()
+    evidence = json_module.loads((tmp_path / "out" / "evidence.json").read_text(encoding="utf-8"))
+    recipe_folder = target / "augplan" / "demo_recipes"
+    assert [Path(entry["source"]) for entry in evidence["recipes"]] == [recipe_folder / name
+                                                                        for name in demo.DEMO_RECIPES]
+    # The scenario was drawn for the run, not read from the checkout.
+    assert not Path(evidence["data"]["root"]).is_relative_to(checkout)
+    assert not Path(evidence["data"]["root"]).exists()

@@ -13,7 +13,6 @@ import time
 
 import numpy as np
 import pytest
-from PIL import Image
 
 import augplan.augment.transforms as transforms
 from augplan.evaluate import ledger
@@ -23,6 +22,7 @@ from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.measure.features import image_features
 from augplan.measure.model import FeatureModel
 from augplan.recipe.parse import Recipe, Transform
+from conftest import write_digits_dataset
 
 SIZE = 32
 PER_CLASS = {"train": 15, "val": 30, "field": 10}
@@ -37,29 +37,10 @@ SMALL_AFFINE = Recipe(name="small-affine", copies=4, transforms=(
 ))
 
 
-def _write_digits(root):
-    from sklearn.datasets import load_digits
-
-    digits = load_digits()
-    rng = np.random.default_rng(0)
-    for digit in range(10):
-        indices = rng.permutation(np.flatnonzero(digits.target == digit))
-        start = 0
-        for split, count in PER_CLASS.items():
-            folder = root / split / f"d{digit}"
-            folder.mkdir(parents=True)
-            for index in indices[start:start + count]:
-                # 0..16 ink levels -> white paper, dark ink, as on a scanned form.
-                grey = (255 - digits.images[index] * (255 / 16)).astype(np.uint8)
-                image = Image.fromarray(grey).resize((SIZE, SIZE), Image.Resampling.BILINEAR)
-                image.convert("RGB").save(folder / f"{index}.png")
-            start += count
-
-
 @pytest.fixture(scope="module")
 def digits_data(tmp_path_factory):
     root = tmp_path_factory.mktemp("digits") / "DATA"
-    _write_digits(root)
+    write_digits_dataset(root, PER_CLASS, size=SIZE)
     return open_dataset(root)
 
 
@@ -151,12 +132,11 @@ def test_p_value_and_interval_agree_on_every_digits_recipe(comparison):
 
 
 def test_p_value_and_interval_agree_on_every_demo_recipe(tmp_path):
-    from augplan.demo import DEFAULT_DEMO_DIR, DEFAULT_RECIPE_DIR, DEMO_RECIPES
-    from augplan.recipe.parse import read_recipe
+    from augplan.demo import DEFAULT_DEMO_DIR, read_demo_recipes
 
     if not DEFAULT_DEMO_DIR.is_dir():
         pytest.skip("demo_images/ is not part of this installation")
-    recipes = [read_recipe(DEFAULT_RECIPE_DIR / name) for name in DEMO_RECIPES]
+    recipes = read_demo_recipes()
     document = evaluate_recipes(open_dataset(DEFAULT_DEMO_DIR), recipes, repeats=2, cache_dir=tmp_path)
     assert [e["name"] for e in document["recipes"]] == ["naive-draft", "cautious", "light-and-pose"]
     for entry in document["recipes"]:

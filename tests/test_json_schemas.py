@@ -14,7 +14,7 @@ import jsonschema
 import pytest
 
 from augplan.cli import main
-from augplan.demo import DEFAULT_RECIPE_DIR, make_demo_dataset
+from augplan.demo import DEMO_RECIPE_DIR, make_demo_dataset
 from augplan.results import RESULT_TYPES, schema_path
 
 
@@ -23,7 +23,7 @@ def outputs(tmp_path_factory):
     root = tmp_path_factory.mktemp("json")
     data = root / "data"
     make_demo_dataset(data, n_train=8, n_val=4, n_field=6)
-    recipe = DEFAULT_RECIPE_DIR / "naive-draft.yaml"
+    recipe = DEMO_RECIPE_DIR / "naive-draft.yaml"
     ledger = root / "ledger.sqlite"
     commands = {
         "check": ["check", data, "--recipe", recipe, "--sample", "3"],

@@ -15,7 +15,7 @@ import yaml
 
 import augplan
 from augplan.cli import main
-from augplan.demo import DEFAULT_RECIPE_DIR, make_demo_dataset
+from augplan.demo import DEMO_RECIPE_DIR, make_demo_dataset
 from augplan.results import schema_path
 
 
@@ -27,7 +27,7 @@ def vetted(tmp_path_factory):
     out = root / "out"
     stdout = io.StringIO()
     with contextlib.redirect_stdout(stdout):
-        code = main(["vet", str(data), "--recipe", str(DEFAULT_RECIPE_DIR / "naive-draft.yaml"),
+        code = main(["vet", str(data), "--recipe", str(DEMO_RECIPE_DIR / "naive-draft.yaml"),
                      "-o", str(out), "--repeats", "2", "--quiet", "--ledger", str(root / "ledger.sqlite"),
                      "--json"])
     (root / "vet.json").write_text(stdout.getvalue())

@@ -40,7 +40,12 @@ from PIL import Image, ImageOps
 from augplan.errors import BadInputError
 from augplan.files import UnreadableFileError, read_regular_file
 from augplan.imaging.colour import unit_to_uint8
-from augplan.thresholds import NEAR_DUPLICATE_BITS, NEAR_DUPLICATE_SSIM
+from augplan.thresholds import (
+    NEAR_DUPLICATE_BITS,
+    NEAR_DUPLICATE_LOCAL_DIFFERENCE,
+    NEAR_DUPLICATE_SSIM,
+    NEAR_DUPLICATE_WINDOW,
+)
 
 __all__ = [
     "ImageRecord",
@@ -55,6 +60,7 @@ __all__ = [
     "fingerprint",
     "perceptual_hash",
     "hamming_matrix",
+    "local_difference",
     "FLAT_SPREAD",
     "find_duplicates",
 ]
@@ -863,28 +869,103 @@ def hamming_matrix(hashes_a, hashes_b):
 FLAT_SPREAD = 1.0
 
 
-def _confirm_luminance(path):
-    from PIL import Image
+def _confirm_views(path):
+    """The two 64 x 64 views a candidate pair is confirmed on.
 
+    Relative luminance (linear light, float32) for SSIM, and the grey codes
+    (Pillow's ``L``, BT.601 luma of the sRGB codes, uint8) for the local
+    difference: a brightness change in code values (a gain, an offset, or
+    both, clipped at 0 and 255) is a straight line there.
+    """
     from augplan.imaging.colour import relative_luminance
 
     image = Image.fromarray(_decode(path, max_side=256)).resize((64, 64), Image.BILINEAR)
-    return relative_luminance(np.asarray(image))
+    return relative_luminance(np.asarray(image)), np.asarray(image.convert("L"))
 
 
-def _structurally_similar(first, second, luminance, threshold=NEAR_DUPLICATE_SSIM):
-    """Whether two images' SSIM (Wang et al. 2004) reaches ``threshold``.
+def _tone_matched(source, target):
+    """``source`` through the gain and offset that best predict ``target``.
 
-    ``luminance`` caches each decoded 64 x 64 luminance by path, so an image
-    that takes part in many candidate pairs is read once.
+    Least squares on the pixels clipped (0 or 255) in neither image, so a
+    brightened copy whose highlights saturate is fitted on what the change
+    left measurable; the result is clipped to [0, 1] as the copy was. Both
+    are uint8 grey codes; returns float32 in [0, 1].
+    """
+    x = source.astype(np.float32) / 255
+    y = target.astype(np.float32) / 255
+    inside = (source > 0) & (source < 255) & (target > 0) & (target < 255)
+    if np.count_nonzero(inside) < 2 or np.ptp(x[inside]) == 0:
+        inside = np.ones(x.shape, dtype=bool)
+    xs, ys = x[inside], y[inside]
+    spread = float(xs.var())
+    gain = float(((xs - xs.mean()) * (ys - ys.mean())).mean()) / spread if spread > 0 else 0.0
+    return np.clip(gain * x + (float(ys.mean()) - gain * float(xs.mean())), 0.0, 1.0)
+
+
+def local_difference(first, second):
+    """Largest local difference between two grey images, as a share of contrast.
+
+    Each image is predicted from the other by `_tone_matched`, so a change
+    of brightness or contrast alone leaves no residual; the residual is
+    averaged over ``NEAR_DUPLICATE_WINDOW`` x ``NEAR_DUPLICATE_WINDOW``
+    windows and its largest magnitude divided by the predicted image's own
+    range (max - min). The larger of the two directions is returned.
+
+    Re-encoding and resampling leave residuals that are noise or thin lines
+    along edges, which the window averages away; a stroke that is drawn
+    differently leaves a patch of one sign, which it keeps. So two distinct
+    handwritten 1s, whose global SSIM is inflated by the plain background
+    they share, still differ here.
+
+    Parameters
+    ----------
+    first, second : numpy.ndarray
+        ``(H, W)`` uint8 grey codes of the same shape.
+
+    Returns
+    -------
+    float
+        0 for images equal up to a brightness change; about 1 when a whole
+        window changes from one end of the range to the other.
+
+    Raises
+    ------
+    ValueError
+        The images are not uint8 grey images of one shape.
+    """
+    from scipy.ndimage import uniform_filter
+
+    first, second = np.asarray(first), np.asarray(second)
+    if first.ndim != 2 or first.shape != second.shape or first.dtype != np.uint8 or second.dtype != np.uint8:
+        raise ValueError(f"expected two (H, W) uint8 grey images of one shape; got shapes {first.shape} and "
+                         f"{second.shape}, dtypes {first.dtype} and {second.dtype}")
+    worst = 0.0
+    for source, target in ((first, second), (second, first)):
+        residual = target.astype(np.float32) / 255 - _tone_matched(source, target)
+        local = uniform_filter(residual, NEAR_DUPLICATE_WINDOW, mode="nearest")
+        contrast = max(int(target.max()) - int(target.min()), 1) / 255
+        worst = max(worst, float(np.abs(local).max()) / contrast)
+    return worst
+
+
+def _near_copies(first, second, views):
+    """Whether two images are confirmed near copies of each other.
+
+    Both tests must pass: SSIM (Wang et al. 2004) of the 64 x 64 relative
+    luminance at least ``NEAR_DUPLICATE_SSIM``, and `local_difference` of
+    the grey codes at most ``NEAR_DUPLICATE_LOCAL_DIFFERENCE``. ``views``
+    caches each image's decoded views by path, so an image that takes part
+    in many candidate pairs is read once.
     """
     from skimage.metrics import structural_similarity
 
     for path in (first, second):
-        if path not in luminance:
-            luminance[path] = _confirm_luminance(path)
-    score = structural_similarity(luminance[first], luminance[second], data_range=1.0)
-    return score >= threshold
+        if path not in views:
+            views[path] = _confirm_views(path)
+    (luminance_a, grey_a), (luminance_b, grey_b) = views[first], views[second]
+    if structural_similarity(luminance_a, luminance_b, data_range=1.0) < NEAR_DUPLICATE_SSIM:
+        return False
+    return local_difference(grey_a, grey_b) <= NEAR_DUPLICATE_LOCAL_DIFFERENCE
 
 
 # Candidates whose 16 x 16 luminance thumbnails correlate less than this are
@@ -948,8 +1029,11 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
         (distance 0), then near pairs, each sorted by ``(a, b)``. A near
         pair is never also an exact pair. Flat images (DCT coefficient
         spread below ``FLAT_SPREAD``) take part in the exact search only. A
-        hash match is confirmed by structural similarity (SSIM of the 64 x 64
-        luminance at least ``NEAR_DUPLICATE_SSIM``) before it is reported.
+        hash match is confirmed before it is reported: structural similarity
+        (SSIM of the 64 x 64 luminance at least ``NEAR_DUPLICATE_SSIM``) and
+        no local patch drawn differently (`local_difference` at most
+        ``NEAR_DUPLICATE_LOCAL_DIFFERENCE``), which keeps distinct thin
+        strokes on a plain background apart.
 
     References
     ----------
@@ -977,7 +1061,7 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
         thumbnails = np.stack([grey for _, _, grey in results])
         splits = np.array([_SPLIT_ORDER[r.split] for r in records])
         chunk = 256  # bounds the distance matrix to chunk x N at a time
-        luminance = {}  # 16 kB per image that takes part in a candidate pair
+        views = {}  # 20 kB per image that takes part in a candidate pair
         for start in range(0, len(records), chunk):
             stop = min(start + chunk, len(records))
             distances = hamming_matrix(hashes[start:stop], hashes)
@@ -989,8 +1073,7 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
             rows, cols = rows[keep], cols[keep]
             for row, col in zip(rows.tolist(), cols.tolist()):
                 first, second = records[start + row], records[col]
-                if first.sha256 == second.sha256 or not _structurally_similar(first.path, second.path,
-                                                                              luminance):
+                if first.sha256 == second.sha256 or not _near_copies(first.path, second.path, views):
                     continue
                 near.append({"kind": "near", "a": first.relpath, "b": second.relpath,
                              "splits": [first.split, second.split],
