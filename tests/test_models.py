@@ -19,7 +19,8 @@ from augplan.errors import BadInputError
 from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.evaluate.models import ConvNet, LinearProxy, TeamTrainer, scoring_model
 from augplan.recipe.parse import Recipe, Transform
-from test_evaluate import FLIPS, PER_CLASS, SIZE, SMALL_AFFINE, _by_name, _write_digits
+from conftest import write_digits_dataset
+from test_evaluate import FLIPS, PER_CLASS, SIZE, SMALL_AFFINE, _by_name
 
 # A network small and short enough for the suite (about a second a fit on
 # 150 digits); the defaults are measured in benchmarks/bench_transfer.py.
@@ -30,7 +31,7 @@ TEAM = "team_training:fit_nearest_mean"
 @pytest.fixture(scope="module")
 def digits_data(tmp_path_factory):
     root = tmp_path_factory.mktemp("digits") / "DATA"
-    _write_digits(root)
+    write_digits_dataset(root, PER_CLASS, size=SIZE)
     return open_dataset(root)
 
 
