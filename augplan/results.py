@@ -163,6 +163,7 @@ class EvaluateResult(_Result):
     scored_on: str
     accuracy_interval: str
     gain_test: str
+    verdict_rule: str
     augmented_validation_images: int
     repeats: int
     seed: int

@@ -20,7 +20,7 @@ Data:
 Printed per data set: the three gain tables, the Spearman rank correlation
 of the gains between each pair (`scipy.stats.spearmanr`), and two
 agreements with the reference: of the point gain's sign, and of the verdict
-(``gains`` / ``no difference`` / ``loses``, where the 95% interval lies).
+(``gains`` / ``no difference`` / ``loses``, by the evaluator's VERDICT_RULE).
 Target: the ``cnn`` column's signs agree with the reference on at least 5
 of the 6 recipes.
 
@@ -96,11 +96,6 @@ def _models():
     return {"linear": ("linear", 3), "cnn": ("cnn", 3), "reference": (ConvNet(params=longer), 6)}
 
 
-def _verdict(row):
-    low, high = row["gain_ci"]
-    return "+" if low > 0 else "-" if high < 0 else "0"
-
-
 def _table(name, document):
     base = document["baseline"]
     lines = [f"  {name}: baseline accuracy {base['accuracy']:.3f} [{base['accuracy_ci'][0]:.3f}, "
@@ -114,7 +109,7 @@ def _table(name, document):
 def compare(documents):
     """Spearman correlations and agreements with the reference, as printable lines."""
     gains = {name: np.array([row["gain"] for row in doc["recipes"]]) for name, doc in documents.items()}
-    verdicts = {name: [_verdict(row) for row in doc["recipes"]] for name, doc in documents.items()}
+    verdicts = {name: [row["verdict"] for row in doc["recipes"]] for name, doc in documents.items()}
     lines = []
     for a, b in (("linear", "cnn"), ("linear", "reference"), ("cnn", "reference")):
         rho = spearmanr(gains[a], gains[b]).statistic

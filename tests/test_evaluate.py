@@ -340,3 +340,24 @@ def test_history_records_no_best_when_no_recipe_gains(digits_data, cache_dir, tm
     row = ledger.history(ledger_path)["evaluations"][-1]
     assert row["best_recipe"] is None
     assert "none gained" in history_table([row])
+
+
+@pytest.mark.parametrize("gain, p_holm, verdict", [
+    (0.02, 0.01, "gains"), (-0.027, 0.01, "loses"), (-0.027, 0.113, "no difference"),
+    (0.02, 0.05, "no difference"), (0.0, 0.001, "no difference"),
+], ids=["gains", "loses", "holm-not-significant", "at-the-level", "zero-gain"])
+def test_verdict_follows_holms_adjusted_p(gain, p_holm, verdict):
+    from augplan.evaluate.evaluate import gain_verdict
+
+    assert gain_verdict(gain, p_holm) == verdict
+
+
+def test_verdicts_never_contradict_the_gain_intervals(comparison):
+    for entry in comparison["recipes"]:
+        low, high = entry["gain_ci"]
+        if entry["verdict"] == "gains":
+            assert low > 0 and entry["p_holm"] < 0.05
+        elif entry["verdict"] == "loses":
+            assert high < 0 and entry["p_holm"] < 0.05
+        else:
+            assert entry["p_holm"] >= 0.05

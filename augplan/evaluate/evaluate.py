@@ -53,7 +53,7 @@ from augplan.workspace import ensure_outside_data
 from augplan.augment.transforms import augment_batch
 
 __all__ = ["evaluate_recipes", "best_recipe", "rank_key", "gain_verdict", "MANY_RECIPES_WARNING_LIMIT", "GAIN_RULE",
-           "BEST_RULE"]
+           "VERDICT_RULE", "BEST_RULE"]
 
 
 # Images per chunk when reading and featurising. Fixed (never derived from
@@ -70,6 +70,10 @@ GAIN_RULE = ("image is the unit: per-image correctness averaged over repeats; ga
              "p-value from one paired sign-flip permutation test over the per-image differences "
              "(the interval holds every gain the test does not reject), so p < 0.05 exactly when "
              "the 95% interval excludes zero")
+
+VERDICT_RULE = ("a recipe gains (or loses) when its Holm-adjusted p-value across the recipes of the run is below "
+                "0.05 and its gain is above (below) zero; otherwise there is no difference; a recipe that gains or "
+                "loses always has its 95% gain interval above or below zero")
 
 BEST_RULE = ("recipes are ranked by their validation gain over no augmentation, a tie (a saturated validation "
              "split scores every recipe alike) going to the larger gain on the labelled field sample; the best is "
@@ -489,10 +493,15 @@ def _short(score):
     return {k: score[k] for k in keys if k in score}
 
 
-def gain_verdict(gain_ci):
-    """``gains``, ``no difference`` or ``loses``: where the 95% gain interval lies (`GAIN_RULE`)."""
-    low, high = gain_ci
-    return "gains" if low > 0 else "loses" if high < 0 else "no difference"
+def gain_verdict(gain, p_holm):
+    """``gains``, ``no difference`` or ``loses``, by `VERDICT_RULE`.
+
+    Holm's adjusted p is never below the test's own p, so a recipe that
+    ``gains`` (``loses``) always has its 95% interval above (below) zero.
+    """
+    if p_holm >= 0.05 or gain == 0:
+        return "no difference"
+    return "gains" if gain > 0 else "loses"
 
 
 def _field_gain(entry):
@@ -537,7 +546,7 @@ def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, 
         entry["confusion"] = val.get("confusion")  # absent from results stored by older versions
         entry["p_holm"] = _round_p(adjusted)
         entry["per_class_gain"] = val["per_class_gain"]
-        entry["verdict"] = gain_verdict(val["gain_ci"])
+        entry["verdict"] = gain_verdict(val["gain"], adjusted)
         # The linear proxy's gains are biased against augmentation: its sign
         # alone never calls a recipe harmful (LINEAR_PROXY_NOTE).
         entry["flagged"] = entry["verdict"] == "loses" and scoring.name != "linear"
@@ -597,6 +606,7 @@ def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, 
         "scored_on": scored_on,
         "accuracy_interval": "95% Wilson interval over validation images (mean accuracy of the repeats)",
         "gain_test": GAIN_RULE,
+        "verdict_rule": VERDICT_RULE,
         "augmented_validation_images": 0,
         "repeats": int(repeats),
         "seed": int(seed),
