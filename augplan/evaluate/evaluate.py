@@ -170,11 +170,11 @@ def _train_and_predict(unit):
         return _train_one(unit)
 
 
-def _augmented_copies(records, recipe, draws_seq, size, chunk_done):
-    """The recipe's ``copies`` draws of each training image, chunk by chunk.
+def _augmented_copies(records, recipe, draws_seq, size):
+    """Yield the recipe's ``copies`` draws of each training image, chunk by chunk.
 
-    ``chunk_done(images, labels)`` receives each chunk of draws (with their
-    labels after relabels); only training records ever reach here.
+    Each chunk is ``(images, labels)``, the labels after relabels; only
+    training records ever reach here.
     """
     image_seqs = draws_seq.spawn(len(records))
     for start in range(0, len(records), _CHUNK):
@@ -182,7 +182,7 @@ def _augmented_copies(records, recipe, draws_seq, size, chunk_done):
         generators = [np.random.default_rng(seq) for seq in image_seqs[start:start + len(chunk)]]
         batch, batch_labels = augment_batch(load_images(chunk, size), recipe, generators,
                                             [r.label for r in chunk], recipe.copies)
-        chunk_done(batch, batch_labels)
+        yield batch, np.asarray(batch_labels).astype(str)
 
 
 def _adds_draws(recipe):
@@ -208,14 +208,11 @@ def _train_one(unit):
     model = scoring.template
     model_seq, draws_seq = seed_sequence.spawn(2)
     blocks = [train_features]
-    block_labels = [np.array([r.label for r in train_records], dtype=object)]
-
-    def keep_features(batch, batch_labels):
-        blocks.append(np.asarray(model.feature_fn(batch), dtype=np.float32))
-        block_labels.append(np.array(batch_labels, dtype=object))
-
+    block_labels = [np.array([r.label for r in train_records]).astype(str)]
     if _adds_draws(recipe):
-        _augmented_copies(train_records, recipe, draws_seq, size, keep_features)
+        for batch, batch_labels in _augmented_copies(train_records, recipe, draws_seq, size):
+            blocks.append(np.asarray(model.feature_fn(batch), dtype=np.float32))
+            block_labels.append(batch_labels)
     features = np.concatenate(blocks, axis=0)
     targets = np.concatenate(block_labels).astype(str)
     random_state = int(model_seq.generate_state(1)[0] % (2**31 - 1))
@@ -272,24 +269,25 @@ def _train_one_on_images(unit):
     model_seq, draws_seq = seed_sequence.spawn(2)
     images = load_images(train_records, size)
     labels = np.array([r.label for r in train_records]).astype(str)
+    rng = np.random.default_rng(model_seq)
     draw = None
-    if _adds_draws(recipe) and scoring.fresh_draws_each_epoch:
-        draw = _EpochDraws(recipe, draws_seq)
-    elif _adds_draws(recipe):
-        blocks, block_labels = [images], [labels]
-        _augmented_copies(train_records, recipe, draws_seq, size,
-                          lambda batch, batch_labels: (blocks.append(batch),
-                                                       block_labels.append(np.asarray(batch_labels).astype(str))))
-        images, labels = np.concatenate(blocks), np.concatenate(block_labels)
-    names = np.asarray(classes).astype(str)
     if scoring.fresh_draws_each_epoch:
-        predictor, decode = scoring.train(images, labels, np.random.default_rng(model_seq), draw), np.asarray
-    else:  # the team's contract: integer labels indexing the sorted classes
-        targets = np.searchsorted(names, labels)
-        predictor = scoring.train(images, targets, np.random.default_rng(model_seq))
-        decode = names.__getitem__
-    predictions = {split: np.asarray(decode(predictor.predict(_load_originals(records, size)))).astype(str)
-                   for split, records in eval_records.items()}
+        draw = _EpochDraws(recipe, draws_seq) if _adds_draws(recipe) else None
+        predictor = scoring.train(images, labels, rng, draw)
+
+        def predict(batch):
+            return np.asarray(predictor.predict(batch)).astype(str)
+    else:  # the team's contract: the copies made once, integer labels indexing the sorted classes
+        if _adds_draws(recipe):
+            drawn = list(_augmented_copies(train_records, recipe, draws_seq, size))
+            images = np.concatenate([images] + [batch for batch, _ in drawn])
+            labels = np.concatenate([labels] + [batch_labels for _, batch_labels in drawn])
+        names = np.asarray(classes).astype(str)
+        predictor = scoring.train(images, np.searchsorted(names, labels), rng)
+
+        def predict(batch):
+            return names[predictor.predict(batch)]
+    predictions = {split: predict(_load_originals(records, size)) for split, records in eval_records.items()}
     augmented = draw.count if draw is not None else len(images) - len(train_records)
     return {"predictions": predictions, "augmented": augmented}
 
@@ -427,7 +425,7 @@ def _settings_key(scoring, size, confirm_fraction, dataset):
     elif scoring.name == "cnn":
         code.append(sys.modules["augplan.measure.convnet"])
     # An edit of the scoring, transform or model code invalidates old results
-    # (the team's own code is theirs to version: its name is in the key).
+    # (the team's module is in scoring.settings()).
     settings["code"] = _file_digest(*code)
     text = json.dumps(settings, sort_keys=True, default=repr)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:24]
@@ -530,8 +528,8 @@ def best_recipe(entries):
     return max((e for e in entries if gains(e)), key=rank_key, default=None)
 
 
-def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, seed, confirm_source, n_unlabelled_field,
-              confirm_ignored, from_ledger):
+def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, seed, confirm_source,
+              n_unlabelled_field, confirm_ignored, from_ledger):
     """Build the ``evaluate --json`` document from per-arm scores."""
     warnings = []
     model = scoring.describe()
