@@ -23,6 +23,7 @@ import math
 import re
 from pathlib import Path
 
+from augplan.evaluate.models import model_phrase
 from augplan.measure.factors import FACTORS
 from augplan.render.text import factor_range
 from augplan.results import range_text
@@ -758,7 +759,7 @@ def _leaderboard(evidence):
     model = evaluation.get("model") or {}
     if model:
         note = f" {model['note'][0].upper()}{model['note'][1:]}." if model.get("note") else ""
-        out.append(f'<p class="note">Scored with the <strong>{_e(model.get("name"))}</strong> model: '
+        out.append(f'<p class="note">Scored with <strong>{_e(model_phrase(model.get("name")))}</strong>: '
                    f'{_e(model.get("description"))}.{_e(note)}</p>')
     rule = evidence.get("ranking_rule")
     if rule:

@@ -189,7 +189,7 @@ def leaderboard_table(result):
 
 
 def _verdict_text(row, model_name):
-    """The verdict column: the gain interval's word; the linear proxy's loss is not called harm."""
+    """The verdict column (`VERDICT_RULE`'s word); the linear proxy's loss is not called harm."""
     verdict = row.get("verdict", "")
     if verdict == "loses":
         return "LOSES" if row["flagged"] else "lower (proxy)" if model_name == "linear" else "loses"
