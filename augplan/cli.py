@@ -105,12 +105,21 @@ def _workers(parser, *, ship_images=True):
                                  "workers that cannot see the data folder (files held in memory)")
 
 
-def _model_flag(parser):
-    from augplan.evaluate.models import MODEL_CHOICES
+def _side(text):
+    value = _positive_int(text)
+    if not 16 <= value <= 1024:
+        raise argparse.ArgumentTypeError(f"expected a side between 16 and 1024 pixels; got {value}")
+    return value
 
-    parser.add_argument("--model", default="linear", metavar="NAME",
-                        help=f"model each recipe is scored with: {MODEL_CHOICES} (your training "
-                             "function; see the README)")
+
+def _model_flag(parser, what="model each recipe is scored with"):
+    from augplan.measure.models import MODEL_CHOICES
+
+    parser.add_argument("--model", default=None, metavar="NAME",
+                        help=f"{what}: {MODEL_CHOICES} (your training function; see the README)")
+    parser.add_argument("--side", type=_side, default=64, metavar="N",
+                        help="side in pixels images are read and trained at (default 64; larger images "
+                             "are reduced by area averaging)")
 
 
 def _cache_flag(parser):
@@ -146,6 +155,7 @@ def _build_parser():
     p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class")
     p.add_argument("--evidence", type=Path, default=None,
                    help="folder for contact sheets of the images that moved")
+    _model_flag(p, what="model trained on replaced images in confirmation (the first witness)")
 
     p = commands.add_parser("coverage", help="nuisance widening, field coverage, shortcut audit")
     _common(p)
@@ -370,7 +380,7 @@ def _run_check(args, console):
     leaks = _report_leaks(console, dataset)
     recipe = _read_recipes([args.recipe], dataset)[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
-                          quiet=args.quiet, evidence_dir=args.evidence)
+                          quiet=args.quiet, evidence_dir=args.evidence, model=args.model, size=args.side)
     return _emit(console, args, _with_leaks(result, leaks), tables.check_table)
 
 
@@ -402,7 +412,7 @@ def _run_evaluate(args, console):
     ledger, cache = _stores(args, dataset, console)
     result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
                               quiet=args.quiet, ledger_path=ledger, cache_dir=cache,
-                              confirm_fraction=args.confirm_fraction, model=args.model)
+                              confirm_fraction=args.confirm_fraction, model=args.model, size=args.side)
     return _emit(console, args, _with_leaks(result, leaks), tables.leaderboard_table)
 
 
@@ -444,7 +454,8 @@ def _run_vet(args, console):
     ledger, cache = _stores(args, dataset, console)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
                           repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
-                          quiet=args.quiet, ledger_path=ledger, cache_dir=cache, model=args.model)
+                          quiet=args.quiet, ledger_path=ledger, cache_dir=cache, model=args.model,
+                          size=args.side)
     _say_vetted(console, args, summary)
     return ExitCode.FLAGGED if summary.flagged else ExitCode.OK
 

@@ -27,7 +27,7 @@ from tqdm.auto import tqdm
 
 from augplan.errors import BadInputError
 
-__all__ = ["Cluster", "parallel_map", "progress", "resolve_workers", "single_threaded"]
+__all__ = ["Cluster", "parallel_map", "progress", "resolve_workers", "single_threaded", "tick"]
 
 CLUSTER_INSTALL_HINT = "pip install 'augplan[cluster]'"
 
@@ -126,7 +126,34 @@ def progress(iterable, *, desc, total=None, quiet=False):
                 delay=1.0, leave=False, dynamic_ncols=True)
 
 
-def parallel_map(function, items, *, workers=1, desc="working", quiet=True):
+# Where `tick` reports inside a running work unit: None (nowhere), or a
+# function of no argument that advances the progress bar (directly in this
+# process, through a queue from a local worker process).
+_TICK = None
+
+
+def tick():
+    """Advance the progress bar of the `parallel_map` running this work unit by one step.
+
+    For units that report steps within themselves (``parallel_map(...,
+    ticks=N)``), such as the epochs of a network's fit. Outside such a map
+    (or on a Dask cluster, whose bar moves once per unit) it does nothing.
+    """
+    if _TICK is not None:
+        _TICK()
+
+
+@contextlib.contextmanager
+def _ticking(report):
+    global _TICK
+    previous, _TICK = _TICK, report
+    try:
+        yield
+    finally:
+        _TICK = previous
+
+
+def parallel_map(function, items, *, workers=1, desc="working", quiet=True, ticks=None):
     """Apply ``function`` to each item, in order, possibly in parallel.
 
     Parameters
@@ -146,6 +173,11 @@ def parallel_map(function, items, *, workers=1, desc="working", quiet=True):
         Label of the progress bar.
     quiet : bool, default True
         Hide the progress bar.
+    ticks : int, optional
+        Steps each unit reports through `tick` (an epoch each, for a
+        network's fit): the bar then counts steps, ``len(items) * ticks`` in
+        all, instead of units. A unit that reports fewer is counted whole
+        when it ends. On a Dask cluster the bar counts units.
 
     Returns
     -------
@@ -164,6 +196,8 @@ def parallel_map(function, items, *, workers=1, desc="working", quiet=True):
             return []
         results = _dask_ordered(function, items, workers)
         return list(progress(results, desc=desc, total=len(items), quiet=quiet))
+    if ticks is not None and not quiet and items:
+        return _ticked_map(function, items, workers, desc, int(ticks))
     if workers == 1 or len(items) <= 1:
         return [function(item) for item in progress(items, desc=desc, quiet=quiet)]
     from joblib import Parallel, delayed
@@ -178,6 +212,61 @@ def parallel_map(function, items, *, workers=1, desc="working", quiet=True):
                                 category=UserWarning)
         results = runner(delayed(_call_plain)(function, item) for item in items)
         return list(progress(results, desc=desc, total=len(items), quiet=quiet))
+
+
+def _ticked_map(function, items, workers, desc, ticks):
+    """`parallel_map` whose bar counts the steps units report through `tick`."""
+    import threading
+
+    total = len(items) * ticks
+    bar = tqdm(desc=desc, total=total, file=sys.stderr, delay=1.0, leave=False, dynamic_ncols=True)
+    lock = threading.Lock()
+    done = [0]  # steps counted so far
+
+    def advance(steps=1):
+        with lock:
+            steps = min(steps, total - done[0])
+            if steps > 0:
+                done[0] += steps
+                bar.update(steps)
+
+    def settle(finished):  # every finished unit counts whole
+        advance(finished * ticks - done[0])
+
+    try:
+        if workers == 1:
+            results = []
+            with _ticking(advance):
+                for item in items:
+                    results.append(function(item))
+                    settle(len(results))
+            return results
+        import multiprocessing
+
+        from joblib import Parallel, delayed
+
+        with multiprocessing.Manager() as manager:
+            queue = manager.Queue()
+
+            def drain():
+                while queue.get() is not None:
+                    advance()
+
+            reader = threading.Thread(target=drain, daemon=True)
+            reader.start()
+            try:
+                runner = Parallel(n_jobs=workers, return_as="generator")
+                with warnings.catch_warnings():
+                    warnings.filterwarnings("ignore", message="A worker stopped while some jobs were given",
+                                            category=UserWarning)
+                    results = list(runner(delayed(_call_ticking)(function, queue, item) for item in items))
+                settle(len(results))
+            finally:
+                queue.put(None)
+                reader.join(timeout=5)
+            return results
+    finally:
+        bar.close()
 
 
 # ------------------------------------------------------------------ Dask
@@ -320,6 +409,13 @@ def _call_plain(function, item):
     _reuse_freed_memory()
     _one_opencv_thread()
     return function(item)
+
+
+def _call_ticking(function, queue, item):
+    _reuse_freed_memory()
+    _one_opencv_thread()
+    with _ticking(lambda: queue.put(1)):
+        return function(item)
 
 
 def _call_unpacking(function, context, item):

@@ -110,7 +110,7 @@ def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path):
 def test_the_network_scores_the_same_on_cluster(cluster, recipe, tmp_path):
     from augplan.data.dataset import open_dataset
     from augplan.evaluate.evaluate import evaluate_recipes
-    from augplan.evaluate.models import ConvNet
+    from augplan.measure.models import ConvNet
     from augplan.recipe.parse import read_recipe
 
     # A short network: the point is the execution layer, not the network's accuracy.

@@ -17,7 +17,7 @@ import team_training
 from augplan.data.dataset import load_images, open_dataset
 from augplan.errors import BadInputError
 from augplan.evaluate.evaluate import evaluate_recipes
-from augplan.evaluate.models import ConvNet, LinearProxy, TeamTrainer, scoring_model
+from augplan.measure.models import ConvNet, LinearProxy, TeamTrainer, scoring_model
 from augplan.recipe.parse import Recipe, Transform
 from conftest import write_digits_dataset
 from test_evaluate import FLIPS, PER_CLASS, SIZE, SMALL_AFFINE, _by_name

@@ -77,6 +77,7 @@ from sklearn.preprocessing import StandardScaler
 from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, RECALL_MARGIN, class_verdict,
                              compare_predictions, pair_breaks)
 from augplan.errors import BadInputError
+from augplan.measure.models import FALLBACK_NAME, FALLBACK_WARNING
 from augplan.thresholds import (MAX_FOLDS, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
                                 REGION_PERCENTILE, SCREEN_MARGIN, TURN_DEGREES)
 from augplan.parallel import parallel_map
@@ -98,6 +99,12 @@ MARGIN = SCREEN_MARGIN
 VARIANCE_KEPT = PCA_VARIANCE_KEPT
 MIN_PER_CLASS = MIN_IMAGES_PER_CLASS
 FOLDS = MAX_FOLDS
+# Folds of the network's confirmation: each fold's network trains on the
+# other half of the checked images and predicts this half, so every original
+# is predicted out of fold by two fits per model (a network fit costs far
+# more than the linear proxy's; common practice, no source).
+NETWORK_FOLDS = 2
+_NETWORK_PURPOSE = 22
 EVIDENCE_IMAGES = 8
 OUTSIDE = -1
 # Ops whose images can take another class's look as a whole (a mirror, a
@@ -409,6 +416,80 @@ def _confirm_unit(context, unit):
     return predictions
 
 
+def _replaced_images(context, images, t_index, rng):
+    """The checked images with every image in scope replaced by its transformed copy.
+
+    Each image takes the grid value its plan drew for the whole range (the
+    draws the linear confirmation trains on), applied through the batch
+    engine, one call per grid value; labels follow any relabel.
+    """
+    from augplan.augment.transforms import apply_op_batch, params_at
+
+    transform = context["transforms"][t_index]
+    scope, draws, values = context["scope"][t_index], context["draws"][t_index], context["values"][t_index]
+    replaced, labels = images.copy(), context["labels"].copy()
+    for position, generator in zip(np.unique(draws), rng.spawn(len(np.unique(draws)))):
+        rows = scope[draws == position]
+        value = values[position]
+        params = params_at(transform, 0.0 if value is None else value, context["fill"])
+        replaced[rows] = apply_op_batch(images[rows], transform.op, params, generator)
+    labels[scope] = context["expected"][t_index][labels[scope]]
+    return replaced, labels
+
+
+def _network_unit(context, unit):
+    """Held-out originals of one network fold, predicted by the network trained on the other folds.
+
+    ``unit`` is ``(t_index, fold, seed_sequence)``: ``t_index`` None trains
+    on the originals (the one baseline every transform shares), otherwise on
+    the originals with transform ``t_index``'s scope replaced (the first
+    witness). Only original images are ever predicted.
+    """
+    from augplan.parallel import tick
+
+    t_index, fold, seed_sequence = unit
+    images = _decoded_sample(context)
+    draw_seq, model_seq = seed_sequence.spawn(2)
+    if t_index is None:
+        train_images, train_labels = images, context["labels"]
+    else:
+        train_images, train_labels = _replaced_images(context, images, t_index, np.random.default_rng(draw_seq))
+    folds = context["network_folds"]
+    train = folds != fold
+    predictor = context["network"].train(train_images[train], train_labels[train],
+                                         np.random.default_rng(model_seq), None, progress=tick)
+    return np.asarray(predictor.predict(images[folds == fold])).astype(np.int64)
+
+
+def _network_witness(context, images, jobs, seed, workers, quiet):
+    """Out-of-fold network predictions of the originals: the shared baseline and one per transform.
+
+    Returns ``{None: baseline predictions, t_index: predictions of the
+    network trained on replaced images}`` over all checked images.
+    """
+    from augplan.parallel import parallel_map as run
+
+    folds = context["network_folds"]
+    n_folds = int(folds.max()) + 1
+    keys = [None] + sorted({t for t, _ in jobs})
+    units = [(t, fold, np.random.SeedSequence([int(seed), _NETWORK_PURPOSE, 0 if t is None else t + 1, fold]))
+             for t in keys for fold in range(n_folds)]
+    epochs = getattr(context["network"], "epochs", None)
+    ticks = epochs(int(np.sum(folds != 0))) if epochs else None
+    _DECODED_SAMPLE.clear()
+    _DECODED_SAMPLE[context["sample_key"]] = images
+    try:
+        outputs = run(functools.partial(_network_unit, context), units, workers=workers, ticks=ticks, quiet=quiet,
+                      desc=f"confirming with the {context['network'].name} model"
+                           + (f" ({ticks} epochs a fit)" if ticks else ""))
+    finally:
+        _DECODED_SAMPLE.clear()
+    predictions = {}
+    for (t, fold, _), predicted in zip(units, outputs):
+        predictions.setdefault(t, np.empty(len(folds), dtype=np.int64))[folds == fold] = predicted
+    return predictions
+
+
 # --------------------------------------------------------------------------
 # the checker's stages
 
@@ -693,7 +774,10 @@ def _judge(labels, base_pred, predictions, n_classes, checked, weak, seen, rng):
     trained with the originals plus copies, as a recipe is used.
     """
     rng_replace, rng_add = rng.spawn(2)
-    _, replaced = compare_predictions(labels, base_pred, predictions["replace"], n_classes, rng_replace)
+    # The replaced model is compared with the baseline of its own kind (the
+    # network's, when the network is the first witness).
+    _, replaced = compare_predictions(labels, predictions.get("replace_base", base_pred), predictions["replace"],
+                                      n_classes, rng_replace)
     changes, pairs = compare_predictions(labels, base_pred, predictions["add"], n_classes, rng_add)
     counts = np.bincount(labels, minlength=n_classes)
     passing = [p for p in replaced if pair_breaks(p) and seen[p.target, p.source]
@@ -840,13 +924,25 @@ def _confirm_jobs(plans, cleared):
 
 
 def _confirm_all(context, plans, screen, screened, baseline, labels, n_classes, boot_rng, workers, quiet,
-                 clock):
-    """Judge every uncleared transform over its whole range, then the nested ranges of those not safe."""
+                 clock, images=None, seed=0):
+    """Judge every uncleared transform over its whole range, then the nested ranges of those not safe.
+
+    With a network (``context["network"]``), the model trained on replaced
+    images over the whole range, the first witness, is the network, compared
+    with the network's own baseline; safety (originals plus copies) and the
+    nested ranges of the safe limit stay with the linear proxy.
+    """
     whole, nested = _confirm_jobs(plans, [s[0] for s in screened])
     boot = dict(zip(whole + nested, boot_rng.spawn(len(whole) + len(nested))))
+    witness = (_network_witness(context, images, whole, seed, workers, quiet)
+               if context.get("network") is not None and whole else None)
 
     def judge(jobs):
         trained = _run_confirmation(context, jobs, plans, screen, baseline, labels, workers, quiet)
+        if witness is not None:
+            for t, r in jobs:
+                if r == 0:
+                    trained[(t, r)].update(replace=witness[t], replace_base=witness[None])
         return {job: _judge(labels, baseline.predictions, trained[job], n_classes, screened[job[0]][1],
                             baseline.weak, _witnessed(plans[job[0]], screen, *job, labels, baseline, n_classes),
                             boot[job]) for job in jobs}
@@ -867,12 +963,21 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     dataset : augplan.data.Dataset
         Only its ``train`` split is used.
     recipe : augplan.recipe.Recipe
-    model : augplan.measure.model.FeatureModel, optional
-        An unfitted model to use instead of the default one, in both stages.
+    model : {'cnn', 'linear'} or str or FeatureModel, optional
+        The model trained on replaced images in confirmation, the first
+        witness of a break (`augplan.measure.models`): None (the default)
+        or ``'cnn'``, the network (without PyTorch the default falls back to
+        the linear proxy, with a warning); ``'linear'``, the proxy;
+        ``'module:callable'``, the team's training function. The screen,
+        the safety test (originals plus copies) and the safe limits use the
+        linear proxy in every case; a `FeatureModel` replaces that proxy and
+        serves as the first witness too. ``model.confirmation`` in the
+        document names the first witness.
     sample : int, optional
         At most this many training images per class (drawn with ``seed``).
     size : int, default 64
-        Side of the squares images are read at.
+        Side of the squares images are read and trained at (``--side``);
+        larger images are reduced by area averaging. ``model.side`` says it.
     magnitudes : int, default 7
         Grid values per magnitude range (both ends included).
     seed : int, default 0
@@ -912,10 +1017,9 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     warnings = []
     records, labels, classes = _checked_sample(dataset, sample, sample_rng, warnings)
     images = load_images(records, size=size)
-    if model is None:
-        from augplan.measure.model import FeatureModel
-
-        model = FeatureModel(random_state=seed)
+    model, network = _check_models(model, seed)
+    if network is not None and network.name == FALLBACK_NAME:
+        warnings.append(FALLBACK_WARNING)
     baseline = _fit_baseline(images, labels, len(classes), model, seed, workers, quiet)
     if baseline.weak:
         warnings.append(f"the feature model is weak (cross-validated accuracy {baseline.cv_accuracy:.2f}, "
@@ -929,13 +1033,16 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
                "models": baseline.models, "n_classes": len(classes), "geometry": baseline.geometry,
                "evidence": evidence_dir is not None, "expected": [p.expected for p in plans],
                "labels": labels, "folds": baseline.folds, "features": baseline.features,
-               "n_folds": len(baseline.models)}
+               "n_folds": len(baseline.models), "draws": [p.draws[0] for p in plans],
+               "values": [p.values for p in plans],
+               "network": network if network is not None and not network.uses_features else None,
+               "network_folds": _network_folds(labels, seed)}
     screen = _run_screen(context, images, plans, baseline, unit_root, workers, quiet)
     screened = [_screen_transform(plan, screen, t, labels, baseline, len(classes)) if len(plan.scope)
                 else (False, [], None, [], {}) for t, plan in enumerate(plans)]
     clock.lap("screen")
     judged = _confirm_all(context, plans, screen, screened, baseline, labels, len(classes), boot_rng,
-                          workers, quiet, clock)
+                          workers, quiet, clock, images=images, seed=seed)
     report = [_entry(t, transforms[t], plans[t], screened[t], judged, classes, warnings)
               for t in range(len(transforms))]
     _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed)
@@ -943,15 +1050,51 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
         # After the shortcut pass, so each sheet's heading carries the final verdict.
         _attach_evidence(report, screen, plans, evidence_dir, transforms, records, labels, classes, recipe.fill,
                          seed)
-    return _document(recipe, baseline, labels, classes, report, warnings)
+    witness = context["network"].name if context["network"] is not None else (
+        network.name if network is not None else "linear")
+    return _document(recipe, baseline, labels, classes, report, warnings, witness, size)
 
 
-def _document(recipe, baseline, labels, classes, report, warnings):
+def _check_models(model, seed):
+    """The screen's feature model and the confirmation's model for ``check_recipe``'s ``model``.
+
+    Returns ``(template, scoring)``: the `FeatureModel` the screen (and the
+    linear confirmation) use, and the `augplan.measure.models` choice the
+    first witness trains (None for a `FeatureModel` passed in, which then
+    serves both stages).
+    """
+    from augplan.measure.models import scoring_model
+    from augplan.measure.model import FeatureModel
+
+    if isinstance(model, FeatureModel):
+        return model, None
+    return FeatureModel(random_state=seed), scoring_model(model)
+
+
+def _network_folds(labels, seed):
+    """Stratified `NETWORK_FOLDS` folds of the checked images for the network's confirmation."""
+    from sklearn.model_selection import StratifiedKFold
+
+    counts = np.bincount(labels)
+    n_folds = int(min(NETWORK_FOLDS, counts[counts > 0].min()))
+    folds = np.zeros(len(labels), dtype=np.int64)
+    if n_folds < 2:
+        return folds
+    splitter = StratifiedKFold(n_splits=n_folds, shuffle=True, random_state=int(seed) % (2**32))
+    for fold, (_, rows) in enumerate(splitter.split(np.zeros(len(labels)), labels)):
+        folds[rows] = fold
+    return folds
+
+
+def _document(recipe, baseline, labels, classes, report, warnings, witness="linear", side=64):
     """The ``check --json`` document, typed."""
     return CheckResult.from_json({
         "recipe": recipe.name,
         "model": {"cv_accuracy": round(baseline.cv_accuracy, 4), "chance": round(baseline.chance, 4),
-                  "weak": baseline.weak, "folds": len(baseline.models)},
+                  "weak": baseline.weak, "folds": len(baseline.models),
+                  # The model trained on replaced images (the first witness of a break) and
+                  # the side every image was read and trained at.
+                  "confirmation": witness, "side": int(side)},
         "baseline": {classes[c]: {"change_rate": round(float(baseline.change[c]), 4),
                                   "leave_rate": round(float(baseline.leave[c]), 4),
                                   "cv_recall": round(float(np.mean(baseline.predictions[labels == c] == c)), 4)}

@@ -5,7 +5,7 @@ images plus ``copies`` augmented draws of each (labels from the recipe), once
 per repeat with fresh draws and a fresh model seed; the baseline trains on
 the originals alone. Every model is scored on original validation images.
 
-The model is the ``--model`` choice (`augplan.evaluate.models`): the linear
+The model is the ``--model`` choice (`augplan.measure.models`): the linear
 proxy (``linear``, the default), a small convolutional network (``cnn``,
 fresh draws of every image each epoch) or the team's own training function
 (``module:callable``). Every result names it.
@@ -44,8 +44,8 @@ from augplan.measure import stats
 from augplan.data.dataset import Dataset, fingerprint, load_images, stratified_choice
 from augplan.errors import BadInputError
 from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
-from augplan.evaluate.models import scoring_model
-from augplan.parallel import parallel_map, resolve_workers, single_threaded
+from augplan.measure.models import FALLBACK_NAME, FALLBACK_WARNING, is_linear, scoring_model
+from augplan.parallel import parallel_map, resolve_workers, single_threaded, tick
 from augplan.recipe.parse import Recipe, recipe_hash
 from augplan.results import EvaluateResult
 from augplan.thresholds import MANY_RECIPES_WARNING_LIMIT
@@ -273,7 +273,7 @@ def _train_one_on_images(unit):
     draw = None
     if scoring.fresh_draws_each_epoch:
         draw = _EpochDraws(recipe, draws_seq) if _adds_draws(recipe) else None
-        predictor = scoring.train(images, labels, rng, draw)
+        predictor = scoring.train(images, labels, rng, draw, progress=tick)
 
         def predict(batch):
             return np.asarray(predictor.predict(batch)).astype(str)
@@ -453,8 +453,11 @@ def _compute(dataset, recipes, hashes, scoring, *, repeats, size, seed, workers,
         train_unit, shared = _train_on_images, (classes, splits)
     units = [(scoring, recipe, train, *shared, size, _seed_sequence(seed, key, _PURPOSE_TRAIN, r))
              for recipe, key in arms for r in range(repeats)]
-    outputs = parallel_map(train_unit, units, workers=workers,
-                           desc=f"training the {scoring.name} model per recipe and repeat", quiet=quiet)
+    # The network's bar counts epochs within each fit, not whole fits.
+    epochs = scoring.epochs(len(train)) if hasattr(scoring, "epochs") else None
+    outputs = parallel_map(train_unit, units, workers=workers, ticks=epochs,
+                           desc=(f"training the {scoring.name} model per recipe and repeat"
+                                 + (f" ({epochs} epochs a fit)" if epochs else "")), quiet=quiet)
 
     def stacked(arm_index, split):
         rows = outputs[arm_index * repeats:(arm_index + 1) * repeats]
@@ -528,11 +531,13 @@ def best_recipe(entries):
     return max((e for e in entries if gains(e)), key=rank_key, default=None)
 
 
-def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, seed, confirm_source,
+def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, seed, size, confirm_source,
               n_unlabelled_field, confirm_ignored, from_ledger):
     """Build the ``evaluate --json`` document from per-arm scores."""
-    warnings = []
-    model = scoring.describe()
+    warnings = [FALLBACK_WARNING] if scoring.name == FALLBACK_NAME else []
+    # The side every image is read, augmented and trained at (larger images
+    # reduced by area averaging; see augplan.data.dataset.load_images).
+    model = {**scoring.describe(), "side": int(size)}
     p_holm = stats.holm([r["scores"]["val"]["p_value"] for r in results])
     entries = []
     for result, adjusted, count in zip(results, p_holm, n_transforms):
@@ -547,7 +552,7 @@ def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, 
         entry["verdict"] = gain_verdict(val["gain"], adjusted)
         # The linear proxy's gains are biased against augmentation: its sign
         # alone never calls a recipe harmful (LINEAR_PROXY_NOTE).
-        entry["flagged"] = entry["verdict"] == "loses" and scoring.name != "linear"
+        entry["flagged"] = entry["verdict"] == "loses" and not is_linear(scoring.name)
         entry["augmented_training_images"] = result["augmented_training_images"]
         entry["confirm"] = None
         entry["field"] = _short(result["scores"]["field"]) if "field" in base_scores else None
@@ -710,14 +715,18 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     repeats : int, default 5
         Training repeats per recipe, each with fresh augmentation draws and
         a fresh model seed.
-    model : {'linear', 'cnn'} or str or FeatureModel, default 'linear'
-        The model each arm trains (`augplan.evaluate.models`): ``'linear'``,
-        the proxy; ``'cnn'``, a small convolutional network (the ``cnn``
-        extra); ``'module:callable'``, the team's own training function; a
-        `FeatureModel` is the linear proxy with that template (picklable when
-        ``workers != 1``). Every result names it.
+    model : {'cnn', 'linear'} or str or FeatureModel, optional
+        The model each arm trains (`augplan.measure.models`): None (the
+        default) or ``'cnn'``, a small convolutional network (the ``cnn``
+        extra; without PyTorch the default falls back to the linear proxy,
+        named ``linear (network not installed)``, with a warning);
+        ``'linear'``, the quick proxy; ``'module:callable'``, the team's own
+        training function; a `FeatureModel` is the linear proxy with that
+        template (picklable when ``workers != 1``). Every result names it.
     size : int, default 64
-        Side images are downsized to (and augmented at).
+        The side images are read, augmented and trained at (``--side``);
+        larger images are reduced by area averaging. The document's
+        ``model.side`` says it.
     seed : int, default 0
         Every draw derives from ``(seed, recipe hash, repeat)``.
     workers : int, default 1
@@ -768,7 +777,7 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     data_key = fingerprint(dataset)
     settings_key = _settings_key(scoring, size, confirm_fraction, dataset)
     ledger_keys = dict(fingerprint=data_key, settings_key=settings_key, seed=seed, repeats=repeats)
-    assemble = dict(scoring=scoring, repeats=repeats, seed=seed, confirm_source=confirm_source,
+    assemble = dict(scoring=scoring, repeats=repeats, seed=seed, size=size, confirm_source=confirm_source,
                     n_unlabelled_field=n_unlabelled, confirm_ignored=confirm_ignored)
 
     base_scores, stored, missing, damaged = _scores(dataset, recipes, hashes, scoring, ledger_path, ledger_keys,

@@ -23,7 +23,7 @@ import math
 import re
 from pathlib import Path
 
-from augplan.evaluate.models import model_phrase
+from augplan.measure.models import model_phrase
 from augplan.measure.factors import FACTORS
 from augplan.render.text import factor_range
 from augplan.results import range_text

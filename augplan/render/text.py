@@ -2,7 +2,7 @@
 
 import textwrap
 
-from augplan.evaluate.models import model_phrase
+from augplan.measure.models import model_phrase
 from augplan.measure.factors import FACTORS
 from augplan.results import range_text
 

@@ -22,7 +22,7 @@ from augplan.data.dataset import find_duplicates, fingerprint
 from augplan.errors import BadInputError
 from augplan.workspace import ensure_outside_data
 from augplan.evaluate.evaluate import BEST_RULE, best_recipe, evaluate_recipes, rank_key
-from augplan.evaluate.models import model_phrase, scoring_model
+from augplan.measure.models import model_phrase, scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
 from augplan.recipe.parse import recipe_hash, recipe_to_dict

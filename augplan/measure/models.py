@@ -1,8 +1,15 @@
-"""The models a recipe can be scored with: ``linear``, ``cnn`` or the team's own.
+"""The models a recipe can be scored with: ``cnn`` (the default), ``linear`` or the team's own.
 
 `scoring_model(spec)` turns the ``--model`` choice into one of three
 picklable descriptions, each with a ``name`` (which every result carries)
-and a ``settings()`` mapping (part of the results ledger's key):
+and a ``settings()`` mapping (part of the results ledger's key).
+
+The default is the network, ``cnn``: its gains rank recipes as a deeper
+network trained several times longer does, where the linear proxy's do not
+(``benchmarks/bench_transfer.py``; figures in the README). Where PyTorch is
+not installed the default falls back to the linear proxy, named
+``linear (network not installed)`` in every output, with a one-line warning
+(`FALLBACK_WARNING`), so nothing changes meaning silently.
 
 ``linear``
     `LinearProxy`: the feature model of `augplan.measure.model` (image
@@ -35,9 +42,17 @@ import numpy as np
 
 from augplan.errors import BadInputError
 
-__all__ = ["LinearProxy", "ConvNet", "TeamTrainer", "scoring_model", "model_phrase", "MODEL_CHOICES", "LINEAR_PROXY_NOTE"]
+__all__ = ["LinearProxy", "ConvNet", "TeamTrainer", "scoring_model", "model_phrase", "is_linear", "MODEL_CHOICES",
+           "LINEAR_PROXY_NOTE", "DEFAULT_MODEL", "FALLBACK_NAME", "FALLBACK_WARNING"]
 
-MODEL_CHOICES = "linear (default), cnn, or module:callable"
+DEFAULT_MODEL = "cnn"
+
+MODEL_CHOICES = "cnn (default, the network), linear (the quick proxy), or module:callable"
+
+FALLBACK_NAME = "linear (network not installed)"
+
+FALLBACK_WARNING = ("PyTorch is not installed: scored with the linear proxy instead of the default network "
+                    "(pip install 'augplan[cnn]' for the network)")
 
 LINEAR_PROXY_NOTE = ("scored with the linear proxy, whose gains are biased against augmentation: its order of "
                      "recipes is the evidence, not the sign of a gain; score with --model cnn (or your own "
@@ -57,9 +72,14 @@ class LinearProxy:
     """
 
     template: object = None
-    name: str = field(default="linear", init=False)
+    fallback: bool = False
     uses_features = True
     fresh_draws_each_epoch = False
+
+    @property
+    def name(self):
+        """``linear``, or `FALLBACK_NAME` when it stands in for a missing network."""
+        return FALLBACK_NAME if self.fallback else "linear"
 
     def __post_init__(self):
         if self.template is None:
@@ -78,9 +98,10 @@ class LinearProxy:
                 "estimator": None if estimator is None else repr(estimator)}
 
     def describe(self):
-        return {"name": self.name,
-                "description": "image features and a standardised logistic regression (the linear proxy)",
-                "note": LINEAR_PROXY_NOTE}
+        description = "image features and a standardised logistic regression (the linear proxy)"
+        if self.fallback:
+            description += ", standing in for the default network, which needs PyTorch"
+        return {"name": self.name, "description": description, "note": LINEAR_PROXY_NOTE}
 
 
 @dataclass(frozen=True)
@@ -109,8 +130,12 @@ class ConvNet:
 
         return ConvNetClassifier(**dict(self.params))
 
-    def train(self, images, labels, rng, draw):
-        return self.build().fit(images, labels, rng, draw=draw)
+    def train(self, images, labels, rng, draw, progress=None):
+        return self.build().fit(images, labels, rng, draw=draw, progress=progress)
+
+    def epochs(self, n_images):
+        """Epochs one fit on ``n_images`` takes (the progress bar's steps)."""
+        return self.build().training_epochs(n_images)[0]
 
     def settings(self):
         return {"name": self.name, **self.build().get_params()}
@@ -119,8 +144,9 @@ class ConvNet:
         params = self.build().get_params()
         return {"name": self.name,
                 "description": (f"a small convolutional network (torch, CPU): widths {list(params['widths'])}, "
-                                f"{params['epochs']} epochs (at least {params['min_steps']} steps), AdamW at "
-                                f"{params['learning_rate']:g}; fresh draws of every image each epoch"),
+                                f"{params['steps']} optimiser steps of {params['batch_size']} images (at least "
+                                f"{params['min_epochs']} epochs), AdamW at {params['learning_rate']:g}; fresh "
+                                f"draws of every image each epoch"),
                 "note": None}
 
 
@@ -195,9 +221,27 @@ class _CheckedPredictor:
         return predicted
 
 
+def is_linear(name):
+    """Whether a model name is the linear proxy's (``linear``, or `FALLBACK_NAME`)."""
+    return name in ("linear", FALLBACK_NAME)
+
+
 def model_phrase(name):
-    """How outputs name a scoring model: ``the linear proxy``, ``the cnn model``, ``the model pkg:fit``."""
+    """How outputs name a scoring model: ``the linear proxy``, ``the cnn model``, ``the model pkg:fit``.
+
+    The fallback for a missing network reads ``the linear proxy (network not installed)``.
+    """
+    if name == FALLBACK_NAME:
+        return "the linear proxy (network not installed)"
     return "the linear proxy" if name == "linear" else f"the {name} model" if name == "cnn" else f"the model {name}"
+
+
+def _torch_available():
+    try:
+        import augplan.measure.convnet  # noqa: F401
+    except ImportError:
+        return False
+    return True
 
 
 def scoring_model(spec=None):
@@ -206,12 +250,15 @@ def scoring_model(spec=None):
     Parameters
     ----------
     spec : str, FeatureModel, LinearProxy, ConvNet, TeamTrainer or None
-        ``"linear"`` (and None), ``"cnn"``, ``"module:callable"``; a
-        `FeatureModel` is the linear proxy with that template.
+        None (the default, `DEFAULT_MODEL`), ``"cnn"``, ``"linear"``,
+        ``"module:callable"``; a `FeatureModel` is the linear proxy with
+        that template.
 
     Returns
     -------
     LinearProxy, ConvNet or TeamTrainer
+        For None without PyTorch: the linear proxy with ``fallback=True``
+        (named `FALLBACK_NAME`; the caller warns with `FALLBACK_WARNING`).
 
     Raises
     ------
@@ -221,7 +268,9 @@ def scoring_model(spec=None):
     """
     if isinstance(spec, (LinearProxy, ConvNet, TeamTrainer)):
         return spec
-    if spec is None or spec == "linear":
+    if spec is None:
+        return ConvNet() if _torch_available() else LinearProxy(fallback=True)
+    if spec == "linear":
         return LinearProxy()
     if spec == "cnn":
         return ConvNet()
