@@ -218,6 +218,9 @@ def _build_parser():
     _workers(p, ship_images=False)
     p.add_argument("-o", "--output", type=Path, default=Path("augplan-demo-output"),
                    help="output folder (default ./augplan-demo-output, replaced)")
+    p.add_argument("--model", default=None, metavar="NAME",
+                   help="model the demo's recipes are scored and confirmed with (default: cnn, the network; "
+                        "linear: the quick proxy)")
     return parser
 
 
@@ -512,7 +515,7 @@ def _run_history(args, console):
 def _run_demo(args, console):
     from augplan.demo import run_demo
 
-    summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet)
+    summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet, model=args.model)
     _say_vetted(console, args, summary)
     return ExitCode.FLAGGED if summary.flagged else ExitCode.OK  # as vet exits
 

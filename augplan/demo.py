@@ -322,13 +322,14 @@ def read_demo_recipes():
     return recipes
 
 
-def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
+def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5, model=None):
     """Vet the demo recipes on the demo scenario; the output folder is replaced.
 
     Uses the checkout's ``demo_images/`` when it is there; otherwise (an
     installed package) the scenario is drawn into a temporary folder first,
     the same images `make_demo_dataset` always draws. The recipes ship in
-    the package (`read_demo_recipes`).
+    the package (`read_demo_recipes`). ``model`` is `augplan.vet.vet_recipes`'s
+    (None: the default model).
 
     Returns
     -------
@@ -349,7 +350,8 @@ def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5):
             root = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="augplan-demo-"))) / "demo_images"
             make_demo_dataset(root)
         return vet_recipes(open_dataset(root), recipes, out_dir, replace=True, repeats=repeats, seed=seed,
-                           workers=workers, quiet=quiet, ledger_path=ledger, cache_dir=ledger.parent / "features")
+                           workers=workers, quiet=quiet, ledger_path=ledger, cache_dir=ledger.parent / "features",
+                           model=model)
 
 
 def main(argv=None):

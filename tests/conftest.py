@@ -120,3 +120,16 @@ def run_cli(capsys):
         return CliResult(int(code), captured.out, captured.err)
 
     return run
+
+
+@pytest.fixture(autouse=True)
+def quick_default_model(request, monkeypatch):
+    """Tests of other things run on the quick linear proxy where no model is named.
+
+    The default model is the network (`augplan.measure.models.DEFAULT_MODEL`);
+    a network fit costs seconds, so tests that do not test the model choice
+    score with the linear proxy. Tests marked ``network_default`` keep the
+    real default.
+    """
+    if request.node.get_closest_marker("network_default") is None:
+        monkeypatch.setattr("augplan.measure.models.DEFAULT_MODEL", "linear")

@@ -114,7 +114,7 @@ def test_the_network_scores_the_same_on_cluster(cluster, recipe, tmp_path):
     from augplan.recipe.parse import read_recipe
 
     # A short network: the point is the execution layer, not the network's accuracy.
-    model = ConvNet(params=(("widths", (4, 8)), ("epochs", 5), ("min_steps", 20)))
+    model = ConvNet(params=(("widths", (4, 8)), ("steps", 20), ("min_epochs", 5)))
     dataset = open_dataset(_fresh_data(tmp_path))
     runs = [evaluate_recipes(dataset, [read_recipe(recipe)], repeats=2, seed=3, size=16, cache_dir=False,
                              model=model, workers=workers)

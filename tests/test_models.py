@@ -24,7 +24,7 @@ from test_evaluate import FLIPS, PER_CLASS, SIZE, SMALL_AFFINE, _by_name
 
 # A network small and short enough for the suite (about a second a fit on
 # 150 digits); the defaults are measured in benchmarks/bench_transfer.py.
-SMALL_CNN = ConvNet(params=(("widths", (8, 16)), ("epochs", 10), ("min_steps", 60)))
+SMALL_CNN = ConvNet(params=(("widths", (8, 16)), ("steps", 60), ("min_epochs", 1)))
 TEAM = "team_training:fit_nearest_mean"
 
 
@@ -48,7 +48,7 @@ def test_model_choice_names_its_model(spec, kind, name):
 
 
 @pytest.mark.parametrize("spec, fault", [
-    ("svm", "--model must be linear (default), cnn, or module:callable; got 'svm'"),
+    ("svm", "--model must be cnn (default, the network), linear (the quick proxy), or module:callable; got 'svm'"),
     ("no_such_module_here:train", "cannot import module 'no_such_module_here'"),
     ("team_training:no_such_function", "module 'team_training' has no callable 'no_such_function'"),
     ("team_training:CALLS", "module 'team_training' has no callable 'CALLS'"),
@@ -148,7 +148,7 @@ def test_the_network_finds_flipped_digits_harmful(cnn_comparison):
 
 def test_the_network_sees_fresh_draws_every_epoch(cnn_comparison):
     # Every image once per epoch, per repeat: the epochs of SMALL_CNN on 150
-    # images (3 batches) are raised to reach min_steps = 60, i.e. 20 epochs.
+    # images (3 batches) take 60 optimiser steps, i.e. 20 epochs.
     flips = _by_name(cnn_comparison)["flips"]
     assert flips["augmented_training_images"] == 2 * 20 * 10 * PER_CLASS["train"]
     assert cnn_comparison["model"]["name"] == "cnn"
@@ -157,7 +157,7 @@ def test_the_network_sees_fresh_draws_every_epoch(cnn_comparison):
 def test_the_network_gives_the_same_json_for_one_seed_across_worker_counts(digits_data):
     recipe = Recipe(name="affine-1", copies=1, transforms=SMALL_AFFINE.transforms)
     # Shorter still: the point is the determinism, not the accuracy.
-    model = ConvNet(params=(("widths", (4, 8)), ("epochs", 3), ("min_steps", 10)))
+    model = ConvNet(params=(("widths", (4, 8)), ("steps", 10), ("min_epochs", 3)))
     texts = [json.dumps(evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=5,
                                          workers=workers, cache_dir=False, model=model), sort_keys=True)
              for workers in (1, 2)]

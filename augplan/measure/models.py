@@ -269,6 +269,8 @@ def scoring_model(spec=None):
     if isinstance(spec, (LinearProxy, ConvNet, TeamTrainer)):
         return spec
     if spec is None:
+        if DEFAULT_MODEL != "cnn":
+            return scoring_model(DEFAULT_MODEL)
         return ConvNet() if _torch_available() else LinearProxy(fallback=True)
     if spec == "linear":
         return LinearProxy()

@@ -261,7 +261,7 @@ def _verdict_sentence(recipe_entries, evaluation, best, top):
 
 
 def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5, sample=None, seed=0,
-                workers=1, quiet=True, ledger_path=None, cache_dir=None, replace=False, model=None):
+                workers=1, quiet=True, ledger_path=None, cache_dir=None, replace=False, model=None, size=64):
     """Vet recipes end to end and write the report, vetted recipes and evidence.
 
     Parameters
@@ -280,8 +280,11 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         Passed to the check, coverage and evaluation steps.
     model : str, optional
         The model recipes are scored with (`augplan.evaluate.evaluate_recipes`'s
-        ``model``): ``'linear'`` (default), ``'cnn'`` or ``'module:callable'``.
-        The label-safety check always uses the linear proxy.
+        ``model``): None (the default network, ``'cnn'``), ``'linear'`` or
+        ``'module:callable'``. The label-safety check trains it as the first
+        witness of a break; its screen and safety test use the linear proxy.
+    size : int, default 64
+        The side images are read and trained at (``--side``).
 
     Returns
     -------
@@ -300,7 +303,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         if recipe.source is not None and _inside(Path(recipe.source), out_dir):
             raise BadInputError(f"{recipe.source}: the recipe lies inside the output folder {out_dir}, "
                                 "whose files vet replaces; choose another output folder.")
-    settings = dict(sample=sample, seed=seed, workers=workers, quiet=quiet)
+    settings = dict(sample=sample, seed=seed, workers=workers, quiet=quiet, model=scoring, size=size)
     with tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
         scratch = Path(scratch)
         entries, vetted_recipes = [], []
@@ -313,7 +316,8 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         _stage(quiet, "scoring every recipe and its vetted form against no augmentation")
         to_score = list(recipes) + [v for v, e in zip(vetted_recipes, entries) if not e["vetted"]["unchanged"]]
         evaluation = evaluate_recipes(dataset, to_score, repeats=repeats, seed=seed, workers=workers,
-                                      quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir, model=scoring)
+                                      quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir, model=scoring,
+                                      size=size)
         scores = {row["name"]: row for row in evaluation["recipes"]}
         for entry, vetted in zip(entries, vetted_recipes):
             entry["vetted"]["score"] = scores[vetted.name]
