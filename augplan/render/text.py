@@ -2,7 +2,7 @@
 
 import textwrap
 
-from augplan.measure.models import model_phrase
+from augplan.measure.models import is_linear, model_phrase
 from augplan.measure.factors import FACTORS
 from augplan.results import range_text
 
@@ -192,7 +192,7 @@ def _verdict_text(row, model_name):
     """The verdict column (`VERDICT_RULE`'s word); the linear proxy's loss is not called harm."""
     verdict = row.get("verdict", "")
     if verdict == "loses":
-        return "LOSES" if row["flagged"] else "lower (proxy)" if model_name == "linear" else "loses"
+        return "LOSES" if row["flagged"] else "lower (proxy)" if is_linear(model_name) else "loses"
     return verdict
 
 

@@ -22,7 +22,7 @@ from augplan.data.dataset import find_duplicates, fingerprint
 from augplan.errors import BadInputError
 from augplan.workspace import ensure_outside_data
 from augplan.evaluate.evaluate import BEST_RULE, best_recipe, evaluate_recipes, rank_key
-from augplan.measure.models import model_phrase, scoring_model
+from augplan.measure.models import is_linear, model_phrase, scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
 from augplan.recipe.parse import recipe_hash, recipe_to_dict
@@ -228,7 +228,7 @@ def _verdict_sentence(recipe_entries, evaluation, best, top):
     if best is None:
         where = "validation or the labelled field sample" if has_field else "validation"
         lead = f"No recipe beat no augmentation on {where}, scored with {phrase}"
-        if model["name"] == "linear":
+        if is_linear(model["name"]):
             lead += (" (whose gains are biased against augmentation: this is not evidence of harm; its order "
                      f"puts {top['name']} first; score with --model cnn before deciding)")
         else:
