@@ -88,6 +88,9 @@ def check_table(result):
     model = result["model"]
     head = (f"recipe {result['recipe']}: proxy model cross-validated accuracy "
             f"{model['cv_accuracy']:.2f} (chance {model.get('chance', float('nan')):.2f})")
+    if model.get("confirmation"):
+        head += (f"; swaps confirmed by {model_phrase(model['confirmation'])} trained on replaced images, "
+                 f"at {model.get('side', '?')} px")
     table = format_table(["#", "transform", "verdict", "decided by", "moved [95% CI]", "safe limit"], rows)
     notes = []
     for t in result["transforms"]:
