@@ -97,10 +97,11 @@ REFERENCE_WIDTHS = (16, 32, 64)
 REFERENCE_STEP_FACTOR = 2
 
 
-def _models():
+def _models(reference_repeats=2):
     defaults = ConvNetClassifier().get_params()
     reference = (("widths", REFERENCE_WIDTHS), ("steps", REFERENCE_STEP_FACTOR * defaults["steps"]))
-    return {"default": (None, 3), "linear": ("linear", 3), "reference": (ConvNet(params=reference), 2)}
+    return {"default": (None, 3), "linear": ("linear", 3),
+            "reference": (ConvNet(params=reference), reference_repeats)}
 
 
 def _table(name, document):
@@ -144,6 +145,7 @@ def main(argv=None):
     parser.add_argument("--data", nargs="+", choices=("digits", "fashion"), default=["digits", "fashion"])
     parser.add_argument("--models", nargs="+", choices=("default", "linear", "reference"),
                         default=["default", "linear", "reference"])
+    parser.add_argument("--reference-repeats", type=int, default=2)
     parser.add_argument("--store", type=Path, default=None,
                         help="folder keeping each run's JSON (DATA-MODEL.json); the comparison uses the stored "
                              "runs of models not run now, so the three can run as separate processes")
@@ -156,7 +158,7 @@ def main(argv=None):
             print(f"{data_name}: {counts['train']} training and {counts['val']} validation images at "
                   f"{SIZE}x{SIZE}, {len(RECIPES)} recipes", flush=True)
             documents = {}
-            for name, (model, repeats) in _models().items():
+            for name, (model, repeats) in _models(args.reference_repeats).items():
                 stored = None if args.store is None else args.store / f"{data_name}-{name}.json"
                 if name not in args.models:
                     if stored is not None and stored.is_file():
