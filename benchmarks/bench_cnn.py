@@ -9,6 +9,9 @@ peak memory of this process and of the largest worker.
 
 Run: ``.venv/bin/python benchmarks/bench_cnn.py [--workers 2] [--sides 32 64] [--linear]``
 (``--linear`` also times the linear proxy on the same data, for the ratio).
+``--one-fit`` instead times one fit of the network in this process, with a
+recipe's fresh draws every epoch, in CPU seconds (`time.process_time`), which
+a machine shared with other work inflates far less than wall time.
 """
 
 import argparse
@@ -26,12 +29,46 @@ REPEATS = 3
 TARGETS = {32: 120.0, 64: 300.0}
 
 
+def one_fit(sides, n_train=2000):
+    """CPU seconds of one default fit on ``n_train`` images, per side, with a recipe's draws each epoch."""
+    import numpy as np
+
+    from augplan.augment.transforms import augment_batch
+    from augplan.data.dataset import load_images
+
+    recipe = RECIPES[-1]
+    for side in sides:
+        with tempfile.TemporaryDirectory() as scratch:
+            dataset = write_dataset(Path(scratch) / "DATA", n_train, 10, size=side)
+            records = dataset.split("train")
+            images = load_images(records, side)
+            labels = np.array([r.label for r in records])
+
+        def draw(batch, batch_labels, rng):
+            generators = rng.spawn(len(batch))
+            drawn, new_labels = augment_batch(batch, recipe, generators, list(batch_labels), 1)
+            return drawn, np.asarray(new_labels)
+
+        model = ConvNetClassifier()
+        wall, cpu = time.perf_counter(), time.process_time()
+        model.fit(images, labels, np.random.default_rng(0), draw=draw)
+        wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
+        presentations = model.steps_ * model.batch_size
+        print(f"{side} px: one fit on {n_train} images, recipe {recipe.name!r}: {model.steps_} steps "
+              f"({model.epochs_} epochs), {cpu:.1f} CPU s ({wall:.1f} s wall); "
+              f"{cpu / (presentations / 1000):.2f} CPU s per thousand images and epoch", flush=True)
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--sides", type=int, nargs="+", default=[32, 64])
     parser.add_argument("--linear", action="store_true")
+    parser.add_argument("--one-fit", action="store_true")
     args = parser.parse_args(argv)
+    if args.one_fit:
+        one_fit(args.sides)
+        return 0
     n_train = 2000
     epochs = ConvNetClassifier().training_epochs(n_train)[0]
     fits = (len(RECIPES) + 1) * REPEATS

@@ -122,14 +122,25 @@ def run_cli(capsys):
     return run
 
 
-@pytest.fixture(autouse=True)
-def quick_default_model(request, monkeypatch):
+@pytest.fixture(autouse=True, scope="session")
+def quick_default_model():
     """Tests of other things run on the quick linear proxy where no model is named.
 
     The default model is the network (`augplan.measure.models.DEFAULT_MODEL`);
     a network fit costs seconds, so tests that do not test the model choice
-    score with the linear proxy. Tests marked ``network_default`` keep the
-    real default.
+    score with the linear proxy. Session-wide, so fixtures of any scope see
+    it; tests marked ``network_default`` get the real default back
+    (`network_default`).
     """
-    if request.node.get_closest_marker("network_default") is None:
-        monkeypatch.setattr("augplan.measure.models.DEFAULT_MODEL", "linear")
+    import augplan.measure.models as models
+
+    real = models.DEFAULT_MODEL
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(models, "DEFAULT_MODEL", "linear")
+        yield real
+
+
+@pytest.fixture(autouse=True)
+def network_default(request, quick_default_model, monkeypatch):
+    if request.node.get_closest_marker("network_default") is not None:
+        monkeypatch.setattr("augplan.measure.models.DEFAULT_MODEL", quick_default_model)
