@@ -111,8 +111,8 @@ def _keep_unverified(adapted, widened, checked_changes):
     for change, step in zip(checked_changes, widened.transforms):
         if change["action"] == "remove" and change["verdict"] == "unverified":
             change["action"] = "keep"
-            change["detail"] = ("unverified, kept from the start: the check could not vouch for it; "
-                                "'augplan vet' removes it unless a person approves it (--approve)")
+            change["detail"] = ("unverified, kept: the check could not vouch for it; 'augplan vet' "
+                                "removes it unless a person approves it (--approve)")
             steps.append(step)
         elif change["action"] != "remove":
             steps.append(next(vetted_steps))
