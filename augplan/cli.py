@@ -438,16 +438,13 @@ def _run_draft(args, console):
 
         text = draft_recipe_text(dataset, name=args.name or "draft", seed=args.seed, quiet=args.quiet)
     else:
-        from augplan.vet.start import draft_from_start
+        from augplan.vet.start import change_text, draft_from_start
 
         drafted = draft_from_start(dataset, start, name=args.name, seed=args.seed, sample=args.sample,
                                    workers=_execution(args), quiet=args.quiet)
         text = drafted.text
         for change in drafted.changes:  # stderr when the draft itself goes to standard output
-            where = f"transform {change['index'] + 1}" if change["index"] is not None else "new"
-            console._write(sys.stderr if to_stdout else sys.stdout,
-                           f"from {start.name}: {where} ({change['op']}) [{change['verdict']}]: "
-                           f"{change['detail']}\n")
+            console._write(sys.stderr if to_stdout else sys.stdout, f"from {start.name}: {change_text(change)}\n")
     if to_stdout:  # "-" writes standard output; the note goes to stderr
         console._write(sys.stdout, text)
         print("augplan: drafted a recipe on standard output; run 'augplan check' on it before use",

@@ -30,7 +30,7 @@ from augplan.recipe.parse import Transform, check_recipe_classes, dump_recipe, p
 from augplan.results import range_text
 from augplan.vet.vetted_file import vet_transforms
 
-__all__ = ["StartedDraft", "draft_from_start", "widen_lighting"]
+__all__ = ["StartedDraft", "draft_from_start", "widen_lighting", "change_text"]
 
 _LIGHTING = ("brightness", "contrast")
 
@@ -159,10 +159,14 @@ def _header(start, n_train, n_field, changes):
              "# A proposal, not a verdict: run 'augplan vet' before use. The starting recipe's",
              "# comments say why each transform is there and which are left out on purpose.",
              "# Changed from the start (label-safety verdict in brackets):"]
-    for change in changes:
-        where = f"transform {change['index'] + 1}" if change["index"] is not None else "new"
-        lines.append(f"#   {where} ({change['op']}) [{change['verdict']}]: {change['detail']}")
+    lines += [f"#   {change_text(change)}" for change in changes]
     return "\n".join(lines) + "\n"
+
+
+def change_text(change):
+    """One change of a `StartedDraft` in words: ``transform 2 (flip) [breaks]: applied only to ...``."""
+    where = f"transform {change['index'] + 1}" if change["index"] is not None else "new"
+    return f"{where} ({change['op']}) [{change['verdict']}]: {change['detail']}"
 
 
 def draft_from_start(dataset, start, *, name=None, seed=0, sample=None, size=64, workers=1, quiet=True):
