@@ -19,7 +19,6 @@ their input back, on a 1 x 1 image.
 from __future__ import annotations
 
 import argparse
-import dataclasses
 import resource
 import statistics
 import time
@@ -215,7 +214,7 @@ def main(argv=None):
     # checks, probability and magnitude draws and the loop (on a 1 x 1
     # image, so the copy of an untouched input costs nothing).
     lean = Augmenter(parse_recipe(FIVE_OP_RECIPE))
-    lean._plan = tuple(dataclasses.replace(step, kernel=lambda img, value, border, gen: img) for step in lean._plan)
+    lean._plan = tuple(step._replace(kernel=lambda img, value, border, gen: img) for step in lean._plan)
     overhead, _ = compare(lambda img, gen: lean.apply(img, None, gen), lambda img, gen: None,
                           image[:1, :1].copy(), rng, args.rounds, 0.05)
     print(f"augmenter per-call overhead (validation, scope checks, draws; kernels stubbed): "
