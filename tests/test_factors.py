@@ -254,3 +254,20 @@ def test_hue_at_64_px_or_more_uses_every_second_pixel_and_stays_near_all_pixels(
     assert abs((value - _weighted_mean_hue(batch[0, ::2, ::2]) + 180) % 360 - 180) < 1e-3
     # The docstring's bound on the difference from all pixels: 7.2 degrees.
     assert abs((value - _weighted_mean_hue(batch[0]) + 180) % 360 - 180) <= 7.2
+
+
+def test_framing_thresholds_are_skimage_otsu_to_the_bit():
+    # skimage.filters.threshold_otsu is the reference; the batch computation
+    # promises its thresholds bit for bit. scikit-image's sample photographs
+    # (crops of 48 x 48 over several scales and positions) and images of four
+    # grey levels, whose pixels sit exactly on histogram edges.
+    from skimage.filters import threshold_otsu
+    from augplan.imaging.colour import relative_luminance
+
+    crops = [np.ascontiguousarray(source[top:top + 48, left:left + 48])
+             for source in (skimage.data.astronaut(), skimage.data.coffee(), skimage.data.chelsea())
+             for top, left in ((0, 0), (100, 37), (200, 150), (250, 251))]
+    levels = np.random.default_rng(5).integers(0, 4, (4, 48, 48, 3)).astype(np.uint8) * 60
+    lum = relative_luminance(np.concatenate([np.stack(crops), levels]))
+    expected = np.array([threshold_otsu(image) for image in lum])
+    assert np.array_equal(factors._otsu_thresholds(lum), expected)
