@@ -632,3 +632,16 @@ def test_evidence_captions_name_the_magnitude(op, params, magnitude, caption):
     from augplan.check.check import _magnitude_caption
 
     assert _magnitude_caption(Transform(op, params), magnitude) == caption
+
+
+def test_region_reference_keeps_small_classes_whole_and_draws_large_ones():
+    from augplan.check.check import reference_rows
+
+    labels = np.repeat([0, 1, 2], [5, 40, 12])
+    rows = reference_rows(labels, 3, 10, seed=3)
+    counts = np.bincount(labels[rows], minlength=3)
+    assert counts.tolist() == [5, 10, 10]
+    assert set(np.flatnonzero(labels == 0)) <= set(rows)
+    assert np.all(np.diff(rows) > 0)
+    assert np.array_equal(rows, reference_rows(labels, 3, 10, seed=3))
+    assert not np.array_equal(rows, reference_rows(labels, 3, 10, seed=4))
