@@ -187,7 +187,8 @@ class TeamTrainer:
             raise BadInputError(f"--model {self.spec}: module {module_name!r} has no callable {attribute!r}")
         return function
 
-    def train(self, images, labels, rng, draw=None):
+    def train(self, images, labels, rng, draw=None, progress=None):
+        # ``draw`` and ``progress`` are the network's; the team's function takes neither.
         trained = self.function()(images, labels, rng)
         if not callable(getattr(trained, "predict", None)):
             raise BadInputError(f"--model {self.spec}: the training function must return an object with "
