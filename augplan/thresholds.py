@@ -21,6 +21,9 @@ __all__ = [
     "EQUIVALENCE_MARGIN",
     "CONFIRM_CONFIDENCE",
     "TURN_DEGREES",
+    "SWAP_WITNESS_MARGIN",
+    "TYPICAL_PERCENTILE",
+    "RELABEL_TYPICAL_SHARE",
     "ONE_VS_REST_THRESHOLD",
     "LINK_BROKEN_SHARE",
     "COVERAGE_NEIGHBOURS",
@@ -102,6 +105,32 @@ CONFIRM_CONFIDENCE = 0.90
 # A rotation by a fixed angle at least this large is a turn, which may swap
 # classes as a whole (common practice, no source).
 TURN_DEGREES = 45.0
+# The screen witnesses a swap A -> B when the lower Wilson 95% bound of the
+# share of A's transformed images that the out-of-fold proxy calls B exceeds
+# the share of A's held-out originals it calls B by more than this: a real
+# share of the class, never one image (one image of 60 has a lower bound of
+# 0.003). Chosen here, no source; the same ten points as PAIR_MARGIN. Measured
+# on scikit-learn's digits (60 a class, light ink, 32 px): the half turn's
+# 6 -> 9 and 9 -> 6 have lower bounds 0.94 and 0.35, the mirror's 3 -> 2 0.49,
+# the vertical flip's 2 -> 5 and 5 -> 2 0.63 and 0.82.
+SWAP_WITNESS_MARGIN = 0.10
+# A transformed image of A is *typical* of B when its distance to B's
+# originals (the check's region distance d_B) is at most this percentile of
+# the same distance for B's own held-out originals, so 75% of B's own are
+# typical by construction (common practice, no source: the upper quartile).
+TYPICAL_PERCENTILE = 75.0
+# A relabel A -> B is offered only when at least this share of A's
+# transformed images is typical of B, for every step of the swap (both
+# directions of a pair): typical for most of them, 0.15 below B's own 0.75.
+# Chosen here, no source. Calibration (linear proxy features, 32 px): true
+# swaps score 0.72-0.89 on printed letters turned half a turn (b q d p n u 6
+# 9; tests/printed_letters.py, 24-36 renderings a class), 0.78-0.88 on
+# mirrored arrows and 0.60-0.80 on a 120 degree hue turn of hue-coded discs
+# (synthetic, tests/test_invariance.py); false pairs whose moves both
+# witnesses confirmed score at most 0.56 one way (a -> e turned half a turn),
+# 0.10-0.12 for a turned handwritten 6 -> 9 (scikit-learn digits) and 0.00
+# for an upside-down dress -> trouser (Fashion-MNIST subset).
+RELABEL_TYPICAL_SHARE = 0.6
 
 # --- shortcut audit (augplan coverage, augplan check)
 # With more than two classes, a factor that tells one class from all the
