@@ -48,11 +48,11 @@ moved image of 60 never names a swap.
 
 A relabel writes labels for every draw, so it is held to a higher bar:
 it is offered only for a mirror or a fixed turn whose confirmed swaps
-close a cycle and only when, at every step ``A -> B``, at least
-``RELABEL_TYPICAL_SHARE`` of A's transformed images are *typical* of B
-(`typical_share`: no farther from B's originals than the
-``TYPICAL_PERCENTILE``-th percentile of B's own held-out originals), so
-in both directions of a pair. A turned letter that lands nearest another
+close a cycle and only when, at every step ``A -> B``, most of A's
+transformed images are *typical* of B (`typical_share`: no farther from
+B's originals than the ``TYPICAL_PERCENTILE``-th percentile of B's own
+held-out originals; the lower Wilson 95% bound of their share at least
+``RELABEL_TYPICAL_SHARE``), so in both directions of a pair. A turned letter that lands nearest another
 class without being one falls short, and its class is scoped out instead. It is safe when, for the originals-plus-copies model, no
 class's recall falls and no confusion rises by as much as the equivalence
 margin (upper bounds); anything else is unverified. A class with fewer than
@@ -137,10 +137,10 @@ DECISION_RULE = (
     "bound of the share of A's transformed images that the proxy calls B exceeds the share of A's "
     f"held-out originals it calls B by more than {SWAP_WITNESS_MARGIN:.2f} (a real share, never "
     "one image). A relabel is offered only for a mirror or a fixed turn whose confirmed swaps close "
-    f"a cycle and, at every step, at least {RELABEL_TYPICAL_SHARE:.2f} of A's transformed images "
-    "are typical of B (no farther from B's originals than the "
-    f"{TYPICAL_PERCENTILE:.0f}th percentile of B's own held-out originals), in both directions "
-    "of a pair; otherwise the class is scoped out. A transform is safe when, for the originals-plus-copies model, the upper bound of every class's "
+    "a cycle and, at every step, most of A's transformed images are typical of B (no farther "
+    f"from B's originals than the {TYPICAL_PERCENTILE:.0f}th percentile of B's own held-out "
+    f"originals; the lower Wilson 95% bound of their share at least {RELABEL_TYPICAL_SHARE:.2f}), "
+    "in both directions of a pair; otherwise the class is scoped out. A transform is safe when, for the originals-plus-copies model, the upper bound of every class's "
     f"recall fall and of every confusion rise are below {RECALL_MARGIN:.2f} (an equivalence "
     "test); otherwise it is unverified. Bounds are one-sided "
     f"95% bounds. A class with fewer than {MIN_EVIDENCE} "
@@ -208,7 +208,7 @@ def witness_holds(count, n, baseline, margin=SWAP_WITNESS_MARGIN):
 
     if n < MIN_EVIDENCE:
         return False
-    return wilson_interval(int(count), int(n))[0] > baseline + margin
+    return bool(wilson_interval(int(count), int(n))[0] > baseline + margin)
 
 
 def typical_share(ratios, own_ratios, percentile=TYPICAL_PERCENTILE):
@@ -733,14 +733,17 @@ def _run_confirmation(context, jobs, plans, screen, baseline, labels, workers, q
 
 
 def _screen_flows(plan, results, t_index, labels, baseline, positions):
-    """Swaps the screen witnessed: ``{(a, b): (share, count, n, typical)}``.
+    """Swaps the screen witnessed: ``{(a, b): (share, count, n, typical, typical_low)}``.
 
     At the grid value (among ``positions``) where the out-of-fold proxy
     calls the largest share of a's transformed images b; only flows that
     pass `witness_holds` against the share of a's held-out originals it
-    calls b count. ``typical`` is the `typical_share` of those transformed
-    images for b at that grid value.
+    calls b count. ``typical`` is the `typical_share` of a's transformed
+    images for b at that grid value and ``typical_low`` its lower Wilson 95%
+    bound.
     """
+    from augplan.measure.stats import wilson_interval
+
     source_labels = labels[plan.scope]
     n_classes = len(baseline.change)
     own = [baseline.geometry.held_out_ratios[labels == b, b] for b in range(n_classes)]
@@ -756,7 +759,8 @@ def _screen_flows(plan, results, t_index, labels, baseline, positions):
                 if (b != plan.expected[a] and share > flows.get((a, int(b)), (0.0,))[0]
                         and witness_holds(counts[b], len(votes), base[b])):
                     typical = typical_share(results[(t_index, position)][3][rows, b], own[b])
-                    flows[(a, int(b))] = (float(share), int(counts[b]), len(votes), typical)
+                    low = wilson_interval(int(round(typical * len(votes))), len(votes))[0]
+                    flows[(a, int(b))] = (float(share), int(counts[b]), len(votes), typical, low)
     return flows
 
 
@@ -857,10 +861,10 @@ def _suggestion(transform, checked, entries, passing, classes, typical):
     "breaks": it is offered only for ops that can swap classes, only where
     these moves close a cycle (``A -> B`` and ``B -> A``, or a hue turn's
     ``A -> B -> C -> A``), never for a one-way move, and only when at every
-    step of the cycle at least ``RELABEL_TYPICAL_SHARE`` of ``A``'s
-    transformed images are typical of ``B`` (``typical[(A, B)]``, see
-    `typical_share`): for a pair, in both directions. A class whose swap
-    falls short is scoped out instead.
+    step of the cycle most of ``A``'s transformed images are typical of
+    ``B``: ``typical[(A, B)]``, the lower Wilson 95% bound of their
+    `typical_share`, is at least ``RELABEL_TYPICAL_SHARE``; for a pair, in
+    both directions. A class whose swap falls short is scoped out instead.
     """
     main = {}
     for pair in sorted(passing, key=lambda p: -p.rise):
@@ -1066,8 +1070,8 @@ def _entry(t_index, transform, plan, screened, judged, classes, warnings):
                                "leave_rate_ci": [0.0, 1.0], "n": 0, "screen_swaps": {}})
     flows = summary.pop("screen_swaps")
     screen_swaps = sorted(({"from": classes[a], "to": classes[b], "rate": round(share, 4), "moved": moved, "n": n,
-                            "typical": round(typical, 4)}
-                           for (a, b), (share, moved, n, typical) in flows.items()),
+                            "typical": round(typical, 4), "typical_low": round(typical_low, 4)}
+                           for (a, b), (share, moved, n, typical, typical_low) in flows.items()),
                           key=lambda s: (-s["rate"], s["from"], s["to"]))
     entry = {"index": t_index, "op": transform.op, "params": _json_params(transform), **summary,
              "magnitudes": magnitudes, "screen_swaps": screen_swaps, "evidence_sheet": None}
@@ -1088,7 +1092,7 @@ def _entry(t_index, transform, plan, screened, judged, classes, warnings):
                      safe_limit=_safe_limit(plan, limits),
                      suggestion=None if verdict != "breaks" else
                      _suggestion(transform, checked, entries, passing, classes,
-                                 {pair: flow[3] for pair, flow in flows.items()}))
+                                 {pair: flow[4] for pair, flow in flows.items()}))
     return entry
 
 
