@@ -347,7 +347,7 @@ def test_swap_witness_is_a_real_share_by_scipys_wilson_bound(count, n, baseline)
 
     # scipy's Wilson score interval (Wilson 1927) as the outside reference.
     low = binomtest(count, n).proportion_ci(0.95, method="wilson").low
-    expected = n >= MIN_EVIDENCE and low > baseline + SWAP_WITNESS_MARGIN
+    expected = bool(n >= MIN_EVIDENCE and low > baseline + SWAP_WITNESS_MARGIN)
     assert witness_holds(count, n, baseline) is expected
     # One image of a class never witnesses a swap.
     assert not witness_holds(1, n, 0.0)
