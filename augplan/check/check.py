@@ -765,7 +765,7 @@ def _screen_flows(plan, results, t_index, labels, baseline, positions):
 
 
 def _witnessed(plan, results, t_index, range_index, labels, baseline, n_classes):
-    """``W[a, b]``: within the range, the screen saw a's transformed images land in b (`_screen_flows`)."""
+    """``W[a, b]``: within the range, the screen witnessed a's transformed images taking b's look (`_screen_flows`)."""
     positions = sorted({plan.values.index(v) for v in plan.ranges[range_index]})
     seen = np.zeros((n_classes, n_classes), dtype=bool)
     for a, b in _screen_flows(plan, results, t_index, labels, baseline, positions):
@@ -777,8 +777,9 @@ def _judge(labels, base_pred, predictions, n_classes, checked, weak, seen, rng):
     """Confirmation verdict of one range: (verdict, class entries, passing and other pairs).
 
     A pair breaks when the model trained on replaced images shows a rise of
-    the confusion ``B -> A`` that passes `pair_breaks` and the screen saw
-    A's transformed images land in B (``seen[A, B]``): two witnesses, so a
+    the confusion ``B -> A`` that passes `pair_breaks` and the screen
+    witnessed A's transformed images taking B's look (``seen[A, B]``,
+    `witness_holds`): two witnesses, so a
     proxy that merely fails on a look it was not trained on (a domain
     shift) cannot call a label changed. Safety is judged on the model
     trained with the originals plus copies, as a recipe is used.
