@@ -44,20 +44,22 @@ cannot call a label changed). The screen's witness is a real share
 (`witness_holds`): the lower Wilson 95% bound of the share of A's
 transformed images that the out-of-fold proxy calls B exceeds the share
 of A's held-out originals it calls B by ``SWAP_WITNESS_MARGIN``, so one
-moved image of 60 never names a swap.
+moved image of 60 never names a swap. A transform is safe when, for the
+originals-plus-copies model, no class's recall falls and no confusion rises
+by as much as the equivalence margin (upper bounds); anything else is
+unverified. A class with fewer than ``MIN_EVIDENCE`` images is "too few
+images to judge". When the feature model is weak nothing is called safe.
 
 A relabel writes labels for every draw, so it is held to a higher bar:
-it is offered only for a mirror or a fixed turn whose confirmed swaps
-close a cycle and only when, at every step ``A -> B``, most of A's
-transformed images are *typical* of B (`typical_share`: no farther from
-B's originals than the ``TYPICAL_PERCENTILE``-th percentile of B's own
-held-out originals; the lower Wilson 95% bound of their share at least
-``RELABEL_TYPICAL_SHARE``), so in both directions of a pair. A turned letter that lands nearest another
-class without being one falls short, and its class is scoped out instead. It is safe when, for the originals-plus-copies model, no
-class's recall falls and no confusion rises by as much as the equivalence
-margin (upper bounds); anything else is unverified. A class with fewer than
-``MIN_EVIDENCE`` images is "too few images to judge". When the feature
-model is weak nothing is called safe.
+it is offered only for a mirror or a fixed turn (of the image or of hue)
+whose confirmed swaps close a cycle and only when, at every step
+``A -> B``, most of A's transformed images are *typical* of B
+(`typical_share`: no farther from B's originals than the
+``TYPICAL_PERCENTILE``-th percentile of B's own held-out originals; the
+lower Wilson 95% bound of their share at least ``RELABEL_TYPICAL_SHARE``),
+so in both directions of a pair. A turned letter that lands nearest
+another class without being one falls short, and its class is scoped out
+instead.
 
 The safe limit applies the confirmation rule to ranges nested around the
 identity magnitude (the grid values within one, two, ... steps of it) and
@@ -136,13 +138,14 @@ DECISION_RULE = (
     "over pairs the model already confuses), and the screen witnessed it: the lower Wilson 95% "
     "bound of the share of A's transformed images that the proxy calls B exceeds the share of A's "
     f"held-out originals it calls B by more than {SWAP_WITNESS_MARGIN:.2f} (a real share, never "
-    "one image). A relabel is offered only for a mirror or a fixed turn whose confirmed swaps close "
-    "a cycle and, at every step, most of A's transformed images are typical of B (no farther "
-    f"from B's originals than the {TYPICAL_PERCENTILE:.0f}th percentile of B's own held-out "
-    f"originals; the lower Wilson 95% bound of their share at least {RELABEL_TYPICAL_SHARE:.2f}), "
-    "in both directions of a pair; otherwise the class is scoped out. A transform is safe when, for the originals-plus-copies model, the upper bound of every class's "
-    f"recall fall and of every confusion rise are below {RECALL_MARGIN:.2f} (an equivalence "
-    "test); otherwise it is unverified. Bounds are one-sided "
+    "one image). A transform is safe when, for the originals-plus-copies model, the upper bound of every "
+    f"class's recall fall and of every confusion rise are below {RECALL_MARGIN:.2f} (an "
+    "equivalence test); otherwise it is unverified. A relabel is offered only for a mirror or a "
+    "fixed turn (of the image or of hue) whose confirmed swaps close a cycle and, at every step, "
+    "most of A's transformed images are typical of B (no farther from B's originals than the "
+    f"{TYPICAL_PERCENTILE:.0f}th percentile of B's own held-out originals; the lower Wilson 95% "
+    f"bound of their share at least {RELABEL_TYPICAL_SHARE:.2f}), in both directions of a pair; "
+    "otherwise the class is scoped out. Bounds are one-sided "
     f"95% bounds. A class with fewer than {MIN_EVIDENCE} "
     "images is too few images to judge, never breaks; nothing is safe when the proxy is weak. "
     "A lighting move into a class that lighting alone singles out in the training data, while "
@@ -765,7 +768,7 @@ def _screen_flows(plan, results, t_index, labels, baseline, positions):
 
 
 def _witnessed(plan, results, t_index, range_index, labels, baseline, n_classes):
-    """``W[a, b]``: within the range, the screen witnessed a's transformed images taking b's look (`_screen_flows`)."""
+    """``W[a, b]``: within the range, the screen witnessed a's images taking b's look (`_screen_flows`)."""
     positions = sorted({plan.values.index(v) for v in plan.ranges[range_index]})
     seen = np.zeros((n_classes, n_classes), dtype=bool)
     for a, b in _screen_flows(plan, results, t_index, labels, baseline, positions):
