@@ -453,13 +453,15 @@ def _say_vetted(console, args, summary):
     if args.json:
         console.emit_json(summary.to_json())
     console.say(summary.verdict)
+    if summary.get("decision_note"):
+        console.say(summary["decision_note"])
     for item in summary.get("signoff") or []:
         console.say(f"sign-off needed: {item['recipe']} transform {item['index']} ({item['op']}): {item['detail']}")
     console.say(f"report: {summary.report}")
     if summary.vetted_recipe is not None:
         console.say(f"vetted recipe: {summary.vetted_recipe}")
     else:
-        console.say("no vetted-recipe.yaml: no recipe beat no augmentation (each recipe's vetted-NAME.yaml "
+        console.say("no vetted-recipe.yaml: no recipe clearly beat no augmentation (each recipe's vetted-NAME.yaml "
                     "is written beside the report)")
 
 
