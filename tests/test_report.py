@@ -95,7 +95,7 @@ def _evidence(tmp_path, *, class_a="chip-left", class_b="chip-right", name="tile
             {"index": 0, "op": "flip", "params": {"axis": "horizontal"}, "verdict": "breaks",
              "change_rate": 0.81, "change_rate_ci": [0.74, 0.86], "leave_rate": 0.02,
              "leave_rate_ci": [0.0, 0.05], "n": 80,
-             "swaps": [{"from": class_a, "to": class_b, "rate": 0.93, "n": 40}],
+             "swaps": [{"from": class_a, "to": class_b, "rate": 0.93, "moved": 37, "n": 40}],
              "classes": {class_a: {"verdict": "breaks", "change_rate": 0.93}},
              "magnitudes": [], "safe_limit": None,
              "suggestion": {"relabel": {class_a: class_b, class_b: class_a}}, "evidence_sheet": sheet},
@@ -290,6 +290,9 @@ def test_transform_table_has_one_row_per_transform(tmp_path):
     moved = next(i for i, name in enumerate(header) if name.startswith("moved"))
     assert rows[0][moved] == "81% (74\u201386%)"
     assert "chip-left \u2192 chip-right 93%" in rows[0][column["confirmed swaps"]]
+    # The count that moved, of the images checked: not the class size (issue: "120 images moved" for 36).
+    assert "37 of 40 images moved" in rows[0][column["confirmed swaps"]]
+    assert ", 40 images moved" not in rows[0][column["confirmed swaps"]]
     assert rows[1][column["safe limit"]] == "-10 to 10"
     assert rows[0][column["what vetting did"]].startswith("relabel")
     assert "keep" in rows[1][column["what vetting did"]]
@@ -582,3 +585,22 @@ def test_factor_histograms_are_one_figure_of_small_multiples(tmp_path):
     data = base64.b64decode(grids[0]["src"].split(",", 1)[1])
     with Image.open(io.BytesIO(data)) as image:
         assert image.format == "PNG" and image.mode == "P"  # palette: line art needs no more
+
+
+def test_the_shortcut_line_stands_beside_the_recommendation_on_the_first_screen(tmp_path):
+    # Issue 26, item 5: "the validation split carries the same shortcut" was only inside a
+    # collapsed section. The line comes from the evaluator's decision (augplan.evaluate.ranking).
+    from augplan.evaluate.ranking import decide
+
+    evidence = _with_summary_data(tmp_path)
+    rows = [{**row, "n_transforms": 2} for row in evidence["evaluation"]["recipes"]]
+    decision = decide(rows, val_shares_shortcut=["brightness"], n_field=30)
+    evidence["evaluation"].update(decided_on=decision.decided_on, ranking=list(decision.ranking),
+                                  val_shares_shortcut=["brightness"], decision_note=decision.note)
+    page = _parse(render_report(evidence))
+    first_table = next(i for i, (tag, _) in enumerate(page.tags) if tag == "table")
+    first_details = next(i for i, (tag, _) in enumerate(page.tags) if tag == "details")
+    line = _section_of(page, "decision")
+    assert _section_of(page, "verdict") < line < min(first_table, first_details)
+    assert "The validation split carries the same brightness shortcut" in page.all_text
+
