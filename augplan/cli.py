@@ -267,10 +267,11 @@ def _read_recipes(paths, dataset):
     return recipes
 
 
-def _report_dataset(console, dataset):
+def _report_dataset(console, dataset, *, result_says_val=False):
+    """Warnings about the data; the stand-in validation split only where the result does not say it itself."""
     for relpath, reason in dataset.skipped:
         console.warn(f"skipped {relpath}: {reason}")
-    if dataset.val_from_train:
+    if dataset.val_from_train and not result_says_val:
         console.warn(f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) "
                      "stands in for validation")
 
@@ -379,7 +380,7 @@ def _run_coverage(args, console):
     from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
-    _report_dataset(console, dataset)
+    _report_dataset(console, dataset, result_says_val=True)  # among the result's messages
     if args.plots is not None:
         _ensure_parent(args.plots, dataset)
     recipe = _read_recipes([args.recipe], dataset)[0]
@@ -396,7 +397,7 @@ def _run_evaluate(args, console):
     from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
-    _report_dataset(console, dataset)
+    _report_dataset(console, dataset, result_says_val=True)  # among the result's warnings
     leaks = _report_leaks(console, dataset)
     recipes = _read_recipes(args.recipe, dataset)
     ledger, cache = _stores(args, dataset, console)

@@ -385,3 +385,16 @@ def test_verdicts_never_contradict_the_gain_intervals(comparison):
             assert high < 0 and entry["p_holm"] < 0.05
         else:
             assert entry["p_holm"] >= 0.05
+
+
+def test_the_missing_val_folder_is_said_once(tmp_path, tiny_recipe, run_cli):
+    # Issue 27: the CLI said it and the result's warnings said it again.
+    import shutil
+
+    from conftest import write_tiny_dataset
+
+    root = write_tiny_dataset(tmp_path / "DATA", train=10)
+    shutil.rmtree(root / "val")
+    result = run_cli("evaluate", root, "--recipe", tiny_recipe, "--repeats", "1")
+    assert result.code in (0, 1), result.err
+    assert result.err.count("no val/ folder") == 1
