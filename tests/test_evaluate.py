@@ -210,7 +210,9 @@ def test_ledger_reuses_stored_results_and_lists_history(digits_data, cache_dir, 
     history = ledger.list_history(path, fingerprint=fingerprint(digits_data))
     assert [row["recipes"] for row in history] == [["affine-ledger"]] * 3
     assert [row["from_ledger"] for row in history] == [False, True, False]
-    assert history[0]["best_gain"] == pytest.approx(first["recipes"][0]["gain"])
+    # The ledger records the recommendation of the one rule (none when its interval spans zero).
+    assert history[0]["best_recipe"] == first["best"]
+    assert history[0]["best_gain"] == (None if first["best"] is None else pytest.approx(first["recipes"][0]["gain"]))
     assert ledger.list_history(path, fingerprint="0" * 64) == []
 
 
