@@ -242,6 +242,7 @@ def test_a_rejected_rewrite_falls_back_to_the_safe_limit():
     assert [step.params["degrees"] for step in result.transforms] == [(-10.0, 10.0), (-5.0, 5.0)]
     assert result.transforms[0].only is None  # the original step, clipped; not the rejected scope
     assert changes[1]["action"] == "clip" and "safe limit" in changes[1]["detail"]
+    assert changes[1].to_json()["clipped_to"] == [-10.0, 10.0]  # typed: the report formats the range
 
 
 def test_vetted_recipe_validates_against_the_shipped_schema(vetted):
