@@ -101,17 +101,18 @@ class Decision:
 def _note(source, shared, n_field):
     factors = ", ".join(shared)
     plural = "s" if len(shared) > 1 else ""
+    it = "them" if len(shared) > 1 else "it"
     if source == "field":
         images = f" ({n_field} images)" if n_field else ""
         text = (f"The labelled field sample{images} decides the recommendation; validation comes second and "
                 "breaks ties")
         if shared:
             text += (f". The validation split carries the same {factors} shortcut{plural} as the training set, "
-                     f"so validation cannot show the gain of a recipe that breaks it")
+                     f"so validation cannot show the gain of a recipe that breaks {it}")
         return text + "."
     if shared:
         return (f"The validation split carries the same {factors} shortcut{plural} as the training set: "
-                "validation cannot reveal whether a recipe breaks it, so these scores cannot show that gain. "
+                f"validation cannot reveal whether a recipe breaks {it}, so these scores cannot show that gain. "
                 "Collect a labelled field sample (DATA/field/<class>/ or --field) and score again.")
     return "Validation decides the recommendation (no labelled field sample was given)."
 
