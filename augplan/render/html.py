@@ -954,7 +954,8 @@ def _evidence_source(evidence):
     evaluation = evidence.get("evaluation") or {}
     model = evaluation.get("model")
     model_text = model_phrase((model.get("name") if isinstance(model, dict) else model) or "linear")
-    recommended = _recommended_row(evidence) or {}
+    # The recommended row, else the top-ranked one: the field sample is named whether or not one is recommended.
+    recommended = _recommended_row(evidence) or next(iter(_ranked_rows(evidence)), None) or {}
     parts = []
     field = recommended.get("field") or {}
     if _is_number(field.get("gain")):
@@ -1015,7 +1016,8 @@ def _ranked_rows(evidence):
 
 def _per_class_section(evidence):
     evaluation = evidence.get("evaluation") or {}
-    recommended = _recommended_row(evidence)
+    # The recommended recipe, or (when none is recommended) the top-ranked one, named: never "recommended".
+    recommended = _recommended_row(evidence) or next(iter(_ranked_rows(evidence)), None)
     baseline = (evaluation.get("baseline") or {}).get("per_class_recall")
     data = evidence.get("data") or {}
     classes = list(data.get("classes") or (baseline or {}).keys())
@@ -1032,7 +1034,7 @@ def _per_class_section(evidence):
         rows.append([_e(label), _number(n.get("train")), _number(n.get("val")), _number(n.get("field")),
                      _percent(base, 1), _percent(new, 1), change])
     head = ["class", "train images", "validation images", "field images", "recall, no augmentation",
-            f"recall, {_e(name) if name else 'recommended recipe'}", "change, points"]
+            f"recall, {_e(name) if name else 'recipe'}", "change, points"]
     return ('<section id="per-class"><h2>Per class, on validation</h2>'
             '<p class="note">Recall is the share of a class\'s validation images predicted as that class, '
             "averaged over the training repeats.</p>"
