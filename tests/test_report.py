@@ -604,3 +604,14 @@ def test_the_shortcut_line_stands_beside_the_recommendation_on_the_first_screen(
     assert _section_of(page, "verdict") < line < min(first_table, first_details)
     assert "The validation split carries the same brightness shortcut" in page.all_text
 
+
+
+def test_with_nothing_recommended_no_table_says_recommended(tmp_path):
+    # Issue 26, item 7: one voice; the top-ranked recipe is named, never called recommended.
+    evidence = _with_summary_data(tmp_path)
+    evidence["best"] = None
+    page = _parse(render_report(evidence))
+    assert page.table_with("recall, no augmentation")[0][5] == "recall, tiles-draft-vetted"
+    assert "recommended:" not in page.all_text
+    assert all("recommended" not in row[-1] for row in page.table_with("p (Holm)")[1:])
+    assert "the labelled field sample (30 images) and validation" in page.all_text
