@@ -322,3 +322,22 @@ def test_vet_with_the_teams_model_names_it_everywhere(tiny_dataset, tiny_recipe,
     assert "team_training:fit_nearest_mean" in (out / "report.html").read_text(encoding="utf-8")
     # vetted-recipe.yaml exists exactly when a recipe beat no augmentation.
     assert (out / "vetted-recipe.yaml").is_file() == (summary["best"] is not None)
+
+
+def test_every_output_of_vet_says_which_evidence_decided(vetted):
+    # Issue 26, item 1: the evaluator's decision (augplan.evaluate.ranking) reaches every output of vet.
+    import html
+
+    import yaml
+
+    _, out, _ = vetted
+    note = _vet_json(out)["decision_note"]
+    assert note.startswith("The labelled field sample (")  # the demo data carry a labelled field sample
+    evidence = json.loads((out / "evidence.json").read_text())
+    assert evidence["evaluation"]["decision_note"] == note
+    assert evidence["ranking"] == evidence["evaluation"]["ranking"]
+    assert f'id="decision">{html.escape(note)}</p>' in (out / "report.html").read_text(encoding="utf-8")
+    vetted_file = yaml.safe_load((out / "vetted-naive-draft.yaml").read_text(encoding="utf-8"))
+    assert vetted_file["evidence"]["decided_on"] == "field"
+    assert (vetted_file["evidence"].get("validation_note") == note) == bool(
+        evidence["evaluation"]["val_shares_shortcut"])

@@ -422,6 +422,10 @@ def _vetted_evidence(entry, vetted, evaluation, header, seed, classes):
     if field.get("gain") is not None:
         evidence["field"] = {"gain": field["gain"], "gain_ci": field["gain_ci"],
                              "n_images": field.get("n_images")}
+    # Which evidence decided (BEST_RULE) and what validation can show, as every output of vet says it.
+    evidence["decided_on"] = evaluation["decided_on"]
+    if evaluation["val_shares_shortcut"]:
+        evidence["validation_note"] = evaluation["decision_note"]
     evidence["classes"] = list(classes)
     signoff = [f"{item['index']} {item['op']}: {item['detail']}" for item in entry["vetted"]["signoff"]]
     if signoff:
