@@ -683,6 +683,11 @@ def _shared_shortcuts(dataset, splits, size, seed, workers, quiet, cache_dir):
     depends only on those images, ``size`` and ``seed``, so it is kept in the
     feature cache folder (one row of flags, keyed by all of them and the
     audit's code) and a rerun reads it back.
+
+    Returns
+    -------
+    (list of str, list of Path)
+        The factors, and damaged cache entries that were recomputed.
     """
     sets = {"original": dataset.split("train"), "val": splits["val"]}
     if "field" in splits:
@@ -708,7 +713,7 @@ def _shared_shortcuts(dataset, splits, size, seed, workers, quiet, cache_dir):
         shared = set(val_shared_shortcuts(audit, len(dataset.classes), seed=seed))
         row = np.array([float(name in shared) for name in names], dtype=np.float32)
         cache.put(key, row)
-    return [name for name, flag in zip(names, row) if flag > 0.5]
+    return [name for name, flag in zip(names, row) if flag > 0.5], cache.damaged
 
 
 def _run_summary(document):
@@ -813,7 +818,9 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
                                                                  workers=workers, quiet=quiet, cache_dir=cache_dir))
     results = [stored[h] for h in hashes]
     if val_shares_shortcut is None:
-        val_shares_shortcut = _shared_shortcuts(dataset, splits, size, seed, workers, quiet, cache_dir)
+        val_shares_shortcut, damaged_audit = _shared_shortcuts(dataset, splits, size, seed, workers, quiet,
+                                                               cache_dir)
+        damaged = list(damaged) + damaged_audit
     document = _assemble(dataset, base_scores, results, n_transforms=[len(r.transforms) for r in recipes],
                          from_ledger=not missing, val_shares_shortcut=val_shares_shortcut,
                          candidates=candidates, **assemble)
