@@ -351,11 +351,14 @@ def val_shared_shortcuts(sets, n_classes, *, seed=0):
     list of str
         Factor names, in the order of `FACTORS`.
     """
+    # One set of folds per set, shared by every factor's row, as in `audit_shortcuts`.
+    splits = {set_name: fold_splits(labels, groups=set_groups, seed=seed)
+              for set_name, (_, labels, set_groups) in sets.items()}
     shared = []
     for name in FACTORS:
-        if not _audit_row(name, [name], {"original": sets["original"]}, n_classes, seed)["flagged"]:
+        if not _audit_row(name, [name], {"original": sets["original"]}, n_classes, seed, splits)["flagged"]:
             continue
-        if _audit_row(name, [name], sets, n_classes, seed)["val_shares"]:
+        if _audit_row(name, [name], sets, n_classes, seed, splits)["val_shares"]:
             shared.append(name)
     return shared
 
