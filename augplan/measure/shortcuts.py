@@ -33,6 +33,7 @@ __all__ = [
     "shortcut_score",
     "factor_columns",
     "audit_shortcuts",
+    "val_shared_shortcuts",
     "link_of",
     "shortcut_messages",
 ]
@@ -334,6 +335,38 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
               for set_name, (_, labels, set_groups) in sets.items()}
     return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed, splits)
             for name in names + [ALL_FACTORS]]
+
+
+def val_shared_shortcuts(sets, n_classes, *, seed=0):
+    """Flagged shortcut factors that the validation set carries too (``val_shares`` of `audit_shortcuts`).
+
+    The same rule and scores as `audit_shortcuts`, without the augmented set
+    and the all-factors row, and scoring validation and field only for the
+    factors the original training set flags: the cheap form for a caller
+    that needs only this list.
+
+    Parameters
+    ----------
+    sets : dict
+        ``{"original", "val", "field"?: (values, labels, None)}`` as in `audit_shortcuts`.
+    n_classes : int
+    seed : int, default 0
+
+    Returns
+    -------
+    list of str
+        Factor names, in the order of `FACTORS`.
+    """
+    # One set of folds per set, shared by every factor's row, as in `audit_shortcuts`.
+    splits = {set_name: fold_splits(labels, groups=set_groups, seed=seed)
+              for set_name, (_, labels, set_groups) in sets.items()}
+    shared = []
+    for name in FACTORS:
+        if not _audit_row(name, [name], {"original": sets["original"]}, n_classes, seed, splits)["flagged"]:
+            continue
+        if _audit_row(name, [name], sets, n_classes, seed, splits)["val_shares"]:
+            shared.append(name)
+    return shared
 
 
 def _score_text(row, set_name):
