@@ -334,18 +334,12 @@ def _run_preview(args, console):
     return ExitCode.OK
 
 
-def _ensure_parent(path, dataset=None, inputs=()):
-    parent = Path(path).resolve().parent
-    if not parent.is_dir():
-        raise BadInputError(f"{path}: the folder {parent} does not exist")
-    for given in inputs:
-        if Path(path).exists() and Path(given).exists() and os.path.samefile(path, given):
-            raise BadInputError(f"{path}: is the input {given}; no output may replace an input. "
-                                "Choose another output file.")
-    if dataset is not None:
-        from augplan.workspace import ensure_outside_data
+def _ensure_parent(path, dataset=None, inputs=(), *, folder=False):
+    """The one check of every output the user names (`augplan.atomic.check_output`)."""
+    from augplan.atomic import check_output
 
-        ensure_outside_data(path, dataset.root)
+    check_output(path, folder=folder, protected=dataset.input_folders() if dataset is not None else (),
+                 inputs=inputs)
 
 
 def _emit(console, args, result, table):
@@ -366,7 +360,7 @@ def _run_check(args, console):
     dataset = _open_data(args)
     _report_dataset(console, dataset)
     if args.evidence is not None:
-        _ensure_parent(args.evidence, dataset)
+        _ensure_parent(args.evidence, dataset, folder=True)
     leaks = _report_leaks(console, dataset)
     recipe = _read_recipes([args.recipe], dataset)[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
@@ -381,7 +375,7 @@ def _run_coverage(args, console):
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
     if args.plots is not None:
-        _ensure_parent(args.plots, dataset)
+        _ensure_parent(args.plots, dataset, folder=True)
     recipe = _read_recipes([args.recipe], dataset)[0]
     result = analyse_coverage(dataset, recipe, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     if args.plots is not None:

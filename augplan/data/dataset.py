@@ -125,6 +125,9 @@ class Dataset:
         the training images stands in.
     split_seed : int or None
         Seed of that split; None when ``val_from_train`` is False.
+    field_root : Path or None
+        The field folder when it was given apart from the data folder
+        (``--field``); None otherwise.
     """
 
     root: Path
@@ -133,6 +136,18 @@ class Dataset:
     classes: tuple = ()
     val_from_train: bool = False
     split_seed: int | None = None
+    field_root: Path | None = None
+
+    def input_folders(self):
+        """``[(folder, what), ...]``: the folders augplan reads and never writes into.
+
+        The data folder and, when it was given apart from it, the field folder
+        (for `augplan.atomic.check_output`'s ``protected``).
+        """
+        folders = [(self.root, "data folder")]
+        if self.field_root is not None:
+            folders.append((self.field_root, "field folder"))
+        return folders
 
     def split(self, name):
         """Records of one split (``"train"``, ``"val"``, ``"test"``, ``"field"``)."""
@@ -776,7 +791,8 @@ def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, seed=0,
         val_from_train, split_seed = True, int(seed)
 
     return Dataset(root=root, records=records, skipped=scanner.skipped, classes=classes,
-                   val_from_train=val_from_train, split_seed=split_seed)
+                   val_from_train=val_from_train, split_seed=split_seed,
+                   field_root=field if manifest is None else None)
 
 
 # --------------------------------------------------------------------------
