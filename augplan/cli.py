@@ -83,14 +83,26 @@ def _recipe_name(text):
     return text
 
 
-def _positive_int(text):
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1; got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1; got {value}")
-    return value
+#: The bound of every count option (README, "Limits"): past these a run only
+#: exhausts memory or time, never answers better (common practice, no source).
+#: ``--workers`` is bounded where it is resolved (`augplan.parallel.MAX_WORKERS`).
+COUNT_BOUNDS = {"--per-class": 100, "--draws": 50, "--sample": 100_000, "--repeats": 100}
+
+
+def _count(option):
+    """The argparse type of a count option: a whole number from 1 to its bound."""
+    def parse(text):
+        maximum = COUNT_BOUNDS[option]
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected a whole number from 1 to at most {maximum}; "
+                                             f"got {text!r}") from None
+        if not 1 <= value <= maximum:
+            raise argparse.ArgumentTypeError(f"expected a whole number from 1 to at most {maximum}; got {value}")
+        return value
+
+    return parse
 
 
 def _workers(parser, *, ship_images=True):
@@ -136,14 +148,14 @@ def _build_parser():
     _common(p, json_flag=False)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("-o", "--output", required=True, type=Path, help="PNG file to write")
-    p.add_argument("--per-class", type=_positive_int, default=3, help="images per class (default 3)")
-    p.add_argument("--draws", type=_positive_int, default=5, help="augmented draws per image (default 5)")
+    p.add_argument("--per-class", type=_count("--per-class"), default=3, help="images per class (default 3)")
+    p.add_argument("--draws", type=_count("--draws"), default=5, help="augmented draws per image (default 5)")
 
     p = commands.add_parser("check", help="label safety of each transform")
     _common(p)
     _workers(p)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
-    p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class")
+    p.add_argument("--sample", type=_count("--sample"), default=None, help="at most N training images per class")
     p.add_argument("--evidence", type=Path, default=None,
                    help="folder for contact sheets of the images that moved")
 
@@ -160,7 +172,7 @@ def _build_parser():
     _workers(p)
     p.add_argument("--recipe", required=True, type=Path, action="append",
                    help="recipe YAML (repeatable; '-': standard input)")
-    p.add_argument("--repeats", type=_positive_int, default=5, help="independent draws and model seeds (default 5)")
+    p.add_argument("--repeats", type=_count("--repeats"), default=5, help="independent draws and model seeds (default 5)")
     p.add_argument("--confirm-fraction", type=float, default=None,
                    help="carve this share of val out as a confirmation split scored once")
     p.add_argument("--ledger", type=Path, default=None,
@@ -184,8 +196,8 @@ def _build_parser():
     p.add_argument("-o", "--output", required=True, type=Path, help="output folder")
     p.add_argument("--force", action="store_true", help="write into an existing non-empty output folder")
     p.add_argument("--approve", default="", help="indices of unverified transforms to keep, e.g. 3,5")
-    p.add_argument("--repeats", type=_positive_int, default=5, help="evaluation repeats (default 5)")
-    p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class for check")
+    p.add_argument("--repeats", type=_count("--repeats"), default=5, help="evaluation repeats (default 5)")
+    p.add_argument("--sample", type=_count("--sample"), default=None, help="at most N training images per class for check")
     p.add_argument("--ledger", type=Path, default=None,
                    help="results ledger (default .augplan/ledger.sqlite beside DATA)")
     _cache_flag(p)

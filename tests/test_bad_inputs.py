@@ -894,9 +894,10 @@ COUNT_OPTIONS = [("preview", "--draws"), ("preview", "--per-class"), ("check", "
 @pytest.mark.parametrize("command, option", COUNT_OPTIONS, ids=[f"{c}{o}" for c, o in COUNT_OPTIONS])
 def test_every_count_option_is_bounded(command, option, tmp_path, monkeypatch, run_cli):
     from augplan.cli import COUNT_BOUNDS
+    from augplan.parallel import MAX_WORKERS
 
     ctx = Ctx(tmp_path, monkeypatch)
-    bound = COUNT_BOUNDS[option]
+    bound = {**COUNT_BOUNDS, "--workers": MAX_WORKERS}[option]
     result = run_cli(*_count_option(command, option, str(bound + 1))(ctx))
     assert result.code == 2, result.err
     assert option in result.err and f"at most {bound}" in result.err and str(bound + 1) in result.err
@@ -952,7 +953,7 @@ def test_history_never_writes_the_ledger(tmp_path, run_cli):
     assert ledger.read_bytes() == b"" and ledger.stat().st_mtime_ns == before.st_mtime_ns
     assert sorted(p.name for p in tmp_path.iterdir()) == ["empty.sqlite"]  # no journal either
     result = run_cli("history", "1", "--ledger", ledger)
-    assert result.code == 2 and "no run 1" in result.err, result.err
+    assert result.code == 2 and "no results ledger here" in result.err, result.err
     assert ledger.read_bytes() == b""
 
 
