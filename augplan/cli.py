@@ -15,7 +15,7 @@ from enum import IntEnum
 from pathlib import Path
 
 from augplan import __version__
-from augplan.errors import BadInputError
+from augplan.errors import BadInputError, printable
 from augplan.workspace import default_feature_cache, default_ledger
 
 __all__ = ["ExitCode", "main"]
@@ -223,6 +223,11 @@ def _build_parser():
     return parser
 
 
+def _say_error(text):
+    """One line on stderr, control characters escaped (a name may hold terminal escapes)."""
+    print(printable(str(text)), file=sys.stderr)
+
+
 class _Console:
     """Where human text goes: stdout normally, stderr under --json."""
 
@@ -235,7 +240,7 @@ class _Console:
 
     def warn(self, text):
         if not self.quiet:
-            print(f"warning: {text}", file=sys.stderr)
+            _say_error(f"warning: {text}")
 
     def emit_json(self, document):
         self._write(sys.stdout, json.dumps(document, indent=2, sort_keys=False, allow_nan=False) + "\n")
@@ -243,7 +248,7 @@ class _Console:
     @staticmethod
     def _write(stream, text):
         try:
-            stream.write(text)
+            stream.write(printable(text))
             stream.flush()
         except BrokenPipeError:
             # The reader went away (e.g. `| head`): stop writing there, quietly.
@@ -424,8 +429,7 @@ def _run_draft(args, console):
     text = draft_recipe_text(dataset, name=args.name, seed=args.seed, quiet=args.quiet)
     if to_stdout:  # "-" writes standard output; the note goes to stderr
         console._write(sys.stdout, text)
-        print("augplan: drafted a recipe on standard output; run 'augplan check' on it before use",
-              file=sys.stderr)
+        _say_error("augplan: drafted a recipe on standard output; run 'augplan check' on it before use")
         return ExitCode.OK
     write_text_atomic(args.output, text)
     console.say(f"wrote {args.output}; run 'augplan check' on it before use")
@@ -553,26 +557,28 @@ def _main(argv):
     except SystemExit as stop:  # --help and --version
         return ExitCode.OK if stop.code in (0, None) else ExitCode.BAD_INPUT
     except _UsageError as error:
-        print(error, file=sys.stderr)
+        _say_error(error)
         return ExitCode.BAD_INPUT
     except BadInputError as error:
-        print(f"augplan: error: {error}", file=sys.stderr)
+        if show_traceback and getattr(error, "traceback_text", None):
+            _say_error(error.traceback_text.rstrip("\n"))  # the team's own code failed: its traceback
+        _say_error(f"augplan: error: {error}")
         return ExitCode.BAD_INPUT
     except OSError as error:  # the user's files or folders: permissions, disk full, missing paths
         where = error.filename or "a file"
-        print(f"augplan: error: {where}: {error.strerror or error}", file=sys.stderr)
+        _say_error(f"augplan: error: {where}: {error.strerror or error}")
         return ExitCode.BAD_INPUT
     except KeyboardInterrupt:
-        print("augplan: interrupted; no partial output was kept", file=sys.stderr)
+        _say_error("augplan: interrupted; no partial output was kept")
         return ExitCode.INTERRUPTED
     except _Terminated:
-        print("augplan: terminated (SIGTERM); no partial output was kept", file=sys.stderr)
+        _say_error("augplan: terminated (SIGTERM); no partial output was kept")
         return ExitCode.TERMINATED
     except Exception as error:  # a bug: say so plainly, traceback on request
         if show_traceback:
-            traceback.print_exc()
-        print(f"augplan: internal error: {type(error).__name__}: {error}. "
-              "This is a bug in augplan; rerun with --traceback and report it.", file=sys.stderr)
+            _say_error(traceback.format_exc().rstrip("\n"))
+        _say_error(f"augplan: internal error: {type(error).__name__}: {error}. "
+                   "This is a bug in augplan; rerun with --traceback and report it.")
         return ExitCode.INTERNAL
 
 
