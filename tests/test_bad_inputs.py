@@ -914,7 +914,7 @@ def test_coverage_of_many_classes_of_two_images_says_too_few_at_once(tmp_path, r
     result = run_cli("coverage", data, "--recipe", recipe, "--json", "--quiet")
     assert result.code in (0, 1), result.err
     document = json.loads(result.out)
-    assert any("too few" in message for message in document["messages"])
+    assert any("too few training images" in message.lower() for message in document["messages"])
     assert all(row["original"] is None for row in document["shortcuts"])
 
 

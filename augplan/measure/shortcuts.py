@@ -20,7 +20,7 @@ import numpy as np
 from augplan.measure.factors import FACTORS
 from augplan.measure.stats import wilson_interval
 from augplan.results import json_number
-from augplan.thresholds import (CHANCE_GAP_SHARE, CONFIDENCE, LINK_BROKEN_SHARE, MAX_FOLDS,
+from augplan.thresholds import (CHANCE_GAP_SHARE, CONFIDENCE, LINK_BROKEN_SHARE, MAX_FOLDS, MIN_AUDIT_IMAGES,
                                 ONE_VS_REST_THRESHOLD, beyond_chance)
 
 __all__ = [
@@ -33,6 +33,7 @@ __all__ = [
     "audit_shortcuts",
     "link_of",
     "shortcut_messages",
+    "too_few_to_audit",
 ]
 
 ALL_FACTORS = "all factors"
@@ -55,6 +56,11 @@ SHORTCUT_RULE = (
     "row is for information only and never flagged: classes may differ in colour "
     "or shape legitimately."
 )
+
+
+#: Largest Newton system of the shortcut model, in unknowns ((columns + 1) x
+#: classes); larger ones are solved by L-BFGS (chosen here, no source).
+_NEWTON_UNKNOWNS = 400
 
 
 def shortcut_threshold(n_classes):
@@ -115,17 +121,45 @@ def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
     else:
         splitter = StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
     # Newton steps converge in a handful of iterations on a few columns,
-    # where quasi-Newton solvers spend hundreds of cheap ones.
-    model = make_pipeline(StandardScaler(), LogisticRegression(solver="newton-cholesky", max_iter=200))
+    # where quasi-Newton solvers spend hundreds of cheap ones; but a Newton
+    # step solves a system of (columns + 1) x classes unknowns, whose cost
+    # grows with the cube of the classes, so many classes take L-BFGS, whose
+    # steps cost (columns + 1) x classes per image.
+    unknowns = (features.shape[1] + 1) * names.size
+    solver = "newton-cholesky" if unknowns <= _NEWTON_UNKNOWNS else "lbfgs"
+    model = make_pipeline(StandardScaler(), LogisticRegression(solver=solver, max_iter=200))
     with warnings.catch_warnings():
         # Perfectly separated classes stop the solver at max_iter; the
         # predictions are still the separating ones.
         warnings.simplefilter("ignore")
         predicted = cross_val_predict(model, features, labels, cv=splitter, groups=groups)
     overall = float(balanced_accuracy_score(labels, predicted))
-    per_class = {str(name): float(balanced_accuracy_score(labels == name, predicted == name))
-                 for name in names}
-    return overall, per_class
+    return overall, _per_class_balanced_accuracy(labels, predicted)
+
+
+def _per_class_balanced_accuracy(labels, predicted):
+    """Per class, the balanced accuracy of "this class or not" read from ``predicted``.
+
+    The mean of the two recalls (this class, the rest), as scikit-learn's
+    ``balanced_accuracy_score(labels == name, predicted == name)`` computes
+    it, from one count of hits and predictions per class: work in the
+    number of images plus the number of classes, not their product.
+    """
+    labels, predicted = np.asarray(labels), np.asarray(predicted)
+    names, truth = np.unique(labels, return_inverse=True)
+    guessed = np.searchsorted(names, predicted)
+    known = (guessed < names.size) & (names[np.minimum(guessed, names.size - 1)] == predicted)
+    total = labels.size
+    positives = np.bincount(truth, minlength=names.size)
+    predicted_as = np.bincount(guessed[known], minlength=names.size)
+    hits = np.bincount(truth[known & (guessed == truth)], minlength=names.size)
+    per_class = {}
+    for index, name in enumerate(names):
+        negatives = total - positives[index]
+        true_negatives = negatives - (predicted_as[index] - hits[index])
+        recalls = np.array([true_negatives / negatives, hits[index] / positives[index]])
+        per_class[str(name)] = float(np.mean(recalls))
+    return per_class
 
 
 def shortcut_score(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
@@ -277,8 +311,40 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
         `SHORTCUT_RULE`.
     """
     names = list(FACTORS)
+    if too_few_to_audit(sets) is not None:
+        sets = {}  # every score None, at once: nothing to cross-validate
     return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed)
             for name in names + [ALL_FACTORS]]
+
+
+def too_few_to_audit(sets):
+    """Why the training set is too small for the shortcut audit, or None.
+
+    The audit cross-validates over the training images; a class needs at
+    least `MIN_AUDIT_IMAGES` of them (`audit_shortcuts` then scores nothing).
+
+    Parameters
+    ----------
+    sets : dict
+        As `audit_shortcuts` takes it; its ``"original"`` set is judged.
+
+    Returns
+    -------
+    str or None
+    """
+    if "original" not in sets:
+        return None
+    labels = np.asarray(sets["original"][1])
+    if labels.size == 0:
+        return None
+    names, counts = np.unique(labels, return_counts=True)
+    if counts.min() >= MIN_AUDIT_IMAGES:
+        return None
+    short = names[counts < MIN_AUDIT_IMAGES]
+    listed = ", ".join(map(str, short[:5])) + (f" and {short.size - 5} more" if short.size > 5 else "")
+    return (f"Too few training images for the shortcut audit: it needs at least {MIN_AUDIT_IMAGES} images in "
+            f"every class, and {short.size} of {names.size} classes have fewer ({listed}); no shortcut "
+            "was scored.")
 
 
 def _score_text(row, set_name):
