@@ -1060,13 +1060,14 @@ def test_read_only_storage_names_the_output_not_a_temporary(tmp_path, monkeypatc
 
 def test_temporary_names_fit_where_the_output_name_fits(tmp_path, monkeypatch, run_cli):
     # A 250-byte name is legal (NAME_MAX is 255); ".<name>.XXXXXXXX.tmp" is not.
-    from augplan.atomic import publish_folder
-
     ctx = Ctx(tmp_path, monkeypatch)
     long_file = ctx.out / ("d" * 245 + ".yaml")
     result = run_cli("draft", ctx.data, "-o", long_file, "--quiet")
     assert result.code == 0, result.err
     assert long_file.is_file()
+
+    from augplan.atomic import publish_folder
+
     long_folder = ctx.out / ("v" * 250)
     publish_folder({"report.html": b"<html></html>\n"}, long_folder)
     assert (long_folder / "report.html").read_bytes() == b"<html></html>\n"
