@@ -18,7 +18,7 @@ from augplan.atomic import check_output, output_lock, publish_folder, write_byte
 from augplan.cautions import CAUTIONS
 from augplan.coverage.coverage import analyse_coverage
 from augplan.data.dataset import find_duplicates, fingerprint
-from augplan.errors import BadInputError
+from augplan.errors import BadInputError, printable
 from augplan.evaluate.evaluate import BEST_RULE, best_recipe, evaluate_recipes, rank_key
 from augplan.evaluate.models import model_phrase, scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
@@ -133,7 +133,7 @@ def _vetted_name(recipe):
 
 def _stage(quiet, text):
     if not quiet:
-        print(f"augplan vet: {text}", file=sys.stderr, flush=True)
+        print(printable(f"augplan vet: {text}"), file=sys.stderr, flush=True)
 
 
 def _class_counts(dataset):
