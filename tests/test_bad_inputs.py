@@ -1155,3 +1155,29 @@ def test_the_teams_failing_function_is_named_with_exit_2(function, needle, with_
     assert ("Traceback" in result.err) == with_traceback
     if with_traceback:
         assert "team_training.py" in result.err
+
+
+def test_a_reduced_large_image_matches_pillows_full_size_resize(tmp_path):
+    # Past REDUCE_ABOVE_PIXELS an image is block-averaged right after decoding; the
+    # result is Pillow's own full-size path (orientation applied, box resize) up to
+    # where the block edges fall: on ramps of 255 levels over 2100 pixels, a block
+    # edge moved by up to half an output pixel (~16 source pixels) shifts a mean
+    # by under 2 levels; 4 allows for rounding at both stages.
+    from PIL import ImageOps
+
+    from augplan.data.dataset import REDUCE_ABOVE_PIXELS, load_images
+
+    side = 2100
+    assert side * side > REDUCE_ABOVE_PIXELS
+    ramp = np.linspace(0, 255, side)
+    rgb = np.stack([np.broadcast_to(ramp[None, :], (side, side)), np.broadcast_to(ramp[:, None], (side, side)),
+                    np.full((side, side), 90.0)], axis=-1).astype(np.uint8)
+    image = Image.fromarray(rgb)
+    exif = image.getexif()
+    exif[0x0112] = 6  # EXIF orientation: turn a quarter clockwise to display
+    path = tmp_path / "large.png"
+    image.save(path, exif=exif.tobytes(), compress_level=1)
+    ours = load_images([path], 64)[0].astype(int)
+    with Image.open(path) as opened:
+        reference = np.asarray(ImageOps.exif_transpose(opened).convert("RGB").resize((64, 64), Image.Resampling.BOX))
+    assert np.abs(ours - reference.astype(int)).max() <= 4
