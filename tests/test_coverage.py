@@ -299,3 +299,22 @@ def test_the_link_of_a_one_class_shortcut_is_judged_against_one_vs_rest_chance()
     row = {"augmented": 0.21, "persists": False}
     by_class = {"augmented": {"crack": 0.80}}
     assert link_of(row, by_class, "crack", 0.2, 400)["link"] == "weakened"
+
+
+def test_shortcut_balanced_accuracies_equal_scikit_learns():
+    # sklearn.metrics.balanced_accuracy_score is the reference, overall and
+    # one-vs-rest ("this class or not"), to the last bit.
+    from sklearn.metrics import balanced_accuracy_score
+    from augplan.measure.shortcuts import _balanced_accuracies
+
+    rng = np.random.default_rng(12)
+    for trial in range(40):
+        k = 2 + trial % 4
+        names = np.array(["amber", "basalt", "cobalt", "dune", "ember"])[:k]
+        labels = names[rng.integers(0, k, 60)]
+        labels[:k] = names
+        predicted = np.where(rng.random(60) < 0.6, labels, names[rng.integers(0, k, 60)])
+        overall, per_class = _balanced_accuracies(labels, predicted)
+        assert overall == balanced_accuracy_score(labels, predicted)
+        for name in names:
+            assert per_class[name] == balanced_accuracy_score(labels == name, predicted == name)
