@@ -193,7 +193,7 @@ def _build_parser():
                    help="begin from this recipe file or shipped recipe (see --list) and adapt it to the "
                         "data: lighting widened toward the field, the label-safety check's scopes and "
                         "safe limits applied")
-    p.add_argument("--sample", type=_positive_int, default=None,
+    p.add_argument("--sample", type=_count("--sample"), default=None,
                    help="at most N training images per class for --start's label-safety check")
     p.add_argument("--list", action="store_true", help="list the shipped starting recipes and exit")
 
@@ -443,7 +443,7 @@ def _run_draft(args, console):
     _report_dataset(console, dataset)
     to_stdout = str(args.output) == "-"
     if not to_stdout:
-        _ensure_parent(args.output, dataset)
+        _ensure_parent(args.output, dataset, inputs=[args.start] if args.start is not None else [])
     if start is None:
         from augplan.coverage.draft import draft_recipe_text
 
