@@ -59,9 +59,9 @@ SHORTCUT_RULE = (
 )
 
 
-#: Largest Newton system of the shortcut model, in unknowns ((columns + 1) x
-#: classes); larger ones are solved by L-BFGS (chosen here, no source).
-_NEWTON_UNKNOWNS = 400
+#: Most classes the shortcut model fits by Newton steps; more are fitted by
+#: L-BFGS (chosen here, no source).
+_NEWTON_CLASSES = 20
 
 
 def shortcut_threshold(n_classes):
@@ -145,11 +145,10 @@ def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS, s
         return None, {}
     # Newton steps converge in a handful of iterations on a few columns,
     # where quasi-Newton solvers spend hundreds of cheap ones; but a Newton
-    # step solves a system of (columns + 1) x classes unknowns, whose cost
-    # grows with the cube of the classes, so many classes take L-BFGS, whose
-    # steps cost (columns + 1) x classes per image.
-    unknowns = (features.shape[1] + 1) * np.unique(labels).size
-    solver = "newton-cholesky" if unknowns <= _NEWTON_UNKNOWNS else "lbfgs"
+    # step builds a Hessian of ((columns + 1) x classes)^2 entries per image,
+    # the square of the classes, so many classes take L-BFGS, whose steps
+    # cost (columns + 1) x classes per image.
+    solver = "newton-cholesky" if np.unique(labels).size <= _NEWTON_CLASSES else "lbfgs"
     model = make_pipeline(StandardScaler(), LogisticRegression(solver=solver, max_iter=200))
     with warnings.catch_warnings():
         # Perfectly separated classes stop the solver at max_iter; the
