@@ -16,6 +16,7 @@ __all__ = [
     "BREAK_MARGIN",
     "PCA_VARIANCE_KEPT",
     "MIN_IMAGES_PER_CLASS",
+    "MIN_AUDIT_IMAGES",
     "SCREEN_MARGIN",
     "MIN_EVIDENCE",
     "PAIR_MARGIN",
@@ -90,6 +91,10 @@ PCA_VARIANCE_KEPT = 0.95
 # Fewest training images a class needs for the check's leave-one-out regions
 # (common practice, no source).
 MIN_IMAGES_PER_CLASS = 3
+# Fewest training images a class needs for the shortcut audit: with two, each
+# cross-validation fold fits on one image of the class, a score of noise
+# (common practice, no source).
+MIN_AUDIT_IMAGES = 3
 # The screen clears a transform when the upper bounds of its moved and
 # outside shares stay within this of the held-out originals' shares (common
 # practice, no source).

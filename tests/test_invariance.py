@@ -760,13 +760,13 @@ def test_evidence_sheet_heading_carries_the_final_verdict(small_demo, tmp_path, 
     import augplan.check.check as check_module
 
     headings = {}
-    real_write = check_module._write_evidence
+    real_sheet = check_module._evidence_sheet
 
-    def spy(evidence_dir, index, transform, verdict, *rest):
+    def spy(index, transform, verdict, *rest):
         headings[index] = verdict
-        return real_write(evidence_dir, index, transform, verdict, *rest)
+        return real_sheet(index, transform, verdict, *rest)
 
-    monkeypatch.setattr(check_module, "_write_evidence", spy)
+    monkeypatch.setattr(check_module, "_evidence_sheet", spy)
     entry = check_recipe(open_dataset(small_demo), DARKEN, seed=0, evidence_dir=tmp_path)["transforms"][0]
     assert entry["verdict"] == "unverified"
     assert headings == {0: "unverified"}
@@ -774,7 +774,9 @@ def test_evidence_sheet_heading_carries_the_final_verdict(small_demo, tmp_path, 
 
 
 def test_evidence_sheet_keeps_the_files_aspect_ratio_and_captions_the_magnitude(tmp_path):
-    from augplan.check.check import OUTSIDE, _write_evidence
+    import io
+
+    from augplan.check.check import OUTSIDE, _evidence_sheet
     from augplan.data.dataset import ImageRecord
 
     records = []
@@ -783,9 +785,9 @@ def test_evidence_sheet_keeps_the_files_aspect_ratio_and_captions_the_magnitude(
         Image.new("RGB", (40, 20), colour).save(path)  # 40 wide, 20 high
         records.append(ImageRecord(path, path.name, "a", "train", ""))
     transform = Transform("rotate", {"degrees": (-15.0, 15.0)})
-    sheet_path = _write_evidence(tmp_path, 0, transform, "breaks", [(0, 1, 15.0), (1, OUTSIDE, -15.0)], records,
-                                 np.array([0, 1]), ("a", "b"), "reflect", 0)
-    pixels = np.asarray(Image.open(sheet_path).convert("RGB")).astype(int)
+    _, sheet = _evidence_sheet(0, transform, "breaks", [(0, 1, 15.0), (1, OUTSIDE, -15.0)], records,
+                               np.array([0, 1]), ("a", "b"), "reflect", 0)
+    pixels = np.asarray(Image.open(io.BytesIO(sheet)).convert("RGB")).astype(int)
     red = (pixels[..., 0] > 200) & (pixels[..., 1] < 40) & (pixels[..., 2] < 40)
     rows, columns = np.nonzero(red)
     original = columns < columns.min() + 41  # the first column's cell: the original, never enlarged here

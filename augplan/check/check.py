@@ -941,17 +941,16 @@ def _safe_limit(plan, verdicts):
 
 
 def _options(sample, magnitudes, evidence_dir):
-    """Validate the checker's options; create the evidence folder."""
+    """Validate the checker's options; the evidence folder is written at the end, whole."""
     if sample is not None and (isinstance(sample, bool) or int(sample) != sample or sample < MIN_PER_CLASS):
         raise BadInputError(f"--sample must be an integer of at least {MIN_PER_CLASS}; got {sample!r}.")
     if isinstance(magnitudes, bool) or int(magnitudes) != magnitudes or magnitudes < 2:
         raise BadInputError(f"magnitudes must be an integer of at least 2; got {magnitudes!r}.")
     if evidence_dir is not None:
+        from augplan.atomic import check_output
+
         evidence_dir = Path(evidence_dir)
-        try:
-            evidence_dir.mkdir(parents=True, exist_ok=True)
-        except OSError as error:
-            raise BadInputError(f"--evidence {evidence_dir}: cannot create the folder ({error}).") from None
+        check_output(evidence_dir, folder=True)
     return evidence_dir
 
 
@@ -1139,7 +1138,13 @@ def _entry(t_index, transform, plan, screened, judged, classes, warnings):
 
 
 def _attach_evidence(report, screen, plans, evidence_dir, transforms, records, labels, classes, fill, seed):
-    """Contact sheets of the screen's moved and outside images for every transform not safe."""
+    """Contact sheets of the screen's moved and outside images for every transform not safe.
+
+    Every sheet is drawn first; the folder is then written whole or not at all.
+    """
+    from augplan.atomic import publish_folder
+
+    sheets = {}
     for entry, plan in zip(report, plans):
         if entry["verdict"] == "safe":
             continue
@@ -1147,9 +1152,10 @@ def _attach_evidence(report, screen, plans, evidence_dir, transforms, records, l
                   if (entry["index"], p) in screen]
         picked = _round_robin(groups, EVIDENCE_IMAGES)
         if picked:
-            entry["evidence_sheet"] = _write_evidence(evidence_dir, entry["index"], transforms[entry["index"]],
-                                                      entry["verdict"], picked, records, labels, classes, fill,
-                                                      seed)
+            name, sheets[name] = _evidence_sheet(entry["index"], transforms[entry["index"]], entry["verdict"],
+                                                 picked, records, labels, classes, fill, seed)
+            entry["evidence_sheet"] = str(Path(evidence_dir) / name)
+    publish_folder(sheets, evidence_dir)
 
 
 def _rate(count, n):
@@ -1188,7 +1194,7 @@ def _magnitude_caption(transform, magnitude):
     return _MAGNITUDE_FORMATS.get(field, field + " {:.3g}").format(magnitude)
 
 
-def _write_evidence(evidence_dir, index, transform, verdict, examples, records, labels, classes, fill, seed):
+def _evidence_sheet(index, transform, verdict, examples, records, labels, classes, fill, seed):
     """Contact sheet of moved and outside images: one row per image, original then transformed.
 
     The pair is drawn from the image file at its own aspect ratio (the check
@@ -1197,7 +1203,7 @@ def _write_evidence(evidence_dir, index, transform, verdict, examples, records, 
     """
     from augplan.augment.transforms import OPS, params_at
     from augplan.data.dataset import read_record
-    from augplan.render.sheets import contact_sheet, save_png
+    from augplan.render.sheets import contact_sheet, png_bytes
 
     function = OPS[transform.op].function
     originals = [read_record(records[source], max_side=_EVIDENCE_CELL) for source, _, _ in examples]
@@ -1213,9 +1219,7 @@ def _write_evidence(evidence_dir, index, transform, verdict, examples, records, 
         captions.append(["", _magnitude_caption(transform, magnitude)])
     sheet = contact_sheet(rows, row_labels, column_labels=["original", "transformed"], cell=cell,
                           title=f"transform {index} ({transform.op}): {verdict}", captions=captions)
-    path = Path(evidence_dir) / f"transform-{index:02d}-{transform.op}.png"
-    save_png(sheet, path)
-    return str(path)
+    return f"transform-{index:02d}-{transform.op}.png", png_bytes(sheet)
 
 
 # The lighting factor each lighting op changes (augplan.measure.factors names). When

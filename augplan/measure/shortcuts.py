@@ -21,7 +21,7 @@ from augplan.measure.factors import FACTORS
 from augplan.measure.stats import wilson_interval
 from augplan.parallel import single_threaded
 from augplan.results import json_number
-from augplan.thresholds import (CHANCE_GAP_SHARE, CONFIDENCE, LINK_BROKEN_SHARE, MAX_FOLDS,
+from augplan.thresholds import (CHANCE_GAP_SHARE, CONFIDENCE, LINK_BROKEN_SHARE, MAX_FOLDS, MIN_AUDIT_IMAGES,
                                 ONE_VS_REST_THRESHOLD, beyond_chance)
 
 __all__ = [
@@ -36,6 +36,7 @@ __all__ = [
     "val_shared_shortcuts",
     "link_of",
     "shortcut_messages",
+    "too_few_to_audit",
 ]
 
 ALL_FACTORS = "all factors"
@@ -58,6 +59,11 @@ SHORTCUT_RULE = (
     "row is for information only and never flagged: classes may differ in colour "
     "or shape legitimately."
 )
+
+
+#: Most classes the shortcut model fits by Newton steps; more are fitted by
+#: L-BFGS (chosen here, no source).
+_NEWTON_CLASSES = 20
 
 
 def shortcut_threshold(n_classes):
@@ -140,8 +146,12 @@ def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS, s
     if splits is None:
         return None, {}
     # Newton steps converge in a handful of iterations on a few columns,
-    # where quasi-Newton solvers spend hundreds of cheap ones.
-    model = make_pipeline(StandardScaler(), LogisticRegression(solver="newton-cholesky", max_iter=200))
+    # where quasi-Newton solvers spend hundreds of cheap ones; but a Newton
+    # step builds a Hessian of ((columns + 1) x classes)^2 entries per image,
+    # the square of the classes, so many classes take L-BFGS, whose steps
+    # cost (columns + 1) x classes per image.
+    solver = "newton-cholesky" if np.unique(labels).size <= _NEWTON_CLASSES else "lbfgs"
+    model = make_pipeline(StandardScaler(), LogisticRegression(solver=solver, max_iter=200))
     # One BLAS thread: the solver's Hessian products on a few thousand rows
     # cross OpenBLAS's threading threshold, and on a shared machine the pool's
     # threads then spin against each other. Measured: coverage's audit at
@@ -330,11 +340,43 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
         `SHORTCUT_RULE`.
     """
     names = list(FACTORS)
+    if too_few_to_audit(sets) is not None:
+        sets = {}  # every score None, at once: nothing to cross-validate
     # One set of folds per set, shared by every factor's row.
     splits = {set_name: fold_splits(labels, groups=set_groups, seed=seed)
               for set_name, (_, labels, set_groups) in sets.items()}
     return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed, splits)
             for name in names + [ALL_FACTORS]]
+
+
+def too_few_to_audit(sets):
+    """Why the training set is too small for the shortcut audit, or None.
+
+    The audit cross-validates over the training images; a class needs at
+    least `MIN_AUDIT_IMAGES` of them (`audit_shortcuts` then scores nothing).
+
+    Parameters
+    ----------
+    sets : dict
+        As `audit_shortcuts` takes it; its ``"original"`` set is judged.
+
+    Returns
+    -------
+    str or None
+    """
+    if "original" not in sets:
+        return None
+    labels = np.asarray(sets["original"][1])
+    if labels.size == 0:
+        return None
+    names, counts = np.unique(labels, return_counts=True)
+    if counts.min() >= MIN_AUDIT_IMAGES:
+        return None
+    short = names[counts < MIN_AUDIT_IMAGES]
+    listed = ", ".join(map(str, short[:5])) + (f" and {short.size - 5} more" if short.size > 5 else "")
+    return (f"Too few training images for the shortcut audit: it needs at least {MIN_AUDIT_IMAGES} images in "
+            f"every class, and {short.size} of {names.size} classes have fewer ({listed}); no shortcut "
+            "was scored.")
 
 
 def val_shared_shortcuts(sets, n_classes, *, seed=0):
@@ -357,6 +399,8 @@ def val_shared_shortcuts(sets, n_classes, *, seed=0):
     list of str
         Factor names, in the order of `FACTORS`.
     """
+    if too_few_to_audit(sets) is not None:
+        return []  # as audit_shortcuts: nothing is scored
     # One set of folds per set, shared by every factor's row, as in `audit_shortcuts`.
     splits = {set_name: fold_splits(labels, groups=set_groups, seed=seed)
               for set_name, (_, labels, set_groups) in sets.items()}

@@ -7,7 +7,6 @@ interrupted run leaves the output folder without partial files.
 import dataclasses
 import json
 import os
-import shutil
 import sys
 import tempfile
 from pathlib import Path
@@ -15,12 +14,11 @@ from pathlib import Path
 import numpy as np
 
 from augplan import __version__
-from augplan.atomic import write_bytes_atomic
+from augplan.atomic import check_output, output_lock, publish_folder, write_bytes_atomic
 from augplan.cautions import CAUTIONS
 from augplan.coverage.coverage import analyse_coverage
 from augplan.data.dataset import find_duplicates, fingerprint
-from augplan.errors import BadInputError
-from augplan.workspace import ensure_outside_data
+from augplan.errors import BadInputError, printable
 from augplan.evaluate.evaluate import BEST_RULE, evaluate_recipes
 from augplan.evaluate.models import model_phrase, scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
@@ -43,8 +41,7 @@ def prepare_output(out_dir, *, force=False, replace=False):
     only an earlier vet output, holding ``report.html`` or ``evidence.json``).
     """
     out_dir = Path(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise BadInputError(f"{out_dir}: exists and is not a folder; choose another output folder.")
+    check_output(out_dir, folder=True)
     if out_dir.is_dir() and any(out_dir.iterdir()):
         if replace and not any((out_dir / name).is_file() for name in _OUTPUT_MARKERS):
             raise BadInputError(f"{out_dir}: not empty and not an earlier augplan output (no report.html); "
@@ -52,51 +49,7 @@ def prepare_output(out_dir, *, force=False, replace=False):
         if not (force or replace):
             raise BadInputError(f"{out_dir}: the output folder is not empty; pass --force to write into it "
                                 "or choose another folder.")
-    if not out_dir.parent.is_dir():
-        raise BadInputError(f"{out_dir}: its parent folder {out_dir.parent} does not exist.")
     return out_dir
-
-
-def _publish(files, out_dir, *, replace=False):
-    """Write ``files`` ({relative path: bytes}) to a temporary folder beside
-    ``out_dir``, then move them into place: all of them or, on any fault
-    (a full disk, Ctrl-C), none.
-
-    A missing or empty ``out_dir`` is replaced by the temporary folder in one
-    rename; with ``replace`` an earlier output is swapped out whole; else
-    (``--force``) the files are moved into the existing folder, the report last.
-    """
-    out_dir = Path(out_dir)
-    staging = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".tmp", dir=out_dir.parent))
-    retired = None
-    try:
-        for relpath, data in files.items():
-            target = staging / relpath
-            target.parent.mkdir(parents=True, exist_ok=True)
-            try:
-                write_bytes_atomic(target, data)
-            except OSError as error:  # name the output, not the staging folder
-                raise type(error)(error.errno, error.strerror, str(out_dir / relpath)) from None
-        if out_dir.is_dir() and not any(out_dir.iterdir()):
-            out_dir.rmdir()
-        elif out_dir.is_dir() and replace:
-            retired = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".old", dir=out_dir.parent))
-            os.replace(out_dir, retired / out_dir.name)
-        if not out_dir.exists():
-            os.replace(staging, out_dir)
-        else:
-            order = sorted(files, key=lambda name: name == "report.html")
-            for relpath in order:
-                (out_dir / relpath).parent.mkdir(parents=True, exist_ok=True)
-                os.replace(staging / relpath, out_dir / relpath)
-    except BaseException:
-        if retired is not None and not out_dir.exists():
-            os.replace(retired / out_dir.name, out_dir)  # put the earlier output back
-        raise
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-        if retired is not None:
-            shutil.rmtree(retired, ignore_errors=True)
 
 
 def _inside(path, folder):
@@ -193,7 +146,7 @@ def _vetted_name(recipe):
 
 def _stage(quiet, text):
     if not quiet:
-        print(f"augplan vet: {text}", file=sys.stderr, flush=True)
+        print(printable(f"augplan vet: {text}"), file=sys.stderr, flush=True)
 
 
 def _class_counts(dataset):
@@ -306,7 +259,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         remove); ``signoff`` lists the transforms a person must approve, each
         with its evidence sheet.
     """
-    ensure_outside_data(out_dir, dataset.root)
+    check_output(out_dir, folder=True, protected=dataset.input_folders())
     scoring = scoring_model(model)  # a bad --model fails before the long steps
     out_dir = prepare_output(out_dir, force=force, replace=replace)
     for recipe in recipes:
@@ -314,7 +267,9 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             raise BadInputError(f"{recipe.source}: the recipe lies inside the output folder {out_dir}, "
                                 "whose files vet replaces; choose another output folder.")
     settings = dict(sample=sample, seed=seed, workers=workers, quiet=quiet)
-    with tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
+    # One run at a time writes a folder; under the lock its state is checked again.
+    with output_lock(out_dir), tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
+        prepare_output(out_dir, force=force, replace=replace)
         scratch = Path(scratch)
         entries, vetted_recipes = [], []
         for number, recipe in enumerate(recipes):
@@ -354,7 +309,8 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                                                ranking)
         html = _render_with_figures(evidence_document, figures, scratch / "staged")
         # Everything is computed: now write, all files or none.
-        _publish(_output_files(documents, figures, evidence_document, html), out_dir, replace=replace)
+        publish_folder(_output_files(documents, figures, evidence_document, html), out_dir, replace=replace,
+                       last="report.html")
 
     return VetResult(verdict=verdict, report=str(out_dir / "report.html"),
                      vetted_recipe=None if best_entry is None else str(out_dir / "vetted-recipe.yaml"),
