@@ -15,7 +15,7 @@ from enum import IntEnum
 from pathlib import Path
 
 from augplan import __version__
-from augplan.errors import BadInputError
+from augplan.errors import BadInputError, printable
 from augplan.workspace import default_feature_cache, default_ledger
 
 __all__ = ["ExitCode", "main"]
@@ -83,14 +83,26 @@ def _recipe_name(text):
     return text
 
 
-def _positive_int(text):
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1; got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1; got {value}")
-    return value
+#: The bound of every count option (README, "Limits"): past these a run only
+#: exhausts memory or time, never answers better (common practice, no source).
+#: ``--workers`` is bounded where it is resolved (`augplan.parallel.MAX_WORKERS`).
+COUNT_BOUNDS = {"--per-class": 100, "--draws": 50, "--sample": 100_000, "--repeats": 100}
+
+
+def _count(option):
+    """The argparse type of a count option: a whole number from 1 to its bound."""
+    def parse(text):
+        maximum = COUNT_BOUNDS[option]
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected a whole number from 1 to at most {maximum}; "
+                                             f"got {text!r}") from None
+        if not 1 <= value <= maximum:
+            raise argparse.ArgumentTypeError(f"expected a whole number from 1 to at most {maximum}; got {value}")
+        return value
+
+    return parse
 
 
 def _workers(parser, *, ship_images=True):
@@ -145,14 +157,14 @@ def _build_parser():
     _common(p, json_flag=False)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("-o", "--output", required=True, type=Path, help="PNG file to write")
-    p.add_argument("--per-class", type=_positive_int, default=3, help="images per class (default 3)")
-    p.add_argument("--draws", type=_positive_int, default=5, help="augmented draws per image (default 5)")
+    p.add_argument("--per-class", type=_count("--per-class"), default=3, help="images per class (default 3)")
+    p.add_argument("--draws", type=_count("--draws"), default=5, help="augmented draws per image (default 5)")
 
     p = commands.add_parser("check", help="label safety of each transform")
     _common(p)
     _workers(p)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
-    p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class")
+    p.add_argument("--sample", type=_count("--sample"), default=None, help="at most N training images per class")
     p.add_argument("--evidence", type=Path, default=None,
                    help="folder for contact sheets of the images that moved")
     _model_flag(p, what="model trained on replaced images in confirmation (the first witness)")
@@ -170,7 +182,7 @@ def _build_parser():
     _workers(p)
     p.add_argument("--recipe", required=True, type=Path, action="append",
                    help="recipe YAML (repeatable; '-': standard input)")
-    p.add_argument("--repeats", type=_positive_int, default=5, help="independent draws and model seeds (default 5)")
+    p.add_argument("--repeats", type=_count("--repeats"), default=5, help="independent draws and model seeds (default 5)")
     p.add_argument("--confirm-fraction", type=float, default=None,
                    help="carve this share of val out as a confirmation split scored once")
     p.add_argument("--ledger", type=Path, default=None,
@@ -191,7 +203,7 @@ def _build_parser():
                    help="begin from this recipe file or shipped recipe (see --list) and adapt it to the "
                         "data: lighting widened toward the field, the label-safety check's scopes and "
                         "safe limits applied")
-    p.add_argument("--sample", type=_positive_int, default=None,
+    p.add_argument("--sample", type=_count("--sample"), default=None,
                    help="at most N training images per class for --start's label-safety check")
     p.add_argument("--list", action="store_true", help="list the shipped starting recipes and exit")
 
@@ -204,8 +216,8 @@ def _build_parser():
     p.add_argument("-o", "--output", required=True, type=Path, help="output folder")
     p.add_argument("--force", action="store_true", help="write into an existing non-empty output folder")
     p.add_argument("--approve", default="", help="indices of unverified transforms to keep, e.g. 3,5")
-    p.add_argument("--repeats", type=_positive_int, default=5, help="evaluation repeats (default 5)")
-    p.add_argument("--sample", type=_positive_int, default=None, help="at most N training images per class for check")
+    p.add_argument("--repeats", type=_count("--repeats"), default=5, help="evaluation repeats (default 5)")
+    p.add_argument("--sample", type=_count("--sample"), default=None, help="at most N training images per class for check")
     p.add_argument("--ledger", type=Path, default=None,
                    help="results ledger (default .augplan/ledger.sqlite beside DATA)")
     _cache_flag(p)
@@ -234,6 +246,11 @@ def _build_parser():
     return parser
 
 
+def _say_error(text):
+    """One line on stderr, control characters escaped (a name may hold terminal escapes)."""
+    print(printable(str(text)), file=sys.stderr)
+
+
 class _Console:
     """Where human text goes: stdout normally, stderr under --json."""
 
@@ -246,7 +263,7 @@ class _Console:
 
     def warn(self, text):
         if not self.quiet:
-            print(f"warning: {text}", file=sys.stderr)
+            _say_error(f"warning: {text}")
 
     def emit_json(self, document):
         self._write(sys.stdout, json.dumps(document, indent=2, sort_keys=False, allow_nan=False) + "\n")
@@ -254,7 +271,7 @@ class _Console:
     @staticmethod
     def _write(stream, text):
         try:
-            stream.write(text)
+            stream.write(printable(text))
             stream.flush()
         except BrokenPipeError:
             # The reader went away (e.g. `| head`): stop writing there, quietly.
@@ -290,10 +307,11 @@ def _read_recipes(paths, dataset):
     return recipes
 
 
-def _report_dataset(console, dataset):
+def _report_dataset(console, dataset, *, result_says_val=False):
+    """Warnings about the data; the stand-in validation split only where the result does not say it itself."""
     for relpath, reason in dataset.skipped:
         console.warn(f"skipped {relpath}: {reason}")
-    if dataset.val_from_train:
+    if dataset.val_from_train and not result_says_val:
         console.warn(f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) "
                      "stands in for validation")
 
@@ -357,18 +375,12 @@ def _run_preview(args, console):
     return ExitCode.OK
 
 
-def _ensure_parent(path, dataset=None, inputs=()):
-    parent = Path(path).resolve().parent
-    if not parent.is_dir():
-        raise BadInputError(f"{path}: the folder {parent} does not exist")
-    for given in inputs:
-        if Path(path).exists() and Path(given).exists() and os.path.samefile(path, given):
-            raise BadInputError(f"{path}: is the input {given}; no output may replace an input. "
-                                "Choose another output file.")
-    if dataset is not None:
-        from augplan.workspace import ensure_outside_data
+def _ensure_parent(path, dataset=None, inputs=(), *, folder=False):
+    """The one check of every output the user names (`augplan.atomic.check_output`)."""
+    from augplan.atomic import check_output
 
-        ensure_outside_data(path, dataset.root)
+    check_output(path, folder=folder, protected=dataset.input_folders() if dataset is not None else (),
+                 inputs=inputs)
 
 
 def _emit(console, args, result, table):
@@ -389,7 +401,7 @@ def _run_check(args, console):
     dataset = _open_data(args)
     _report_dataset(console, dataset)
     if args.evidence is not None:
-        _ensure_parent(args.evidence, dataset)
+        _ensure_parent(args.evidence, dataset, folder=True)
     leaks = _report_leaks(console, dataset)
     recipe = _read_recipes([args.recipe], dataset)[0]
     result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
@@ -402,9 +414,9 @@ def _run_coverage(args, console):
     from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
-    _report_dataset(console, dataset)
+    _report_dataset(console, dataset, result_says_val=True)  # among the result's messages
     if args.plots is not None:
-        _ensure_parent(args.plots, dataset)
+        _ensure_parent(args.plots, dataset, folder=True)
     recipe = _read_recipes([args.recipe], dataset)[0]
     result = analyse_coverage(dataset, recipe, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     if args.plots is not None:
@@ -419,7 +431,7 @@ def _run_evaluate(args, console):
     from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
-    _report_dataset(console, dataset)
+    _report_dataset(console, dataset, result_says_val=True)  # among the result's warnings
     leaks = _report_leaks(console, dataset)
     recipes = _read_recipes(args.recipe, dataset)
     ledger, cache = _stores(args, dataset, console)
@@ -445,7 +457,7 @@ def _run_draft(args, console):
     _report_dataset(console, dataset)
     to_stdout = str(args.output) == "-"
     if not to_stdout:
-        _ensure_parent(args.output, dataset)
+        _ensure_parent(args.output, dataset, inputs=[args.start] if args.start is not None else [])
     if start is None:
         from augplan.coverage.draft import draft_recipe_text
 
@@ -460,8 +472,7 @@ def _run_draft(args, console):
             console._write(sys.stderr if to_stdout else sys.stdout, f"from {start.name}: {change_text(change)}\n")
     if to_stdout:  # "-" writes standard output; the note goes to stderr
         console._write(sys.stdout, text)
-        print("augplan: drafted a recipe on standard output; run 'augplan check' on it before use",
-              file=sys.stderr)
+        _say_error("augplan: drafted a recipe on standard output; run 'augplan check' on it before use")
         return ExitCode.OK
     write_text_atomic(args.output, text)
     console.say(f"wrote {args.output}; run 'augplan check' on it before use")
@@ -496,13 +507,15 @@ def _say_vetted(console, args, summary):
     if args.json:
         console.emit_json(summary.to_json())
     console.say(summary.verdict)
+    if summary.get("decision_note"):
+        console.say(summary["decision_note"])
     for item in summary.get("signoff") or []:
         console.say(f"sign-off needed: {item['recipe']} transform {item['index']} ({item['op']}): {item['detail']}")
     console.say(f"report: {summary.report}")
     if summary.vetted_recipe is not None:
         console.say(f"vetted recipe: {summary.vetted_recipe}")
     else:
-        console.say("no vetted-recipe.yaml: no recipe beat no augmentation (each recipe's vetted-NAME.yaml "
+        console.say("no vetted-recipe.yaml: no recipe clearly beat no augmentation (each recipe's vetted-NAME.yaml "
                     "is written beside the report)")
 
 
@@ -590,26 +603,28 @@ def _main(argv):
     except SystemExit as stop:  # --help and --version
         return ExitCode.OK if stop.code in (0, None) else ExitCode.BAD_INPUT
     except _UsageError as error:
-        print(error, file=sys.stderr)
+        _say_error(error)
         return ExitCode.BAD_INPUT
     except BadInputError as error:
-        print(f"augplan: error: {error}", file=sys.stderr)
+        if show_traceback and getattr(error, "traceback_text", None):
+            _say_error(error.traceback_text.rstrip("\n"))  # the team's own code failed: its traceback
+        _say_error(f"augplan: error: {error}")
         return ExitCode.BAD_INPUT
     except OSError as error:  # the user's files or folders: permissions, disk full, missing paths
         where = error.filename or "a file"
-        print(f"augplan: error: {where}: {error.strerror or error}", file=sys.stderr)
+        _say_error(f"augplan: error: {where}: {error.strerror or error}")
         return ExitCode.BAD_INPUT
     except KeyboardInterrupt:
-        print("augplan: interrupted; no partial output was kept", file=sys.stderr)
+        _say_error("augplan: interrupted; no partial output was kept")
         return ExitCode.INTERRUPTED
     except _Terminated:
-        print("augplan: terminated (SIGTERM); no partial output was kept", file=sys.stderr)
+        _say_error("augplan: terminated (SIGTERM); no partial output was kept")
         return ExitCode.TERMINATED
     except Exception as error:  # a bug: say so plainly, traceback on request
         if show_traceback:
-            traceback.print_exc()
-        print(f"augplan: internal error: {type(error).__name__}: {error}. "
-              "This is a bug in augplan; rerun with --traceback and report it.", file=sys.stderr)
+            _say_error(traceback.format_exc().rstrip("\n"))
+        _say_error(f"augplan: internal error: {type(error).__name__}: {error}. "
+                   "This is a bug in augplan; rerun with --traceback and report it.")
         return ExitCode.INTERNAL
 
 

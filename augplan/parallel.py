@@ -81,6 +81,12 @@ def _require_distributed():
     return distributed
 
 
+#: Most local worker processes: each holds its own copy of the work's
+#: arrays, so a count far past any machine's cores only exhausts memory
+#: (common practice, no source).
+MAX_WORKERS = 256
+
+
 def resolve_workers(workers, cluster=None):
     """Turn the ``workers`` and ``cluster`` settings into one execution choice.
 
@@ -99,7 +105,7 @@ def resolve_workers(workers, cluster=None):
     Raises
     ------
     BadInputError
-        A worker count that is 0, below -1 or not a whole number; an address
+        A worker count that is 0, below -1, above `MAX_WORKERS` or not a whole number; an address
         not of the form ``tcp://HOST:PORT``; a cluster while Dask is not
         installed (the message gives the install command).
     """
@@ -109,10 +115,12 @@ def resolve_workers(workers, cluster=None):
         _require_distributed()
         return workers
     if isinstance(workers, bool) or not isinstance(workers, int) and not hasattr(workers, "__index__"):
-        raise BadInputError(f"--workers must be a positive integer or -1 (every core); got {workers!r}")
+        raise BadInputError(f"--workers must be a whole number from 1 to at most {MAX_WORKERS}, or -1 (every "
+                            f"core); got {workers!r}")
     workers = int(workers)
-    if workers == 0 or workers < -1:
-        raise BadInputError(f"--workers must be a positive integer or -1 (every core); got {workers!r}")
+    if workers == 0 or workers < -1 or workers > MAX_WORKERS:
+        raise BadInputError(f"--workers must be a whole number from 1 to at most {MAX_WORKERS}, or -1 (every "
+                            f"core); got {workers!r}")
     return workers
 
 

@@ -156,8 +156,10 @@ def test_vetted_file_carries_its_class_list(tmp_path, image):
 
 
 def test_classes_given_to_load_recipe_win_over_the_files(tmp_path):
-    aug = load_recipe(_vetted_file(tmp_path, {"classes": CLASSES}), classes=["right", "left"])
-    assert aug.classes == ("right", "left")
+    # The same classes in the training loop's own order; a list of other classes is refused
+    # (tests/test_bad_inputs.py, test_load_recipe_refuses_a_class_list_of_another_vetting).
+    aug = load_recipe(_vetted_file(tmp_path, {"classes": CLASSES}), classes=["right", "other", "left"])
+    assert aug.classes == ("right", "other", "left")
 
 
 @pytest.mark.parametrize("edit", [("left, right]", "left]"), ("- other", "- others")],

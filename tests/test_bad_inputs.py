@@ -11,6 +11,7 @@ and never a traceback. Data- and recipe-level faults go through ``preview``
 (the cheapest command); flag faults through the command that owns the flag.
 """
 
+import io
 import json
 import os
 import struct
@@ -807,3 +808,372 @@ def test_duplicates_across_splits_are_listed_once_in_json_and_text(tmp_path, run
     said = [line for line in result.err.splitlines() if "duplicate" in line]
     assert len(said) == 1 and "4 duplicate pairs across splits (4 exact)" in said[0] and "1 more" in said[0]
     assert [w for w in document["warnings"] if "duplicate" in w] == [said[0].removeprefix("warning: ")]
+
+
+# --------------------------------------------------------------------------
+# Third round: memory and size bounds, where outputs go, all or nothing,
+# damaged streams, terminal safety, the team's own code
+
+
+def test_a_large_image_is_decoded_at_the_analysis_side(tmp_path):
+    # A 4000 x 4000 RGBA PNG read at 64 x 64 (as every analysis reads it): the
+    # decoder's own full-size buffer is the only large one, not its copies.
+    # Measured in a fresh process (ru_maxrss is a process's peak, in KiB on Linux).
+    import subprocess
+    import sys
+
+    path = tmp_path / "large.png"
+    gradient = np.linspace(0, 255, 4000, dtype=np.uint8)
+    rgba = np.empty((4000, 4000, 4), np.uint8)
+    rgba[..., 0] = gradient[None, :]
+    rgba[..., 1] = gradient[:, None]
+    rgba[..., 2] = 128
+    rgba[..., 3] = 200
+    Image.fromarray(rgba).save(path, compress_level=1)
+    del rgba
+    script = ("import resource, sys\n"
+              "from augplan.data.dataset import load_images\n"
+              "before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+              "batch = load_images([sys.argv[1]], 64)\n"
+              "after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+              "print(batch.shape, after - before)\n")
+    done = subprocess.run([sys.executable, "-c", script, str(path)], capture_output=True, text=True, check=True)
+    shape, growth = done.stdout.rsplit(")", 1)
+    assert shape.strip() == "(1, 64, 64, 3"
+    # 4000 x 4000 x 4 bytes is 62.5 MiB; before decoding at the analysis side the
+    # copies (orientation, conversion, 16-bit compositing) took over 400 MiB.
+    assert int(growth) < 160 * 1024, f"peak grew by {int(growth) // 1024} MiB"
+
+
+def test_an_image_over_the_pixel_bound_is_listed_and_skipped(tmp_path, monkeypatch, run_cli):
+    import augplan.data.dataset as dataset_module
+
+    ctx = Ctx(tmp_path, monkeypatch)
+    monkeypatch.setattr(dataset_module, "MAX_IMAGE_PIXELS", 30 * 30)
+    ctx.image("train/alpha/big.png", np.full((40, 40, 3), 90, np.uint8))
+    result = run_cli(*ctx.preview())
+    assert result.code == 0, result.err
+    assert "big.png" in result.err and "1600 pixels" in result.err and "at most 900" in result.err
+
+
+def _damaged_stream_png(path):
+    # Chunks intact (their CRCs recomputed), the compressed pixel stream damaged.
+    noise = np.random.default_rng(3).integers(0, 256, (16, 16, 3), dtype=np.uint8)
+    buffer = io.BytesIO()
+    Image.fromarray(noise).save(buffer, format="PNG")
+    data = buffer.getvalue()
+    start = data.index(b"IDAT") - 4
+    length = struct.unpack(">I", data[start:start + 4])[0]
+    payload = bytearray(data[start + 8:start + 8 + length])
+    payload[2:] = bytes(b ^ 0x5A for b in payload[2:])
+    path.write_bytes(data[:start] + _png_chunk(b"IDAT", bytes(payload)) + data[start + 12 + length:])
+
+
+@pytest.mark.parametrize("strict", [False, True], ids=["listed-and-skipped", "strict-error"])
+def test_a_damaged_compressed_stream_follows_the_skip_rule(strict, tmp_path, monkeypatch, run_cli):
+    ctx = Ctx(tmp_path, monkeypatch)
+    _damaged_stream_png(ctx.data / "train" / "alpha" / "stream.png")
+    result = run_cli(*ctx.preview(*(["--strict"] if strict else [])))
+    assert "Traceback" not in result.err
+    assert result.code == (2 if strict else 0), result.err
+    assert "stream.png" in result.err and ("error" if strict else "warning: skipped") in result.err
+
+
+def test_a_recipe_of_too_many_steps_is_refused_by_schema_and_reader(tmp_path, monkeypatch, run_cli):
+    from augplan.recipe.parse import MAX_TRANSFORMS, RECIPE_SCHEMA_PATH
+
+    assert json.loads(RECIPE_SCHEMA_PATH.read_text())["properties"]["transforms"]["maxItems"] == MAX_TRANSFORMS
+    ctx = Ctx(tmp_path, monkeypatch)
+    steps = "".join("  - op: flip\n" for _ in range(MAX_TRANSFORMS + 1))
+    result = run_cli(*ctx.recipe_text(f"name: long\ntransforms:\n{steps}"))
+    assert result.code == 2, result.err
+    assert "bad.yaml" in result.err and f"at most {MAX_TRANSFORMS}" in result.err and str(MAX_TRANSFORMS + 1) in result.err
+
+
+def _count_option(command, option, value):
+    def build(ctx):
+        extra = ["-o", ctx.tmp / "vetted"] if command == "vet" else []
+        extra = ["-o", ctx.out / "sheet.png"] if command == "preview" else extra
+        return [command, ctx.data, "--recipe", ctx.recipe, *extra, option, value]
+    return build
+
+
+COUNT_OPTIONS = [("preview", "--draws"), ("preview", "--per-class"), ("check", "--sample"),
+                 ("evaluate", "--repeats"), ("vet", "--repeats"), ("vet", "--sample"), ("check", "--workers")]
+
+
+@pytest.mark.parametrize("command, option", COUNT_OPTIONS, ids=[f"{c}{o}" for c, o in COUNT_OPTIONS])
+def test_every_count_option_is_bounded(command, option, tmp_path, monkeypatch, run_cli):
+    from augplan.cli import COUNT_BOUNDS
+    from augplan.parallel import MAX_WORKERS
+
+    ctx = Ctx(tmp_path, monkeypatch)
+    bound = {**COUNT_BOUNDS, "--workers": MAX_WORKERS}[option]
+    result = run_cli(*_count_option(command, option, str(bound + 1))(ctx))
+    assert result.code == 2, result.err
+    assert option in result.err and f"at most {bound}" in result.err and str(bound + 1) in result.err
+    assert "internal error" not in result.err
+
+
+def test_coverage_of_many_classes_of_two_images_says_too_few_at_once(tmp_path, run_cli):
+    # 120 classes of 2 training images: the shortcut audit's work grew with the
+    # square of the classes (minutes); with too few images it says so instead.
+    classes = tuple(f"c{i:03d}" for i in range(120))
+    data = write_tiny_dataset(tmp_path / "DATA", classes=classes, train=2, val=1, side=8)
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text("name: r\ncopies: 1\ntransforms: []\n", encoding="utf-8")
+    result = run_cli("coverage", data, "--recipe", recipe, "--json", "--quiet")
+    assert result.code in (0, 1), result.err
+    document = json.loads(result.out)
+    assert any("too few training images" in message.lower() for message in document["messages"])
+    assert all(row["original"] is None for row in document["shortcuts"])
+
+
+@pytest.mark.parametrize("run", [str(2**63), str(10**30)], ids=["2-to-the-63", "10-to-the-30"])
+def test_history_of_a_huge_run_number_is_bad_input(run, tmp_path, run_cli):
+    from augplan.evaluate.ledger import _connect
+
+    ledger = tmp_path / "ledger.sqlite"
+    _connect(ledger, create=True).close()
+    result = run_cli("history", run, "--ledger", ledger)
+    assert result.code == 2, result.err
+    assert "internal error" not in result.err and run in result.err
+
+
+def test_history_never_writes_the_ledger(tmp_path, run_cli):
+    ledger = tmp_path / "empty.sqlite"
+    ledger.write_bytes(b"")
+    before = ledger.stat()
+    result = run_cli("history", "--ledger", ledger)
+    assert result.code == 0, result.err
+    assert ledger.read_bytes() == b"" and ledger.stat().st_mtime_ns == before.st_mtime_ns
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["empty.sqlite"]  # no journal either
+    result = run_cli("history", "1", "--ledger", ledger)
+    assert result.code == 2 and "no results ledger here" in result.err, result.err
+    assert ledger.read_bytes() == b""
+
+
+def test_an_output_that_is_a_device_is_refused():
+    # Never written: the check runs before any output is opened.
+    from augplan.atomic import check_output
+    from augplan.errors import BadInputError
+
+    with pytest.raises(BadInputError, match="a device, not a regular file"):
+        check_output("/dev/null")
+
+
+@pytest.mark.parametrize("command", ["preview", "draft"])
+def test_an_output_that_is_a_fifo_is_left_a_fifo(command, tmp_path, monkeypatch, run_cli):
+    import stat
+
+    ctx = Ctx(tmp_path, monkeypatch)
+    fifo = tmp_path / "pipe"
+    os.mkfifo(fifo)
+    argv = ctx.preview() if command == "preview" else ["draft", ctx.data, "-o", fifo, "--quiet"]
+    if command == "preview":
+        argv[argv.index("-o") + 1] = fifo
+    result = run_cli(*argv)
+    assert result.code == 2, result.err
+    assert "pipe" in result.err and "FIFO" in result.err
+    assert stat.S_ISFIFO(os.lstat(fifo).st_mode)
+
+
+def _field_folder(ctx):
+    field = ctx.tmp / "FIELD"
+    (field / "alpha").mkdir(parents=True)
+    Image.fromarray(draw_tiny_image(0, np.random.default_rng(5))).save(field / "alpha" / "f.png")
+    return field
+
+
+def test_draft_never_writes_inside_the_field_folder(tmp_path, monkeypatch, run_cli):
+    ctx = Ctx(tmp_path, monkeypatch)
+    field = _field_folder(ctx)
+    target = field / "alpha" / "f.png"
+    before = target.read_bytes()
+    result = run_cli("draft", ctx.data, "--field", field, "-o", target, "--quiet")
+    assert result.code == 2, result.err
+    assert "inside the field folder" in result.err
+    assert target.read_bytes() == before
+
+
+def test_coverage_plots_never_go_inside_the_field_folder(tmp_path, monkeypatch, run_cli):
+    ctx = Ctx(tmp_path, monkeypatch)
+    field = _field_folder(ctx)
+    result = run_cli("coverage", ctx.data, "--recipe", ctx.recipe, "--field", field, "--plots", field / "plots",
+                     "--quiet")
+    assert result.code == 2, result.err
+    assert "inside the field folder" in result.err
+    assert not (field / "plots").exists()
+
+
+def test_evidence_on_a_full_disk_leaves_no_partial_folder(tmp_path, monkeypatch, run_cli):
+    import errno
+
+    import augplan.atomic
+
+    ctx = Ctx(tmp_path, monkeypatch)
+    recipe = ctx.tmp / "two.yaml"
+    recipe.write_text("name: two\ncopies: 1\ntransforms:\n  - op: rotate\n    degrees: 90\n"
+                      "  - op: hue\n    degrees: [-180, 180]\n", encoding="utf-8")
+    real_fsync, calls = os.fsync, []
+
+    def fsync(descriptor):  # room for one evidence sheet, not two
+        calls.append(descriptor)
+        if len(calls) == 2:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return real_fsync(descriptor)
+
+    monkeypatch.setattr(augplan.atomic.os, "fsync", fsync)
+    evidence = ctx.out / "evidence"
+    result = run_cli("check", ctx.data, "--recipe", recipe, "--evidence", evidence, "--sample", "3", "--quiet")
+    assert result.code == 2, result.err
+    assert "No space left on device" in result.err and str(evidence) in result.err
+    assert len(calls) == 2
+    assert sorted(p.name for p in ctx.out.iterdir()) == []  # neither the folder nor a temporary
+
+
+def test_read_only_storage_names_the_output_not_a_temporary(tmp_path, monkeypatch, run_cli):
+    import errno
+
+    ctx = Ctx(tmp_path, monkeypatch)
+    real_mkdir, real_open = os.mkdir, os.open
+    place = ctx.tmp / "readonly"
+    place.mkdir()
+
+    def refuse(path, *args, **kwargs):
+        if Path(path).parent == place:
+            raise OSError(errno.EROFS, "Read-only file system", str(path))
+        return None
+
+    monkeypatch.setattr(os, "mkdir", lambda path, *a, **k: refuse(path) or real_mkdir(path, *a, **k))
+    monkeypatch.setattr(os, "open", lambda path, *a, **k: refuse(path) or real_open(path, *a, **k))
+    result = run_cli("vet", ctx.data, "--recipe", ctx.recipe, "-o", place / "report", "--repeats", "1",
+                     "--sample", "3", "--quiet")
+    assert result.code == 2, result.err
+    assert "Read-only file system" in result.err
+    assert f"{place / 'report'}:" in result.err and ".tmp" not in result.err and "/." not in result.err
+
+
+def test_temporary_names_fit_where_the_output_name_fits(tmp_path, monkeypatch, run_cli):
+    # A 250-byte name is legal (NAME_MAX is 255); ".<name>.XXXXXXXX.tmp" is not.
+    ctx = Ctx(tmp_path, monkeypatch)
+    long_file = ctx.out / ("d" * 245 + ".yaml")
+    result = run_cli("draft", ctx.data, "-o", long_file, "--quiet")
+    assert result.code == 0, result.err
+    assert long_file.is_file()
+
+    from augplan.atomic import publish_folder
+
+    long_folder = ctx.out / ("v" * 250)
+    publish_folder({"report.html": b"<html></html>\n"}, long_folder)
+    assert (long_folder / "report.html").read_bytes() == b"<html></html>\n"
+    assert sorted(p.name for p in ctx.out.iterdir()) == sorted([long_file.name, long_folder.name])
+
+
+def test_output_folders_follow_the_users_umask(tmp_path, monkeypatch, run_cli):
+    # A shared team reads the report: the folder gets 0777 & ~umask, as mkdir gives.
+    ctx = Ctx(tmp_path, monkeypatch)
+    previous = os.umask(0o022)
+    try:
+        out = ctx.tmp / "vetted"
+        result = run_cli("vet", ctx.data, "--recipe", ctx.recipe, "-o", out, "--repeats", "1", "--sample", "3",
+                         "--quiet")
+    finally:
+        os.umask(previous)
+    assert result.code in (0, 1), result.err
+    assert (out.stat().st_mode & 0o777) == 0o755
+    assert ((out / "report.html").stat().st_mode & 0o777) == 0o644
+
+
+def test_a_second_vet_to_the_same_output_is_refused_while_the_first_runs(tmp_path, monkeypatch, run_cli):
+    from augplan.atomic import output_lock
+
+    ctx = Ctx(tmp_path, monkeypatch)
+    out = ctx.tmp / "vetted"
+    with output_lock(out):  # the first run holds the folder
+        result = run_cli("vet", ctx.data, "--recipe", ctx.recipe, "-o", out, "--repeats", "1", "--sample", "3",
+                         "--quiet")
+    assert result.code == 2, result.err
+    assert "another augplan run" in result.err and f"process {os.getpid()}" in result.err
+    assert not out.exists()
+    assert not [p.name for p in ctx.tmp.iterdir() if p.name.startswith(".vetted")]  # the lock is gone too
+
+
+def test_escape_sequences_in_names_never_reach_the_terminal(tmp_path, monkeypatch, run_cli):
+    ctx = Ctx(tmp_path, monkeypatch)
+    (ctx.data / "train" / "alpha" / "evil\x1b[2J\x1b]0;owned\x07.png").write_bytes(b"not an image")
+    result = run_cli(*ctx.preview())
+    assert result.code == 0, result.err
+    assert "evil" in result.err and "\x1b" not in result.err and "\x07" not in result.err
+    assert "\\x1b[2J" in result.err
+    result = run_cli("check", ctx.data, "--recipe", ctx.tmp / "no\x1b[31mrecipe.yaml")
+    assert result.code == 2 and "\x1b" not in result.err and "no\\x1b[31mrecipe.yaml" in result.err
+
+
+def test_load_recipe_refuses_a_class_list_of_another_vetting(tmp_path):
+    import augplan
+    from augplan.recipe.parse import read_recipe
+    from augplan.vet.vetted_file import vetted_text
+
+    plain = tmp_path / "plain.yaml"
+    plain.write_text("name: v\ntransforms:\n  - op: flip\n    only: [a]\n", encoding="utf-8")
+    vetted = tmp_path / "vetted.yaml"
+    vetted.write_text(vetted_text(read_recipe(plain), {"classes": ["a", "b", "c"]}), encoding="utf-8")
+    with pytest.raises(ValueError, match="3 classes"):
+        augplan.load_recipe(vetted, classes=["a", "b"])
+    with pytest.raises(ValueError, match="'d'"):
+        augplan.load_recipe(vetted, classes=["a", "b", "d"])
+    assert augplan.load_recipe(vetted, classes=["c", "b", "a"]).classes == ("c", "b", "a")
+
+
+@pytest.mark.parametrize("label", [0.5, float("nan"), np.float32(1.0), True], ids=["half", "nan", "float32", "bool"])
+def test_a_class_scoped_recipe_refuses_a_label_that_is_no_index(label, tmp_path):
+    import augplan
+
+    path = tmp_path / "scoped.yaml"
+    path.write_text("name: v\ntransforms:\n  - op: flip\n    only: [a]\n", encoding="utf-8")
+    aug = augplan.load_recipe(path, classes=["a", "b"])
+    with pytest.raises(ValueError, match="integer class index"):
+        aug.apply(np.zeros((4, 4, 3), np.uint8), label, np.random.default_rng(0))
+
+
+@pytest.mark.parametrize("function, needle", [("raises", "ZeroDivisionError"), ("exits", "SystemExit")])
+@pytest.mark.parametrize("with_traceback", [False, True], ids=["plain", "traceback"])
+def test_the_teams_failing_function_is_named_with_exit_2(function, needle, with_traceback, tmp_path, monkeypatch,
+                                                         run_cli):
+    ctx = Ctx(tmp_path, monkeypatch)
+    extra = ["--traceback"] if with_traceback else []
+    result = run_cli("evaluate", ctx.data, "--recipe", ctx.recipe, "--repeats", "1", "--quiet",
+                     "--ledger", ctx.tmp / "l.sqlite", "--model", f"team_training:{function}", *extra)
+    assert result.code == 2, result.err
+    assert f"team_training:{function}" in result.err and needle in result.err
+    assert "internal error" not in result.err
+    assert ("Traceback" in result.err) == with_traceback
+    if with_traceback:
+        assert "team_training.py" in result.err
+
+
+def test_a_reduced_large_image_matches_pillows_full_size_resize(tmp_path):
+    # Past REDUCE_ABOVE_PIXELS an image is block-averaged right after decoding; the
+    # result is Pillow's own full-size path (orientation applied, box resize) up to
+    # where the block edges fall: on ramps of 255 levels over 2100 pixels, a block
+    # edge moved by up to half an output pixel (~16 source pixels) shifts a mean
+    # by under 2 levels; 4 allows for rounding at both stages.
+    from PIL import ImageOps
+
+    from augplan.data.dataset import REDUCE_ABOVE_PIXELS, load_images
+
+    side = 2100
+    assert side * side > REDUCE_ABOVE_PIXELS
+    ramp = np.linspace(0, 255, side)
+    rgb = np.stack([np.broadcast_to(ramp[None, :], (side, side)), np.broadcast_to(ramp[:, None], (side, side)),
+                    np.full((side, side), 90.0)], axis=-1).astype(np.uint8)
+    image = Image.fromarray(rgb)
+    exif = image.getexif()
+    exif[0x0112] = 6  # EXIF orientation: turn a quarter clockwise to display
+    path = tmp_path / "large.png"
+    image.save(path, exif=exif.tobytes(), compress_level=1)
+    ours = load_images([path], 64)[0].astype(int)
+    with Image.open(path) as opened:
+        reference = np.asarray(ImageOps.exif_transpose(opened).convert("RGB").resize((64, 64), Image.Resampling.BOX))
+    assert np.abs(ours - reference.astype(int)).max() <= 4

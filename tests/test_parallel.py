@@ -59,10 +59,10 @@ def test_resolve_workers_counts(workers, expected):
     assert resolve_workers(workers) == expected
 
 
-@pytest.mark.parametrize("workers", [0, -2, 1.5, "2", True, None],
-                         ids=["zero", "minus-two", "fraction", "text", "bool", "none"])
+@pytest.mark.parametrize("workers", [0, -2, 257, 1.5, "2", True, None],
+                         ids=["zero", "minus-two", "past-the-bound", "fraction", "text", "bool", "none"])
 def test_resolve_workers_rejects(workers):
-    with pytest.raises(BadInputError, match="--workers must be a positive integer or -1"):
+    with pytest.raises(BadInputError, match="--workers must be a whole number from 1 to at most 256, or -1"):
         resolve_workers(workers)
 
 

@@ -209,9 +209,9 @@ def test_manifest_form_runs_every_command_outside_the_data(manifest_space, comma
 
 
 def test_full_disk_during_vet_names_the_file_and_leaves_nothing(space, tmp_path, monkeypatch):
-    import augplan.vet.job
+    import augplan.atomic
 
-    real_write = augplan.vet.job.write_bytes_atomic
+    real_write = augplan.atomic.write_bytes_atomic
     calls = []
 
     def write(path, data, **kwargs):
@@ -220,7 +220,7 @@ def test_full_disk_during_vet_names_the_file_and_leaves_nothing(space, tmp_path,
             raise OSError(28, "No space left on device", f"{path}.tmp")
         return real_write(path, data, **kwargs)
 
-    monkeypatch.setattr(augplan.vet.job, "write_bytes_atomic", write)
+    monkeypatch.setattr(augplan.atomic, "write_bytes_atomic", write)
     out = tmp_path / "vet"
     code, _, err = _run(["vet", space.data, "--recipe", space.recipe, "-o", out, "--repeats", "2",
                          "--sample", "3", "--quiet"])

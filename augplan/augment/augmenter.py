@@ -130,6 +130,10 @@ class Augmenter:
             if not 0 <= int(label) < len(self.classes):
                 raise ValueError(f"label {int(label)} is outside classes (0 to {len(self.classes) - 1})")
             return self.classes[int(label)], True
+        if isinstance(label, (numbers.Number, np.generic)) and not isinstance(label, str):
+            # 0.5, NaN, a float32 1.0, True: no class is meant, and a scope would skip silently.
+            raise ValueError(f"label must be an integer class index or a class name; got {label!r} "
+                             f"({type(label).__name__}). Convert labels with int() or .astype(int).")
         return label, False
 
     def apply(self, image, label, rng=None):
@@ -259,6 +263,24 @@ def load_recipe(path, classes=None, *, verify=True):
             raise BadInputError(
                 f"{path}: the vetted recipe's checksum does not match its content: the recipe or its "
                 "evidence was edited after vetting. Vet it again, or pass verify=False to load it as it is.")
-    if classes is None and isinstance(evidence, dict) and evidence.get("classes"):
-        classes = evidence["classes"]
+    vetted_classes = evidence.get("classes") if isinstance(evidence, dict) else None
+    if classes is None and vetted_classes:
+        classes = vetted_classes
+    elif classes is not None and vetted_classes:
+        _check_vetted_classes(path, classes, vetted_classes)
     return Augmenter(recipe, classes=classes)
+
+
+def _check_vetted_classes(path, classes, vetted_classes):
+    """A class list given for a vetted file must name the classes it was vetted on (in any order)."""
+    if isinstance(classes, str) or not hasattr(classes, "__iter__"):
+        return  # Augmenter says what a class list must be
+    given = [str(name) for name in classes]
+    if len(given) != len(vetted_classes):
+        raise ValueError(f"{path}: the recipe was vetted on {len(vetted_classes)} classes "
+                         f"({', '.join(map(str, vetted_classes))}); classes names {len(given)}. Pass the "
+                         "training loop's class names in index order, or leave classes out to use the vetted list.")
+    unknown = sorted(set(given) - set(map(str, vetted_classes)))
+    if unknown:
+        raise ValueError(f"{path}: classes names {', '.join(map(repr, unknown))}, which the recipe was not vetted "
+                         f"on; it was vetted on {', '.join(map(str, vetted_classes))}.")

@@ -48,7 +48,8 @@ from augplan.errors import BadInputError
 from augplan.measure.factors import FACTORS, measure_factors
 # Re-exported: the shortcut audit's home is augplan.measure.shortcuts.
 from augplan.measure.shortcuts import (ALL_FACTORS, SHORTCUT_RULE, audit_shortcuts, factor_columns,  # noqa: F401
-                                       shortcut_messages, shortcut_score, shortcut_scores, shortcut_threshold)
+                                       shortcut_messages, shortcut_score, shortcut_scores, shortcut_threshold,
+                                       too_few_to_audit)
 from augplan.results import CoverageResult, json_number as _number
 from augplan.thresholds import COVERAGE_FLOOR, COVERAGE_NEIGHBOURS as K_NEIGHBOURS
 from augplan.parallel import parallel_map
@@ -671,7 +672,11 @@ def analyse_coverage(dataset, recipe, *, field=None, size=64, seed=0, workers=1,
     factors_out, poorly_covered = _widening(samples, messages)
     field_coverage = _joint_field_coverage(samples, seed, messages)
     n_classes = len(dataset.classes) if dataset.classes else len(set(samples.train_labels))
-    shortcuts = audit_shortcuts(samples.audit_sets(), n_classes, seed=seed)
+    audit_sets = samples.audit_sets()
+    too_few = too_few_to_audit(audit_sets)
+    if too_few is not None:
+        messages.append(too_few)
+    shortcuts = audit_shortcuts(audit_sets, n_classes, seed=seed)
     messages.extend(shortcut_messages(shortcuts, n_classes))
     suggestions = _suggestions(samples, shortcuts, poorly_covered, size, messages)
     return CoverageResult(

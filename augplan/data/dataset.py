@@ -71,6 +71,16 @@ SPLITS = ("train", "val", "test", "field")
 #: Largest image file read (bytes): past any real photograph, and a bound on
 #: memory before a byte is read (common practice, no source).
 MAX_IMAGE_BYTES = 512 * 2**20
+#: Most pixels in an image augplan decodes: 2**26 (8192 x 8192). Decoded at
+#: up to 4 bytes a pixel (RGBA, 32-bit grey) that is 256 MiB, the largest
+#: buffer a read holds; larger images are listed and skipped (common
+#: practice, no source).
+MAX_IMAGE_PIXELS = 2**26
+#: Images of more pixels than this are reduced by a whole factor (block
+#: averages, Pillow's ``Image.reduce``) right after decoding, before any
+#: conversion copies them: at most the analysis side is ever converted. Smaller
+#: images take the plain path, so their results do not change (chosen here).
+REDUCE_ABOVE_PIXELS = 2**22
 #: Largest manifest file read (bytes): millions of rows.
 MAX_MANIFEST_BYTES = 256 * 2**20
 
@@ -125,6 +135,9 @@ class Dataset:
         the training images stands in.
     split_seed : int or None
         Seed of that split; None when ``val_from_train`` is False.
+    field_root : Path or None
+        The field folder when it was given apart from the data folder
+        (``--field``); None otherwise.
     """
 
     root: Path
@@ -133,6 +146,18 @@ class Dataset:
     classes: tuple = ()
     val_from_train: bool = False
     split_seed: int | None = None
+    field_root: Path | None = None
+
+    def input_folders(self):
+        """``[(folder, what), ...]``: the folders augplan reads and never writes into.
+
+        The data folder and, when it was given apart from it, the field folder
+        (for `augplan.atomic.check_output`'s ``protected``).
+        """
+        folders = [(self.root, "data folder")]
+        if self.field_root is not None:
+            folders.append((self.field_root, "field folder"))
+        return folders
 
     def split(self, name):
         """Records of one split (``"train"``, ``"val"``, ``"test"``, ``"field"``)."""
@@ -180,12 +205,23 @@ def _pixel_limit_message(path, error):
             "Pillow refuses images this big as a possible decompression bomb")
 
 
+def _too_many_pixels(width, height):
+    """The reason an image of ``width`` x ``height`` is not decoded, or None."""
+    if width * height > MAX_IMAGE_PIXELS:
+        return (f"{width}x{height} is {width * height} pixels; augplan decodes images of at most "
+                f"{MAX_IMAGE_PIXELS} pixels")
+    return None
+
+
 def _identify(data):
-    """Return None if ``data`` decodes as an image header, else the reason.
+    """Return None if ``data`` decodes as an image, else the reason.
 
     ``Image.verify`` checks PNG chunk checksums and completeness; it does
     nothing for JPEG, so JPEGs are also decoded at 1/8 scale, which still
     walks all of the entropy-coded data and so catches truncation cheaply.
+    Every other format is decoded in full, so a damaged compressed stream
+    behind intact chunks is caught here, where it is listed and skipped,
+    not later in the middle of an analysis.
     """
     if not data:
         return "empty file (0 bytes)"
@@ -195,11 +231,14 @@ def _identify(data):
             with Image.open(io.BytesIO(data)) as image:
                 image_format = image.format
                 width, height = image.size
+                too_many = _too_many_pixels(width, height)
+                if too_many is not None:
+                    return too_many
                 image.verify()
-            if image_format == "JPEG":
-                with Image.open(io.BytesIO(data)) as image:
+            with Image.open(io.BytesIO(data)) as image:
+                if image_format == "JPEG":
                     image.draft(image.mode, (max(1, width // 8), max(1, height // 8)))
-                    image.load()
+                image.load()
     except (Image.DecompressionBombError, Image.DecompressionBombWarning) as error:
         return f"too large to decode safely, a possible decompression bomb ({error})"
     except Image.UnidentifiedImageError:
@@ -269,20 +308,27 @@ def _decode(path, *, max_side=None, draft_size=None, data=None):
         with warnings.catch_warnings():
             warnings.simplefilter("error", Image.DecompressionBombWarning)
             with Image.open(path if data is None else io.BytesIO(data)) as image:
-                if image.format == "JPEG":
-                    width, height = image.size
-                    request = draft_size
-                    if max_side is not None and max(width, height) > max_side:
-                        ratio = max_side / max(width, height)
-                        request = (max(1, int(np.ceil(width * ratio))),
-                                   max(1, int(np.ceil(height * ratio))))
-                    if request is not None:
-                        image.draft(image.mode, request)
-                image.load()
-                image = ImageOps.exif_transpose(image)
+                width, height = image.size
+                too_many = _too_many_pixels(width, height)
+                if too_many is not None:
+                    raise BadInputError(f"{path}: {too_many}")
+                request = draft_size
+                if max_side is not None and max(width, height) > max_side:
+                    ratio = max_side / max(width, height)
+                    request = (max(1, int(np.ceil(width * ratio))), max(1, int(np.ceil(height * ratio))))
+                if image.format == "JPEG" and request is not None:
+                    image.draft(image.mode, request)
+                reduced = _reduced(image, request)
+                if reduced is None:
+                    image.load()
+                    image = ImageOps.exif_transpose(image)
+                else:
+                    image = reduced
                 array = _to_rgb_array(image)
     except (Image.DecompressionBombError, Image.DecompressionBombWarning) as error:
         raise BadInputError(_pixel_limit_message(path, error)) from None
+    except BadInputError:
+        raise
     except FileNotFoundError:
         raise BadInputError(f"{path}: image file not found") from None
     except IsADirectoryError:
@@ -300,6 +346,41 @@ def _decode(path, *, max_side=None, draft_size=None, data=None):
         size = (max(1, round(width * ratio)), max(1, round(height * ratio)))
         array = _resize(array, size)
     return array
+
+
+# EXIF orientation -> the transpose that undoes it (as ImageOps.exif_transpose).
+_ORIENTATION = {2: Image.Transpose.FLIP_LEFT_RIGHT, 3: Image.Transpose.ROTATE_180,
+                4: Image.Transpose.FLIP_TOP_BOTTOM, 5: Image.Transpose.TRANSPOSE, 6: Image.Transpose.ROTATE_270,
+                7: Image.Transpose.TRANSVERSE, 8: Image.Transpose.ROTATE_90}
+
+
+def _reduced(image, request):
+    """A large image reduced by a whole factor toward ``request`` (width, height), oriented; else None.
+
+    Only images of more than `REDUCE_ABOVE_PIXELS` (after any JPEG draft)
+    are reduced, and never below ``request``: the box resize that follows
+    still makes the final size. Palette, bilevel and 16-bit images are first
+    converted to a mode whose pixels can be averaged; transparency becomes
+    an alpha channel.
+    """
+    width, height = image.size
+    if request is None or width * height <= REDUCE_ABOVE_PIXELS:
+        return None
+    factor = min(width // max(1, request[0]), height // max(1, request[1]))
+    orientation = image.getexif().get(0x0112, 1)
+    if orientation in (5, 6, 7, 8):  # the request is for the turned image
+        factor = min(width // max(1, request[1]), height // max(1, request[0]))
+    if factor < 2:
+        return None
+    if image.mode in ("P", "PA") or "transparency" in image.info:
+        image = image.convert("RGBA")
+    elif image.mode == "1":
+        image = image.convert("L")
+    elif image.mode.startswith("I;16"):
+        image = image.convert("I")
+    reduced = image.reduce(factor)
+    method = _ORIENTATION.get(orientation)
+    return reduced if method is None else reduced.transpose(method)
 
 
 def _resize(array, size):
@@ -776,7 +857,8 @@ def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, seed=0,
         val_from_train, split_seed = True, int(seed)
 
     return Dataset(root=root, records=records, skipped=scanner.skipped, classes=classes,
-                   val_from_train=val_from_train, split_seed=split_seed)
+                   val_from_train=val_from_train, split_seed=split_seed,
+                   field_root=field if manifest is None else None)
 
 
 # --------------------------------------------------------------------------

@@ -64,6 +64,8 @@ def _unusable(path, problem):
 
 
 def _connect(ledger_path, *, create):
+    """An open ledger. Without ``create`` it is opened read-only and never
+    altered: a missing file, or an empty one, is no ledger (None)."""
     path = Path(ledger_path)
     if not create and not path.exists():
         return None
@@ -73,7 +75,11 @@ def _connect(ledger_path, *, create):
         path.parent.mkdir(parents=True, exist_ok=True)
     connection = None
     try:
-        connection = sqlite3.connect(path, timeout=30)
+        if create:
+            connection = sqlite3.connect(path, timeout=30)
+        else:
+            # Reading never writes: no schema added, no journal left beside the file.
+            connection = sqlite3.connect(f"{path.absolute().as_uri()}?mode=ro", uri=True, timeout=30)
         version = connection.execute("PRAGMA user_version").fetchone()[0]
         tables = {row[0] for row in connection.execute(
             "SELECT name FROM sqlite_master WHERE type='table' AND name NOT LIKE 'sqlite_%'")}
@@ -83,12 +89,22 @@ def _connect(ledger_path, *, create):
         if version not in (0, LEDGER_VERSION):
             raise _unusable(path, f"a ledger of schema version {version}; this augplan reads version "
                                   f"{LEDGER_VERSION}")
+        if not create and not tables:
+            connection.close()
+            return None  # an empty file: no ledger yet
         if version == 0 or "run_details" not in tables:
             # A new file, a ledger from before versions were kept (same tables), or
-            # one from before runs kept their scores: the missing tables are added.
+            # one from before runs kept their scores: the missing tables are added
+            # (for reading, in a temporary schema that leaves the file as it is).
             with connection:
-                connection.executescript(_SCHEMA)
-                connection.execute(f"PRAGMA user_version = {LEDGER_VERSION}")
+                if create:
+                    connection.executescript(_SCHEMA)
+                    connection.execute(f"PRAGMA user_version = {LEDGER_VERSION}")
+                else:
+                    for statement in _SCHEMA.split(";"):
+                        words = statement.split()
+                        if words[:5] == ["CREATE", "TABLE", "IF", "NOT", "EXISTS"] and words[5] not in tables:
+                            connection.execute(statement.replace("CREATE TABLE", "CREATE TEMP TABLE", 1))
         check = connection.execute("PRAGMA quick_check").fetchone()[0]
         if check != "ok":
             raise _unusable(path, f"the ledger is damaged (SQLite's check: {check})")
@@ -258,6 +274,10 @@ def _run_row(row):
             "from_ledger": bool(from_ledger)}
 
 
+#: SQLite's largest integer key: no run number can be larger.
+_LARGEST_RUN = 2**63 - 1
+
+
 def run_details(ledger_path, run):
     """One past comparison with its scores.
 
@@ -279,9 +299,12 @@ def run_details(ledger_path, run):
     BadInputError
         No ledger at the path, or no run with that number.
     """
+    if isinstance(run, bool) or not isinstance(run, int) or not 1 <= run <= _LARGEST_RUN:
+        raise BadInputError(f"{ledger_path}: no run {run} in the ledger; run numbers are whole numbers from 1 "
+                            f"to {_LARGEST_RUN} ('augplan history' lists them).")
     with _session(ledger_path, create=False) as connection:
         if connection is None:
-            raise BadInputError(f"{ledger_path}: no results ledger here; pass --ledger or run "
+            raise BadInputError(f"{ledger_path}: no results ledger here (or an empty file); pass --ledger or run "
                                 "'augplan evaluate' first.")
         found = connection.execute(
             "SELECT id, created, fingerprint, data_root, recipes_json, best_recipe, best_gain, seed, repeats, "

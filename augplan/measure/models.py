@@ -35,6 +35,7 @@ Every model is scored on original validation images only (see
 import hashlib
 import importlib
 import re
+import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -42,8 +43,8 @@ import numpy as np
 
 from augplan.errors import BadInputError
 
-__all__ = ["LinearProxy", "ConvNet", "TeamTrainer", "scoring_model", "model_phrase", "is_linear", "MODEL_CHOICES",
-           "LINEAR_PROXY_NOTE", "DEFAULT_MODEL", "FALLBACK_NAME", "FALLBACK_WARNING"]
+__all__ = ["LinearProxy", "ConvNet", "TeamTrainer", "TeamCodeError", "scoring_model", "model_phrase", "is_linear",
+           "MODEL_CHOICES", "LINEAR_PROXY_NOTE", "DEFAULT_MODEL", "FALLBACK_NAME", "FALLBACK_WARNING"]
 
 DEFAULT_MODEL = "cnn"
 
@@ -189,7 +190,7 @@ class TeamTrainer:
 
     def train(self, images, labels, rng, draw=None, progress=None):
         # ``draw`` and ``progress`` are the network's; the team's function takes neither.
-        trained = self.function()(images, labels, rng)
+        trained = _run_team_code(self.spec, "training function", self.function(), images, labels, rng)
         if not callable(getattr(trained, "predict", None)):
             raise BadInputError(f"--model {self.spec}: the training function must return an object with "
                                 f"predict(images); got {type(trained).__name__}")
@@ -207,6 +208,36 @@ class TeamTrainer:
         return {"name": self.spec, "description": f"the team's training function {self.spec}", "note": None}
 
 
+class TeamCodeError(BadInputError):
+    """The team's own training function (or its ``predict``) failed: their code, not augplan.
+
+    Exit 2 naming the function and its exception; ``traceback_text`` holds
+    the traceback, which the command line shows under ``--traceback``.
+    """
+
+    def __init__(self, message, traceback_text=None):
+        super().__init__(message)
+        self.traceback_text = traceback_text
+
+    def __reduce__(self):  # crosses process boundaries (workers) whole
+        return (type(self), (str(self), self.traceback_text))
+
+
+def _run_team_code(spec, what, function, *arguments):
+    """Call the team's code; any exception it raises, ``SystemExit`` included, is a `TeamCodeError`.
+
+    Ctrl-C (``KeyboardInterrupt``) still interrupts the run.
+    """
+    try:
+        return function(*arguments)
+    except (Exception, SystemExit) as error:
+        summary = f"{type(error).__name__}: {error}" if str(error) else type(error).__name__
+        if isinstance(error, SystemExit):
+            summary = f"SystemExit({error.code!r}): the {what} ended the process"
+        raise TeamCodeError(f"--model {spec}: the {what} failed ({summary}); rerun with --traceback to see "
+                            "where", traceback_text="".join(traceback.format_exception(error))) from None
+
+
 class _CheckedPredictor:
     """The team's predictor, its answers checked: one integer class index per image."""
 
@@ -214,7 +245,7 @@ class _CheckedPredictor:
         self.predictor, self.spec, self.n_classes = predictor, spec, n_classes
 
     def predict(self, images):
-        predicted = np.asarray(self.predictor.predict(images))
+        predicted = np.asarray(_run_team_code(self.spec, "predict", self.predictor.predict, images))
         if (predicted.shape != (len(images),) or not np.issubdtype(predicted.dtype, np.integer)
                 or (predicted.size and (predicted.min() < 0 or predicted.max() >= self.n_classes))):
             raise BadInputError(f"--model {self.spec}: predict must return one integer class index in "

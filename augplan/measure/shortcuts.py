@@ -19,8 +19,9 @@ import numpy as np
 
 from augplan.measure.factors import FACTORS
 from augplan.measure.stats import wilson_interval
+from augplan.parallel import single_threaded
 from augplan.results import json_number
-from augplan.thresholds import (CHANCE_GAP_SHARE, CONFIDENCE, LINK_BROKEN_SHARE, MAX_FOLDS,
+from augplan.thresholds import (CHANCE_GAP_SHARE, CONFIDENCE, LINK_BROKEN_SHARE, MAX_FOLDS, MIN_AUDIT_IMAGES,
                                 ONE_VS_REST_THRESHOLD, beyond_chance)
 
 __all__ = [
@@ -32,8 +33,10 @@ __all__ = [
     "shortcut_score",
     "factor_columns",
     "audit_shortcuts",
+    "val_shared_shortcuts",
     "link_of",
     "shortcut_messages",
+    "too_few_to_audit",
 ]
 
 ALL_FACTORS = "all factors"
@@ -56,6 +59,11 @@ SHORTCUT_RULE = (
     "row is for information only and never flagged: classes may differ in colour "
     "or shape legitimately."
 )
+
+
+#: Most classes the shortcut model fits by Newton steps; more are fitted by
+#: L-BFGS (chosen here, no source).
+_NEWTON_CLASSES = 20
 
 
 def shortcut_threshold(n_classes):
@@ -138,9 +146,18 @@ def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS, s
     if splits is None:
         return None, {}
     # Newton steps converge in a handful of iterations on a few columns,
-    # where quasi-Newton solvers spend hundreds of cheap ones.
-    model = make_pipeline(StandardScaler(), LogisticRegression(solver="newton-cholesky", max_iter=200))
-    with warnings.catch_warnings():
+    # where quasi-Newton solvers spend hundreds of cheap ones; but a Newton
+    # step builds a Hessian of ((columns + 1) x classes)^2 entries per image,
+    # the square of the classes, so many classes take L-BFGS, whose steps
+    # cost (columns + 1) x classes per image.
+    solver = "newton-cholesky" if np.unique(labels).size <= _NEWTON_CLASSES else "lbfgs"
+    model = make_pipeline(StandardScaler(), LogisticRegression(solver=solver, max_iter=200))
+    # One BLAS thread: the solver's Hessian products on a few thousand rows
+    # cross OpenBLAS's threading threshold, and on a shared machine the pool's
+    # threads then spin against each other. Measured: coverage's audit at
+    # 5,000 images of 64 px spent 163 s of 260 in those products, against
+    # 2 s at 2,000 images (see augplan.parallel.single_threaded).
+    with single_threaded(), warnings.catch_warnings():
         # Perfectly separated classes stop the solver at max_iter; the
         # predictions are still the separating ones.
         warnings.simplefilter("ignore")
@@ -323,11 +340,77 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
         `SHORTCUT_RULE`.
     """
     names = list(FACTORS)
+    if too_few_to_audit(sets) is not None:
+        sets = {}  # every score None, at once: nothing to cross-validate
     # One set of folds per set, shared by every factor's row.
     splits = {set_name: fold_splits(labels, groups=set_groups, seed=seed)
               for set_name, (_, labels, set_groups) in sets.items()}
     return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed, splits)
             for name in names + [ALL_FACTORS]]
+
+
+def too_few_to_audit(sets):
+    """Why the training set is too small for the shortcut audit, or None.
+
+    The audit cross-validates over the training images; a class needs at
+    least `MIN_AUDIT_IMAGES` of them (`audit_shortcuts` then scores nothing).
+
+    Parameters
+    ----------
+    sets : dict
+        As `audit_shortcuts` takes it; its ``"original"`` set is judged.
+
+    Returns
+    -------
+    str or None
+    """
+    if "original" not in sets:
+        return None
+    labels = np.asarray(sets["original"][1])
+    if labels.size == 0:
+        return None
+    names, counts = np.unique(labels, return_counts=True)
+    if counts.min() >= MIN_AUDIT_IMAGES:
+        return None
+    short = names[counts < MIN_AUDIT_IMAGES]
+    listed = ", ".join(map(str, short[:5])) + (f" and {short.size - 5} more" if short.size > 5 else "")
+    return (f"Too few training images for the shortcut audit: it needs at least {MIN_AUDIT_IMAGES} images in "
+            f"every class, and {short.size} of {names.size} classes have fewer ({listed}); no shortcut "
+            "was scored.")
+
+
+def val_shared_shortcuts(sets, n_classes, *, seed=0):
+    """Flagged shortcut factors that the validation set carries too (``val_shares`` of `audit_shortcuts`).
+
+    The same rule and scores as `audit_shortcuts`, without the augmented set
+    and the all-factors row, and scoring validation and field only for the
+    factors the original training set flags: the cheap form for a caller
+    that needs only this list.
+
+    Parameters
+    ----------
+    sets : dict
+        ``{"original", "val", "field"?: (values, labels, None)}`` as in `audit_shortcuts`.
+    n_classes : int
+    seed : int, default 0
+
+    Returns
+    -------
+    list of str
+        Factor names, in the order of `FACTORS`.
+    """
+    if too_few_to_audit(sets) is not None:
+        return []  # as audit_shortcuts: nothing is scored
+    # One set of folds per set, shared by every factor's row, as in `audit_shortcuts`.
+    splits = {set_name: fold_splits(labels, groups=set_groups, seed=seed)
+              for set_name, (_, labels, set_groups) in sets.items()}
+    shared = []
+    for name in FACTORS:
+        if not _audit_row(name, [name], {"original": sets["original"]}, n_classes, seed, splits)["flagged"]:
+            continue
+        if _audit_row(name, [name], sets, n_classes, seed, splits)["val_shares"]:
+            shared.append(name)
+    return shared
 
 
 def _score_text(row, set_name):

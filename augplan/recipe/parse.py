@@ -53,6 +53,7 @@ __all__ = [
     "MAX_NAME_BYTES",
     "MAX_RECIPE_BYTES",
     "MAX_SEED",
+    "MAX_TRANSFORMS",
     "OP_FIELDS",
     "RECIPE_SCHEMA_PATH",
     "FrozenMap",
@@ -94,6 +95,9 @@ _OP_RULES = {op: (rule.magnitude, rule.bound) for op, rule in OP_TABLE.items()}
 #: Largest ``copies``: a thousand augmented copies of every training image is
 #: far past any use and keeps memory bounded (common practice, no source).
 MAX_COPIES = 1000
+#: Most transforms in one recipe: a chain this long is already far past any
+#: use, and every transform costs the checker a sweep (common practice, no source).
+MAX_TRANSFORMS = 100
 #: Longest recipe name in UTF-8 bytes; names become parts of file names
 #: (``vetted-<name>.yaml``), which most file systems cap at 255 bytes.
 MAX_NAME_BYTES = 100
@@ -441,6 +445,10 @@ class _Checker:
         if not isinstance(raw_transforms, list):
             self.top_field_fail("transforms", "must be a list of transforms "
                                 "(write [] for none)", raw_transforms)
+        if len(raw_transforms) > MAX_TRANSFORMS:
+            self.fail(self.top_lines.get("transforms", self.first_line),
+                      f"the 'transforms' field holds at most {MAX_TRANSFORMS} transforms; got "
+                      f"{len(raw_transforms)}. Split the recipe into several.")
         seq_node = _value_node(self.root, "transforms")
         item_nodes = seq_node.value if isinstance(seq_node, yaml.SequenceNode) else []
         transforms = []

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 from PIL import Image
 
-from augplan.atomic import write_bytes_atomic
+from augplan.atomic import check_output, publish_folder
 
 __all__ = ["factor_grid", "palette_png", "jpeg_bytes", "with_factor_plots"]
 
@@ -121,16 +121,18 @@ def with_factor_plots(result, plots_dir):
     result : augplan.results.CoverageResult
         From `augplan.coverage.coverage.analyse_coverage`.
     plots_dir : str or Path
-        Created if missing; the file is written atomically.
+        Created if missing; the folder is written whole or not at all
+        (`augplan.atomic.publish_folder`).
 
     Returns
     -------
     augplan.results.CoverageResult
     """
     plots_dir = Path(plots_dir)
-    plots_dir.mkdir(parents=True, exist_ok=True)
+    check_output(plots_dir, folder=True)
     data = factor_grid(result["factors"], title=f"recipe {result['recipe']}")
     if data is None:
+        publish_folder({}, plots_dir)
         return dataclasses.replace(result, plots=[])
-    written = write_bytes_atomic(plots_dir / "factors.png", data)
-    return dataclasses.replace(result, plots=[str(written)])
+    publish_folder({"factors.png": data}, plots_dir)
+    return dataclasses.replace(result, plots=[str(plots_dir / "factors.png")])

@@ -7,7 +7,6 @@ interrupted run leaves the output folder without partial files.
 import dataclasses
 import json
 import os
-import shutil
 import sys
 import tempfile
 from pathlib import Path
@@ -15,13 +14,12 @@ from pathlib import Path
 import numpy as np
 
 from augplan import __version__
-from augplan.atomic import write_bytes_atomic
+from augplan.atomic import check_output, output_lock, publish_folder, write_bytes_atomic
 from augplan.cautions import CAUTIONS
 from augplan.coverage.coverage import analyse_coverage
 from augplan.data.dataset import find_duplicates, fingerprint
-from augplan.errors import BadInputError
-from augplan.workspace import ensure_outside_data
-from augplan.evaluate.evaluate import BEST_RULE, best_recipe, evaluate_recipes, rank_key
+from augplan.errors import BadInputError, printable
+from augplan.evaluate.evaluate import BEST_RULE, evaluate_recipes
 from augplan.measure.models import is_linear, model_phrase, scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
@@ -43,8 +41,7 @@ def prepare_output(out_dir, *, force=False, replace=False):
     only an earlier vet output, holding ``report.html`` or ``evidence.json``).
     """
     out_dir = Path(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise BadInputError(f"{out_dir}: exists and is not a folder; choose another output folder.")
+    check_output(out_dir, folder=True)
     if out_dir.is_dir() and any(out_dir.iterdir()):
         if replace and not any((out_dir / name).is_file() for name in _OUTPUT_MARKERS):
             raise BadInputError(f"{out_dir}: not empty and not an earlier augplan output (no report.html); "
@@ -52,51 +49,7 @@ def prepare_output(out_dir, *, force=False, replace=False):
         if not (force or replace):
             raise BadInputError(f"{out_dir}: the output folder is not empty; pass --force to write into it "
                                 "or choose another folder.")
-    if not out_dir.parent.is_dir():
-        raise BadInputError(f"{out_dir}: its parent folder {out_dir.parent} does not exist.")
     return out_dir
-
-
-def _publish(files, out_dir, *, replace=False):
-    """Write ``files`` ({relative path: bytes}) to a temporary folder beside
-    ``out_dir``, then move them into place: all of them or, on any fault
-    (a full disk, Ctrl-C), none.
-
-    A missing or empty ``out_dir`` is replaced by the temporary folder in one
-    rename; with ``replace`` an earlier output is swapped out whole; else
-    (``--force``) the files are moved into the existing folder, the report last.
-    """
-    out_dir = Path(out_dir)
-    staging = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".tmp", dir=out_dir.parent))
-    retired = None
-    try:
-        for relpath, data in files.items():
-            target = staging / relpath
-            target.parent.mkdir(parents=True, exist_ok=True)
-            try:
-                write_bytes_atomic(target, data)
-            except OSError as error:  # name the output, not the staging folder
-                raise type(error)(error.errno, error.strerror, str(out_dir / relpath)) from None
-        if out_dir.is_dir() and not any(out_dir.iterdir()):
-            out_dir.rmdir()
-        elif out_dir.is_dir() and replace:
-            retired = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".old", dir=out_dir.parent))
-            os.replace(out_dir, retired / out_dir.name)
-        if not out_dir.exists():
-            os.replace(staging, out_dir)
-        else:
-            order = sorted(files, key=lambda name: name == "report.html")
-            for relpath in order:
-                (out_dir / relpath).parent.mkdir(parents=True, exist_ok=True)
-                os.replace(staging / relpath, out_dir / relpath)
-    except BaseException:
-        if retired is not None and not out_dir.exists():
-            os.replace(retired / out_dir.name, out_dir)  # put the earlier output back
-        raise
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-        if retired is not None:
-            shutil.rmtree(retired, ignore_errors=True)
 
 
 def _inside(path, folder):
@@ -131,33 +84,46 @@ def _collect_figures(entries):
 
 
 def _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check):
-    """Undo relabelled or scoped steps whose re-check is not safe; update ``changes``.
+    """Undo relabelled or scoped steps whose re-check is not safe.
 
     A rejected rewrite falls back to the original step clipped to its safe
     limit when the first check measured one, and is removed otherwise.
+
+    Returns
+    -------
+    (Recipe, list of VettingChange)
+        The vetted recipe and the changes, the rejected rewrites' replaced.
     """
     from augplan.results import range_text
-    from augplan.vet.vetted_file import _clip_to_limit
+    from augplan.vet.vetted_file import VettingChange, _clip_to_limit, clip_change
 
-    kept = [change for change in changes if change["action"] != "remove"]
     verdicts = {t["index"]: t["verdict"] for t in rechecked["transforms"]}
     entries = {t["index"]: t for t in check["transforms"]}
-    steps = []
-    for position, (change, step) in enumerate(zip(kept, vetted.transforms)):
+    steps, updated, position = [], [], 0
+    kept_steps = iter(vetted.transforms)
+    for change in changes:
+        if change["action"] == "remove":
+            updated.append(change)
+            continue
+        step = next(kept_steps)
         if change["action"] in ("relabel", "scope") and verdicts[position] != "safe":
             original, entry = recipe.transforms[change["index"]], entries[change["index"]]
             clipped = _clip_to_limit(original, entry)
             if clipped is not None and clipped != original:
-                change["detail"] += (f"; re-checked as rewritten it is still {verdicts[position]}: "
-                                     f"clipped to the safe limit {range_text(entry['safe_limit'])} instead")
-                change["action"] = "clip"
+                detail = (f"{change['detail']}; re-checked as rewritten it is still {verdicts[position]}: "
+                          f"clipped to the safe limit {range_text(entry['safe_limit'])} instead")
+                updated.append(clip_change(change["index"], original, clipped, change["verdict"],
+                                           entry["safe_limit"], detail))
                 steps.append(clipped)
-                continue
-            change["detail"] += f"; removed: re-checked as rewritten, it is still {verdicts[position]}"
-            change["action"] = "remove"
-            continue
-        steps.append(step)
-    return dataclasses.replace(vetted, transforms=tuple(steps))
+            else:
+                updated.append(VettingChange(change["index"], change["op"], change["verdict"], "remove",
+                                             f"{change['detail']}; removed: re-checked as rewritten, it is "
+                                             f"still {verdicts[position]}"))
+        else:
+            updated.append(change)
+            steps.append(step)
+        position += 1
+    return dataclasses.replace(vetted, transforms=tuple(steps)), updated
 
 
 def _signoff_items(changes):
@@ -180,7 +146,7 @@ def _vetted_name(recipe):
 
 def _stage(quiet, text):
     if not quiet:
-        print(f"augplan vet: {text}", file=sys.stderr, flush=True)
+        print(printable(f"augplan vet: {text}"), file=sys.stderr, flush=True)
 
 
 def _class_counts(dataset):
@@ -209,37 +175,37 @@ def _draws_sheet(dataset, recipe, path, *, seed, number):
 
 
 def _gain_text(block):
+    """A gain and its 95% interval in percentage points, the report's one unit."""
     low, high = block["gain_ci"]
-    return f"{block['gain']:+.2f} [95% CI {low:+.2f}, {high:+.2f}]"
+    return f"{100 * block['gain']:+.1f} points [95% CI {100 * low:+.1f}, {100 * high:+.1f}]"
 
 
 def _verdict_sentence(recipe_entries, evaluation, best, top):
     """The report's first line: what to use, how much it gains, what augplan changed.
 
-    ``best`` is the score row `BEST_RULE` picks (None when no recipe beat no
-    augmentation); ``top`` is the highest-ranked vetted row, whose figures
-    are quoted either way.
+    ``best`` is the score row `BEST_RULE` recommends (None when no recipe
+    clearly beat no augmentation); ``top`` is the highest-ranked vetted row,
+    whose figures are quoted either way. The evidence named first is the
+    evaluator's primary evidence (``decided_on``). One voice: without a
+    recommendation no recipe is called recommended or "used".
     """
     model = evaluation["model"]
     phrase = model_phrase(model["name"])
     row = best if best is not None else top
-    field = row.get("field") or {}
-    has_field = field.get("gain") is not None
+    on_field = evaluation.get("decided_on") == "field" and (row.get("field") or {}).get("gain") is not None
     if best is None:
-        where = "validation or the labelled field sample" if has_field else "validation"
-        lead = f"No recipe beat no augmentation on {where}, scored with {phrase}"
+        where = "the labelled field sample" if on_field else "validation"
+        lead = f"No recipe clearly beat no augmentation on {where}, scored with {phrase}"
         if is_linear(model["name"]):
             lead += (" (whose gains are biased against augmentation: this is not evidence of harm; its order "
                      f"puts {top['name']} first; score with --model cnn before deciding)")
         else:
             lead += f"; the highest-ranked is {top['name']}"
-    elif best["gain_ci"][0] > 0 or (has_field and field["gain_ci"][0] > 0):
-        lead = f"Use {best['name']} (scored with {phrase})"
+        lead += "; the vetted recipes are exported, none recommended"
     else:
-        lead = (f"No recipe shows a clear gain; {best['name']} gains most, scored with {phrase}, "
-                "and its interval spans zero")
-    scores = (f"gain over no augmentation {_gain_text(field)} on the labelled field sample and "
-              f"{_gain_text(row)} on validation" if has_field
+        lead = f"Use {best['name']} (scored with {phrase})"
+    scores = (f"gain over no augmentation {_gain_text(row['field'])} on the labelled field sample, which "
+              f"decides, and {_gain_text(row)} on validation" if on_field
               else f"validation gain over no augmentation {_gain_text(row)}")
     accuracy = evaluation["baseline"].get("accuracy")
     if accuracy is not None and accuracy >= 0.99:
@@ -296,7 +262,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         remove); ``signoff`` lists the transforms a person must approve, each
         with its evidence sheet.
     """
-    ensure_outside_data(out_dir, dataset.root)
+    check_output(out_dir, folder=True, protected=dataset.input_folders())
     scoring = scoring_model(model)  # a bad --model fails before the long steps
     out_dir = prepare_output(out_dir, force=force, replace=replace)
     for recipe in recipes:
@@ -304,7 +270,9 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             raise BadInputError(f"{recipe.source}: the recipe lies inside the output folder {out_dir}, "
                                 "whose files vet replaces; choose another output folder.")
     settings = dict(sample=sample, seed=seed, workers=workers, quiet=quiet, model=scoring, size=size)
-    with tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
+    # One run at a time writes a folder; under the lock its state is checked again.
+    with output_lock(out_dir), tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
+        prepare_output(out_dir, force=force, replace=replace)
         scratch = Path(scratch)
         entries, vetted_recipes = [], []
         for number, recipe in enumerate(recipes):
@@ -315,17 +283,21 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
 
         _stage(quiet, "scoring every recipe and its vetted form against no augmentation")
         to_score = list(recipes) + [v for v, e in zip(vetted_recipes, entries) if not e["vetted"]["unchanged"]]
+        # The shortcut audit of the original images is the same in every recipe's coverage.
         evaluation = evaluate_recipes(dataset, to_score, repeats=repeats, seed=seed, workers=workers,
                                       quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir, model=scoring,
-                                      size=size)
+                                      size=size,
+                                      val_shares_shortcut=entries[0]["coverage"]["val_shares_shortcut"],
+                                      candidates={v.name for v in vetted_recipes})
         scores = {row["name"]: row for row in evaluation["recipes"]}
         for entry, vetted in zip(entries, vetted_recipes):
             entry["vetted"]["score"] = scores[vetted.name]
-        ranking = [row["name"] for row in sorted(evaluation["recipes"], key=rank_key, reverse=True)]
+        # The ranking and the recommendation are the evaluator's (BEST_RULE); nothing is re-sorted here.
+        ranking = evaluation["ranking"]
         by_vetted_name = {entry["vetted"]["name"]: entry for entry in entries}
         top_entry = next(by_vetted_name[name] for name in ranking if name in by_vetted_name)
-        best_row = best_recipe([row for row in evaluation["recipes"] if row["name"] in by_vetted_name])
-        best_entry = None if best_row is None else by_vetted_name[best_row["name"]]
+        best_entry = None if evaluation["best"] is None else by_vetted_name[evaluation["best"]]
+        best_row = None if best_entry is None else scores[evaluation["best"]]
 
         header = {"augplan_version": __version__, "created": creation_date(), "data_fingerprint": fingerprint(dataset)}
         documents = {f"vetted-{entry['name']}.yaml": vetted_text(vetted, _vetted_evidence(entry, vetted, evaluation,
@@ -341,13 +313,15 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                                                ranking)
         html = _render_with_figures(evidence_document, figures, scratch / "staged")
         # Everything is computed: now write, all files or none.
-        _publish(_output_files(documents, figures, evidence_document, html), out_dir, replace=replace)
+        publish_folder(_output_files(documents, figures, evidence_document, html), out_dir, replace=replace,
+                       last="report.html")
 
     return VetResult(verdict=verdict, report=str(out_dir / "report.html"),
                      vetted_recipe=None if best_entry is None else str(out_dir / "vetted-recipe.yaml"),
                      evidence=str(out_dir / "evidence.json"),
                      unchanged=all(entry["vetted"]["unchanged"] for entry in entries),
                      best=None if best_entry is None else best_entry["name"], model=evaluation["model"]["name"],
+                     decision_note=evaluation["decision_note"],
                      changes=[{"recipe": entry["name"], "vetted": entry["vetted"]["name"],
                                "unchanged": entry["vetted"]["unchanged"], "transforms": entry["vetted"]["changes"]}
                               for entry in entries],
@@ -371,7 +345,8 @@ def _vet_one(dataset, recipe, scratch, number, approve, settings):
         # A rewrite was suggested by the checker but not itself measured:
         # measure it, and drop a rewritten step that is still not safe.
         rechecked = check_recipe(dataset, vetted, **settings).to_json()
-        vetted = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
+        vetted, changes = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
+    changes = [change.to_json() for change in changes]
     unchanged = vetted.transforms == recipe.transforms
     signoff = _signoff_items(changes)
     if not unchanged:
@@ -407,6 +382,10 @@ def _vetted_evidence(entry, vetted, evaluation, header, seed, classes):
     if field.get("gain") is not None:
         evidence["field"] = {"gain": field["gain"], "gain_ci": field["gain_ci"],
                              "n_images": field.get("n_images")}
+    # Which evidence decided (BEST_RULE) and what validation can show, as every output of vet says it.
+    evidence["decided_on"] = evaluation["decided_on"]
+    if evaluation["val_shares_shortcut"]:
+        evidence["validation_note"] = evaluation["decision_note"]
     evidence["classes"] = list(classes)
     signoff = [f"{item['index']} {item['op']}: {item['detail']}" for item in entry["vetted"]["signoff"]]
     if signoff:
