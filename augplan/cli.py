@@ -118,7 +118,10 @@ def _workers(parser, *, ship_images=True):
 
 
 def _side(text):
-    value = _positive_int(text)
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a side between 16 and 1024 pixels; got {text!r}") from None
     if not 16 <= value <= 1024:
         raise argparse.ArgumentTypeError(f"expected a side between 16 and 1024 pixels; got {value}")
     return value
