@@ -549,6 +549,10 @@ def _widening(samples, messages):
                  "augmented": summarise_factor(samples.augmented[name], factor, edges)}
         if factor.circular:
             entry["period"] = factor.period
+        if entry["original"]["n"] == 0:
+            entry["note"] = factor.undefined_note
+            messages.append(f"{name}: {factor.undefined_note}; none of the training images has a value, "
+                            "so it is neither compared nor audited.")
         if f_values is not None:
             share = _in_range_share(f_values, samples.augmented[name], factor)
             entry["field"] = {

@@ -499,6 +499,11 @@ class Factor:
         Period in the factor's unit for circular factors (360 or 180).
     unit : str
         What the numbers are, for tables and plot axes.
+    undefined_for : str
+        The images on which the factor has no value (NaN), in words, for the
+        note every output gives when a whole set has none: "grey images"
+        for hue (a grey pixel has no hue). Empty for factors defined on
+        every image.
     """
 
     name: str
@@ -506,6 +511,12 @@ class Factor:
     kind: str = "linear"
     period: float | None = None
     unit: str = ""
+    undefined_for: str = ""
+
+    @property
+    def undefined_note(self):
+        """``"not defined for grey images"``: what outputs say where no image of a set has a value."""
+        return f"not defined for {self.undefined_for or 'these images'}"
 
     @property
     def circular(self):
@@ -518,9 +529,10 @@ FACTORS = {
         Factor("brightness", brightness, unit="mean relative luminance"),
         Factor("contrast", rms_contrast, unit="RMS contrast of luminance"),
         Factor("colourfulness", colourfulness, unit="Hasler-Suesstrunk M"),
-        Factor("hue", hue, "circular", 360.0, unit="degrees"),
+        Factor("hue", hue, "circular", 360.0, unit="degrees", undefined_for="grey images"),
         Factor("sharpness", sharpness, unit="variance of Laplacian"),
-        Factor("orientation", orientation, "circular", 180.0, unit="degrees (axial)"),
+        Factor("orientation", orientation, "circular", 180.0, unit="degrees (axial)",
+               undefined_for="flat images (no dominant direction)"),
         Factor("coherence", coherence, unit="structure-tensor coherence"),
         Factor("asymmetry", asymmetry, unit="left-right asymmetry"),
         Factor("centroid_x", centroid_x, unit="fraction of width"),

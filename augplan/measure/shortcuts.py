@@ -225,6 +225,10 @@ def _audit_row(name, chosen, sets, n_classes, seed):
             row[set_name] = None
             continue
         values, labels, set_groups = sets[set_name]
+        if not any(np.isfinite(values[column]).any() for column in chosen):
+            # No image of the set has a value (hue of grey images): nothing to score.
+            row[set_name] = None
+            continue
         overall, per_class = shortcut_scores(factor_columns(values, chosen), labels, groups=set_groups, seed=seed)
         row[set_name] = json_number(overall)
         by_class[set_name] = {c: json_number(v) for c, v in per_class.items()}
@@ -250,6 +254,8 @@ def _audit_row(name, chosen, sets, n_classes, seed):
     row["class"] = driver if (flagged or row["field_confirms"]) else None
     row["by_class"] = by_class
     row["combined"] = combined
+    row["note"] = (FACTORS[name].undefined_note if not combined and "original" in sets
+                   and not np.isfinite(sets["original"][0][name]).any() else None)
     return row
 
 
@@ -273,8 +279,10 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
     list of dict
         Rows with ``factor``, the four scores, ``chance``, ``field_confirms``,
         ``flagged``, ``persists``, ``link``, ``augmented_ci``, ``link_bound``,
-        ``val_shares``, ``class``, ``by_class`` and ``combined``, following
-        `SHORTCUT_RULE`.
+        ``val_shares``, ``class``, ``by_class``, ``combined`` and ``note``
+        (`Factor.undefined_note` when no training image has a value of the
+        factor, such as hue on grey images; else None), following
+        `SHORTCUT_RULE`. A set in which no image has a value scores None.
     """
     names = list(FACTORS)
     return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed)
