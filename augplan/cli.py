@@ -217,12 +217,15 @@ class _Console:
     def __init__(self, as_json, quiet):
         self.as_json = as_json
         self.quiet = quiet
+        self._warned = set()
 
     def say(self, text=""):
         self._write(sys.stderr if self.as_json else sys.stdout, f"{text}\n")
 
     def warn(self, text):
-        if not self.quiet:
+        """Print a warning once: a data warning the result repeats is not printed twice."""
+        if not self.quiet and text not in self._warned:
+            self._warned.add(text)
             print(f"warning: {text}", file=sys.stderr)
 
     def emit_json(self, document):
@@ -273,6 +276,8 @@ def _report_dataset(console, dataset):
     if dataset.val_from_train:
         console.warn(f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) "
                      "stands in for validation")
+    if dataset.missing_val_message():
+        console.warn(dataset.missing_val_message())
 
 
 def _report_leaks(console, dataset):
