@@ -333,3 +333,23 @@ def test_grey_images_report_hue_as_not_defined_in_text_json_and_report(tmp_path,
     evidence = {"recipes": [{"name": "tiny", "coverage": document}]}
     page = render_report(evidence)
     assert page.count("not defined for grey images") >= 2
+
+
+# --------------------------------- suggestions within the reader's bounds
+
+@pytest.mark.parametrize("name, op", [("brightness", "brightness"), ("contrast", "contrast")])
+def test_a_suggestion_spanning_a_wide_gap_stays_inside_the_bounds_and_the_cap(name, op):
+    # Invented ground truth: two classes whose medians differ 15-fold, wider
+    # than the reader's bound of 10 allows for a ratio taken both ways.
+    labels = np.repeat(["dim", "lit"], 20)
+    values = {name: np.where(labels == "dim", 0.02, 0.3) * np.linspace(0.95, 1.05, 40)}
+    suggestion, _ = coverage._suggestion(name, values, labels, None, True, False, None)
+    low, high = suggestion["range"]
+    # The recipe reader accepts the suggestion as it is written.
+    recipe = parse_recipe(f"name: s\ntransforms:\n  - op: {op}\n    factor: [{low}, {high}]\n")
+    assert recipe.transforms[0].params["factor"] == (low, high)
+    from augplan.thresholds import PLAUSIBLE_FACTOR
+
+    cap = PLAUSIBLE_FACTOR[op]
+    assert 1.0 / cap <= low < 1.0 < high <= cap
+    assert "capped at the plausible" in suggestion["reason"]

@@ -13,6 +13,7 @@ import numpy as np
 from augplan.data.dataset import load_images
 from augplan.measure.factors import brightness, orientation, rms_contrast, sharpness
 from augplan.recipe.parse import parse_recipe
+from augplan.thresholds import PLAUSIBLE_FACTOR
 
 __all__ = ["draft_ranges", "draft_recipe_text"]
 
@@ -26,8 +27,11 @@ DEFAULTS = {
     "contrast": (0.85, 1.15),
 }
 # The widest ranges a draft proposes whatever the field shows; beyond these a
-# person should decide.
-LIMITS = {"brightness": (0.2, 5.0), "contrast": (0.4, 2.5), "rotate": 45.0}
+# person should decide. Brightness is held to the plausibility cap that
+# coverage's suggestions keep (`PLAUSIBLE_FACTOR`); contrast and rotation
+# tighter still (common practice, no source).
+LIMITS = {"brightness": (1.0 / PLAUSIBLE_FACTOR["brightness"], PLAUSIBLE_FACTOR["brightness"]),
+          "contrast": (0.4, 2.5), "rotate": 45.0}
 
 
 def _ratio_range(train_values, field_values, default, limits):
