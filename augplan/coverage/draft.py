@@ -11,7 +11,7 @@ import json
 import numpy as np
 
 from augplan.data.dataset import load_images
-from augplan.measure.factors import brightness, orientation, rms_contrast, sharpness
+from augplan.measure.factors import brightness, normalised_sharpness, orientation, rms_contrast
 from augplan.recipe.parse import parse_recipe
 from augplan.thresholds import PLAUSIBLE_FACTOR
 
@@ -80,7 +80,12 @@ def draft_ranges(train_images, field_images=None):
     95th percentile. Contrast likewise with RMS contrast. The rotation range
     is the field's extra orientation spread (circular standard deviation of
     the structure-tensor orientation, Mardia & Jupp 2000) beyond the training
-    data's, doubled to cover both directions.
+    data's, doubled to cover both directions. Blur is proposed when the
+    field's median sharpness is below 0.7 of the training median, both
+    measured on intensity-normalised images (`normalised_sharpness`: the
+    variance of the Laplacian of luminance divided by the squared mean
+    luminance), so a field that is only darker or brighter does not read as
+    blurrier.
     """
     ranges = dict(DEFAULTS)
     if field_images is None or len(field_images) == 0:
@@ -92,8 +97,10 @@ def draft_ranges(train_images, field_images=None):
     extra = max(0.0, _axial_spread(orientation(field_images)) - _axial_spread(orientation(train_images)))
     degrees = float(np.clip(round(2.0 * extra), DEFAULTS["rotate"][1], LIMITS["rotate"]))
     ranges["rotate"] = (-degrees, degrees)
-    train_sharpness = float(np.median(sharpness(train_images)))
-    field_sharpness = float(np.median(sharpness(field_images)))
+    # On intensity-normalised images: a darker field alone lowers the plain
+    # variance of the Laplacian and would read as blur.
+    train_sharpness = float(np.median(normalised_sharpness(train_images)))
+    field_sharpness = float(np.median(normalised_sharpness(field_images)))
     if train_sharpness > 0 and field_sharpness < 0.7 * train_sharpness:
         ranges["blur"] = (0.0, 1.0)
     return ranges

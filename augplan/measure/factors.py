@@ -49,6 +49,7 @@ __all__ = [
     "colourfulness",
     "hue",
     "sharpness",
+    "normalised_sharpness",
     "orientation",
     "coherence",
     "asymmetry",
@@ -277,6 +278,35 @@ def sharpness(images):
        Laplacian focus measure).
     """
     return _sharpness_of(_luminance(images))
+
+
+def normalised_sharpness(images):
+    """Variance of the Laplacian of intensity-normalised luminance: blind to exposure.
+
+    Parameters
+    ----------
+    images : numpy.ndarray of uint8, shape (N, H, W, 3)
+
+    Returns
+    -------
+    numpy.ndarray of float64, shape (N,)
+        `sharpness` of ``Y / mean(Y)``, each image's relative luminance
+        divided by its own mean: ``var(laplace(Y)) / mean(Y) ** 2``. An
+        exposure change multiplies linear-light luminance by a factor, and
+        with it the variance of the Laplacian by the factor squared, so
+        `sharpness` falls as an image darkens; this ratio does not (up to
+        clipping at white and 8-bit rounding) and falls only with blur. 0
+        for a black image.
+
+    References
+    ----------
+    .. [1] J. L. Pech-Pacheco et al., "Diatom autofocusing in brightfield
+       microscopy: a comparative study", ICPR 2000.
+    """
+    lum = _luminance(images)
+    mean = lum.reshape(lum.shape[0], -1).mean(axis=1, dtype=np.float64)
+    safe = np.where(mean > 0, mean, 1.0)
+    return np.where(mean > 0, _sharpness_of(lum) / safe ** 2, 0.0)
 
 
 # -------------------------------------------------------------------- pose
