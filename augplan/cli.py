@@ -43,13 +43,14 @@ class _Parser(argparse.ArgumentParser):
         raise _UsageError(f"{self.prog}: error: {message} (see '{self.prog} --help')")
 
 
-def _common(parser, *, data=True, json_flag=True):
+def _common(parser, *, data=True, json_flag=True, seed_flag=True):
     if data:
         parser.add_argument("data", metavar="DATA",
                             help="data folder (train/<class>/..., val/<class>/...) or a CSV manifest")
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
-    parser.add_argument("--seed", type=_seed, default=0, help="seed of the analysis (default 0)")
+    if seed_flag:  # verify and history draw nothing: a seed there would mean nothing
+        parser.add_argument("--seed", type=_seed, default=0, help="seed of the analysis (default 0)")
     if data:
         parser.add_argument("--split-seed", type=_seed, default=0,
                             help="seed of the stratified validation split made when DATA has no val/ "
@@ -171,6 +172,7 @@ def _build_parser():
 
     p = commands.add_parser("draft", help="propose a candidate recipe from the data")
     _common(p, json_flag=False)
+    _workers(p, ship_images=False)
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
     p.add_argument("-o", "--output", required=True, type=Path, help="recipe YAML to write ('-': standard output)")
     p.add_argument("--name", type=_recipe_name, default="draft", help="name of the drafted recipe (default 'draft')")
@@ -192,12 +194,12 @@ def _build_parser():
     _model_flag(p)
 
     p = commands.add_parser("verify", help="check a vetted recipe's checksum and validity")
-    _common(p, data=False)
+    _common(p, data=False, seed_flag=False)
     p.add_argument("vetted", type=Path, metavar="VETTED", help="vetted recipe YAML")
     p.add_argument("--data", type=Path, default=None, help="data set whose fingerprint to compare")
 
     p = commands.add_parser("history", help="past comparisons stored in the results ledger")
-    _common(p, data=False)
+    _common(p, data=False, seed_flag=False)
     p.add_argument("data", metavar="DATA|RUN", nargs="?", default=None,
                    help="only comparisons on the data set DATA, or the details of run number RUN "
                         "(as the list shows)")
@@ -420,7 +422,7 @@ def _run_draft(args, console):
     to_stdout = str(args.output) == "-"
     if not to_stdout:
         _ensure_parent(args.output, dataset)
-    text = draft_recipe_text(dataset, name=args.name, seed=args.seed, quiet=args.quiet)
+    text = draft_recipe_text(dataset, name=args.name, seed=args.seed, workers=_execution(args), quiet=args.quiet)
     if to_stdout:  # "-" writes standard output; the note goes to stderr
         console._write(sys.stdout, text)
         print("augplan: drafted a recipe on standard output; run 'augplan check' on it before use",

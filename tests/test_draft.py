@@ -83,3 +83,17 @@ def test_normalised_sharpness_ignores_exposure_and_falls_with_blur():
     assert normalised_sharpness(darker) == pytest.approx(normalised_sharpness(train), rel=0.1)
     blurred = np.stack([gaussian_filter(i, sigma=(1.5, 1.5, 0)) for i in train])
     assert np.all(normalised_sharpness(blurred) < 0.5 * normalised_sharpness(train))
+
+
+def test_draft_takes_workers_and_drafts_the_same_recipe(tmp_path, run_cli):
+    # scikit-learn's digits with a labelled field split.
+    from conftest import write_digits_dataset
+
+    data = write_digits_dataset(tmp_path / "DATA", {"train": 3, "val": 1, "field": 2}, size=16)
+    drafts = []
+    for workers in ("1", "2"):
+        out = tmp_path / f"draft-{workers}.yaml"
+        result = run_cli("draft", data, "-o", out, "--workers", workers, "--quiet")
+        assert result.code == 0, result.err
+        drafts.append(out.read_text(encoding="utf-8"))
+    assert drafts[0] == drafts[1] and "the field sample (20 images)" in drafts[0]
