@@ -7,6 +7,7 @@ import argparse
 import dataclasses
 import json
 import os
+import shutil
 import signal
 import sys
 import threading
@@ -481,6 +482,11 @@ def _run_verify(args, console):
     return ExitCode.FLAGGED if result.flagged else ExitCode.OK
 
 
+def _terminal_width():
+    """Columns of the terminal (``$COLUMNS`` first, 80 when not a terminal)."""
+    return max(40, shutil.get_terminal_size((80, 24)).columns)
+
+
 def _run_history(args, console):
     from augplan.evaluate.ledger import history, run_details
     from augplan.data.dataset import fingerprint, open_dataset
@@ -493,7 +499,7 @@ def _run_history(args, console):
         if args.json:
             console.emit_json(HistoryResult(ledger=str(ledger), evaluations=[entry]).to_json())
         else:
-            console.say(tables.run_table(entry))
+            console.say(tables.run_table(entry, width=_terminal_width()))
         return ExitCode.OK
     dataset = open_dataset(args.data) if args.data else None
     ledger = args.ledger or default_ledger(dataset.root if dataset else None)
@@ -501,7 +507,7 @@ def _run_history(args, console):
     if args.json:
         console.emit_json(result.to_json())
     else:
-        console.say(tables.history_table(result.evaluations))
+        console.say(tables.history_table(result.evaluations, width=_terminal_width()))
     return ExitCode.OK
 
 

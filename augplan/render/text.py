@@ -1,4 +1,4 @@
-"""Plain-text tables of the command outputs, sized for an 80-column terminal."""
+"""Plain-text tables of the command outputs, sized for an 80-column terminal (history: the terminal's width)."""
 
 import textwrap
 
@@ -210,8 +210,13 @@ def _verdict_text(row, model_name):
     return verdict
 
 
-def history_table(rows):
-    """Past comparisons from the results ledger, newest last."""
+def _cell_limit(width):
+    """The longest cell of a table ``width`` columns wide: 22 up to 80 columns, a third of a wider terminal."""
+    return 22 if width <= 80 else width // 3
+
+
+def history_table(rows, *, width=80):
+    """Past comparisons from the results ledger, newest last, laid out for ``width`` columns."""
     if not rows:
         return "no evaluations in the ledger yet"
     table = [[row.get("run", "-"), row["date"][:16], row["fingerprint"], len(row["recipes"]), row["repeats"],
@@ -220,7 +225,8 @@ def history_table(rows):
               "-" if row["best_gain"] is None or row["best_gain"] <= 0 else f"{row['best_gain']:+.3f}",
               "ledger" if row["from_ledger"] else ""]
              for row in rows]
-    return format_table(["run", "date", "data", "recipes", "reps", "best recipe", "gain", "reused"], table)
+    return format_table(["run", "date", "data", "recipes", "reps", "best recipe", "gain", "reused"], table,
+                        width=width, max_cell=_cell_limit(width))
 
 
 def _gain_text(row):
@@ -232,8 +238,8 @@ def _gain_text(row):
     return text
 
 
-def run_table(entry):
-    """One past comparison (``augplan history RUN``): its settings, then a score per recipe."""
+def run_table(entry, *, width=80):
+    """One past comparison (``augplan history RUN``): its settings, then a score per recipe, for ``width`` columns."""
     lines = [f"run {entry['run']}, {entry['date']} UTC: data {entry['data'] or '-'}",
              f"  fingerprint {entry['fingerprint']}", f"  seed {entry['seed']}, {entry['repeats']} repeats, "
              f"settings {entry['settings_key']}" + (", served from the ledger" if entry["from_ledger"] else "")]
@@ -253,6 +259,6 @@ def run_table(entry):
                      "-" if row.get("p_holm") is None else f"{row['p_holm']:.3g}",
                      _gain_text(field) if field else "-", _verdict_text(row, model)])
     lines.append(format_table(["recipe", "accuracy", "gain [95% CI]", "p (Holm)", "field gain", "verdict"], rows,
-                              max_cell=26))
-    lines.extend(wrap(f"warning: {text}") for text in details.get("warnings") or [])
+                              width=width, max_cell=max(26, _cell_limit(width))))
+    lines.extend(wrap(f"warning: {text}", width=width) for text in details.get("warnings") or [])
     return "\n".join(lines)
