@@ -101,6 +101,12 @@ class TensorAugmenter:
         state["_repeats"], state["_threads_set_in"] = {}, None  # per-process bookkeeping
         return state
 
+    def __setstate__(self, state):
+        self.__dict__.update(state)
+        # A copy the loader pickled to a spawn or forkserver worker: a fresh
+        # process, where OpenCV's thread count can be set safely.
+        self._pickled_in = os.getpid()
+
     @property
     def epoch(self):
         """The epoch whose draws the next calls make (see `set_epoch`)."""
@@ -116,8 +122,10 @@ class TensorAugmenter:
     def worker_init_fn(self, worker_id):
         """Optional ``DataLoader(worker_init_fn=...)``: runs OpenCV on one thread in the worker.
 
-        The draws do not depend on it (a call does the same on its first use
-        in a worker); it remains for loaders written against earlier versions.
+        The draws do not depend on it, and a call does the same on its first
+        use in a spawn or forkserver worker. Do not pass it with the ``fork``
+        start method once the main process has run OpenCV: in a forked child
+        ``cv2.setNumThreads`` can hang.
         """
         import cv2
 
@@ -135,7 +143,9 @@ class TensorAugmenter:
                     "would repeat the same draws. Hand the adapter to the dataset (for example "
                     "Dataset.__init__(self, ..., transform) storing self.transform = transform) so the "
                     "loader carries it to the workers.")
-            if self._threads_set_in != os.getpid():
+            if self._threads_set_in != os.getpid() and getattr(self, "_pickled_in", None) == os.getpid():
+                # Not in a forked worker: there cv2.setNumThreads can hang
+                # when the parent's OpenCV thread pool has run.
                 self.worker_init_fn(info.id)
             return info.id + 1
         if multiprocessing.parent_process() is not None:

@@ -50,25 +50,33 @@ class _Tiles(torch.utils.data.Dataset):
         return ITEMS
 
     def __getitem__(self, index):
+        import cv2
+
         tensor, label = self.transform(self.image, self.labels[index], index=index)
         info = torch.utils.data.get_worker_info()
-        return tensor, label, -1 if info is None else info.id, index
+        return tensor, label, -1 if info is None else info.id, index, cv2.getNumThreads()
 
 
-def _run(method, seed=3, epochs=2, workers=2):
-    """Every draw of ``epochs`` epochs: ``{(epoch, worker, index): (tensor, label)}``."""
+def _run(method, seed=3, epochs=2, workers=2, threads=None):
+    """Every draw of ``epochs`` epochs: ``{(epoch, worker, index): (tensor, label)}``.
+
+    ``threads``, a set, collects OpenCV's thread count in each call.
+    """
     to_tensor = _adapter(seed)
     loader = torch.utils.data.DataLoader(
         _Tiles(to_tensor), batch_size=2, shuffle=True, num_workers=workers,
         generator=torch.Generator().manual_seed(0), multiprocessing_context=method if workers else None,
         # Workers that outlive an epoch must still see set_epoch (a shared tensor).
-        persistent_workers=workers > 0 and method != "fork")
+        persistent_workers=workers > 0 and method != "fork",
+        timeout=120 if workers else 0)  # a hung worker fails the test instead of stalling the suite
     draws = {}
     for epoch in range(epochs):
         to_tensor.set_epoch(epoch)
-        for images, labels, worker_ids, indices in loader:
+        for images, labels, worker_ids, indices, counts in loader:
             for image, label, worker, index in zip(images, labels, worker_ids, indices):
                 draws[epoch, int(worker), int(index)] = (image.clone(), int(label))
+            if threads is not None:
+                threads.update(int(c) for c in counts)
     return draws
 
 
@@ -76,7 +84,16 @@ def _run(method, seed=3, epochs=2, workers=2):
 def test_every_start_method_draws_afresh_per_worker_and_epoch_and_repeats_per_seed(method):
     if method not in multiprocessing.get_all_start_methods():
         pytest.skip(f"start method {method} is not available on this platform")
-    draws = _run(method)
+    if method == "fork":
+        # OpenCV's thread pool has run in this process (a large blur): a forked
+        # worker that reset OpenCV's thread count here would hang.
+        import cv2
+
+        cv2.GaussianBlur(np.zeros((1024, 1024, 3), np.uint8), (0, 0), 3)
+    threads = set()
+    draws = _run(method, threads=threads)
+    if method != "fork":
+        assert threads == {1}  # each fresh worker runs OpenCV on one thread
     assert len(draws) == 2 * ITEMS
     assert {worker for _, worker, _ in draws} == {0, 1}
     # The images are identical, so equal tensors would be a repeated draw.
