@@ -57,11 +57,17 @@ class TensorAugmenter:
         The seed every draw derives from. Default: the recipe's own ``seed``
         (its ``seed:`` field, 0 when the file has none), so a vetted recipe
         reproduces its draws in the training loop without a second number.
+    rank : int, optional
+        This process's number among sibling training processes (the
+        distributed rank), for a process started by another one that is not
+        a loader worker, such as one rank of ``torch.multiprocessing.spawn``:
+        ranks then draw apart even where their samplers share an index.
 
     Notes
     -----
     The adapter holds no generator. Each call builds one from
-    ``SeedSequence([seed, epoch, worker + 1, index, repeat])``, where
+    ``SeedSequence([seed, epoch, rank + 1, worker + 1, index, repeat])``
+    (rank slot 0 without a rank), where
     ``worker`` is the loader worker's id (slot 0 is the main process, when
     ``num_workers=0``), ``index`` the dataset index passed by the caller and
     ``repeat`` how often this process already drew that index in this epoch
@@ -80,12 +86,13 @@ class TensorAugmenter:
     pickles to its workers.
     """
 
-    def __init__(self, augmenter, *, seed=None):
+    def __init__(self, augmenter, *, seed=None, rank=None):
         if not isinstance(augmenter, Augmenter):
             raise TypeError(f"TensorAugmenter expects an augplan Augmenter (augplan.load_recipe); "
                             f"got {type(augmenter).__name__}")
         self.augmenter = augmenter
         self.seed = int(augmenter.recipe.seed) if seed is None else _non_negative_int(seed, "seed")
+        self.rank = None if rank is None else _non_negative_int(rank, "rank")
         # Shared memory: workers forked, forkserved or spawned read the value set_epoch writes.
         self._epoch = torch.zeros((), dtype=torch.int64).share_memory_()
         self._repeats = {}
@@ -113,7 +120,8 @@ class TensorAugmenter:
         return int(self._epoch.item())
 
     def __repr__(self):
-        return f"TensorAugmenter({self.augmenter!r}, seed={self.seed}, epoch={self.epoch})"
+        rank = "" if self.rank is None else f", rank={self.rank}"
+        return f"TensorAugmenter({self.augmenter!r}, seed={self.seed}{rank}, epoch={self.epoch})"
 
     def set_epoch(self, epoch):
         """Use the draws of ``epoch`` from the next loader iteration on (call before iterating)."""
@@ -148,12 +156,12 @@ class TensorAugmenter:
                 # when the parent's OpenCV thread pool has run.
                 self.worker_init_fn(info.id)
             return info.id + 1
-        if multiprocessing.parent_process() is not None:
+        if multiprocessing.parent_process() is not None and self.rank is None:
             raise RuntimeError(
                 "TensorAugmenter was called in a child process that is not a torch DataLoader worker: "
                 "its draws are keyed by the loader worker's id, so every such process would draw the same "
-                "stream. Call it from Dataset.__getitem__ under a DataLoader (any num_workers), or in the "
-                "main process.")
+                "stream. Give each process its own number, TensorAugmenter(..., rank=r), or call it from "
+                "Dataset.__getitem__ under a DataLoader (any num_workers), or in the main process.")
         return _MAIN_PROCESS
 
     def generator(self, index):
@@ -167,8 +175,8 @@ class TensorAugmenter:
         Returns
         -------
         numpy.random.Generator
-            Seeded from ``(seed, epoch, worker + 1, index, repeat)``; see the
-            class notes.
+            Seeded from ``(seed, epoch, rank + 1, worker + 1, index, repeat)``;
+            see the class notes.
         """
         index = _non_negative_int(index, "index")
         worker, epoch = self._worker_slot(), self.epoch
@@ -176,7 +184,8 @@ class TensorAugmenter:
             self._repeats = {"epoch": epoch}
         repeat = self._repeats.get(index, 0)
         self._repeats[index] = repeat + 1
-        return np.random.default_rng(np.random.SeedSequence([self.seed, epoch, worker, index, repeat]))
+        rank = 0 if self.rank is None else self.rank + 1
+        return np.random.default_rng(np.random.SeedSequence([self.seed, epoch, rank, worker, index, repeat]))
 
     def __call__(self, image, label=None, *, index=None):
         """One augmented draw as a ``(C, H, W)`` float32 tensor with values in [0, 1].

@@ -144,11 +144,13 @@ class _UsesModuleLevel(_Tiles):
         return tensor, label, torch.utils.data.get_worker_info().id, index
 
 
-def test_a_child_process_that_is_no_loader_worker_raises(monkeypatch):
-    to_tensor = _adapter(0)
+def test_a_child_process_that_is_no_loader_worker_raises_unless_given_its_rank(monkeypatch):
+    image = np.full((8, 8, 3), 128, dtype=np.uint8)
     monkeypatch.setattr(multiprocessing, "parent_process", lambda: object())
     with pytest.raises(RuntimeError, match="every such process would draw the same stream"):
-        to_tensor(np.zeros((4, 4, 3), dtype=np.uint8), index=0)
+        _adapter(0)(image, index=0)
+    ranks = [TensorAugmenter(Augmenter(parse_recipe(RECIPE), classes=CLASSES), seed=0, rank=r) for r in (0, 1)]
+    assert not torch.equal(ranks[0](image, index=0), ranks[1](image, index=0))
 
 
 def test_a_call_without_the_index_says_how_to_pass_it():
