@@ -102,6 +102,7 @@ class TensorAugmenter:
         # itself (a module-level object re-created when a spawn or forkserver
         # worker imported its module) is cut off from the main process's set_epoch.
         self._made_in = os.getpid()
+        self._pickled_in = None  # set by unpickling (see __setstate__)
 
     def __getstate__(self):
         state = dict(self.__dict__)
@@ -151,7 +152,7 @@ class TensorAugmenter:
                     "would repeat the same draws. Hand the adapter to the dataset (for example "
                     "Dataset.__init__(self, ..., transform) storing self.transform = transform) so the "
                     "loader carries it to the workers.")
-            if self._threads_set_in != os.getpid() and getattr(self, "_pickled_in", None) == os.getpid():
+            if self._threads_set_in != os.getpid() and self._pickled_in == os.getpid():
                 # Not in a forked worker: there cv2.setNumThreads can hang
                 # when the parent's OpenCV thread pool has run.
                 self.worker_init_fn(info.id)
