@@ -44,9 +44,9 @@ class _Parser(argparse.ArgumentParser):
         raise _UsageError(f"{self.prog}: error: {message} (see '{self.prog} --help')")
 
 
-def _common(parser, *, data=True, json_flag=True, seed_flag=True):
+def _common(parser, *, data=True, json_flag=True, data_optional=False, seed_flag=True):
     if data:
-        parser.add_argument("data", metavar="DATA",
+        parser.add_argument("data", metavar="DATA", nargs="?" if data_optional else None,
                             help="data folder (train/<class>/..., val/<class>/...) or a CSV manifest")
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
@@ -171,12 +171,21 @@ def _build_parser():
     _model_flag(p)
     p.add_argument("--field", type=Path, default=None, help="labelled field sample folder (default DATA/field)")
 
-    p = commands.add_parser("draft", help="propose a candidate recipe from the data")
-    _common(p, json_flag=False)
-    _workers(p, ship_images=False)
+    p = commands.add_parser("draft", help="propose a candidate recipe from the data, or from a starting recipe")
+    _common(p, json_flag=False, data_optional=True)
+    _workers(p)
     p.add_argument("--field", type=Path, default=None, help="field sample folder (default DATA/field)")
-    p.add_argument("-o", "--output", required=True, type=Path, help="recipe YAML to write ('-': standard output)")
-    p.add_argument("--name", type=_recipe_name, default="draft", help="name of the drafted recipe (default 'draft')")
+    p.add_argument("-o", "--output", type=Path, default=None,
+                   help="recipe YAML to write ('-': standard output); required unless --list")
+    p.add_argument("--name", type=_recipe_name, default=None,
+                   help="name of the drafted recipe (default 'draft', or NAME-draft with --start)")
+    p.add_argument("--start", metavar="RECIPE", default=None,
+                   help="begin from this recipe file or shipped recipe (see --list) and adapt it to the "
+                        "data: lighting widened toward the field, the label-safety check's scopes and "
+                        "safe limits applied")
+    p.add_argument("--sample", type=_positive_int, default=None,
+                   help="at most N training images per class for --start's label-safety check")
+    p.add_argument("--list", action="store_true", help="list the shipped starting recipes and exit")
 
     p = commands.add_parser("vet", help="the whole job: check, coverage, evaluate, report, vetted export")
     _common(p)
@@ -415,15 +424,35 @@ def _run_evaluate(args, console):
 
 
 def _run_draft(args, console):
-    from augplan.coverage.draft import draft_recipe_text
     from augplan.atomic import write_text_atomic
+    from augplan.recipe import shipped
 
+    if args.list:
+        print(shipped.listing() or "this installation of augplan ships no starting recipes")
+        return ExitCode.OK
+    if args.data is None or args.output is None:
+        missing = "DATA" if args.data is None else "-o/--output"
+        raise _UsageError(f"augplan draft: error: {missing} is required unless --list is given "
+                          "(see 'augplan draft --help')")
+    start = shipped.read_start(args.start) if args.start is not None else None  # a bad --start fails first
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
     to_stdout = str(args.output) == "-"
     if not to_stdout:
         _ensure_parent(args.output, dataset)
-    text = draft_recipe_text(dataset, name=args.name, seed=args.seed, workers=_execution(args), quiet=args.quiet)
+    if start is None:
+        from augplan.coverage.draft import draft_recipe_text
+
+        text = draft_recipe_text(dataset, name=args.name or "draft", seed=args.seed, workers=_execution(args),
+                                 quiet=args.quiet)
+    else:
+        from augplan.vet.start import change_text, draft_from_start
+
+        drafted = draft_from_start(dataset, start, name=args.name, seed=args.seed, sample=args.sample,
+                                   workers=_execution(args), quiet=args.quiet)
+        text = drafted.text
+        for change in drafted.changes:  # stderr when the draft itself goes to standard output
+            console._write(sys.stderr if to_stdout else sys.stdout, f"from {start.name}: {change_text(change)}\n")
     if to_stdout:  # "-" writes standard output; the note goes to stderr
         console._write(sys.stdout, text)
         print("augplan: drafted a recipe on standard output; run 'augplan check' on it before use",

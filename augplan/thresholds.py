@@ -11,6 +11,7 @@ __all__ = [
     "CONFIDENCE",
     "beyond_chance",
     "REGION_NEIGHBOURS",
+    "REGION_REFERENCE_LIMIT",
     "REGION_PERCENTILE",
     "BREAK_MARGIN",
     "PCA_VARIANCE_KEPT",
@@ -69,6 +70,12 @@ def beyond_chance(chance, share=CHANCE_GAP_SHARE):
 # Neighbours averaged for the distance to a class (Cover & Hart's k-NN idea;
 # the 5 is common practice, no source).
 REGION_NEIGHBOURS = 5
+# Most originals of one class that stand as the reference points of its
+# region; a larger class is represented by a seeded draw of this many, so the
+# screen's distance work grows linearly with the images, not with their
+# square (a bound on work, common practice, no source: a 95th percentile of
+# 5-neighbour distances is well estimated from a few hundred points).
+REGION_REFERENCE_LIMIT = 300
 # Percentile of held-out own-class distances that bounds a class's region
 # (common practice, no source).
 REGION_PERCENTILE = 95.0

@@ -321,6 +321,8 @@ def _class_case(step, command="preview"):
         path.write_text(f"name: scoped\ncopies: 1\ntransforms:\n  - op: flip\n    {step}\n", encoding="utf-8")
         if command == "preview":
             return ctx.preview(recipe=path)
+        if command == "draft":  # a starting recipe is held to the data's classes too
+            return ["draft", ctx.data, "--start", path, "-o", ctx.tmp / "draft.yaml", "--quiet"]
         extra = {"evaluate": ["--repeats", "1"], "vet": ["-o", ctx.tmp / "vetted", "--repeats", "1"]}
         return [command, ctx.data, "--recipe", path, "--quiet", *extra.get(command, [])]
     return build
@@ -607,6 +609,15 @@ CASES = [
     *[pytest.param(_class_case("relabel: {alpha: ghost, ghost: alpha}", command), ERROR,
                    ["scoped.yaml line 5", "'relabel'", "ghost", "lacks"], id=f"relabel-ghost-class-{command}")
       for command in ("preview", "check", "coverage", "evaluate", "vet")],
+    pytest.param(_class_case("only: [alphaa]", "draft"), ERROR,
+                 ["scoped.yaml line 5", "'only'", "alphaa", "closest class is 'alpha'"], id="draft-start-misspelt-class"),
+    pytest.param(lambda c: ["draft", c.data, "--start", "aerial-tile", "-o", c.tmp / "d.yaml"], ERROR,
+                 ["--start aerial-tile", "no shipped recipe", "did you mean 'aerial-tiles'", "radiographs",
+                  "handwritten-characters"], id="draft-start-names-nothing"),
+    pytest.param(lambda c: ["draft", c.data, "--start", c.tmp / "none.yaml", "-o", c.tmp / "d.yaml"], ERROR,
+                 ["none.yaml", "no such recipe file", "aerial-tiles"], id="draft-start-missing-file"),
+    pytest.param(lambda c: ["draft", "--start", "radiographs"], ERROR, ["DATA is required unless --list"],
+                 id="draft-without-data"),
     # flags and outputs
     pytest.param(_strict_non_image, ERROR, ["readme.txt", "strict"], id="strict-non-image"),
     pytest.param(_output_in_missing_folder, ERROR, ["missing", "does not exist"], id="output-in-missing-folder"),

@@ -353,3 +353,22 @@ def test_a_suggestion_spanning_a_wide_gap_stays_inside_the_bounds_and_the_cap(na
     cap = PLAUSIBLE_FACTOR[op]
     assert 1.0 / cap <= low < 1.0 < high <= cap
     assert "capped at the plausible" in suggestion["reason"]
+
+
+def test_shortcut_balanced_accuracies_equal_scikit_learns():
+    # sklearn.metrics.balanced_accuracy_score is the reference, overall and
+    # one-vs-rest ("this class or not"), to the last bit.
+    from sklearn.metrics import balanced_accuracy_score
+    from augplan.measure.shortcuts import _balanced_accuracies
+
+    rng = np.random.default_rng(12)
+    for trial in range(40):
+        k = 2 + trial % 4
+        names = np.array(["amber", "basalt", "cobalt", "dune", "ember"])[:k]
+        labels = names[rng.integers(0, k, 60)]
+        labels[:k] = names
+        predicted = np.where(rng.random(60) < 0.6, labels, names[rng.integers(0, k, 60)])
+        overall, per_class = _balanced_accuracies(labels, predicted)
+        assert overall == balanced_accuracy_score(labels, predicted)
+        for name in names:
+            assert per_class[name] == balanced_accuracy_score(labels == name, predicted == name)

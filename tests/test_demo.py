@@ -229,7 +229,8 @@ def test_installed_wheel_runs_the_demo_outside_the_checkout(tmp_path):
     source.mkdir()
     for name in ("pyproject.toml", "README.md"):
         shutil.copy(checkout / name, source / name)
-    shutil.copytree(checkout / "augplan", source / "augplan", ignore=shutil.ignore_patterns("__pycache__"))
+    for folder in ("augplan", "recipes"):
+        shutil.copytree(checkout / folder, source / folder, ignore=shutil.ignore_patterns("__pycache__"))
     pip = [sys.executable, "-m", "pip", "--disable-pip-version-check", "--no-input"]
     built = subprocess.run(pip + ["wheel", "--no-deps", "--no-build-isolation", "--no-index", "-w",
                                   str(tmp_path / "wheels"), str(source)], capture_output=True, text=True)
@@ -238,6 +239,10 @@ def test_installed_wheel_runs_the_demo_outside_the_checkout(tmp_path):
     (wheel,) = (tmp_path / "wheels").glob("augplan-*.whl")
     listed = zipfile.ZipFile(wheel).namelist()
     assert all(f"augplan/demo_recipes/{name}" in listed for name in demo.DEMO_RECIPES), listed
+    # The starting recipes install from the one recipes/ folder as augplan.recipes.
+    starting = sorted(path.name for path in (checkout / "recipes").glob("*.yaml"))
+    assert sorted(name.rsplit("/", 1)[1] for name in listed if name.startswith("augplan/recipes/")
+                  and name.endswith(".yaml")) == starting
 
     target = tmp_path / "installed"
     installed = subprocess.run(pip + ["install", "--no-deps", "--no-index", "--target", str(target), str(wheel)],
@@ -258,6 +263,24 @@ def test_installed_wheel_runs_the_demo_outside_the_checkout(tmp_path):
     # The scenario was drawn for the run, not read from the checkout.
     assert not Path(evidence["data"]["root"]).is_relative_to(checkout)
     assert not Path(evidence["data"]["root"]).exists()
+
+    # The starting recipes come from the installed package too: listed, and
+    # a draft begins from one by name (on conftest's tiny data set, so that
+    # the label-safety check stays short).
+    augplan = str(target / "bin" / "augplan")
+    listing = subprocess.run([augplan, "draft", "--list"], cwd=elsewhere, env=environment, capture_output=True,
+                             text=True, timeout=120)
+    assert listing.returncode == 0, listing.stderr
+    assert [line.split()[0] for line in listing.stdout.splitlines()] == [Path(name).stem for name in starting]
+    from conftest import write_tiny_dataset
+
+    tiny = write_tiny_dataset(tmp_path / "tiny")
+    drafted = subprocess.run([augplan, "draft", str(tiny), "--start", "recipes/handwritten-characters.yaml",
+                              "-o", str(tmp_path / "draft.yaml"), "--quiet"],
+                             cwd=elsewhere, env=environment, capture_output=True, text=True, timeout=600)
+    assert drafted.returncode == 0, drafted.stderr
+    text = (tmp_path / "draft.yaml").read_text(encoding="utf-8")
+    assert f"({target / 'augplan' / 'recipes' / 'handwritten-characters.yaml'})" in text
 
 
 def test_the_project_metadata_reads_without_setuptools_warnings():

@@ -216,3 +216,58 @@ def test_measure_factors_matches_each_function_and_registry():
 def test_bad_batch_is_rejected_with_shape_and_dtype(bad):
     with pytest.raises(ValueError, match="images must"):
         factors.measure_factors(bad)
+
+
+def _hasler_suesstrunk(pixels):
+    # Hasler & Suesstrunk 2003, eq. (3), in float64 on the 0-255 codes.
+    pixels = pixels.reshape(-1, 3).astype(np.float64)
+    rg = pixels[:, 0] - pixels[:, 1]
+    yb = (pixels[:, 0] + pixels[:, 1]) / 2.0 - pixels[:, 2]
+    return np.hypot(rg.std(), yb.std()) + 0.3 * np.hypot(rg.mean(), yb.mean())
+
+
+def test_colourfulness_at_64_px_or_more_uses_every_second_pixel_and_stays_near_all_pixels():
+    # scikit-image's astronaut at 128 x 128: at sides of REDUCE_FROM or more the
+    # statistic runs over image[::2, ::2] (a quarter of the pixels).
+    batch = _astronaut_batch(size=128)
+    assert min(batch.shape[1:3]) >= factors.REDUCE_FROM
+    value = factors.colourfulness(batch)[0]
+    # float32 opponent planes, float64 moments: far below 1e-4 relative.
+    assert value == pytest.approx(_hasler_suesstrunk(batch[0, ::2, ::2]), rel=1e-4)
+    # The docstring's bound on the difference from all pixels: 6.3 %.
+    assert value == pytest.approx(_hasler_suesstrunk(batch[0]), rel=0.063)
+    small = _astronaut_batch(size=factors.REDUCE_FROM - 1)
+    assert factors.colourfulness(small)[0] == pytest.approx(_hasler_suesstrunk(small[0]), rel=1e-4)
+
+
+def _weighted_mean_hue(pixels):
+    # colorsys (the standard library's HSV) gives each pixel's hue and saturation.
+    hsv = np.array([colorsys.rgb_to_hsv(*(p / 255.0)) for p in pixels.reshape(-1, 3)])
+    angle = hsv[:, 0] * 2 * np.pi
+    return np.degrees(np.arctan2((hsv[:, 1] * np.sin(angle)).sum(), (hsv[:, 1] * np.cos(angle)).sum())) % 360.0
+
+
+def test_hue_at_64_px_or_more_uses_every_second_pixel_and_stays_near_all_pixels():
+    batch = _astronaut_batch(size=64)
+    value = factors.hue(batch)[0]
+    # float32 HSV against float64 colorsys: within 1e-3 degrees.
+    assert abs((value - _weighted_mean_hue(batch[0, ::2, ::2]) + 180) % 360 - 180) < 1e-3
+    # The docstring's bound on the difference from all pixels: 7.2 degrees.
+    assert abs((value - _weighted_mean_hue(batch[0]) + 180) % 360 - 180) <= 7.2
+
+
+def test_framing_thresholds_are_skimage_otsu_to_the_bit():
+    # skimage.filters.threshold_otsu is the reference; the batch computation
+    # promises its thresholds bit for bit. scikit-image's sample photographs
+    # (crops of 48 x 48 over several scales and positions) and images of four
+    # grey levels, whose pixels sit exactly on histogram edges.
+    from skimage.filters import threshold_otsu
+    from augplan.imaging.colour import relative_luminance
+
+    crops = [np.ascontiguousarray(source[top:top + 48, left:left + 48])
+             for source in (skimage.data.astronaut(), skimage.data.coffee(), skimage.data.chelsea())
+             for top, left in ((0, 0), (100, 37), (200, 150), (250, 251))]
+    levels = np.random.default_rng(5).integers(0, 4, (4, 48, 48, 3)).astype(np.uint8) * 60
+    lum = relative_luminance(np.concatenate([np.stack(crops), levels]))
+    expected = np.array([threshold_otsu(image) for image in lum])
+    assert np.array_equal(factors._otsu_thresholds(lum), expected)

@@ -22,6 +22,7 @@ from augplan.check.check import (DECISION_RULE, check_recipe, class_distances, l
 from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, TOO_FEW, PairChange, class_verdict,
                                    compare_predictions, pair_breaks)
 from augplan.recipe.parse import Recipe, Transform
+from augplan.recipe.shipped import read_start
 
 
 @pytest.fixture(scope="module", autouse=True)
@@ -74,15 +75,14 @@ def digits_root(tmp_path_factory):
 
 # Simard, Steinkraus & Platt (ICDAR 2003) trained digit classifiers on small
 # affine distortions as label-preserving; a half turn or a mirror does not
-# keep a handwritten digit's class.
-DIGITS_RECIPE = Recipe(name="digits", transforms=(
+# keep a handwritten digit's class. The small distortions are the shipped
+# starting recipe recipes/handwritten-characters.yaml, all of it.
+HANDWRITING = read_start("handwritten-characters").transforms
+DIGITS_RECIPE = Recipe(name="digits", fill=read_start("handwritten-characters").fill, transforms=(
     Transform("rotate", {"degrees": 180}),
     Transform("flip", {"axis": "horizontal"}),
     Transform("flip", {"axis": "vertical"}),
-    Transform("rotate", {"degrees": (-10, 10)}),
-    Transform("shift", {"fraction": (-0.08, 0.08)}),
-    Transform("zoom", {"factor": (0.9, 1.1)}),
-))
+) + HANDWRITING)
 
 
 @pytest.fixture(scope="module")
@@ -104,14 +104,10 @@ def fashion_root(tmp_path_factory):
     return _add_val(root)
 
 
-# Label-preserving for garments (common practice, no source).
-FASHION_SAFE = (
-    Transform("flip", {"axis": "horizontal"}),
-    Transform("rotate", {"degrees": (-10, 10)}),
-    Transform("shift", {"fraction": (-0.08, 0.08)}),
-    Transform("zoom", {"factor": (0.9, 1.1)}),
-    Transform("brightness", {"factor": (0.8, 1.25)}),
-)
+# Label-preserving for garments (common practice, no source): the shipped
+# starting recipe recipes/everyday-objects.yaml without its saturation step,
+# which leaves the subset's grey images unchanged and so would test nothing.
+FASHION_SAFE = tuple(step for step in read_start("everyday-objects").transforms if step.op != "saturation")
 
 
 @pytest.fixture(scope="module")
@@ -311,7 +307,7 @@ def test_digits_flips_are_not_safe(digits_report, index):
     assert _transform(digits_report, index)["verdict"] != "safe"
 
 
-@pytest.mark.parametrize("index", [3, 4, 5])
+@pytest.mark.parametrize("index", range(3, 3 + len(HANDWRITING)))
 def test_digits_small_affine_distortions_are_safe(digits_report, index):
     # Simard, Steinkraus & Platt (ICDAR 2003): small rotations, shifts and
     # scalings keep a digit's class.
@@ -335,7 +331,7 @@ def test_swaps_that_fail_the_rule_stay_apart(digits_report):
 
 @pytest.mark.parametrize("index", range(len(FASHION_SAFE)))
 def test_fashion_garment_augmentations_are_safe(fashion_report, index):
-    # Fashion-MNIST subset (Xiao, Rasul & Vollgraf 2017); these five are
+    # Fashion-MNIST subset (Xiao, Rasul & Vollgraf 2017); these six are
     # label-preserving for clothing photographs (common practice, no source).
     entry = _transform(fashion_report, index)
     assert entry["verdict"] == "safe", (entry["classes"], entry["other_swaps"][:3])
@@ -653,3 +649,16 @@ def test_evidence_captions_name_the_magnitude(op, params, magnitude, caption):
     from augplan.check.check import _magnitude_caption
 
     assert _magnitude_caption(Transform(op, params), magnitude) == caption
+
+
+def test_region_reference_keeps_small_classes_whole_and_draws_large_ones():
+    from augplan.check.check import reference_rows
+
+    labels = np.repeat([0, 1, 2], [5, 40, 12])
+    rows = reference_rows(labels, 3, 10, seed=3)
+    counts = np.bincount(labels[rows], minlength=3)
+    assert counts.tolist() == [5, 10, 10]
+    assert set(np.flatnonzero(labels == 0)) <= set(rows)
+    assert np.all(np.diff(rows) > 0)
+    assert np.array_equal(rows, reference_rows(labels, 3, 10, seed=3))
+    assert not np.array_equal(rows, reference_rows(labels, 3, 10, seed=4))

@@ -334,6 +334,23 @@ def test_hue_matches_colorsys(degrees):
     assert np.abs(out - expected * 255).max() <= ROUNDED
 
 
+def test_hue_within_one_code_of_colorsys_over_a_colour_lattice():
+    # colorsys (Python stdlib) as the reference HSV implementation, on every
+    # colour of a 16-step lattice of the RGB cube (ends 0 and 255 included,
+    # so pure, grey and near-grey colours are all there) at turns that land
+    # in every sextant. The result is the exact value rounded (half a code)
+    # up to float32 error; the bound asked of the op is one code.
+    levels = np.arange(0, 256, 17, dtype=np.uint8)
+    image = np.stack(np.meshgrid(levels, levels, levels, indexing="ij"), axis=-1).reshape(16, -1, 3)
+    unit = image.reshape(-1, 3) / 255.0
+    for degrees in (-179.0, -61.0, 7.5, 60.0, 133.0, 180.0):
+        out = hue(image, {"degrees": degrees}, rng()).reshape(-1, 3)
+        expected = np.array([colorsys.hsv_to_rgb((h + degrees / 360.0) % 1.0, s, v)
+                             for h, s, v in (colorsys.rgb_to_hsv(*pixel) for pixel in unit)]) * 255
+        assert np.abs(out - expected).max() <= 1.0, degrees
+        assert np.abs(out - expected).max() <= ROUNDED, degrees
+
+
 def test_hue_full_turn_is_identity(astronaut):
     assert np.array_equal(hue(astronaut, {"degrees": 360.0}, rng()), astronaut)
     # A small round trip stays within rounding.

@@ -12,6 +12,8 @@ from augplan.augment.transforms import compile_recipe, run_plan
 
 __all__ = ["Augmenter", "load_recipe"]
 
+_GENERATOR = np.random.Generator
+_UINT8 = np.dtype(np.uint8)
 _NO_GENERATOR = ("pass a numpy.random.Generator, e.g. aug(image, rng=np.random.default_rng(seed)), "
                  "so the draws are reproducible; give each data-loader worker its own generator")
 
@@ -107,6 +109,12 @@ class Augmenter:
         Same type as ``image``. Class-scoped transforms are skipped, since no
         label is known; use `apply` to honour scopes and relabels.
         """
+        if type(rng) is _GENERATOR and type(image) is np.ndarray and image.dtype is _UINT8 and image.ndim == 3 \
+                and image.shape[2] == 3 and image.shape[0] and image.shape[1]:
+            # The common call of a training loop, an RGB array and no label,
+            # checked in one expression; anything else takes the full path.
+            out = run_plan(image, self._plan, rng, None)[0]
+            return image.copy() if out is image else out
         return self.apply(image, None, rng)[0]
 
     def _label_name(self, label):
@@ -148,6 +156,12 @@ class Augmenter:
         ValueError
             An integer label for a class-scoped recipe without ``classes``.
         """
+        if type(rng) is _GENERATOR and type(image) is np.ndarray and image.dtype is _UINT8 and image.ndim == 3 \
+                and image.shape[2] == 3 and image.shape[0] and image.shape[1] \
+                and (label is None or type(label) is str):
+            # An RGB array with a class name (or none): checked in one expression.
+            out, new_label = run_plan(image, self._plan, rng, label)
+            return (image.copy() if out is image else out), new_label
         _check_generator(rng, type(self).__name__)
         pil_mode = None
         if isinstance(image, Image.Image):

@@ -78,7 +78,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Callable
+from typing import Callable, NamedTuple
 
 import cv2
 import numpy as np
@@ -367,10 +367,16 @@ def _hue_kernel(image, degrees, border=None, rng=None):
     # OpenCV's float HSV is Smith's hexcone with hue in degrees; it needs no
     # scaling of the codes (hue and saturation are ratios, value is the
     # maximum code). The shifted hue lies in [0, 720), which the way back
-    # wraps.
-    hsv = cv2.cvtColor(image.astype(np.float32), cv2.COLOR_RGB2HSV)
-    hsv = cv2.add(hsv, (turn, 0.0, 0.0, 0.0))
-    return cv2.convertScaleAbs(cv2.cvtColor(hsv, cv2.COLOR_HSV2RGB))
+    # wraps. Every step after the float copy writes into that copy: one
+    # float32 buffer per call instead of three. Integer and table-driven
+    # paths (hue rotation keeps each pixel's largest and smallest channel)
+    # were slower in numpy and in per-plane OpenCV calls; see
+    # benchmarks/bench_hue.py for the figures.
+    work = image.astype(np.float32)
+    cv2.cvtColor(work, cv2.COLOR_RGB2HSV, dst=work)
+    cv2.add(work, (turn, 0.0, 0.0, 0.0), dst=work)
+    cv2.cvtColor(work, cv2.COLOR_HSV2RGB, dst=work)
+    return cv2.convertScaleAbs(work)
 
 
 def _blur_kernel(image, sigma, border=None, rng=None):
@@ -617,9 +623,12 @@ def magnitude_grid(transform, n):
     return grid
 
 
-@dataclass(frozen=True)
-class _Step:
-    """One transform of a recipe, checked and ready to run (see `compile_recipe`)."""
+class _Step(NamedTuple):
+    """One transform of a recipe, checked and ready to run (see `compile_recipe`).
+
+    A named tuple, so `run_plan` unpacks a step in one go: the loop's own
+    cost is part of every augmenter call.
+    """
 
     kernel: Callable
     probability: float
@@ -697,35 +706,30 @@ def run_plan(image, plan, rng, label=None):
     which keeps the per-call overhead to the draws themselves.
     """
     random = rng.random
-    for step in plan:
-        if step.scoped:
+    for kernel, probability, scoped, only, exclude, relabel, kind, value, low, span, log_scale, border in plan:
+        if scoped:
             if label is None:
                 continue
-            if step.only is not None and label not in step.only:
+            if only is not None and label not in only:
                 continue
-            if step.exclude is not None and label in step.exclude:
+            if exclude is not None and label in exclude:
                 continue
-        if random() >= step.probability:
+        if random() >= probability:
             continue
         # The draws of `_draw`, inlined: low + span * random() is what
         # rng.uniform returns, bit for bit (a degenerate range draws nothing).
-        if step.kind == "scalar":
-            if step.span == 0.0:
-                value = step.low
-            elif step.log_scale:
-                value = math.exp(step.low + step.span * random())
+        if kind == "scalar":
+            if span == 0.0:
+                value = low
+            elif log_scale:
+                value = math.exp(low + span * random())
             else:
-                value = step.low + step.span * random()
-        elif step.kind == "pair":
-            if step.span == 0.0:
-                value = (step.low, step.low)
-            else:
-                value = (step.low + step.span * random(), step.low + step.span * random())
-        else:
-            value = step.value
-        image = step.kernel(image, value, step.border, rng)
-        if step.relabel is not None and label in step.relabel:
-            label = step.relabel[label]
+                value = low + span * random()
+        elif kind == "pair":
+            value = (low, low) if span == 0.0 else (low + span * random(), low + span * random())
+        image = kernel(image, value, border, rng)
+        if relabel is not None and label in relabel:
+            label = relabel[label]
     return image, label
 
 

@@ -78,6 +78,7 @@ from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, RECALL_MARGIN, cla
                              compare_predictions, pair_breaks)
 from augplan.errors import BadInputError
 from augplan.thresholds import (MAX_FOLDS, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
+                                REGION_REFERENCE_LIMIT,
                                 REGION_PERCENTILE, SCREEN_MARGIN, TURN_DEGREES)
 from augplan.parallel import parallel_map
 from augplan.results import CheckResult
@@ -279,19 +280,56 @@ def locate(ratios, probabilities, expected):
     return np.where(agree, best, np.where(keeps, expected, OUTSIDE))
 
 
+def reference_rows(labels, n_classes, limit, seed):
+    """Rows that stand as region reference points: every class's, or a seeded draw of ``limit`` of a larger class.
+
+    Parameters
+    ----------
+    labels : numpy.ndarray of int, shape (N,)
+    n_classes : int
+    limit : int
+        Most reference points per class.
+    seed : int
+        Seed of the draw (the check's seed), so the same check draws the same points.
+
+    Returns
+    -------
+    numpy.ndarray of int
+        Ascending row indices.
+    """
+    rng = np.random.default_rng([int(seed), 0x2EF])
+    rows = []
+    for c in range(n_classes):
+        members = np.flatnonzero(labels == c)
+        if len(members) > limit:
+            members = np.sort(rng.choice(members, size=limit, replace=False))
+        rows.append(members)
+    return np.sort(np.concatenate(rows)) if rows else np.empty(0, dtype=np.int64)
+
+
 class _Geometry:
-    """Standardise + PCA projection with the reference points and thresholds."""
+    """Standardise + PCA projection with the reference points and thresholds.
+
+    Every original is projected and judged, but each class's region is drawn
+    from at most `REGION_REFERENCE_LIMIT` of its originals (`reference_rows`):
+    distances are computed to those points only, so the work grows linearly
+    with the images. An original among them is left out of its own distances.
+    """
 
     def __init__(self, features, labels, n_classes, random_state):
         self.scaler = StandardScaler().fit(features)
         scaled = self.scaler.transform(features)
         n_components = VARIANCE_KEPT if min(scaled.shape) > 1 else None
         self.pca = PCA(n_components=n_components, svd_solver="full", random_state=random_state)
-        self.reference = self.pca.fit_transform(scaled).astype(np.float64)
-        self.labels = labels
+        projected = self.pca.fit_transform(scaled).astype(np.float64)
+        rows = reference_rows(labels, n_classes, REGION_REFERENCE_LIMIT, random_state)
+        self.reference = projected[rows]
+        self.labels = labels[rows]
+        # Each original's row among the reference points, or -1.
+        self.position = np.full(len(labels), -1, dtype=np.int64)
+        self.position[rows] = np.arange(len(rows))
         self.n_classes = n_classes
-        held_out = class_distances(self.reference, self.reference, labels, n_classes,
-                                   exclude=np.arange(len(labels)))
+        held_out = class_distances(projected, self.reference, self.labels, n_classes, exclude=self.position)
         self.thresholds = np.array([
             np.percentile(held_out[labels == c, c], TYPICAL_PERCENTILE) for c in range(n_classes)])
         # A class whose originals coincide has threshold 0; keep the ratio finite.
@@ -301,7 +339,7 @@ class _Geometry:
     def ratios(self, features, sources):
         points = self.pca.transform(self.scaler.transform(features))
         distances = class_distances(points, self.reference, self.labels, self.n_classes,
-                                    exclude=sources)
+                                    exclude=self.position[sources])
         return distances / self.thresholds
 
 

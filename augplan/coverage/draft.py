@@ -16,7 +16,7 @@ from augplan.parallel import parallel_map
 from augplan.recipe.parse import parse_recipe
 from augplan.thresholds import PLAUSIBLE_FACTOR
 
-__all__ = ["draft_ranges", "draft_recipe_text"]
+__all__ = ["draft_ranges", "draft_recipe_text", "field_lighting", "field_ratio_range"]
 
 _CHUNK = 64  # images decoded and measured per work unit
 
@@ -37,18 +37,59 @@ LIMITS = {"brightness": (1.0 / PLAUSIBLE_FACTOR["brightness"], PLAUSIBLE_FACTOR[
           "contrast": (0.4, 2.5), "rotate": 45.0}
 
 
-def _ratio_range(train_values, field_values, default, limits):
+def field_ratio_range(train_values, field_values, limits):
     """Multiplicative range that takes the training median to the field's 5-95% span.
 
-    Always includes 1 (the unchanged image); clipped to ``limits``.
+    Parameters
+    ----------
+    train_values, field_values : array_like
+        One factor measured on the training images and on the field sample
+        (a factor that scales with the op's factor, such as mean linear
+        luminance for ``brightness``).
+    limits : (float, float)
+        The widest range proposed.
+
+    Returns
+    -------
+    (float, float) or None
+        Rounded to 2 decimals; always includes 1 (the unchanged image); None
+        without field values or when the training median is not positive.
     """
     centre = float(np.median(train_values))
     if field_values is None or len(field_values) == 0 or centre <= 0:
-        return default
-    low = float(np.percentile(field_values, 5)) / centre
-    high = float(np.percentile(field_values, 95)) / centre
-    low, high = min(low, default[0]), max(high, default[1])
+        return None
+    low = min(float(np.percentile(field_values, 5)) / centre, 1.0)
+    high = max(float(np.percentile(field_values, 95)) / centre, 1.0)
     return (round(max(low, limits[0]), 2), round(min(high, limits[1]), 2))
+
+
+def _ratio_range(train_values, field_values, default, limits):
+    """`field_ratio_range` widened to include ``default``; ``default`` without a field."""
+    reach = field_ratio_range(train_values, field_values, limits)
+    if reach is None:
+        return default
+    return (min(reach[0], default[0]), max(reach[1], default[1]))
+
+
+def field_lighting(train_images, field_images):
+    """The brightness and contrast factors that reach the field's lighting.
+
+    Parameters
+    ----------
+    train_images, field_images : numpy.ndarray (N, H, W, 3) uint8
+
+    Returns
+    -------
+    dict
+        ``{"brightness": (low, high), "contrast": (low, high)}``, each from
+        `field_ratio_range` (mean BT.709 relative luminance for brightness,
+        RMS contrast for contrast) within `LIMITS`; an op is missing when
+        its factor cannot be measured.
+    """
+    measured = {"brightness": brightness, "contrast": rms_contrast}
+    reach = {op: field_ratio_range(factor(train_images), factor(field_images), LIMITS[op])
+             for op, factor in measured.items()}
+    return {op: pair for op, pair in reach.items() if pair is not None}
 
 
 def _axial_spread(angles):

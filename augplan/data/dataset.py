@@ -1084,20 +1084,25 @@ def find_duplicates(dataset, *, near_threshold=NEAR_DUPLICATE_BITS, workers=1):
         views = {}  # 20 kB per image that takes part in a candidate pair
         for start in range(0, len(records), chunk):
             stop = min(start + chunk, len(records))
-            distances = hamming_matrix(hashes[start:stop], hashes)
+            # Only textured images of a later split can pair with this chunk:
+            # comparing with those alone keeps train x train pairs out.
+            later = np.flatnonzero(textured & (splits > splits[start:stop].min()))
+            distances = hamming_matrix(hashes[start:stop], hashes[later])
             rows, cols = np.nonzero((distances <= near_threshold)
-                                    & (splits[start:stop, None] < splits[None, :])
-                                    & textured[start:stop, None] & textured[None, :])
+                                    & (splits[start:stop, None] < splits[later][None, :])
+                                    & textured[start:stop, None])
+            distances = distances[rows, cols]
+            cols = later[cols]
             correlation = np.einsum("ij,ij->i", thumbnails[start + rows], thumbnails[cols])
             keep = correlation >= _PREFILTER_CORRELATION
-            rows, cols = rows[keep], cols[keep]
-            for row, col in zip(rows.tolist(), cols.tolist()):
+            rows, cols, distances = rows[keep], cols[keep], distances[keep]
+            for row, col, distance in zip(rows.tolist(), cols.tolist(), distances.tolist()):
                 first, second = records[start + row], records[col]
                 if first.sha256 == second.sha256 or not _near_copies(first.path, second.path, views):
                     continue
                 near.append({"kind": "near", "a": first.relpath, "b": second.relpath,
                              "splits": [first.split, second.split],
-                             "distance": int(distances[row, col])})
+                             "distance": int(distance)})
     exact.sort(key=lambda d: (d["a"], d["b"]))
     near.sort(key=lambda d: (d["a"], d["b"]))
     return exact + near

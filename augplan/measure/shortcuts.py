@@ -27,6 +27,7 @@ __all__ = [
     "ALL_FACTORS",
     "SHORTCUT_RULE",
     "shortcut_threshold",
+    "fold_splits",
     "shortcut_scores",
     "shortcut_score",
     "factor_columns",
@@ -62,7 +63,37 @@ def shortcut_threshold(n_classes):
     return beyond_chance(1.0 / n_classes)
 
 
-def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
+def fold_splits(labels, *, groups=None, seed=0, folds=MAX_FOLDS):
+    """The cross-validation folds `shortcut_scores` uses, as a list of (train, test) index arrays.
+
+    They depend on the labels, groups and seed alone, never on the features,
+    so an audit of many factors on one set computes them once (assigning
+    groups to folds is the costly part on large sets). None when there are
+    fewer than two classes or the smallest class has fewer than two images
+    (or groups).
+    """
+    from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold
+
+    labels = np.asarray(labels)
+    names, counts = np.unique(labels, return_counts=True)
+    if names.size < 2:
+        return None
+    if groups is not None:
+        # A class's smallest number of distinct source images bounds the folds.
+        smallest = min(np.unique(np.asarray(groups)[labels == name]).size for name in names)
+    else:
+        smallest = int(counts.min())
+    n_splits = min(folds, smallest)
+    if n_splits < 2:
+        return None
+    if groups is None:
+        splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=seed)
+    else:
+        splitter = StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
+    return list(splitter.split(np.zeros((labels.size, 1)), labels, groups))
+
+
+def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS, splits=None):
     """Cross-validated balanced accuracy of predicting ``labels`` from ``features``.
 
     Parameters
@@ -76,6 +107,10 @@ def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
         Seed of the fold shuffle.
     folds : int
         At most this many folds; fewer when the smallest class is smaller.
+    splits : list of (train, test) index arrays, optional
+        The folds from `fold_splits` for these labels, groups, seed and
+        folds, computed once for several factors of one set; computed here
+        when not given.
 
     Returns
     -------
@@ -92,28 +127,16 @@ def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
        distribution", ICPR 2010.
     """
     from sklearn.linear_model import LogisticRegression
-    from sklearn.metrics import balanced_accuracy_score
-    from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold, cross_val_predict
+    from sklearn.model_selection import cross_val_predict
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
 
     features = np.asarray(features, dtype=np.float64)
     labels = np.asarray(labels)
-    names, counts = np.unique(labels, return_counts=True)
-    if names.size < 2:
+    if splits is None:
+        splits = fold_splits(labels, groups=groups, seed=seed, folds=folds)
+    if splits is None:
         return None, {}
-    if groups is not None:
-        # A class's smallest number of distinct source images bounds the folds.
-        smallest = min(np.unique(np.asarray(groups)[labels == name]).size for name in names)
-    else:
-        smallest = int(counts.min())
-    n_splits = min(folds, smallest)
-    if n_splits < 2:
-        return None, {}
-    if groups is None:
-        splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=seed)
-    else:
-        splitter = StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
     # Newton steps converge in a handful of iterations on a few columns,
     # where quasi-Newton solvers spend hundreds of cheap ones.
     model = make_pipeline(StandardScaler(), LogisticRegression(solver="newton-cholesky", max_iter=200))
@@ -121,11 +144,31 @@ def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
         # Perfectly separated classes stop the solver at max_iter; the
         # predictions are still the separating ones.
         warnings.simplefilter("ignore")
-        predicted = cross_val_predict(model, features, labels, cv=splitter, groups=groups)
-    overall = float(balanced_accuracy_score(labels, predicted))
-    per_class = {str(name): float(balanced_accuracy_score(labels == name, predicted == name))
-                 for name in names}
-    return overall, per_class
+        predicted = cross_val_predict(model, features, labels, cv=splits)
+    return _balanced_accuracies(labels, predicted)
+
+
+def _balanced_accuracies(labels, predicted):
+    """Balanced accuracy overall and one-vs-rest per class, from one confusion matrix.
+
+    The values of ``sklearn.metrics.balanced_accuracy_score`` (mean recall
+    over the true classes; one-vs-rest, the mean of the two recalls of
+    "this class or not"), computed from one count of (true, predicted)
+    pairs rather than one call per class.
+    """
+    names, true = np.unique(labels, return_inverse=True)
+    guess = np.searchsorted(names, predicted)
+    k = names.size
+    counts = np.bincount(true * k + guess, minlength=k * k).reshape(k, k)
+    hits = np.diag(counts)
+    support = counts.sum(axis=1)
+    overall = float(np.mean(hits / support))
+    named = counts.sum(axis=0)
+    rest = labels.size - support
+    # "Not this class" is recalled when neither the truth nor the guess is the class.
+    rest_recall = (rest - (named - hits)) / rest
+    one_vs_rest = (rest_recall + hits / support) / 2
+    return overall, {str(name): float(value) for name, value in zip(names, one_vs_rest)}
 
 
 def shortcut_score(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
@@ -217,7 +260,7 @@ def link_of(row, by_class, driver, chance, n_images):
     return {"link": link, "augmented_ci": [json_number(low), json_number(high)], "link_bound": json_number(bound)}
 
 
-def _audit_row(name, chosen, sets, n_classes, seed):
+def _audit_row(name, chosen, sets, n_classes, seed, splits):
     threshold = shortcut_threshold(max(n_classes, 1))
     row, by_class = {"factor": name}, {}
     for set_name in ("original", "augmented", "val", "field"):
@@ -229,7 +272,10 @@ def _audit_row(name, chosen, sets, n_classes, seed):
             # No image of the set has a value (hue of grey images): nothing to score.
             row[set_name] = None
             continue
-        overall, per_class = shortcut_scores(factor_columns(values, chosen), labels, groups=set_groups, seed=seed)
+        if splits[set_name] is None:
+            overall, per_class = None, {}
+        else:
+            overall, per_class = shortcut_scores(factor_columns(values, chosen), labels, splits=splits[set_name])
         row[set_name] = json_number(overall)
         by_class[set_name] = {c: json_number(v) for c, v in per_class.items()}
     row["chance"] = json_number(1.0 / max(n_classes, 1))
@@ -285,7 +331,10 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
         `SHORTCUT_RULE`. A set in which no image has a value scores None.
     """
     names = list(FACTORS)
-    return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed)
+    # One set of folds per set, shared by every factor's row.
+    splits = {set_name: fold_splits(labels, groups=set_groups, seed=seed)
+              for set_name, (_, labels, set_groups) in sets.items()}
+    return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed, splits)
             for name in names + [ALL_FACTORS]]
 
 
