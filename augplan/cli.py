@@ -282,10 +282,11 @@ def _read_recipes(paths, dataset):
     return recipes
 
 
-def _report_dataset(console, dataset):
+def _report_dataset(console, dataset, *, result_says_val=False):
+    """Warnings about the data; the stand-in validation split only where the result does not say it itself."""
     for relpath, reason in dataset.skipped:
         console.warn(f"skipped {relpath}: {reason}")
-    if dataset.val_from_train:
+    if dataset.val_from_train and not result_says_val:
         console.warn(f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) "
                      "stands in for validation")
     if dataset.missing_val_message():
@@ -396,7 +397,7 @@ def _run_coverage(args, console):
     from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
-    _report_dataset(console, dataset)
+    _report_dataset(console, dataset, result_says_val=True)  # among the result's messages
     if args.plots is not None:
         _ensure_parent(args.plots, dataset)
     recipe = _read_recipes([args.recipe], dataset)[0]
@@ -413,7 +414,7 @@ def _run_evaluate(args, console):
     from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
-    _report_dataset(console, dataset)
+    _report_dataset(console, dataset, result_says_val=True)  # among the result's warnings
     leaks = _report_leaks(console, dataset)
     recipes = _read_recipes(args.recipe, dataset)
     ledger, cache = _stores(args, dataset, console)
@@ -490,13 +491,15 @@ def _say_vetted(console, args, summary):
     if args.json:
         console.emit_json(summary.to_json())
     console.say(summary.verdict)
+    if summary.get("decision_note"):
+        console.say(summary["decision_note"])
     for item in summary.get("signoff") or []:
         console.say(f"sign-off needed: {item['recipe']} transform {item['index']} ({item['op']}): {item['detail']}")
     console.say(f"report: {summary.report}")
     if summary.vetted_recipe is not None:
         console.say(f"vetted recipe: {summary.vetted_recipe}")
     else:
-        console.say("no vetted-recipe.yaml: no recipe beat no augmentation (each recipe's vetted-NAME.yaml "
+        console.say("no vetted-recipe.yaml: no recipe clearly beat no augmentation (each recipe's vetted-NAME.yaml "
                     "is written beside the report)")
 
 

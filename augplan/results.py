@@ -171,6 +171,10 @@ class EvaluateResult(_Result):
     field: Any
     warnings: list
     from_ledger: bool
+    ranking: list = _optional()
+    decided_on: str = _optional()
+    val_shares_shortcut: list = _optional()
+    decision_note: str = _optional()
     reused_from_ledger: list = _optional()
     leaks: list = _optional()
 
@@ -192,6 +196,7 @@ class VetResult(_Result):
     unchanged: bool
     best: Any
     model: str = _optional()
+    decision_note: str = _optional()
     changes: list = _optional()
     signoff: list = _optional()
 

@@ -74,8 +74,9 @@ def test_no_request_leaves_the_file(page, report):
     assert outside == []
 
 
-@pytest.mark.parametrize("selector", ["#summary", "#verdict", "#summary .box", "#signoff", "#cautions"],
-                         ids=["summary", "recommendation", "changes", "sign-off", "cautions"])
+@pytest.mark.parametrize("selector", ["#summary", "#verdict", "#decision", "#summary .box", "#signoff",
+                                      "#cautions"],
+                         ids=["summary", "recommendation", "decision", "changes", "sign-off", "cautions"])
 def test_summary_block_is_within_the_first_screen(page, selector):
     box = page.evaluate(f"(() => {{ const r = document.querySelector({json.dumps(selector)})"
                         ".getBoundingClientRect(); return [r.top + scrollY, r.bottom + scrollY, r.height]; })()")

@@ -210,7 +210,9 @@ def test_ledger_reuses_stored_results_and_lists_history(digits_data, cache_dir, 
     history = ledger.list_history(path, fingerprint=fingerprint(digits_data))
     assert [row["recipes"] for row in history] == [["affine-ledger"]] * 3
     assert [row["from_ledger"] for row in history] == [False, True, False]
-    assert history[0]["best_gain"] == pytest.approx(first["recipes"][0]["gain"])
+    # The ledger records the recommendation of the one rule (none when its interval spans zero).
+    assert history[0]["best_recipe"] == first["best"]
+    assert history[0]["best_gain"] == (None if first["best"] is None else pytest.approx(first["recipes"][0]["gain"]))
     assert ledger.list_history(path, fingerprint="0" * 64) == []
 
 
@@ -307,10 +309,11 @@ def test_confusion_matrices_agree_with_recall_and_accuracy(comparison):
         assert np.trace(counts) / counts.sum() == pytest.approx(block["accuracy"], abs=1e-6)
 
 
-def _row(name, gain, n_transforms=2, field_gain=None):
-    row = {"name": name, "gain": gain, "n_transforms": n_transforms}
+def _row(name, gain, n_transforms=2, field_gain=None, half_width=0.01):
+    row = {"name": name, "gain": gain, "gain_ci": [gain - half_width, gain + half_width],
+           "n_transforms": n_transforms}
     if field_gain is not None:
-        row["field"] = {"gain": field_gain}
+        row["field"] = {"gain": field_gain, "gain_ci": [field_gain - half_width, field_gain + half_width]}
     return row
 
 
@@ -318,16 +321,39 @@ def _row(name, gain, n_transforms=2, field_gain=None):
     ([_row("a", -0.015), _row("b", -0.039)], None),
     ([_row("a", -0.015), _row("emptied", 0.0, n_transforms=0)], None),
     ([_row("a", 0.0), _row("b", 0.0)], None),
-    ([_row("a", 0.01), _row("b", 0.03), _row("emptied", 0.05, n_transforms=0)], "b"),
+    ([_row("a", 0.01, half_width=0.02), _row("b", 0.005, half_width=0.02)], None),
+    ([_row("a", 0.02), _row("b", 0.03), _row("emptied", 0.05, n_transforms=0)], "b"),
     ([_row("a", 0.0, field_gain=0.29), _row("b", 0.0, field_gain=0.1)], "a"),
-    ([_row("a", 0.02, field_gain=-0.05), _row("b", 0.01, field_gain=0.0)], "b"),
-], ids=["all-negative", "emptied-at-zero", "all-zero", "largest-gain", "field-breaks-tie",
-        "no-gain-below-zero"])
-def test_best_is_never_a_recipe_below_zero_nor_an_empty_one(rows, best):
-    from augplan.evaluate.evaluate import best_recipe
+    ([_row("a", 0.02, field_gain=0.1), _row("b", 0.01, field_gain=0.1)], "a"),
+    ([_row("a", 0.05, field_gain=-0.05), _row("b", -0.01, field_gain=0.2)], "b"),
+    ([_row("a", 0.05, field_gain=0.0), _row("b", 0.04, field_gain=-0.2)], None),
+], ids=["all-negative", "emptied-at-zero", "all-zero", "interval-spans-zero", "largest-gain",
+        "field-decides", "validation-breaks-a-field-tie", "field-over-validation", "field-shows-no-gain"])
+def test_best_follows_the_one_rule(rows, best):
+    # BEST_RULE: the labelled field sample first, validation second; a recommendation needs
+    # its 95% gain interval above zero on the primary evidence, and at least one transform.
+    from augplan.evaluate.ranking import best_recipe, decide
 
     chosen = best_recipe(rows)
     assert (None if chosen is None else chosen["name"]) == best
+    decision = decide(rows)
+    assert decision.best == best
+    assert decision.decided_on == ("field" if any("field" in row for row in rows) else "val")
+    if best is not None:
+        assert decision.ranking[0] == best or rows[[r["name"] for r in rows].index(decision.ranking[0])][
+            "n_transforms"] == 0
+
+
+def test_the_note_names_the_shared_shortcut_and_asks_for_a_field_sample():
+    from augplan.evaluate.ranking import decide
+
+    without_field = decide([_row("a", 0.02)], val_shares_shortcut=["brightness"])
+    assert "carries the same brightness shortcut" in without_field.note
+    assert "cannot reveal" in without_field.note and "Collect a labelled field sample" in without_field.note
+    with_field = decide([_row("a", 0.0, field_gain=0.2)], val_shares_shortcut=["brightness"], n_field=40)
+    assert with_field.note.startswith("The labelled field sample (40 images) decides the recommendation")
+    assert "brightness" in with_field.note and "Collect" not in with_field.note
+    assert "shortcut" not in decide([_row("a", 0.02)]).note
 
 
 def test_history_records_no_best_when_no_recipe_gains(digits_data, cache_dir, tmp_path):
@@ -380,3 +406,16 @@ def test_a_class_missing_from_validation_is_named_and_said_never_scored(tmp_path
     assert result.err.count(expected) == 1
     assert any(w.startswith(expected) for w in json.loads(result.out)["warnings"])
     assert open_dataset(data).missing_classes("val") == ["d7"]
+
+
+def test_the_missing_val_folder_is_said_once(tmp_path, tiny_recipe, run_cli):
+    # Issue 27: the CLI said it and the result's warnings said it again.
+    import shutil
+
+    from conftest import write_tiny_dataset
+
+    root = write_tiny_dataset(tmp_path / "DATA", train=10)
+    shutil.rmtree(root / "val")
+    result = run_cli("evaluate", root, "--recipe", tiny_recipe, "--repeats", "1")
+    assert result.code in (0, 1), result.err
+    assert result.err.count("no val/ folder") == 1

@@ -16,6 +16,8 @@ import pytest
 from PIL import Image
 
 from augplan.render.html import embed_png, render_report
+from augplan.recipe.parse import parse_recipe
+from augplan.vet.vetted_file import vet_transforms
 
 HOSTILE = "<script>alert('x')</script>"
 
@@ -93,7 +95,7 @@ def _evidence(tmp_path, *, class_a="chip-left", class_b="chip-right", name="tile
             {"index": 0, "op": "flip", "params": {"axis": "horizontal"}, "verdict": "breaks",
              "change_rate": 0.81, "change_rate_ci": [0.74, 0.86], "leave_rate": 0.02,
              "leave_rate_ci": [0.0, 0.05], "n": 80,
-             "swaps": [{"from": class_a, "to": class_b, "rate": 0.93, "n": 40}],
+             "swaps": [{"from": class_a, "to": class_b, "rate": 0.93, "moved": 37, "n": 40}],
              "classes": {class_a: {"verdict": "breaks", "change_rate": 0.93}},
              "magnitudes": [], "safe_limit": None,
              "suggestion": {"relabel": {class_a: class_b, class_b: class_a}}, "evidence_sheet": sheet},
@@ -135,6 +137,8 @@ def _evidence(tmp_path, *, class_a="chip-left", class_b="chip-right", name="tile
         ],
         "scored_on": "val", "augmented_validation_images": 0, "repeats": 5,
         "warnings": ["an evaluation warning"], "confirm": None, "field": None,
+        # The evaluator's order (augplan.evaluate.ranking); the report never re-sorts.
+        "ranking": [vetted_name, name], "decided_on": "val",
     }
     return {
         "augplan_version": "0.1.0",
@@ -286,6 +290,9 @@ def test_transform_table_has_one_row_per_transform(tmp_path):
     moved = next(i for i, name in enumerate(header) if name.startswith("moved"))
     assert rows[0][moved] == "81% (74\u201386%)"
     assert "chip-left \u2192 chip-right 93%" in rows[0][column["confirmed swaps"]]
+    # The count that moved, of the images checked: not the class size (issue: "120 images moved" for 36).
+    assert "37 of 40 images moved" in rows[0][column["confirmed swaps"]]
+    assert ", 40 images moved" not in rows[0][column["confirmed swaps"]]
     assert rows[1][column["safe limit"]] == "-10 to 10"
     assert rows[0][column["what vetting did"]].startswith("relabel")
     assert "keep" in rows[1][column["what vetting did"]]
@@ -307,7 +314,7 @@ def test_rule_warnings_shortcuts_and_field_coverage_are_shown(tmp_path):
     assert widening[1][3] == "\u00d72.20"  # 0.11 / 0.05
 
 
-def test_leaderboard_baseline_first_then_ranked_by_gain(tmp_path):
+def test_leaderboard_baseline_first_then_in_the_evaluators_ranking(tmp_path):
     page = _parse(render_report(_evidence(tmp_path)))
     board = page.table_with("p (Holm)")
     header, rows = board[0], board[1:]
@@ -463,8 +470,16 @@ def test_plot_captions_name_the_factor_of_vets_figure_files():
 def _with_summary_data(tmp_path):
     evidence = _evidence(tmp_path)
     entry = evidence["recipes"][0]
-    entry["vetted"]["changes"].append({"index": 2, "op": "hue", "verdict": "breaks", "action": "clip",
-                                       "detail": "clipped to the safe limit [-10, 10]"})
+    # The changes come from the real vetting policy, as vet writes them.
+    recipe = parse_recipe("name: tiles-draft\ntransforms:\n  - op: flip\n    axis: horizontal\n"
+                          "  - op: rotate\n    degrees: [-10, 10]\n  - op: hue\n    degrees: [-30, 30]\n")
+    check = {"transforms": [
+        {"index": 0, "op": "flip", "verdict": "breaks", "safe_limit": None,
+         "suggestion": {"relabel": {"chip-left": "chip-right", "chip-right": "chip-left"}}},
+        {"index": 1, "op": "rotate", "verdict": "safe", "safe_limit": [-10.0, 10.0]},
+        {"index": 2, "op": "hue", "verdict": "breaks", "safe_limit": [-10.0, 10.0]}]}
+    _, changes = vet_transforms(recipe, check)
+    entry["vetted"]["changes"] = [change.to_json() for change in changes]
     entry["vetted"]["signoff"] = [{"index": 0, "op": "flip", "detail": "unverified, kept: approved"}]
     confusion = {"classes": ["chip-left", "chip-right"], "counts": [[9, 1], [3, 7]], "repeats": 5}
     evidence["evaluation"]["recipes"][1].update(
@@ -488,9 +503,11 @@ def test_summary_holds_the_verdict_changes_sign_off_and_cautions_before_any_tabl
     for tag_id in ("summary", "verdict", "signoff", "cautions"):
         assert _section_of(page, tag_id) < first_table
     text = page.all_text
-    assert "tiles-draft \u2192 tiles-draft-vetted: flip relabelled; hue clipped to [-10, 10]; 1 kept" in text
+    # A clipped transform shows its range (issue: it read "hue clipped" once ranges printed as "a to b").
+    assert "tiles-draft \u2192 tiles-draft-vetted: flip relabelled; hue clipped to -10 to 10; 1 kept" in text
     assert "tiles-draft, transform 0 (flip)" in text and "unverified, kept: approved" in text
-    assert "Evidence: accuracy gains of the linear proxy model" in text
+    assert "Evidence: the accuracy gain of the linear proxy, trained with each recipe, over the same model" in text
+    assert "linear trained" not in text
     assert "the labelled field sample (30 images) and validation, 5 training repeats" in text
 
 
@@ -510,7 +527,7 @@ def test_no_sign_off_is_said_plainly(tmp_path):
 
 def test_leaderboard_follows_the_recorded_ranking_and_shows_field_beside_validation(tmp_path):
     evidence = _with_summary_data(tmp_path)
-    evidence["ranking"] = ["tiles-draft", "tiles-draft-vetted"]  # not the order of the validation gain
+    evidence["evaluation"]["ranking"] = ["tiles-draft", "tiles-draft-vetted"]  # not the order of the validation gain
     evidence["ranking_rule"] = "a stated rule."
     page = _parse(render_report(evidence))
     board = page.table_with("field gain, points [95% CI]")
@@ -568,3 +585,33 @@ def test_factor_histograms_are_one_figure_of_small_multiples(tmp_path):
     data = base64.b64decode(grids[0]["src"].split(",", 1)[1])
     with Image.open(io.BytesIO(data)) as image:
         assert image.format == "PNG" and image.mode == "P"  # palette: line art needs no more
+
+
+def test_the_shortcut_line_stands_beside_the_recommendation_on_the_first_screen(tmp_path):
+    # Issue 26, item 5: "the validation split carries the same shortcut" was only inside a
+    # collapsed section. The line comes from the evaluator's decision (augplan.evaluate.ranking).
+    from augplan.evaluate.ranking import decide
+
+    evidence = _with_summary_data(tmp_path)
+    rows = [{**row, "n_transforms": 2} for row in evidence["evaluation"]["recipes"]]
+    decision = decide(rows, val_shares_shortcut=["brightness"], n_field=30)
+    evidence["evaluation"].update(decided_on=decision.decided_on, ranking=list(decision.ranking),
+                                  val_shares_shortcut=["brightness"], decision_note=decision.note)
+    page = _parse(render_report(evidence))
+    first_table = next(i for i, (tag, _) in enumerate(page.tags) if tag == "table")
+    first_details = next(i for i, (tag, _) in enumerate(page.tags) if tag == "details")
+    line = _section_of(page, "decision")
+    assert _section_of(page, "verdict") < line < min(first_table, first_details)
+    assert "The validation split carries the same brightness shortcut" in page.all_text
+
+
+
+def test_with_nothing_recommended_no_table_says_recommended(tmp_path):
+    # Issue 26, item 7: one voice; the top-ranked recipe is named, never called recommended.
+    evidence = _with_summary_data(tmp_path)
+    evidence["best"] = None
+    page = _parse(render_report(evidence))
+    assert page.table_with("recall, no augmentation")[0][5] == "recall, tiles-draft-vetted"
+    assert "recommended:" not in page.all_text
+    assert all("recommended" not in row[-1] for row in page.table_with("p (Holm)")[1:])
+    assert "the labelled field sample (30 images) and validation" in page.all_text

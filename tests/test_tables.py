@@ -54,7 +54,7 @@ def test_leaderboard_names_its_model_and_never_calls_a_proxy_loss_harm():
     assert text.startswith("scored with the linear proxy on val")
     assert "no augmentation: accuracy 1.00 [0.95, 1.00]" in text
     assert "lower (proxy)" in text and "LOSES" not in text
-    assert "best: none (no recipe beat no augmentation, by the linear proxy)" in text
+    assert "best: none (no recipe clearly beat no augmentation, by the linear proxy)" in text
     assert leaderboard_table(EVALUATION).startswith("scored with the cnn model on val")
 
 

@@ -127,19 +127,28 @@ def _evaluation(model=_LINEAR):
 
 
 @pytest.mark.parametrize("gain_ci,field_ci,start", [
-    ((0.01, 0.05), None, "Use best-one (scored with the linear proxy):"),
-    ((-0.02, 0.03), None, "No recipe shows a clear gain; best-one gains most"),
-    ((0.0, 0.0), (0.2, 0.4), "Use best-one (scored with the linear proxy):"),
+    ((0.01, 0.05), None, "Use best-one (scored with the linear proxy): validation gain over no augmentation "
+                         "+3.5 points [95% CI +1.0, +5.0]"),
+    ((-0.02, 0.03), None, "No recipe clearly beat no augmentation on validation, scored with the linear proxy"),
+    ((0.0, 0.0), (0.2, 0.4), "Use best-one (scored with the linear proxy): gain over no augmentation "
+                             "+30.0 points [95% CI +20.0, +40.0] on the labelled field sample, which decides"),
 ], ids=["val-gain", "unclear", "field-gain"])
 def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
+    # The recommendation comes from the one rule (augplan.evaluate.ranking), gains in percentage points.
+    from augplan.evaluate.ranking import decide
     from augplan.vet.job import _verdict_sentence
 
-    best = {"name": "best-one", "gain": sum(gain_ci) / 2 + 0.005, "gain_ci": list(gain_ci)}
+    row = {"name": "best-one", "gain": sum(gain_ci) / 2 + 0.005, "gain_ci": list(gain_ci), "n_transforms": 2}
     if field_ci:
-        best["field"] = {"gain": sum(field_ci) / 2, "gain_ci": list(field_ci)}
+        row["field"] = {"gain": sum(field_ci) / 2, "gain_ci": list(field_ci)}
+    decision = decide([row])
     entries = [{"name": "draft", "vetted": {"unchanged": False}}]
-    sentence = _verdict_sentence(entries, _evaluation(), best, best)
+    evaluation = {**_evaluation(), "decided_on": decision.decided_on}
+    sentence = _verdict_sentence(entries, evaluation, row if decision.best else None, row)
     assert sentence.startswith(start) and "augplan changed draft" in sentence
+    # One voice: without a recommendation nothing is "used" or recommended.
+    assert ("Use " in sentence) == (decision.best is not None)
+    assert ("none recommended" in sentence) == (decision.best is None)
 
 
 @pytest.mark.parametrize("model, says", [
@@ -153,7 +162,7 @@ def test_verdict_sentence_names_no_best_when_none_gains(model, says):
     top = {"name": "least-bad", "gain": -0.015, "gain_ci": [-0.03, -0.002]}
     entries = [{"name": "draft", "vetted": {"unchanged": True}}]
     sentence = _verdict_sentence(entries, _evaluation(model), None, top)
-    assert sentence.startswith("No recipe beat no augmentation on validation")
+    assert sentence.startswith("No recipe clearly beat no augmentation on validation")
     assert says in sentence
     assert "Use " not in sentence and "best" not in sentence
 
@@ -219,7 +228,7 @@ def test_a_rewrite_that_still_breaks_and_has_no_safe_limit_is_removed():
     from augplan.vet.job import _drop_unsafe_rewrites
 
     vetted, changes, rechecked, recipe, check = _rewrite_case(None)
-    result = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
+    result, changes = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
     assert [step.params for step in result.transforms] == [{"degrees": (-5.0, 5.0)}]
     assert changes[1]["action"] == "remove" and "still breaks" in changes[1]["detail"]
 
@@ -229,10 +238,11 @@ def test_a_rejected_rewrite_falls_back_to_the_safe_limit():
     from augplan.vet.job import _drop_unsafe_rewrites
 
     vetted, changes, rechecked, recipe, check = _rewrite_case([-10.0, 10.0])
-    result = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
+    result, changes = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
     assert [step.params["degrees"] for step in result.transforms] == [(-10.0, 10.0), (-5.0, 5.0)]
     assert result.transforms[0].only is None  # the original step, clipped; not the rejected scope
     assert changes[1]["action"] == "clip" and "safe limit" in changes[1]["detail"]
+    assert changes[1].to_json()["clipped_to"] == [-10.0, 10.0]  # typed: the report formats the range
 
 
 def test_vetted_recipe_validates_against_the_shipped_schema(vetted):
@@ -312,3 +322,22 @@ def test_vet_with_the_teams_model_names_it_everywhere(tiny_dataset, tiny_recipe,
     assert "team_training:fit_nearest_mean" in (out / "report.html").read_text(encoding="utf-8")
     # vetted-recipe.yaml exists exactly when a recipe beat no augmentation.
     assert (out / "vetted-recipe.yaml").is_file() == (summary["best"] is not None)
+
+
+def test_every_output_of_vet_says_which_evidence_decided(vetted):
+    # Issue 26, item 1: the evaluator's decision (augplan.evaluate.ranking) reaches every output of vet.
+    import html
+
+    import yaml
+
+    _, out, _ = vetted
+    note = _vet_json(out)["decision_note"]
+    assert note.startswith("The labelled field sample (")  # the demo data carry a labelled field sample
+    evidence = json.loads((out / "evidence.json").read_text())
+    assert evidence["evaluation"]["decision_note"] == note
+    assert evidence["ranking"] == evidence["evaluation"]["ranking"]
+    assert f'id="decision">{html.escape(note)}</p>' in (out / "report.html").read_text(encoding="utf-8")
+    vetted_file = yaml.safe_load((out / "vetted-naive-draft.yaml").read_text(encoding="utf-8"))
+    assert vetted_file["evidence"]["decided_on"] == "field"
+    assert (vetted_file["evidence"].get("validation_note") == note) == bool(
+        evidence["evaluation"]["val_shares_shortcut"])

@@ -80,7 +80,7 @@ from augplan.errors import BadInputError
 from augplan.thresholds import (MAX_FOLDS, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
                                 REGION_REFERENCE_LIMIT,
                                 REGION_PERCENTILE, SCREEN_MARGIN, TURN_DEGREES)
-from augplan.parallel import parallel_map
+from augplan.parallel import parallel_map, single_threaded
 from augplan.results import CheckResult
 
 __all__ = [
@@ -534,7 +534,8 @@ def _fit_baseline(images, labels, n_classes, template, seed, workers, quiet):
     cv_accuracy = correct / len(labels)
     chance = float(counts.max() / counts.sum())
     weak = is_weak(cv_accuracy, wilson_interval(correct, len(labels))[0], chance)
-    geometry = _Geometry(features, labels, n_classes, seed)
+    with single_threaded():   # the PCA's SVD, as the shortcut audit's fits (augplan.parallel.single_threaded)
+        geometry = _Geometry(features, labels, n_classes, seed)
     dest = locate(geometry.held_out_ratios, proba, labels)
     change = np.array([np.mean((dest[labels == c] != c) & (dest[labels == c] != OUTSIDE))
                        for c in range(n_classes)])

@@ -45,6 +45,11 @@ from augplan.data.dataset import Dataset, fingerprint, load_images, stratified_c
 from augplan.errors import BadInputError
 from augplan.evaluate.feature_cache import FeatureCache, default_cache_dir, feature_settings_key
 from augplan.evaluate.models import scoring_model
+from augplan.evaluate.ranking import BEST_RULE, best_recipe, decide, rank_key  # noqa: F401 (re-exported)
+from augplan.measure.factors import FACTORS, measure_factors
+from augplan.measure import factors as _factors_module
+from augplan.measure import shortcuts as _shortcuts_module
+from augplan.measure.shortcuts import val_shared_shortcuts
 from augplan.parallel import parallel_map, resolve_workers, single_threaded
 from augplan.recipe.parse import Recipe, recipe_hash
 from augplan.results import EvaluateResult
@@ -74,12 +79,6 @@ GAIN_RULE = ("image is the unit: per-image correctness averaged over repeats; ga
 VERDICT_RULE = ("a recipe gains (or loses) when its Holm-adjusted p-value across the recipes of the run is below "
                 "0.05 and its gain is above (below) zero; otherwise there is no difference; a recipe that gains or "
                 "loses always has its 95% gain interval above or below zero")
-
-BEST_RULE = ("recipes are ranked by their validation gain over no augmentation, a tie (a saturated validation "
-             "split scores every recipe alike) going to the larger gain on the labelled field sample; the best is "
-             "the highest-ranked recipe with at least one transform, no gain below zero and a gain above zero; "
-             "when no recipe has one, none is best: no recipe beat no augmentation")
-
 
 # --------------------------------------------------------------------------
 # Originals: the only path evaluation images take
@@ -502,35 +501,9 @@ def gain_verdict(gain, p_holm):
     return "gains" if gain > 0 else "loses"
 
 
-def _field_gain(entry):
-    field = entry.get("field") or {}
-    return field.get("gain")
-
-
-def rank_key(entry):
-    """Sort key of a recipe row by `BEST_RULE`: validation gain, then the labelled field's gain."""
-    field_gain = _field_gain(entry)
-    return (entry["gain"], float("-inf") if field_gain is None else field_gain)
-
-
-def best_recipe(entries):
-    """The recipe row `BEST_RULE` calls best, or None when no recipe beat no augmentation.
-
-    Parameters
-    ----------
-    entries : sequence of dict
-        ``evaluate`` recipe rows (``name``, ``gain``, ``field``, ``n_transforms``).
-    """
-    def gains(entry):
-        values = [entry["gain"]] + ([] if _field_gain(entry) is None else [_field_gain(entry)])
-        return entry["n_transforms"] > 0 and min(values) >= 0 and max(values) > 0
-
-    return max((e for e in entries if gains(e)), key=rank_key, default=None)
-
-
 def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, seed, confirm_source,
-              n_unlabelled_field, confirm_ignored, from_ledger):
-    """Build the ``evaluate --json`` document from per-arm scores."""
+              n_unlabelled_field, confirm_ignored, from_ledger, val_shares_shortcut=(), candidates=None):
+    """Build the ``evaluate --json`` document from per-arm scores; `BEST_RULE` (via `decide`) ranks them."""
     warnings = []
     model = scoring.describe()
     p_holm = stats.holm([r["scores"]["val"]["p_value"] for r in results])
@@ -553,15 +526,18 @@ def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, 
         entry["field"] = _short(result["scores"]["field"]) if "field" in base_scores else None
         entries.append(entry)
 
+    decision = decide(entries, val_shares_shortcut=val_shares_shortcut,
+                      n_field=base_scores["field"]["n_images"] if "field" in base_scores else None,
+                      candidates=candidates)
     confirm = None
     if "confirm" in base_scores:
-        best = max(range(len(results)), key=lambda i: (results[i]["scores"]["val"]["gain"], -i))
-        chosen = _short(results[best]["scores"]["confirm"])
-        entries[best]["confirm"] = chosen
+        top = [entry["name"] for entry in entries].index(decision.ranking[0])
+        chosen = _short(results[top]["scores"]["confirm"])
+        entries[top]["confirm"] = chosen
         confirm = {"source": confirm_source, "n_images": base_scores["confirm"]["n_images"],
-                   "recipe": results[best]["name"], "baseline": _short(base_scores["confirm"]),
+                   "recipe": results[top]["name"], "baseline": _short(base_scores["confirm"]),
                    "recipe_scores": chosen,
-                   "note": "the recipe with the highest validation gain and the baseline, scored once"}
+                   "note": "the top-ranked recipe (the recommendation rule) and the baseline, scored once"}
     elif len(results) > MANY_RECIPES_WARNING_LIMIT:
         warnings.append(
             f"{len(results)} recipes compared without a confirmation split: choosing among many "
@@ -596,13 +572,18 @@ def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, 
     baseline["confusion"] = base_val.get("confusion")
     if model["note"]:
         warnings.append(model["note"][0].upper() + model["note"][1:] + ".")
-    best = best_recipe(entries)
+    if decision.decided_on == "val" and decision.val_shares_shortcut:
+        warnings.append(decision.note)
     return {
         "model": model,
         "baseline": baseline,
         "recipes": entries,
-        "best": None if best is None else best["name"],
+        "best": decision.best,
         "best_rule": BEST_RULE,
+        "ranking": list(decision.ranking),
+        "decided_on": decision.decided_on,
+        "val_shares_shortcut": list(decision.val_shares_shortcut),
+        "decision_note": decision.note,
         "scored_on": scored_on,
         "accuracy_interval": "95% Wilson interval over validation images (mean accuracy of the repeats)",
         "gain_test": GAIN_RULE,
@@ -688,6 +669,55 @@ def _scores(dataset, recipes, hashes, scoring, ledger_path, ledger_keys, splits,
     return base_scores, stored, missing, cache.damaged
 
 
+def _factor_chunk(records_and_size):
+    """Nuisance factors of original images (no recipe is in reach here)."""
+    records, size = records_and_size
+    with _single_thread():
+        return measure_factors(load_images(records, size))
+
+
+def _shared_shortcuts(dataset, splits, size, seed, workers, quiet, cache_dir):
+    """Flagged shortcut factors of the training set that the validation split carries too.
+
+    The shortcut audit (`augplan.measure.shortcuts`, the rule ``coverage``
+    follows) on the original train, validation and labelled field images; a
+    factor the field sample confirms as a cue is not flagged. The answer
+    depends only on those images, ``size`` and ``seed``, so it is kept in the
+    feature cache folder (one row of flags, keyed by all of them and the
+    audit's code) and a rerun reads it back.
+
+    Returns
+    -------
+    (list of str, list of Path)
+        The factors, and damaged cache entries that were recomputed.
+    """
+    sets = {"original": dataset.split("train"), "val": splits["val"]}
+    if "field" in splits:
+        sets["field"] = splits["field"]
+    names = list(FACTORS)
+    key_text = json.dumps([[[name, r.sha256, r.label] for name, records in sets.items() for r in records],
+                           size, seed, len(dataset.classes), _file_digest(_factors_module, _shortcuts_module)])
+    key = hashlib.sha256(key_text.encode("utf-8")).hexdigest()
+    root = Path(dataset.root).resolve()
+    cache_root = None if cache_dir is False else Path(cache_dir) if cache_dir is not None else default_cache_dir(root)
+    if cache_root is not None:
+        ensure_outside_data(cache_root, root, what="feature cache")
+    cache = FeatureCache(cache_root, "shortcut-audit", row_length=len(names))
+    row = cache.get(key)
+    if row is None:
+        audit = {}
+        for name, records in sets.items():
+            chunks = [records[i:i + _CHUNK] for i in range(0, len(records), _CHUNK)]
+            parts = parallel_map(_factor_chunk, [(chunk, size) for chunk in chunks], workers=workers,
+                                 desc=f"factors of {name} images", quiet=quiet)
+            values = {factor: np.concatenate([part[factor] for part in parts]) for factor in names}
+            audit[name] = (values, np.array([r.label for r in records]), None)
+        shared = set(val_shared_shortcuts(audit, len(dataset.classes), seed=seed))
+        row = np.array([float(name in shared) for name in names], dtype=np.float32)
+        cache.put(key, row)
+    return [name for name, flag in zip(names, row) if flag > 0.5], cache.damaged
+
+
 def _run_summary(document):
     """What the ledger keeps of one comparison for ``augplan history RUN``."""
     keys = ("name", "recipe_hash", "accuracy", "accuracy_ci", "gain", "gain_ci", "p_value", "p_holm",
@@ -699,7 +729,8 @@ def _run_summary(document):
 
 
 def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0, workers=1,
-                     quiet=True, ledger_path=None, cache_dir=None, confirm_fraction=None):
+                     quiet=True, ledger_path=None, cache_dir=None, confirm_fraction=None,
+                     val_shares_shortcut=None, candidates=None):
     """Score recipes by their accuracy gain over a no-augmentation baseline.
 
     Parameters
@@ -735,11 +766,22 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
     confirm_fraction : float, optional
         Without ``DATA/test/``, the share of each validation class set aside
         (stratified, seeded) as a confirmation split.
+    val_shares_shortcut : sequence of str, optional
+        Flagged shortcut factors the validation split shares, when the
+        caller has audited them already (``vet`` passes coverage's); default:
+        audited here on the original train, validation and field images.
+    candidates : collection of str, optional
+        Names of the recipes that may be recommended (``vet`` passes its
+        vetted recipes); default every recipe.
 
     Returns
     -------
-    dict
+    EvaluateResult
         The ``evaluate --json`` document (docs/architecture.md, "Results").
+        ``ranking``, ``best``, ``decided_on`` and ``decision_note`` follow
+        `BEST_RULE` (`augplan.evaluate.ranking`): a labelled field sample is
+        the primary evidence; without one, a shortcut that validation shares
+        is named and a field sample asked for.
 
     Raises
     ------
@@ -777,8 +819,13 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
                                                     splits, dict(repeats=repeats, size=size, seed=seed,
                                                                  workers=workers, quiet=quiet, cache_dir=cache_dir))
     results = [stored[h] for h in hashes]
+    if val_shares_shortcut is None:
+        val_shares_shortcut, damaged_audit = _shared_shortcuts(dataset, splits, size, seed, workers, quiet,
+                                                               cache_dir)
+        damaged = list(damaged) + damaged_audit
     document = _assemble(dataset, base_scores, results, n_transforms=[len(r.transforms) for r in recipes],
-                         from_ledger=not missing, **assemble)
+                         from_ledger=not missing, val_shares_shortcut=val_shares_shortcut,
+                         candidates=candidates, **assemble)
     if damaged:
         document["warnings"].append(f"{len(damaged)} damaged feature-cache entries (for example "
                                     f"{damaged[0]}) were recomputed and rewritten.")
@@ -786,9 +833,10 @@ def evaluate_recipes(dataset, recipes, *, repeats=5, model=None, size=64, seed=0
                                       if h not in {m for _, m in missing}]
 
     if ledger_path is not None:
-        best = best_recipe(document["recipes"])
+        best = next((row for row in document["recipes"] if row["name"] == document["best"]), None)
         _ledger.record_run(ledger_path, data_root=dataset.root,
                            recipe_names=[r.name for r in recipes], best_recipe=best and best["name"],
-                           best_gain=best and best["gain"], from_ledger=document["from_ledger"],
+                           best_gain=best and (best["field"]["gain"] if document["decided_on"] == "field"
+                                               else best["gain"]), from_ledger=document["from_ledger"],
                            details=_run_summary(document), **ledger_keys)
     return EvaluateResult.from_json(document)

@@ -64,6 +64,8 @@ p, li { max-width: 64rem; }
 .verdict { font-size: 1.22rem; line-height: 1.32; font-weight: 600; margin: .2rem 0 .35rem;
            padding: .55rem .8rem; border-left: 6px solid var(--ink); background: var(--soft); }
 .source { font-size: .9rem; color: var(--muted); margin: 0 0 .5rem; }
+.decision { font-size: 1rem; margin: 0 0 .4rem; padding: .3rem .8rem; border-left: 6px solid var(--rule); }
+.decision.shortcut { border-left-color: #8a5a00; background: #fff6e0; font-weight: 600; }
 .cols { display: grid; grid-template-columns: 1fr 1fr; gap: .6rem 1.2rem; }
 .box { border: 1px solid var(--rule); padding: .45rem .8rem; }
 .signoff { border: 2px solid var(--ink); }
@@ -378,7 +380,9 @@ def _swaps_text(swaps, limit=2):
         return _DASH
     parts = []
     for swap in swaps[:limit]:
-        n = f", {swap['n']} images moved" if _is_number(swap.get("n")) else ""
+        # The count that moved, of the class's images checked (not the class size alone).
+        n = (f", {swap['moved']} of {swap['n']} images moved" if _is_number(swap.get("moved"))
+             and _is_number(swap.get("n")) else "")
         parts.append(f"<span class=\"swap\">{_e(swap.get('from', '?'))} \u2192 {_e(swap.get('to', '?'))} "
                      f"{_percent(swap.get('rate'))}{n}</span>")
     more = f"<br><span class=\"note\">and {len(swaps) - limit} more</span>" if len(swaps) > limit else ""
@@ -898,8 +902,9 @@ def _change_phrase(change):
     if action == "scope":
         return f"{op} scoped" + (f" ({detail.replace('applied only to ', 'only ')})" if detail else "")
     if action == "clip":
-        limit = detail[detail.index("["):] if "[" in detail else ""
-        return f"{op} clipped to {limit}" if limit else f"{op} clipped"
+        # The range vet recorded (typed, not parsed back from the detail text).
+        pair = _pair(change.get("clipped_to"))
+        return f"{op} clipped to {range_text(pair)}" if pair else f"{op} clipped"
     if action == "remove":
         reason = detail.rpartition("; ")[2] if "; " in detail else detail
         return f"{op} removed" + (f" ({reason.replace('removed: ', '')})" if reason else "")
@@ -954,8 +959,9 @@ def _evidence_source(evidence):
     """Which model and which images the recommendation rests on, in one line."""
     evaluation = evidence.get("evaluation") or {}
     model = evaluation.get("model")
-    model_text = (model.get("name") if isinstance(model, dict) else model) or "the linear proxy model"
-    recommended = _recommended_row(evidence) or {}
+    model_text = model_phrase((model.get("name") if isinstance(model, dict) else model) or "linear")
+    # The recommended row, else the top-ranked one: the field sample is named whether or not one is recommended.
+    recommended = _recommended_row(evidence) or next(iter(_ranked_rows(evidence)), None) or {}
     parts = []
     field = recommended.get("field") or {}
     if _is_number(field.get("gain")):
@@ -968,8 +974,8 @@ def _evidence_source(evidence):
     parts.append(scored_on + (f" ({n_val} images)" if _is_number(n_val) else ""))
     repeats = evaluation.get("repeats")
     tail = f", {repeats} training repeat{'s' if repeats != 1 else ''}" if _is_number(repeats) else ""
-    return (f"Evidence: accuracy gains of {_e(model_text)} trained with each recipe against the same model "
-            f"trained without augmentation, scored on {_e(' and '.join(parts))}{_e(tail)}; "
+    return (f"Evidence: the accuracy gain of {_e(model_text)}, trained with each recipe, over the "
+            f"same model trained without augmentation, scored on {_e(' and '.join(parts))}{_e(tail)}; "
             "validation images are never augmented.")
 
 
@@ -978,6 +984,11 @@ def _summary(evidence, recipes):
     cautions = [c for c in (evidence.get("cautions") or []) if c]
     out = ['<section id="summary" class="summary">',
            f'<p class="verdict" id="verdict">{_e(verdict)}</p>']
+    note = (evidence.get("evaluation") or {}).get("decision_note")
+    if note:
+        # Which evidence decides and what validation can show: beside the recommendation, never collapsed.
+        shared = (evidence.get("evaluation") or {}).get("val_shares_shortcut")
+        out.append(f'<p class="decision{" shortcut" if shared else ""}" id="decision">{_e(note)}</p>')
     if evidence.get("evaluation"):
         out.append(f'<p class="source">{_evidence_source(evidence)}</p>')
     out.append('<div class="cols">' + _changes_list(recipes) + _signoff_list(recipes) + "</div>")
@@ -1001,18 +1012,18 @@ def _recommended_row(evidence):
 
 
 def _ranked_rows(evidence):
-    """Scored rows in the order of the recommendation rule (``evidence["ranking"]``, else by gain)."""
-    scored = [r for r in ((evidence.get("evaluation") or {}).get("recipes") or []) if isinstance(r, dict)]
-    order = evidence.get("ranking")
-    if isinstance(order, list) and order:
-        position = {name: i for i, name in enumerate(order)}
-        return sorted(scored, key=lambda r: position.get(r.get("name"), len(position)))
-    return sorted(scored, key=lambda r: -(r["gain"] if _is_number(r.get("gain")) else -math.inf))
+    """Scored rows in the order of the recommendation rule (the evaluator's ``ranking``); never re-sorted here."""
+    evaluation = evidence.get("evaluation") or {}
+    scored = [r for r in (evaluation.get("recipes") or []) if isinstance(r, dict)]
+    order = evaluation.get("ranking") or evidence.get("ranking") or []
+    position = {name: i for i, name in enumerate(order)}
+    return sorted(scored, key=lambda r: position.get(r.get("name"), len(position)))
 
 
 def _per_class_section(evidence):
     evaluation = evidence.get("evaluation") or {}
-    recommended = _recommended_row(evidence)
+    # The recommended recipe, or (when none is recommended) the top-ranked one, named: never "recommended".
+    recommended = _recommended_row(evidence) or next(iter(_ranked_rows(evidence)), None)
     baseline = (evaluation.get("baseline") or {}).get("per_class_recall")
     data = evidence.get("data") or {}
     classes = list(data.get("classes") or (baseline or {}).keys())
@@ -1029,7 +1040,7 @@ def _per_class_section(evidence):
         rows.append([_e(label), _number(n.get("train")), _number(n.get("val")), _number(n.get("field")),
                      _percent(base, 1), _percent(new, 1), change])
     head = ["class", "train images", "validation images", "field images", "recall, no augmentation",
-            f"recall, {_e(name) if name else 'recommended recipe'}", "change, points"]
+            f"recall, {_e(name) if name else 'recipe'}", "change, points"]
     return ('<section id="per-class"><h2>Per class, on validation</h2>'
             '<p class="note">Recall is the share of a class\'s validation images predicted as that class, '
             "averaged over the training repeats.</p>"

@@ -189,7 +189,7 @@ def leaderboard_table(result):
     # interval that matters), so the verdict fits 80 columns.
     rows = [[r["name"], f"{r['accuracy']:.2f}", f"{r['gain']:+.2f} {_signed_interval(*r['gain_ci'])}",
              f"{r['p_holm']:.2g}", _verdict_text(r, model["name"])]
-            for r in sorted(result["recipes"], key=lambda r: -r["gain"])]
+            for r in _ranked(result)]
     head = wrap(f"scored with {model_phrase(model['name'])} on {result['scored_on']} "
                 f"({base.get('n_images', '?')} original images), {result['repeats']} repeats per recipe; "
                 f"no augmentation: accuracy {base['accuracy']:.2f} {format_interval(*base['accuracy_ci'])}")
@@ -198,8 +198,16 @@ def leaderboard_table(result):
     parts += _source_table(result, "field")
     if "best" in result:
         parts.append(f"best: {result['best']}" if result["best"] else
-                     f"best: none (no recipe beat no augmentation, by {model_phrase(model['name'])})")
+                     f"best: none (no recipe clearly beat no augmentation, by {model_phrase(model['name'])})")
+    if result.get("decision_note"):
+        parts.append(wrap(result["decision_note"]))
     return "\n".join(parts)
+
+
+def _ranked(result):
+    """Recipe rows in the order of the result's ``ranking`` (the recommendation rule); never re-sorted here."""
+    position = {name: i for i, name in enumerate(result.get("ranking") or ())}
+    return sorted(result["recipes"], key=lambda r: position.get(r["name"], len(position)))
 
 
 def _verdict_text(row, model_name):

@@ -21,7 +21,7 @@ from augplan.coverage.coverage import analyse_coverage
 from augplan.data.dataset import find_duplicates, fingerprint
 from augplan.errors import BadInputError
 from augplan.workspace import ensure_outside_data
-from augplan.evaluate.evaluate import BEST_RULE, best_recipe, evaluate_recipes, rank_key
+from augplan.evaluate.evaluate import BEST_RULE, evaluate_recipes
 from augplan.evaluate.models import model_phrase, scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
@@ -131,33 +131,46 @@ def _collect_figures(entries):
 
 
 def _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check):
-    """Undo relabelled or scoped steps whose re-check is not safe; update ``changes``.
+    """Undo relabelled or scoped steps whose re-check is not safe.
 
     A rejected rewrite falls back to the original step clipped to its safe
     limit when the first check measured one, and is removed otherwise.
+
+    Returns
+    -------
+    (Recipe, list of VettingChange)
+        The vetted recipe and the changes, the rejected rewrites' replaced.
     """
     from augplan.results import range_text
-    from augplan.vet.vetted_file import _clip_to_limit
+    from augplan.vet.vetted_file import VettingChange, _clip_to_limit, clip_change
 
-    kept = [change for change in changes if change["action"] != "remove"]
     verdicts = {t["index"]: t["verdict"] for t in rechecked["transforms"]}
     entries = {t["index"]: t for t in check["transforms"]}
-    steps = []
-    for position, (change, step) in enumerate(zip(kept, vetted.transforms)):
+    steps, updated, position = [], [], 0
+    kept_steps = iter(vetted.transforms)
+    for change in changes:
+        if change["action"] == "remove":
+            updated.append(change)
+            continue
+        step = next(kept_steps)
         if change["action"] in ("relabel", "scope") and verdicts[position] != "safe":
             original, entry = recipe.transforms[change["index"]], entries[change["index"]]
             clipped = _clip_to_limit(original, entry)
             if clipped is not None and clipped != original:
-                change["detail"] += (f"; re-checked as rewritten it is still {verdicts[position]}: "
-                                     f"clipped to the safe limit {range_text(entry['safe_limit'])} instead")
-                change["action"] = "clip"
+                detail = (f"{change['detail']}; re-checked as rewritten it is still {verdicts[position]}: "
+                          f"clipped to the safe limit {range_text(entry['safe_limit'])} instead")
+                updated.append(clip_change(change["index"], original, clipped, change["verdict"],
+                                           entry["safe_limit"], detail))
                 steps.append(clipped)
-                continue
-            change["detail"] += f"; removed: re-checked as rewritten, it is still {verdicts[position]}"
-            change["action"] = "remove"
-            continue
-        steps.append(step)
-    return dataclasses.replace(vetted, transforms=tuple(steps))
+            else:
+                updated.append(VettingChange(change["index"], change["op"], change["verdict"], "remove",
+                                             f"{change['detail']}; removed: re-checked as rewritten, it is "
+                                             f"still {verdicts[position]}"))
+        else:
+            updated.append(change)
+            steps.append(step)
+        position += 1
+    return dataclasses.replace(vetted, transforms=tuple(steps)), updated
 
 
 def _signoff_items(changes):
@@ -209,37 +222,37 @@ def _draws_sheet(dataset, recipe, path, *, seed, number):
 
 
 def _gain_text(block):
+    """A gain and its 95% interval in percentage points, the report's one unit."""
     low, high = block["gain_ci"]
-    return f"{block['gain']:+.2f} [95% CI {low:+.2f}, {high:+.2f}]"
+    return f"{100 * block['gain']:+.1f} points [95% CI {100 * low:+.1f}, {100 * high:+.1f}]"
 
 
 def _verdict_sentence(recipe_entries, evaluation, best, top):
     """The report's first line: what to use, how much it gains, what augplan changed.
 
-    ``best`` is the score row `BEST_RULE` picks (None when no recipe beat no
-    augmentation); ``top`` is the highest-ranked vetted row, whose figures
-    are quoted either way.
+    ``best`` is the score row `BEST_RULE` recommends (None when no recipe
+    clearly beat no augmentation); ``top`` is the highest-ranked vetted row,
+    whose figures are quoted either way. The evidence named first is the
+    evaluator's primary evidence (``decided_on``). One voice: without a
+    recommendation no recipe is called recommended or "used".
     """
     model = evaluation["model"]
     phrase = model_phrase(model["name"])
     row = best if best is not None else top
-    field = row.get("field") or {}
-    has_field = field.get("gain") is not None
+    on_field = evaluation.get("decided_on") == "field" and (row.get("field") or {}).get("gain") is not None
     if best is None:
-        where = "validation or the labelled field sample" if has_field else "validation"
-        lead = f"No recipe beat no augmentation on {where}, scored with {phrase}"
+        where = "the labelled field sample" if on_field else "validation"
+        lead = f"No recipe clearly beat no augmentation on {where}, scored with {phrase}"
         if model["name"] == "linear":
             lead += (" (whose gains are biased against augmentation: this is not evidence of harm; its order "
                      f"puts {top['name']} first; score with --model cnn before deciding)")
         else:
             lead += f"; the highest-ranked is {top['name']}"
-    elif best["gain_ci"][0] > 0 or (has_field and field["gain_ci"][0] > 0):
-        lead = f"Use {best['name']} (scored with {phrase})"
+        lead += "; the vetted recipes are exported, none recommended"
     else:
-        lead = (f"No recipe shows a clear gain; {best['name']} gains most, scored with {phrase}, "
-                "and its interval spans zero")
-    scores = (f"gain over no augmentation {_gain_text(field)} on the labelled field sample and "
-              f"{_gain_text(row)} on validation" if has_field
+        lead = f"Use {best['name']} (scored with {phrase})"
+    scores = (f"gain over no augmentation {_gain_text(row['field'])} on the labelled field sample, which "
+              f"decides, and {_gain_text(row)} on validation" if on_field
               else f"validation gain over no augmentation {_gain_text(row)}")
     accuracy = evaluation["baseline"].get("accuracy")
     if accuracy is not None and accuracy >= 0.99:
@@ -312,16 +325,20 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
 
         _stage(quiet, "scoring every recipe and its vetted form against no augmentation")
         to_score = list(recipes) + [v for v, e in zip(vetted_recipes, entries) if not e["vetted"]["unchanged"]]
+        # The shortcut audit of the original images is the same in every recipe's coverage.
         evaluation = evaluate_recipes(dataset, to_score, repeats=repeats, seed=seed, workers=workers,
-                                      quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir, model=scoring)
+                                      quiet=quiet, ledger_path=ledger_path, cache_dir=cache_dir, model=scoring,
+                                      val_shares_shortcut=entries[0]["coverage"]["val_shares_shortcut"],
+                                      candidates={v.name for v in vetted_recipes})
         scores = {row["name"]: row for row in evaluation["recipes"]}
         for entry, vetted in zip(entries, vetted_recipes):
             entry["vetted"]["score"] = scores[vetted.name]
-        ranking = [row["name"] for row in sorted(evaluation["recipes"], key=rank_key, reverse=True)]
+        # The ranking and the recommendation are the evaluator's (BEST_RULE); nothing is re-sorted here.
+        ranking = evaluation["ranking"]
         by_vetted_name = {entry["vetted"]["name"]: entry for entry in entries}
         top_entry = next(by_vetted_name[name] for name in ranking if name in by_vetted_name)
-        best_row = best_recipe([row for row in evaluation["recipes"] if row["name"] in by_vetted_name])
-        best_entry = None if best_row is None else by_vetted_name[best_row["name"]]
+        best_entry = None if evaluation["best"] is None else by_vetted_name[evaluation["best"]]
+        best_row = None if best_entry is None else scores[evaluation["best"]]
 
         header = {"augplan_version": __version__, "created": creation_date(), "data_fingerprint": fingerprint(dataset)}
         documents = {f"vetted-{entry['name']}.yaml": vetted_text(vetted, _vetted_evidence(entry, vetted, evaluation,
@@ -344,6 +361,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
                      evidence=str(out_dir / "evidence.json"),
                      unchanged=all(entry["vetted"]["unchanged"] for entry in entries),
                      best=None if best_entry is None else best_entry["name"], model=evaluation["model"]["name"],
+                     decision_note=evaluation["decision_note"],
                      changes=[{"recipe": entry["name"], "vetted": entry["vetted"]["name"],
                                "unchanged": entry["vetted"]["unchanged"], "transforms": entry["vetted"]["changes"]}
                               for entry in entries],
@@ -367,7 +385,8 @@ def _vet_one(dataset, recipe, scratch, number, approve, settings):
         # A rewrite was suggested by the checker but not itself measured:
         # measure it, and drop a rewritten step that is still not safe.
         rechecked = check_recipe(dataset, vetted, **settings).to_json()
-        vetted = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
+        vetted, changes = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
+    changes = [change.to_json() for change in changes]
     unchanged = vetted.transforms == recipe.transforms
     signoff = _signoff_items(changes)
     if not unchanged:
@@ -403,6 +422,10 @@ def _vetted_evidence(entry, vetted, evaluation, header, seed, classes):
     if field.get("gain") is not None:
         evidence["field"] = {"gain": field["gain"], "gain_ci": field["gain_ci"],
                              "n_images": field.get("n_images")}
+    # Which evidence decided (BEST_RULE) and what validation can show, as every output of vet says it.
+    evidence["decided_on"] = evaluation["decided_on"]
+    if evaluation["val_shares_shortcut"]:
+        evidence["validation_note"] = evaluation["decision_note"]
     evidence["classes"] = list(classes)
     signoff = [f"{item['index']} {item['op']}: {item['detail']}" for item in entry["vetted"]["signoff"]]
     if signoff:

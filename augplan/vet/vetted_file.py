@@ -9,6 +9,7 @@ edited one.
 
 import dataclasses
 import json
+from dataclasses import dataclass
 import math
 import os
 import time
@@ -22,7 +23,7 @@ from augplan.errors import BadInputError
 from augplan.results import VerifyResult, range_text
 from augplan.recipe.parse import RecipeError, canonical_json, read_recipe_document, recipe_to_dict, vetted_checksum
 
-__all__ = ["vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
+__all__ = ["VettingChange", "vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
            "verify_vetted", "creation_date"]
 
 
@@ -31,6 +32,54 @@ def creation_date():
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
     seconds = int(epoch) if epoch and epoch.isdigit() else time.time()
     return time.strftime("%Y-%m-%d", time.gmtime(seconds))
+
+
+@dataclass(frozen=True)
+class VettingChange:
+    """What vetting did to one transform of a recipe.
+
+    Attributes
+    ----------
+    index : int
+        The transform's position in the recipe as written.
+    op : str
+    verdict : {'safe', 'unverified', 'breaks'}
+        The label-safety verdict it was vetted on.
+    action : {'keep', 'relabel', 'scope', 'clip', 'remove'}
+    detail : str
+        The reason, in words.
+    clipped_to : tuple of float or None
+        For ``clip``, the range the step was clipped to (its magnitude field).
+
+    ``change["action"]`` reads a field as in the JSON document (`to_json`).
+    """
+
+    index: int
+    op: str
+    verdict: str
+    action: str
+    detail: str = ""
+    clipped_to: tuple | None = None
+
+    def to_json(self):
+        """``{"index", "op", "verdict", "action", "detail"}``, plus ``clipped_to`` for a clip."""
+        document = {"index": int(self.index), "op": self.op, "verdict": self.verdict, "action": self.action,
+                    "detail": self.detail}
+        if self.clipped_to is not None:
+            document["clipped_to"] = [float(v) for v in self.clipped_to]
+        return document
+
+    def __getitem__(self, key):
+        return self.to_json()[key]
+
+
+def clip_change(index, original, clipped, verdict, safe_limit, detail=None):
+    """The `VettingChange` of a step clipped to its safe limit (``clipped`` is the clipped step)."""
+    from augplan.augment.transforms import OPS
+
+    return VettingChange(index, original.op, verdict, "clip",
+                         detail or f"clipped to the safe limit {range_text(safe_limit)}",
+                         clipped_to=tuple(clipped.params[OPS[original.op].magnitude]))
 
 
 def _intersect(range_pair, limit):
@@ -83,9 +132,9 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
     -------
     vetted : augplan.recipe.Recipe
         Same name, seed, copies and fill; the vetted transforms.
-    changes : list of dict
-        ``{"index", "op", "verdict", "action", "detail"}`` for every transform,
-        ``action`` one of keep, relabel, scope, clip, remove.
+    changes : list of VettingChange
+        One for every transform, ``action`` one of keep, relabel, scope,
+        clip, remove; a clip carries the range it was clipped to.
     """
     approve = set(approve)
     entries = {entry["index"]: entry for entry in check_result["transforms"]}
@@ -98,7 +147,7 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
         entry = entries[index]
         verdict = entry["verdict"]
         suggestion = entry.get("suggestion") or {}
-        action, new_step, detail = "keep", step, ""
+        action, new_step, detail, clipped_to = "keep", step, "", None
         if verdict == "breaks" and "relabel" in suggestion and step.relabel is None:
             relabel = suggestion["relabel"]
             pairs = ", ".join(f"{a} -> {b}" for a, b in sorted(relabel.items()))
@@ -119,18 +168,16 @@ def vet_transforms(recipe, check_result, *, approve=(), coverage_result=None):
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {range_text(entry['safe_limit'])}"
             else:
                 action, new_step, detail = "remove", None, f"removed: {verdict}"
         else:
             clipped = _clip_to_limit(step, entry)
             if clipped is not None and clipped != step:
                 action, new_step = "clip", clipped
-                detail = f"clipped to the safe limit {range_text(entry['safe_limit'])}"
         if new_step is not None:
             kept.append(new_step)
-        changes.append({"index": index, "op": step.op, "verdict": verdict, "action": action,
-                        "detail": detail})
+        changes.append(clip_change(index, step, new_step, verdict, entry["safe_limit"]) if action == "clip"
+                       else VettingChange(index, step.op, verdict, action, detail))
     vetted = dataclasses.replace(recipe, transforms=tuple(kept), source=None)
     return vetted, changes
 
