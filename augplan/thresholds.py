@@ -22,6 +22,9 @@ __all__ = [
     "EQUIVALENCE_MARGIN",
     "CONFIRM_CONFIDENCE",
     "TURN_DEGREES",
+    "SWAP_WITNESS_MARGIN",
+    "TYPICAL_PERCENTILE",
+    "RELABEL_TYPICAL_SHARE",
     "ONE_VS_REST_THRESHOLD",
     "LINK_BROKEN_SHARE",
     "COVERAGE_NEIGHBOURS",
@@ -109,6 +112,39 @@ CONFIRM_CONFIDENCE = 0.90
 # A rotation by a fixed angle at least this large is a turn, which may swap
 # classes as a whole (common practice, no source).
 TURN_DEGREES = 45.0
+# The screen witnesses a swap A -> B when the lower Wilson 95% bound of the
+# share of A's transformed images that the out-of-fold proxy calls B exceeds
+# the share of A's held-out originals it calls B by more than this: a real
+# share of the class, never one image (one image of 60 has a lower bound of
+# 0.003; 24 images a class need 6 of them). Chosen here, no source; the same
+# ten points as PAIR_MARGIN. Calibration (benchmarks/calibrate_swaps.py): the
+# true partners' lower bounds are 0.55-0.86 on printed letters (mirror and
+# half turn, three renderings) and 0.16 / 0.91 for a digit 9 -> 6 / 6 -> 9
+# turned half a turn (scikit-learn digits, 60 a class, dark ink); the swaps
+# one to three images had witnessed (lower bounds 0.003-0.03) no longer count.
+SWAP_WITNESS_MARGIN = 0.10
+# A transformed image of A is *typical* of B when its distance to B's
+# originals (the check's region distance d_B) is at most this percentile of
+# the same distance for B's own held-out originals, so 75% of B's own are
+# typical by construction (common practice, no source: the upper quartile).
+TYPICAL_PERCENTILE = 75.0
+# A relabel A -> B is offered only when most of A's transformed images are
+# typical of B, for every step of the swap (both directions of a pair): the
+# lower Wilson 95% bound of the typical share at least this. "Most" is more
+# than half; the bound, not the share, because a class of 24 images moves a
+# share by 0.04 an image. Chosen here, no source. Calibration
+# (benchmarks/calibrate_swaps.py, linear proxy features, the worse direction
+# of each pair): pairs that are not each other's mirror or turn reach at most
+# 0.47 on printed letters (a / e turned half a turn; 24 a class, three
+# renderings), 0.00 for an upside-down dress / trouser (Fashion-MNIST subset)
+# and a turned handwritten 6 / 9 (scikit-learn digits: no typical 9, so no
+# relabel); true turn partners of printed letters reach 0.39-0.64, so a
+# relabel is offered for 8 of their 12 pair-renderings and scoped out
+# otherwise (never wrong, sometimes withheld), and mirror partners 0.31-0.47
+# (never offered). Mirrored arrows pass (0.57;
+# tests/test_invariance.py); a 120 degree hue turn of drawn discs falls
+# short at one step (0.45), so its classes are scoped out.
+RELABEL_TYPICAL_SHARE = 0.5
 
 # --- shortcut audit (augplan coverage, augplan check)
 # With more than two classes, a factor that tells one class from all the

@@ -38,13 +38,28 @@ fold. `augplan.check.confirm` compares them per image with sign-flip test
 intervals over images. A swap ``A -> B`` breaks when, for the replaced
 model, the confusion ``B -> A`` on originals rises beyond its margin, with
 its interval clear of zero and beyond the pair's own baseline confusion,
-*and* the screen saw A's transformed images land in B (two witnesses: a
-proxy that merely fails on a look it was never trained on cannot call a
-label changed). It is safe when, for the originals-plus-copies model, no
-class's recall falls and no confusion rises by as much as the equivalence
-margin (upper bounds); anything else is unverified. A class with fewer than
-``MIN_EVIDENCE`` images is "too few images to judge". When the feature
-model is weak nothing is called safe.
+*and* the screen witnessed A's transformed images taking B's look (two
+witnesses: a proxy that merely fails on a look it was never trained on
+cannot call a label changed). The screen's witness is a real share
+(`witness_holds`): the lower Wilson 95% bound of the share of A's
+transformed images that the out-of-fold proxy calls B exceeds the share
+of A's held-out originals it calls B by ``SWAP_WITNESS_MARGIN``, so one
+moved image of 60 never names a swap. A transform is safe when, for the
+originals-plus-copies model, no class's recall falls and no confusion rises
+by as much as the equivalence margin (upper bounds); anything else is
+unverified. A class with fewer than ``MIN_EVIDENCE`` images is "too few
+images to judge". When the feature model is weak nothing is called safe.
+
+A relabel writes labels for every draw, so it is held to a higher bar:
+it is offered only for a mirror or a fixed turn (of the image or of hue)
+whose confirmed swaps close a cycle and only when, at every step
+``A -> B``, most of A's transformed images are *typical* of B
+(`typical_share`: no farther from B's originals than the
+``TYPICAL_PERCENTILE``-th percentile of B's own held-out originals; the
+lower Wilson 95% bound of their share at least ``RELABEL_TYPICAL_SHARE``),
+so in both directions of a pair. A turned letter that lands nearest
+another class without being one falls short, and its class is scoped out
+instead.
 
 The safe limit applies the confirmation rule to ranges nested around the
 identity magnitude (the grid values within one, two, ... steps of it) and
@@ -78,8 +93,8 @@ from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, RECALL_MARGIN, cla
                              compare_predictions, pair_breaks)
 from augplan.errors import BadInputError
 from augplan.thresholds import (MAX_FOLDS, MIN_IMAGES_PER_CLASS, PCA_VARIANCE_KEPT, REGION_NEIGHBOURS,
-                                REGION_REFERENCE_LIMIT,
-                                REGION_PERCENTILE, SCREEN_MARGIN, TURN_DEGREES)
+                                REGION_PERCENTILE, REGION_REFERENCE_LIMIT, RELABEL_TYPICAL_SHARE, SCREEN_MARGIN,
+                                SWAP_WITNESS_MARGIN, TURN_DEGREES, TYPICAL_PERCENTILE)
 from augplan.parallel import parallel_map, single_threaded
 from augplan.results import CheckResult
 
@@ -90,11 +105,12 @@ __all__ = [
     "locate",
     "screen_clears",
     "nested_ranges",
+    "typical_share",
+    "witness_holds",
 ]
 
 # The numbers of the rule live in augplan.thresholds, with their sources.
 NEIGHBOURS = REGION_NEIGHBOURS
-TYPICAL_PERCENTILE = REGION_PERCENTILE
 MARGIN = SCREEN_MARGIN
 VARIANCE_KEPT = PCA_VARIANCE_KEPT
 MIN_PER_CLASS = MIN_IMAGES_PER_CLASS
@@ -119,10 +135,17 @@ DECISION_RULE = (
     f"rises by more than {PAIR_MARGIN:.2f} with its sign-flip test interval over images above "
     "zero and by more than "
     "the pair's own baseline confusion (a label change is specific; a capacity loss is spread "
-    "over pairs the model already confuses), and the screen saw A's transformed images land in "
-    "B; it is safe when, for the originals-plus-copies model, the upper bound of every class's "
-    f"recall fall and of every confusion rise are below {RECALL_MARGIN:.2f} (an equivalence "
-    "test); otherwise it is unverified. Bounds are one-sided "
+    "over pairs the model already confuses), and the screen witnessed it: the lower Wilson 95% "
+    "bound of the share of A's transformed images that the proxy calls B exceeds the share of A's "
+    f"held-out originals it calls B by more than {SWAP_WITNESS_MARGIN:.2f} (a real share, never "
+    "one image). A transform is safe when, for the originals-plus-copies model, the upper bound of every "
+    f"class's recall fall and of every confusion rise are below {RECALL_MARGIN:.2f} (an "
+    "equivalence test); otherwise it is unverified. A relabel is offered only for a mirror or a "
+    "fixed turn (of the image or of hue) whose confirmed swaps close a cycle and, at every step, "
+    "most of A's transformed images are typical of B (no farther from B's originals than the "
+    f"{TYPICAL_PERCENTILE:.0f}th percentile of B's own held-out originals; the lower Wilson 95% "
+    f"bound of their share at least {RELABEL_TYPICAL_SHARE:.2f}), in both directions of a pair; "
+    "otherwise the class is scoped out. Bounds are one-sided "
     f"95% bounds. A class with fewer than {MIN_EVIDENCE} "
     "images is too few images to judge, never breaks; nothing is safe when the proxy is weak. "
     "A lighting move into a class that lighting alone singles out in the training data, while "
@@ -159,6 +182,65 @@ def screen_clears(moved, left, n, baseline_change, baseline_leave, margin=MARGIN
         return False
     return (wilson_interval(moved, n)[1] <= baseline_change + margin
             and wilson_interval(left, n)[1] <= baseline_leave + margin)
+
+
+def witness_holds(count, n, baseline, margin=SWAP_WITNESS_MARGIN):
+    """Whether the screen witnesses a swap: a real share of a class, never a few images.
+
+    Parameters
+    ----------
+    count, n : int
+        Transformed images of class A that the out-of-fold proxy calls B, and
+        A's transformed images in total.
+    baseline : float
+        Share of A's held-out originals that the proxy calls B.
+    margin : float, default `augplan.thresholds.SWAP_WITNESS_MARGIN`
+
+    Returns
+    -------
+    bool
+        True when ``n >= MIN_EVIDENCE`` and the lower Wilson 95% bound of
+        ``count / n`` exceeds ``baseline + margin``.
+
+    References
+    ----------
+    .. [1] E. B. Wilson, "Probable inference, the law of succession, and
+       statistical inference", JASA 22(158), 209-212, 1927.
+    """
+    from augplan.measure.stats import wilson_interval
+
+    if n < MIN_EVIDENCE:
+        return False
+    return bool(wilson_interval(int(count), int(n))[0] > baseline + margin)
+
+
+def typical_share(ratios, own_ratios, percentile=TYPICAL_PERCENTILE):
+    """Share of transformed images as close to class B as B's own held-out originals are.
+
+    Parameters
+    ----------
+    ratios : numpy.ndarray, shape (M,)
+        Region ratio ``r_B = d_B / t_B`` of each transformed image of A.
+    own_ratios : numpy.ndarray, shape (K,)
+        The same ratio for each of B's held-out originals (its own source
+        left out).
+    percentile : float, default `augplan.thresholds.TYPICAL_PERCENTILE`
+
+    Returns
+    -------
+    float
+        Share of ``ratios`` at most the ``percentile``-th percentile of
+        ``own_ratios`` (linear interpolation, numpy's default); B's own
+        originals score ``percentile / 100`` up to ties. 0.0 when ``ratios``
+        is empty.
+    """
+    ratios = np.asarray(ratios, dtype=np.float64)
+    own_ratios = np.asarray(own_ratios, dtype=np.float64)
+    if own_ratios.ndim != 1 or len(own_ratios) == 0:
+        raise ValueError(f"own_ratios must be a non-empty 1-D array; got shape {own_ratios.shape}")
+    if len(ratios) == 0:
+        return 0.0
+    return float(np.mean(ratios <= np.percentile(own_ratios, percentile)))
 
 
 def nested_ranges(values, identity):
@@ -331,7 +413,7 @@ class _Geometry:
         self.n_classes = n_classes
         held_out = class_distances(projected, self.reference, self.labels, n_classes, exclude=self.position)
         self.thresholds = np.array([
-            np.percentile(held_out[labels == c, c], TYPICAL_PERCENTILE) for c in range(n_classes)])
+            np.percentile(held_out[labels == c, c], REGION_PERCENTILE) for c in range(n_classes)])
         # A class whose originals coincide has threshold 0; keep the ratio finite.
         self.thresholds = np.maximum(self.thresholds, 1e-12)
         self.held_out_ratios = held_out / self.thresholds
@@ -419,7 +501,7 @@ def _screen_unit(context, unit):
     examples = _examples(destinations, expected, sources, magnitude, context) if context["evidence"] else []
     # Rows the confirmation trains on at this magnitude (one per image).
     kept = np.asarray(features[keep_rows], dtype=np.float32)
-    return destinations, examples, kept
+    return destinations, examples, kept, ratios, np.argmax(proba, axis=1)
 
 
 def _examples(destinations, expected, sources, magnitude, context):
@@ -581,7 +663,7 @@ def _plan_transform(transform, classes, labels, magnitudes, rng):
 
 
 def _run_screen(context, images, plans, baseline, unit_root, workers, quiet):
-    """Screen results ``{(transform, value position): (destinations, examples, kept rows)}``."""
+    """Screen results ``{(transform, value position): (destinations, examples, kept rows, ratios)}``."""
     from augplan.augment.transforms import OPS
 
     work, known = [], {}
@@ -597,7 +679,9 @@ def _run_screen(context, images, plans, baseline, unit_root, workers, quiet):
             # a relabel changes what they should be).
             if value is not None and math.isclose(value, identity, abs_tol=1e-12) and not transform.relabel:
                 known[(t_index, position)] = (baseline.dest[plan.scope], [],
-                                              baseline.features[plan.scope][keep].astype(np.float32))
+                                              baseline.features[plan.scope][keep].astype(np.float32),
+                                              baseline.geometry.held_out_ratios[plan.scope],
+                                              baseline.predictions[plan.scope])
             else:
                 work.append((t_index, position, keep))
     rngs = unit_root.spawn(len(work))
@@ -690,30 +774,39 @@ def _run_confirmation(context, jobs, plans, screen, baseline, labels, workers, q
 
 
 def _screen_flows(plan, results, t_index, labels, baseline, positions):
-    """Moves the screen saw: ``{(a, b): (share, moved, n)}`` at the grid value where most of a moved to b.
+    """Swaps the screen witnessed: ``{(a, b): (share, count, n, typical, typical_low)}``.
 
-    Among the grid values at ``positions``; only flows whose lower Wilson 95%
-    bound exceeds the share of a's held-out originals that land in b count.
+    At the grid value (among ``positions``) where the out-of-fold proxy
+    calls the largest share of a's transformed images b; only flows that
+    pass `witness_holds` against the share of a's held-out originals it
+    calls b count. ``typical`` is the `typical_share` of a's transformed
+    images for b at that grid value and ``typical_low`` its lower Wilson 95%
+    bound.
     """
     from augplan.measure.stats import wilson_interval
 
     source_labels = labels[plan.scope]
+    n_classes = len(baseline.change)
+    own = [baseline.geometry.held_out_ratios[labels == b, b] for b in range(n_classes)]
     flows = {}
     for a in sorted(set(source_labels.tolist())):
-        base = baseline.dest[labels == a]
+        base = np.bincount(baseline.predictions[labels == a], minlength=n_classes) / np.sum(labels == a)
+        rows = source_labels == a
         for position in positions:
-            dest = results[(t_index, position)][0][source_labels == a]
-            counts = np.bincount(dest[dest >= 0], minlength=len(baseline.change))
+            votes = results[(t_index, position)][4][rows]
+            counts = np.bincount(votes, minlength=n_classes)
             for b in np.flatnonzero(counts):
-                share = counts[b] / len(dest)
+                share = counts[b] / len(votes)
                 if (b != plan.expected[a] and share > flows.get((a, int(b)), (0.0,))[0]
-                        and wilson_interval(int(counts[b]), len(dest))[0] > np.mean(base == b)):
-                    flows[(a, int(b))] = (float(share), int(counts[b]), len(dest))
+                        and witness_holds(counts[b], len(votes), base[b])):
+                    typical = typical_share(results[(t_index, position)][3][rows, b], own[b])
+                    low = wilson_interval(int(round(typical * len(votes))), len(votes))[0]
+                    flows[(a, int(b))] = (float(share), int(counts[b]), len(votes), typical, low)
     return flows
 
 
 def _witnessed(plan, results, t_index, range_index, labels, baseline, n_classes):
-    """``W[a, b]``: within the range, the screen saw a's transformed images land in b (`_screen_flows`)."""
+    """``W[a, b]``: within the range, the screen witnessed a's images taking b's look (`_screen_flows`)."""
     positions = sorted({plan.values.index(v) for v in plan.ranges[range_index]})
     seen = np.zeros((n_classes, n_classes), dtype=bool)
     for a, b in _screen_flows(plan, results, t_index, labels, baseline, positions):
@@ -725,8 +818,9 @@ def _judge(labels, base_pred, predictions, n_classes, checked, weak, seen, rng):
     """Confirmation verdict of one range: (verdict, class entries, passing and other pairs).
 
     A pair breaks when the model trained on replaced images shows a rise of
-    the confusion ``B -> A`` that passes `pair_breaks` and the screen saw
-    A's transformed images land in B (``seen[A, B]``): two witnesses, so a
+    the confusion ``B -> A`` that passes `pair_breaks` and the screen
+    witnessed A's transformed images taking B's look (``seen[A, B]``,
+    `witness_holds`): two witnesses, so a
     proxy that merely fails on a look it was not trained on (a domain
     shift) cannot call a label changed. Safety is judged on the model
     trained with the originals plus copies, as a recipe is used.
@@ -800,14 +894,19 @@ def _can_swap_classes(transform):
     return low == high and abs(float(low)) > 0 and abs(float(low)) >= smallest_turn
 
 
-def _suggestion(transform, checked, entries, passing, classes):
-    """Relabel for confirmed swaps that close a cycle; `only` for the safe classes and the cycle.
+def _suggestion(transform, checked, entries, passing, classes, typical):
+    """Relabel for typical swaps that close a cycle; `only` for the safe classes and the relabelled ones.
 
     A confirmed confusion ``B -> A`` means the transformed images of ``A``
     taught the model ``B``'s look: ``A``'s images take ``B``'s class. A
-    relabel is offered only for ops that can swap classes and only where
+    relabel writes labels for every draw, so it is held to a higher bar than
+    "breaks": it is offered only for ops that can swap classes, only where
     these moves close a cycle (``A -> B`` and ``B -> A``, or a hue turn's
-    ``A -> B -> C -> A``), never for a one-way move.
+    ``A -> B -> C -> A``), never for a one-way move, and only when at every
+    step of the cycle most of ``A``'s transformed images are typical of
+    ``B``: ``typical[(A, B)]``, the lower Wilson 95% bound of their
+    `typical_share`, is at least ``RELABEL_TYPICAL_SHARE``; for a pair, in
+    both directions. A class whose swap falls short is scoped out instead.
     """
     main = {}
     for pair in sorted(passing, key=lambda p: -p.rise):
@@ -819,8 +918,9 @@ def _suggestion(transform, checked, entries, passing, classes):
             while node in main and node not in path:
                 path.append(node)
                 node = main[node]
-            if node in path:
-                in_cycle.update(path[path.index(node):])
+            cycle = path[path.index(node):] if node in path else []
+            if cycle and all(typical.get((c, main[c]), 0.0) >= RELABEL_TYPICAL_SHARE for c in cycle):
+                in_cycle.update(cycle)
     in_cycle &= set(checked)
     suggestion = {}
     if in_cycle:
@@ -1011,8 +1111,9 @@ def _entry(t_index, transform, plan, screened, judged, classes, warnings):
     summary = dict(summary or {"change_rate": 0.0, "change_rate_ci": [0.0, 1.0], "leave_rate": 0.0,
                                "leave_rate_ci": [0.0, 1.0], "n": 0, "screen_swaps": {}})
     flows = summary.pop("screen_swaps")
-    screen_swaps = sorted(({"from": classes[a], "to": classes[b], "rate": round(share, 4), "moved": moved, "n": n}
-                           for (a, b), (share, moved, n) in flows.items()),
+    screen_swaps = sorted(({"from": classes[a], "to": classes[b], "rate": round(share, 4), "moved": moved, "n": n,
+                            "typical": round(typical, 4), "typical_low": round(typical_low, 4)}
+                           for (a, b), (share, moved, n, typical, typical_low) in flows.items()),
                           key=lambda s: (-s["rate"], s["from"], s["to"]))
     entry = {"index": t_index, "op": transform.op, "params": _json_params(transform), **summary,
              "magnitudes": magnitudes, "screen_swaps": screen_swaps, "evidence_sheet": None}
@@ -1032,7 +1133,8 @@ def _entry(t_index, transform, plan, screened, judged, classes, warnings):
                      classes={classes[a]: value for a, value in entries.items()},
                      safe_limit=_safe_limit(plan, limits),
                      suggestion=None if verdict != "breaks" else
-                     _suggestion(transform, checked, entries, passing, classes))
+                     _suggestion(transform, checked, entries, passing, classes,
+                                 {pair: flow[4] for pair, flow in flows.items()}))
     return entry
 
 
