@@ -7,6 +7,7 @@ import argparse
 import dataclasses
 import json
 import os
+import shutil
 import signal
 import sys
 import threading
@@ -43,13 +44,14 @@ class _Parser(argparse.ArgumentParser):
         raise _UsageError(f"{self.prog}: error: {message} (see '{self.prog} --help')")
 
 
-def _common(parser, *, data=True, json_flag=True, data_optional=False):
+def _common(parser, *, data=True, json_flag=True, data_optional=False, seed_flag=True):
     if data:
         parser.add_argument("data", metavar="DATA", nargs="?" if data_optional else None,
                             help="data folder (train/<class>/..., val/<class>/...) or a CSV manifest")
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
-    parser.add_argument("--seed", type=_seed, default=0, help="seed of the analysis (default 0)")
+    if seed_flag:  # verify and history draw nothing: a seed there would mean nothing
+        parser.add_argument("--seed", type=_seed, default=0, help="seed of the analysis (default 0)")
     if data:
         parser.add_argument("--split-seed", type=_seed, default=0,
                             help="seed of the stratified validation split made when DATA has no val/ "
@@ -227,12 +229,12 @@ def _build_parser():
     _model_flag(p)
 
     p = commands.add_parser("verify", help="check a vetted recipe's checksum and validity")
-    _common(p, data=False)
+    _common(p, data=False, seed_flag=False)
     p.add_argument("vetted", type=Path, metavar="VETTED", help="vetted recipe YAML")
     p.add_argument("--data", type=Path, default=None, help="data set whose fingerprint to compare")
 
     p = commands.add_parser("history", help="past comparisons stored in the results ledger")
-    _common(p, data=False)
+    _common(p, data=False, seed_flag=False)
     p.add_argument("data", metavar="DATA|RUN", nargs="?", default=None,
                    help="only comparisons on the data set DATA, or the details of run number RUN "
                         "(as the list shows)")
@@ -260,12 +262,15 @@ class _Console:
     def __init__(self, as_json, quiet):
         self.as_json = as_json
         self.quiet = quiet
+        self._warned = set()
 
     def say(self, text=""):
         self._write(sys.stderr if self.as_json else sys.stdout, f"{text}\n")
 
     def warn(self, text):
-        if not self.quiet:
+        """Print a warning once: a data warning the result repeats is not printed twice."""
+        if not self.quiet and text not in self._warned:
+            self._warned.add(text)
             _say_error(f"warning: {text}")
 
     def emit_json(self, document):
@@ -317,6 +322,8 @@ def _report_dataset(console, dataset, *, result_says_val=False):
     if dataset.val_from_train and not result_says_val:
         console.warn(f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) "
                      "stands in for validation")
+    if dataset.missing_val_message():
+        console.warn(dataset.missing_val_message())
 
 
 def _report_leaks(console, dataset):
@@ -464,7 +471,8 @@ def _run_draft(args, console):
     if start is None:
         from augplan.coverage.draft import draft_recipe_text
 
-        text = draft_recipe_text(dataset, name=args.name or "draft", seed=args.seed, quiet=args.quiet)
+        text = draft_recipe_text(dataset, name=args.name or "draft", seed=args.seed, workers=_execution(args),
+                                 quiet=args.quiet)
     else:
         from augplan.vet.start import change_text, draft_from_start
 
@@ -533,6 +541,11 @@ def _run_verify(args, console):
     return ExitCode.FLAGGED if result.flagged else ExitCode.OK
 
 
+def _terminal_width():
+    """Columns of the terminal (``$COLUMNS`` first, 80 when not a terminal)."""
+    return max(40, shutil.get_terminal_size((80, 24)).columns)
+
+
 def _run_history(args, console):
     from augplan.evaluate.ledger import history, run_details
     from augplan.data.dataset import fingerprint, open_dataset
@@ -545,7 +558,7 @@ def _run_history(args, console):
         if args.json:
             console.emit_json(HistoryResult(ledger=str(ledger), evaluations=[entry]).to_json())
         else:
-            console.say(tables.run_table(entry))
+            console.say(tables.run_table(entry, width=_terminal_width()))
         return ExitCode.OK
     dataset = open_dataset(args.data) if args.data else None
     ledger = args.ledger or default_ledger(dataset.root if dataset else None)
@@ -553,7 +566,7 @@ def _run_history(args, console):
     if args.json:
         console.emit_json(result.to_json())
     else:
-        console.say(tables.history_table(result.evaluations))
+        console.say(tables.history_table(result.evaluations, width=_terminal_width()))
     return ExitCode.OK
 
 

@@ -169,6 +169,15 @@ COVERAGE_NEIGHBOURS = 5
 # Share of field images inside the augmented range below which coverage is
 # reported as short (common practice, no source).
 COVERAGE_FLOOR = 0.9
+# Plausibility caps of the ranges `coverage` and `draft` suggest, on top of
+# the recipe reader's bounds: a multiplicative factor at most this far from 1
+# either way (the range [1/cap, cap]). Brightness multiplies linear light, so
+# 4 is two photographic stops each way, about the exposure compensation a
+# camera offers (recalled from memory, no source); contrast and saturation
+# beyond 3x, and a zoom beyond 2x, turn an image into a caricature rather
+# than a plausible photo (common practice, no source). A wider gap between
+# classes than the cap is a shortcut no single recipe range should span.
+PLAUSIBLE_FACTOR = {"brightness": 4.0, "contrast": 3.0, "saturation": 3.0, "zoom": 2.0}
 
 # --- near duplicates (augplan.data)
 # Hamming distance (of 64 bits) at or below which two perceptual hashes are

@@ -630,6 +630,11 @@ CASES = [
     pytest.param(_check_sample_zero, ERROR, ["--sample", "0"], id="check-sample-zero"),
     pytest.param(_evaluate_repeats_zero, ERROR, ["--repeats", "0"], id="evaluate-repeats-zero"),
     pytest.param(_seed_not_a_number, ERROR, ["--seed", "seven"], id="seed-not-a-number"),
+    # verify and history draw nothing, so they take no seed.
+    pytest.param(lambda c: ["verify", c.tmp / "vetted-recipe.yaml", "--seed", "3"], ERROR,
+                 ["unrecognized arguments: --seed"], id="verify-takes-no-seed"),
+    pytest.param(lambda c: ["history", "--seed", "3"], ERROR, ["unrecognized arguments: --seed"],
+                 id="history-takes-no-seed"),
     *[pytest.param(_seed_for(command, value), ERROR, ["--seed", value], id=f"{command}-seed-{label}")
       for command in ("preview", "check", "coverage", "evaluate", "draft", "vet")
       for value, label in (("-1", "negative"), (str(2**70), "2-to-the-70"))],

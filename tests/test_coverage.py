@@ -301,6 +301,60 @@ def test_the_link_of_a_one_class_shortcut_is_judged_against_one_vs_rest_chance()
     assert link_of(row, by_class, "crack", 0.2, 400)["link"] == "weakened"
 
 
+# ------------------------------------------- grey images: hue has no value
+
+def test_grey_images_report_hue_as_not_defined_in_text_json_and_report(tmp_path, run_cli):
+    # scikit-learn's digits, written as grey RGB PNGs: no pixel has a hue
+    # (HSV saturation 0), so hue is undefined for every image.
+    import jsonschema
+
+    from augplan.render.html import render_report
+    from augplan.results import schema_path
+    from conftest import TINY_RECIPE, write_digits_dataset
+
+    data = write_digits_dataset(tmp_path / "DATA", {"train": 6, "val": 3}, size=16)
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text(TINY_RECIPE, encoding="utf-8")
+    text = run_cli("coverage", data, "--recipe", recipe, "--quiet")
+    assert text.code in (0, 1), text.err
+    hue_lines = [line for line in text.out.splitlines() if line.startswith("hue ")]
+    assert len(hue_lines) == 2 and all("not defined for grey images" in line for line in hue_lines)
+
+    result = run_cli("coverage", data, "--recipe", recipe, "--quiet", "--json")
+    document = json.loads(result.out)
+    schema = json.loads(schema_path("coverage").read_text(encoding="utf-8"))
+    jsonschema.Draft202012Validator(schema).validate(document)
+    assert document["factors"]["hue"]["note"] == "not defined for grey images"
+    hue_row = next(r for r in document["shortcuts"] if r["factor"] == "hue")
+    assert hue_row["note"] == "not defined for grey images"
+    assert hue_row["original"] is None and hue_row["val"] is None and not hue_row["flagged"]
+    assert "note" not in document["factors"]["brightness"]
+
+    evidence = {"recipes": [{"name": "tiny", "coverage": document}]}
+    page = render_report(evidence)
+    assert page.count("not defined for grey images") >= 2
+
+
+# --------------------------------- suggestions within the reader's bounds
+
+@pytest.mark.parametrize("name, op", [("brightness", "brightness"), ("contrast", "contrast")])
+def test_a_suggestion_spanning_a_wide_gap_stays_inside_the_bounds_and_the_cap(name, op):
+    # Invented ground truth: two classes whose medians differ 15-fold, wider
+    # than the reader's bound of 10 allows for a ratio taken both ways.
+    labels = np.repeat(["dim", "lit"], 20)
+    values = {name: np.where(labels == "dim", 0.02, 0.3) * np.linspace(0.95, 1.05, 40)}
+    suggestion, _ = coverage._suggestion(name, values, labels, None, True, False, None)
+    low, high = suggestion["range"]
+    # The recipe reader accepts the suggestion as it is written.
+    recipe = parse_recipe(f"name: s\ntransforms:\n  - op: {op}\n    factor: [{low}, {high}]\n")
+    assert recipe.transforms[0].params["factor"] == (low, high)
+    from augplan.thresholds import PLAUSIBLE_FACTOR
+
+    cap = PLAUSIBLE_FACTOR[op]
+    assert 1.0 / cap <= low < 1.0 < high <= cap
+    assert "capped at the plausible" in suggestion["reason"]
+
+
 def test_shortcut_balanced_accuracies_equal_scikit_learns():
     # sklearn.metrics.balanced_accuracy_score is the reference, overall and
     # one-vs-rest ("this class or not"), to the last bit.

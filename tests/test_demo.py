@@ -235,6 +235,7 @@ def test_installed_wheel_runs_the_demo_outside_the_checkout(tmp_path):
     built = subprocess.run(pip + ["wheel", "--no-deps", "--no-build-isolation", "--no-index", "-w",
                                   str(tmp_path / "wheels"), str(source)], capture_output=True, text=True)
     assert built.returncode == 0, built.stderr
+    assert "project.license" not in built.stderr  # the license is an SPDX string, not a deprecated table
     (wheel,) = (tmp_path / "wheels").glob("augplan-*.whl")
     listed = zipfile.ZipFile(wheel).namelist()
     assert all(f"augplan/demo_recipes/{name}" in listed for name in demo.DEMO_RECIPES), listed
@@ -281,3 +282,19 @@ def test_installed_wheel_runs_the_demo_outside_the_checkout(tmp_path):
     assert drafted.returncode == 0, drafted.stderr
     text = (tmp_path / "draft.yaml").read_text(encoding="utf-8")
     assert f"({target / 'augplan' / 'recipes' / 'handwritten-characters.yaml'})" in text
+
+
+def test_the_project_metadata_reads_without_setuptools_warnings():
+    # setuptools itself reads pyproject.toml, as `make demo`'s install does;
+    # a `license = {text = ...}` table draws its deprecation warning (PEP 639).
+    import warnings
+
+    pytest.importorskip("setuptools")
+    from setuptools.config.pyprojecttoml import apply_configuration
+    from setuptools.dist import Distribution
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        distribution = apply_configuration(Distribution(), Path(__file__).resolve().parent.parent / "pyproject.toml")
+    assert [str(w.message) for w in caught if "license" in str(w.message).lower()] == []
+    assert distribution.metadata.license_expression == "MIT"

@@ -50,6 +50,56 @@ def test_every_range_contains_the_unchanged_image(op):
     assert ranges[op][0] <= identity <= ranges[op][1]
 
 
+def _camera_crops():
+    # scikit-image's "camera" sample, four 64x64 crops as RGB.
+    from skimage import data
+
+    camera = data.camera()
+    crops = [camera[r:r + 64, c:c + 64] for r, c in ((100, 100), (200, 250), (300, 150), (150, 300))]
+    return np.stack([np.repeat(crop[..., None], 3, axis=2) for crop in crops])
+
+
+def test_a_field_that_differs_only_in_exposure_gets_no_blur():
+    train = _camera_crops()
+    # Exposure alone: linear light times 0.25 (two stops darker), no blur.
+    field = np.stack([OPS["brightness"].function(image, {"factor": 0.25}, np.random.default_rng(0))
+                      for image in train])
+    assert "blur" not in draft_ranges(train, field)
+
+
+def test_normalised_sharpness_ignores_exposure_and_falls_with_blur():
+    from scipy.ndimage import gaussian_filter, laplace
+
+    from augplan.imaging.colour import relative_luminance
+    from augplan.measure.factors import normalised_sharpness
+
+    train = _camera_crops()
+    # Reference: scipy's Laplacian of the luminance scaled to unit mean.
+    lum = relative_luminance(train).astype(np.float64)
+    expected = [np.var(laplace(y / y.mean(), mode="reflect")) for y in lum]
+    # float32 luminance into a float32 Laplacian: about 1e-6 relative error.
+    assert normalised_sharpness(train) == pytest.approx(expected, rel=1e-4)
+    darker = np.stack([OPS["brightness"].function(i, {"factor": 0.5}, None) for i in train])
+    # 8-bit rounding of the darker image adds a little Laplacian variance.
+    assert normalised_sharpness(darker) == pytest.approx(normalised_sharpness(train), rel=0.1)
+    blurred = np.stack([gaussian_filter(i, sigma=(1.5, 1.5, 0)) for i in train])
+    assert np.all(normalised_sharpness(blurred) < 0.5 * normalised_sharpness(train))
+
+
+def test_draft_takes_workers_and_drafts_the_same_recipe(tmp_path, run_cli):
+    # scikit-learn's digits with a labelled field split.
+    from conftest import write_digits_dataset
+
+    data = write_digits_dataset(tmp_path / "DATA", {"train": 3, "val": 1, "field": 2}, size=16)
+    drafts = []
+    for workers in ("1", "2"):
+        out = tmp_path / f"draft-{workers}.yaml"
+        result = run_cli("draft", data, "-o", out, "--workers", workers, "--quiet")
+        assert result.code == 0, result.err
+        drafts.append(out.read_text(encoding="utf-8"))
+    assert drafts[0] == drafts[1] and "the field sample (20 images)" in drafts[0]
+
+
 # --------------------------------------------------------------------------
 # drafts that begin from a starting recipe (--start) and the shipped list
 

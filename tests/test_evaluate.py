@@ -389,6 +389,25 @@ def test_verdicts_never_contradict_the_gain_intervals(comparison):
             assert entry["p_holm"] >= 0.05
 
 
+def test_a_class_missing_from_validation_is_named_and_said_never_scored(tmp_path, run_cli):
+    # scikit-learn's digits with no validation image of d7.
+    import shutil
+
+    from conftest import TINY_RECIPE
+
+    data = write_digits_dataset(tmp_path / "DATA", {"train": 4, "val": 2}, size=16)
+    shutil.rmtree(data / "val" / "d7")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text(TINY_RECIPE, encoding="utf-8")
+    result = run_cli("evaluate", data, "--recipe", recipe, "--repeats", 2, "--json",
+                     "--ledger", tmp_path / "ledger.sqlite")
+    assert result.code in (0, 1), result.err
+    expected = "validation has no image of class 'd7' (1 of 10 training classes): it is never scored"
+    assert result.err.count(expected) == 1
+    assert any(w.startswith(expected) for w in json.loads(result.out)["warnings"])
+    assert open_dataset(data).missing_classes("val") == ["d7"]
+
+
 def test_the_missing_val_folder_is_said_once(tmp_path, tiny_recipe, run_cli):
     # Issue 27: the CLI said it and the result's warnings said it again.
     import shutil

@@ -762,15 +762,32 @@ def test_evidence_sheet_heading_carries_the_final_verdict(small_demo, tmp_path, 
     headings = {}
     real_sheet = check_module._evidence_sheet
 
-    def spy(index, transform, verdict, *rest):
-        headings[index] = verdict
-        return real_sheet(index, transform, verdict, *rest)
+    def spy(index, transform, title, *rest):
+        headings[index] = title
+        return real_sheet(index, transform, title, *rest)
 
     monkeypatch.setattr(check_module, "_evidence_sheet", spy)
     entry = check_recipe(open_dataset(small_demo), DARKEN, seed=0, evidence_dir=tmp_path)["transforms"][0]
     assert entry["verdict"] == "unverified"
-    assert headings == {0: "unverified"}
+    assert headings == {0: "transform 0 (brightness): unverified"}
     assert Path(entry["evidence_sheet"]).is_file()
+
+
+def test_evidence_sheet_shows_and_names_the_confirmed_swap_not_every_screen_move():
+    from augplan.check.check import OUTSIDE, _sheet_title, _swap_examples
+
+    classes = ("coat", "pullover", "tshirt")
+    labels = np.array([0, 1, 1, 2])
+    # Screen moves (source image, destination class, magnitude) at two magnitudes.
+    groups = [[(0, 2, 1.0), (1, 2, 1.0), (3, OUTSIDE, 1.0)], [(2, 2, 2.0), (2, 0, 2.0)]]
+    swaps = [{"from": "pullover", "to": "tshirt"}]
+    assert _swap_examples(groups, swaps, labels, classes) == [[(1, 2, 1.0)], [(2, 2, 2.0)]]
+    assert _swap_examples(groups, [], labels, classes) == groups
+    # A confirmed swap the screen never saw: the sheet falls back to every move.
+    assert _swap_examples(groups, [{"from": "coat", "to": "pullover"}], labels, classes) == groups
+    flip = Transform("flip", {"axis": "horizontal"})
+    assert _sheet_title(2, flip, "breaks", swaps) == "transform 2 (flip): breaks; confirmed swap pullover -> tshirt"
+    assert _sheet_title(2, flip, "unverified", []) == "transform 2 (flip): unverified"
 
 
 def test_evidence_sheet_keeps_the_files_aspect_ratio_and_captions_the_magnitude(tmp_path):

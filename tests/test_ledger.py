@@ -174,3 +174,18 @@ def test_a_ledger_from_before_run_details_is_upgraded(tmp_path):
 def test_missing_ledger_has_no_run(tmp_path):
     with pytest.raises(BadInputError, match="no results ledger"):
         ledger.run_details(tmp_path / "absent.sqlite", 1)
+
+
+@pytest.mark.parametrize("columns", [80, 132])
+def test_history_uses_the_terminals_width(tmp_path, run_cli, monkeypatch, columns):
+    # shutil.get_terminal_size reads $COLUMNS first (Python's documented order).
+    monkeypatch.setenv("COLUMNS", str(columns))
+    path = tmp_path / "ledger.sqlite"
+    ledger.record_run(path, fingerprint="f" * 64, data_root=tmp_path, settings_key="k", seed=0, repeats=5,
+                      recipe_names=["relight-and-tilt-for-the-night-shift"],
+                      best_recipe="relight-and-tilt-for-the-night-shift", best_gain=0.05, from_ledger=True)
+    result = run_cli("history", "--ledger", path)
+    lines = result.out.splitlines()
+    assert result.code == 0 and max(len(line) for line in lines) <= columns
+    assert ("relight-and-tilt-for-the-night-shift" in result.out) == (columns > 80)
+    assert any(line.endswith("\u2026") for line in lines) == (columns == 80)

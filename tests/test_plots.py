@@ -36,6 +36,17 @@ def test_factor_grid_without_histograms_draws_nothing(factors):
     assert factor_grid(factors) is None
 
 
+def test_a_factor_not_defined_for_the_images_keeps_a_panel_with_its_note():
+    # Four measured factors fill one row; hue of grey images, with its note, opens a second.
+    empty = {"histogram": {"edges": [0.0, 1.0], "counts": [0]}}
+    factors = {**_factors(4), "hue": {"unit": "degrees", "original": empty, "augmented": empty,
+                                      "note": "not defined for grey images"}}
+    with Image.open(io.BytesIO(factor_grid(factors, title="recipe x"))) as image:
+        # 4.15 inches at 90 dpi is 373.5 pixels: the canvas may round either way (one pixel).
+        assert abs(image.size[1] - (1.75 * 2 + 0.35 + 0.3) * 90) <= 1
+    assert factor_grid({"hue": factors["hue"]}) is None  # a note alone is no figure
+
+
 def test_palette_png_keeps_flat_colours_exactly():
     rng = np.random.default_rng(0)
     colours = rng.integers(0, 256, size=(12, 3), dtype=np.uint8)

@@ -92,17 +92,48 @@ def test_non_square_and_grey_cells_keep_aspect_and_centre():
 
 
 def test_captions_get_a_band_and_are_drawn_under_their_cell():
+    # Cells wider than the caption, so the columns keep the cell's width.
     rows = _grid(2, 2)
-    plain = contact_sheet(rows, row_labels=["", ""], cell=40)
-    captioned = contact_sheet(rows, row_labels=["", ""], cell=40,
+    plain = contact_sheet(rows, row_labels=["", ""], cell=128)
+    captioned = contact_sheet(rows, row_labels=["", ""], cell=128,
                               captions=[["", "now chevron-right"], ["", ""]])
     band = (captioned.height - plain.height) // 2
-    assert band > 0
+    assert band > 0 and captioned.width == plain.width
     pixels = np.asarray(captioned)
-    x0, y0 = _cell_origin(0, 0, 0, 0, 40, band)
-    x1, _ = _cell_origin(0, 0, 0, 1, 40, band)
-    assert (pixels[y0 + 40:y0 + 40 + band, x1:x1 + 40] < WHITE).any()
-    assert (pixels[y0 + 40:y0 + 40 + band, x0:x0 + 40] == WHITE).all()
+    x0, y0 = _cell_origin(0, 0, 0, 0, 128, band)
+    x1, _ = _cell_origin(0, 0, 0, 1, 128, band)
+    assert (pixels[y0 + 128:y0 + 128 + band, x1:x1 + 128] < WHITE).any()
+    assert (pixels[y0 + 128:y0 + 128 + band, x0:x0 + 128] == WHITE).all()
+
+
+def _dark_runs(band):
+    """Runs of pixel columns holding dark pixels, gaps under PAD (between letters) bridged: words."""
+    columns = np.flatnonzero((np.asarray(band) < 128).any(axis=(0, 2)))
+    runs = []
+    for x in columns:
+        if runs and x - runs[-1][1] <= PAD:
+            runs[-1][1] = x
+        else:
+            runs.append([x, x])
+    return runs
+
+
+def test_labels_wider_than_small_cells_are_neither_clipped_nor_run_together():
+    # Fashion-MNIST's 28-pixel images make 28-pixel cells, narrower than "transformed".
+    sheet = contact_sheet(_grid(2, 2, side=28), row_labels=["", ""], cell=28,
+                          column_labels=["original", "transformed"])
+    top = sheet.height - PAD - 2 * (28 + PAD)  # the column-label band above the first row
+    runs = _dark_runs(np.asarray(sheet)[:top])
+    # Two labels apart, white between them, the last ending inside the sheet.
+    assert len(runs) == 2 and runs[1][1] < sheet.width - 1
+
+
+def test_captions_wider_than_small_cells_stay_under_their_own_cell():
+    sheet = contact_sheet(_grid(1, 2, side=28), row_labels=[""], cell=28, captions=[["flipped", "flipped"]])
+    pixels = np.asarray(sheet)
+    band = pixels[PAD + 28:sheet.height - PAD]  # under the row of cells
+    runs = _dark_runs(band)
+    assert len(runs) == 2 and runs[1][1] < sheet.width - 1
 
 
 @pytest.mark.parametrize(
@@ -182,17 +213,22 @@ def test_preview_shows_originals_and_marks_relabelled_draws(small_dataset):
     band = (sheet.height - plain.height) // len(small_dataset.classes)
     assert band > 0  # only the relabelling recipe needs captions
     pixels = np.asarray(sheet)
-    left = sheet.width - (PAD + 3 * (96 + PAD))
+    # "now chevron-right" is wider than a 96-pixel cell: the columns widen to
+    # fit it (the uncaptioned sheet keeps 96) and the cells sit centred in them.
+    column = 96 + (sheet.width - plain.width) // 3
+    inset = (column - 96) // 2
+    left = sheet.width - (PAD + 3 * (column + PAD))
     top = sheet.height - (PAD + len(small_dataset.classes) * (96 + band + PAD))
     for i, label in enumerate(small_dataset.classes):
         first = sorted(r.relpath for r in small_dataset.split("train") if r.label == label)[0]
         original = np.asarray(Image.open(small_dataset.root / first).convert("RGB"))
-        x, y = _cell_origin(left, top, i, 0, 96, band)
-        shown = pixels[y:y + 96, x:x + 96]
+        x, y = _cell_origin(left, top, i, 0, column, band)
+        y = top + PAD + i * (96 + band + PAD)
+        shown = pixels[y:y + 96, x + inset:x + inset + 96]
         # 64 -> 96 is a 1.5x nearest enlargement: every source pixel appears.
         assert {tuple(p) for p in shown.reshape(-1, 3)} == {tuple(p) for p in original.reshape(-1, 3)}
-        xd, _ = _cell_origin(left, top, i, 1, 96, band)
-        caption = pixels[y + 96:y + 96 + band, xd:xd + 96]
+        xd, _ = _cell_origin(left, top, i, 1, column, band)
+        caption = pixels[y + 96:y + 96 + band, xd:xd + column]
         if label.startswith("chevron"):
             assert (caption < WHITE).any(), f"{label}: relabel caption missing"
         else:

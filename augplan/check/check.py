@@ -1280,10 +1280,31 @@ def _entry(t_index, transform, plan, screened, judged, classes, warnings):
     return entry
 
 
-def _attach_evidence(report, screen, plans, evidence_dir, transforms, records, labels, classes, fill, seed):
-    """Contact sheets of the screen's moved and outside images for every transform not safe.
+def _swap_examples(groups, swaps, labels, classes):
+    """The screen's moves that show a confirmed swap (an image of A that landed in B); all moves without one."""
+    pairs = {(swap["from"], swap["to"]) for swap in swaps}
+    shown = [[move for move in group if move[1] != OUTSIDE and (classes[labels[move[0]]], classes[move[1]]) in pairs]
+             for group in groups]
+    return shown if pairs and any(shown) else groups
 
-    Every sheet is drawn first; the folder is then written whole or not at all.
+
+def _sheet_title(index, transform, verdict, swaps, limit=2):
+    """``transform 2 (flip): breaks; confirmed swap pullover -> tshirt``."""
+    title = f"transform {index} ({transform.op}): {verdict}"
+    if swaps:
+        named = ", ".join(f"{swap['from']} -> {swap['to']}" for swap in swaps[:limit])
+        more = f" and {len(swaps) - limit} more" if len(swaps) > limit else ""
+        title += f"; confirmed swap{'s' if len(swaps) > 1 else ''} {named}{more}"
+    return title
+
+
+def _attach_evidence(report, screen, plans, evidence_dir, transforms, records, labels, classes, fill, seed):
+    """Contact sheets for every transform not safe: its confirmed swaps' moves when it has any.
+
+    Where training confirmed a swap A -> B, the sheet shows the images of A
+    that the screen saw land in B, and its title names the swap; otherwise
+    the screen's moved and outside images. Every sheet is drawn first; the
+    folder is then written whole or not at all.
     """
     from augplan.atomic import publish_folder
 
@@ -1293,9 +1314,11 @@ def _attach_evidence(report, screen, plans, evidence_dir, transforms, records, l
             continue
         groups = [screen[(entry["index"], p)][1] for p in range(len(plan.values))
                   if (entry["index"], p) in screen]
-        picked = _round_robin(groups, EVIDENCE_IMAGES)
+        swaps = entry.get("swaps") or []
+        picked = _round_robin(_swap_examples(groups, swaps, labels, classes), EVIDENCE_IMAGES)
         if picked:
-            name, sheets[name] = _evidence_sheet(entry["index"], transforms[entry["index"]], entry["verdict"],
+            title = _sheet_title(entry["index"], transforms[entry["index"]], entry["verdict"], swaps)
+            name, sheets[name] = _evidence_sheet(entry["index"], transforms[entry["index"]], title,
                                                  picked, records, labels, classes, fill, seed)
             entry["evidence_sheet"] = str(Path(evidence_dir) / name)
     publish_folder(sheets, evidence_dir)
@@ -1337,7 +1360,7 @@ def _magnitude_caption(transform, magnitude):
     return _MAGNITUDE_FORMATS.get(field, field + " {:.3g}").format(magnitude)
 
 
-def _evidence_sheet(index, transform, verdict, examples, records, labels, classes, fill, seed):
+def _evidence_sheet(index, transform, title, examples, records, labels, classes, fill, seed):
     """Contact sheet of moved and outside images: one row per image, original then transformed.
 
     The pair is drawn from the image file at its own aspect ratio (the check
@@ -1361,7 +1384,7 @@ def _evidence_sheet(index, transform, verdict, examples, records, labels, classe
         row_labels.append(f"{classes[labels[source]]} -> {target}")
         captions.append(["", _magnitude_caption(transform, magnitude)])
     sheet = contact_sheet(rows, row_labels, column_labels=["original", "transformed"], cell=cell,
-                          title=f"transform {index} ({transform.op}): {verdict}", captions=captions)
+                          title=title, captions=captions)
     return f"transform-{index:02d}-{transform.op}.png", png_bytes(sheet)
 
 

@@ -51,7 +51,8 @@ from augplan.measure.shortcuts import (ALL_FACTORS, SHORTCUT_RULE, audit_shortcu
                                        shortcut_messages, shortcut_score, shortcut_scores, shortcut_threshold,
                                        too_few_to_audit)
 from augplan.results import CoverageResult, json_number as _number
-from augplan.thresholds import COVERAGE_FLOOR, COVERAGE_NEIGHBOURS as K_NEIGHBOURS
+from augplan.recipe.ops import OP_TABLE
+from augplan.thresholds import COVERAGE_FLOOR, COVERAGE_NEIGHBOURS as K_NEIGHBOURS, PLAUSIBLE_FACTOR
 from augplan.parallel import parallel_map
 from augplan.augment.transforms import apply_op_batch, augment_batch
 
@@ -355,6 +356,25 @@ def _ratio_range(targets, reference):
     return min(ratios + [1.0]), max(ratios + [1.0])
 
 
+def _plausible_factor_range(op, low, high):
+    """``[low, high]`` rounded outwards to 0.01, inside the reader's bound and `PLAUSIBLE_FACTOR`.
+
+    Returns the range and whether the cap or the bound cut it.
+    """
+    cap = PLAUSIBLE_FACTOR[op]
+    bound = OP_TABLE[op].bound
+    floor_, ceiling = 1.0 / cap, cap
+    if bound.minimum is not None:
+        floor_ = max(floor_, bound.minimum + (0.01 if bound.exclusive_minimum else 0.0))
+    if bound.maximum is not None:
+        ceiling = min(ceiling, bound.maximum)
+    rounded_low, rounded_high = math.floor(low * 100) / 100, math.ceil(high * 100) / 100
+    # The cap's own ends rounded inwards, so the suggestion stays inside it.
+    floor_, ceiling = math.ceil(floor_ * 100) / 100, math.floor(ceiling * 100) / 100
+    capped = rounded_low < floor_ or rounded_high > ceiling
+    return [max(rounded_low, floor_), min(rounded_high, ceiling)], capped
+
+
 def _class_centres(values, labels, factor):
     centres = []
     for name in sorted(set(labels)):
@@ -427,10 +447,11 @@ def _suggestion(name, original, labels, field_values, flagged, poorly_covered, s
         if name == "area":
             # Zoom scales lengths; the foreground area goes with its square.
             low, high = math.sqrt(low), math.sqrt(high)
-        low, high = max(low, 0.05), min(high, 20.0)
-        suggestion = {"factor": name, "op": op, "parameter": "factor",
-                      "range": [math.floor(low * 100) / 100, math.ceil(high * 100) / 100],
-                      "reason": reason}
+        (low, high), capped = _plausible_factor_range(op, low, high)
+        if capped:
+            reason += (f"; capped at the plausible {low:g} to {high:g} (PLAUSIBLE_FACTOR): a wider gap "
+                       "is not one a single range should span")
+        suggestion = {"factor": name, "op": op, "parameter": "factor", "range": [low, high], "reason": reason}
         if name == "colourfulness":
             suggestion["warning"] = ("saturation changes can erase a colour cue that defines a "
                                      "class: confirm with `augplan check`")
@@ -550,6 +571,10 @@ def _widening(samples, messages):
                  "augmented": summarise_factor(samples.augmented[name], factor, edges)}
         if factor.circular:
             entry["period"] = factor.period
+        if entry["original"]["n"] == 0:
+            entry["note"] = factor.undefined_note
+            messages.append(f"{name}: {factor.undefined_note}; none of the training images has a value, "
+                            "so it is neither compared nor audited.")
         if f_values is not None:
             share = _in_range_share(f_values, samples.augmented[name], factor)
             entry["field"] = {

@@ -11,10 +11,14 @@ import json
 import numpy as np
 
 from augplan.data.dataset import load_images
-from augplan.measure.factors import brightness, orientation, rms_contrast, sharpness
+from augplan.measure.factors import brightness, normalised_sharpness, orientation, rms_contrast
+from augplan.parallel import parallel_map
 from augplan.recipe.parse import parse_recipe
+from augplan.thresholds import PLAUSIBLE_FACTOR
 
 __all__ = ["draft_ranges", "draft_recipe_text", "field_lighting", "field_ratio_range"]
+
+_CHUNK = 64  # images decoded and measured per work unit
 
 # Conservative defaults when there is no field sample (common practice, no
 # source): mild changes that rarely change what an image shows.
@@ -26,8 +30,11 @@ DEFAULTS = {
     "contrast": (0.85, 1.15),
 }
 # The widest ranges a draft proposes whatever the field shows; beyond these a
-# person should decide.
-LIMITS = {"brightness": (0.2, 5.0), "contrast": (0.4, 2.5), "rotate": 45.0}
+# person should decide. Brightness is held to the plausibility cap that
+# coverage's suggestions keep (`PLAUSIBLE_FACTOR`); contrast and rotation
+# tighter still (common practice, no source).
+LIMITS = {"brightness": (1.0 / PLAUSIBLE_FACTOR["brightness"], PLAUSIBLE_FACTOR["brightness"]),
+          "contrast": (0.4, 2.5), "rotate": 45.0}
 
 
 def field_ratio_range(train_values, field_values, limits):
@@ -93,6 +100,12 @@ def _axial_spread(angles):
     return float(np.rad2deg(np.sqrt(-2.0 * np.log(resultant))) / 2.0)
 
 
+def _draft_measures(images):
+    """The per-image factors a draft reads: ``{name: (N,) float64}``."""
+    return {"brightness": brightness(images), "contrast": rms_contrast(images),
+            "orientation": orientation(images), "sharpness": normalised_sharpness(images)}
+
+
 def draft_ranges(train_images, field_images=None):
     """The ranges a draft proposes.
 
@@ -117,30 +130,56 @@ def draft_ranges(train_images, field_images=None):
     95th percentile. Contrast likewise with RMS contrast. The rotation range
     is the field's extra orientation spread (circular standard deviation of
     the structure-tensor orientation, Mardia & Jupp 2000) beyond the training
-    data's, doubled to cover both directions.
+    data's, doubled to cover both directions. Blur is proposed when the
+    field's median sharpness is below 0.7 of the training median, both
+    measured on intensity-normalised images (`normalised_sharpness`: the
+    variance of the Laplacian of luminance divided by the squared mean
+    luminance), so a field that is only darker or brighter does not read as
+    blurrier.
     """
+    field = None if field_images is None or len(field_images) == 0 else _draft_measures(field_images)
+    return _ranges_from_measures(_draft_measures(train_images), field)
+
+
+def _ranges_from_measures(train, field):
+    """`draft_ranges` from the per-image measures of `_draft_measures` (field None: defaults)."""
     ranges = dict(DEFAULTS)
-    if field_images is None or len(field_images) == 0:
+    if field is None:
         return ranges
-    ranges["brightness"] = _ratio_range(brightness(train_images), brightness(field_images),
+    ranges["brightness"] = _ratio_range(train["brightness"], field["brightness"],
                                         DEFAULTS["brightness"], LIMITS["brightness"])
-    ranges["contrast"] = _ratio_range(rms_contrast(train_images), rms_contrast(field_images),
+    ranges["contrast"] = _ratio_range(train["contrast"], field["contrast"],
                                       DEFAULTS["contrast"], LIMITS["contrast"])
-    extra = max(0.0, _axial_spread(orientation(field_images)) - _axial_spread(orientation(train_images)))
+    extra = max(0.0, _axial_spread(field["orientation"]) - _axial_spread(train["orientation"]))
     degrees = float(np.clip(round(2.0 * extra), DEFAULTS["rotate"][1], LIMITS["rotate"]))
     ranges["rotate"] = (-degrees, degrees)
-    train_sharpness = float(np.median(sharpness(train_images)))
-    field_sharpness = float(np.median(sharpness(field_images)))
+    # On intensity-normalised images: a darker field alone lowers the plain
+    # variance of the Laplacian and would read as blur.
+    train_sharpness = float(np.median(train["sharpness"]))
+    field_sharpness = float(np.median(field["sharpness"]))
     if train_sharpness > 0 and field_sharpness < 0.7 * train_sharpness:
         ranges["blur"] = (0.0, 1.0)
     return ranges
+
+
+def _measure_chunk(item):
+    records, size = item
+    return _draft_measures(load_images(records, size=size))
+
+
+def _measure_records(records, size, workers, quiet, desc):
+    """`_draft_measures` of ``records``, decoded and measured in chunks (in parallel with ``workers``)."""
+    chunks = [records[i:i + _CHUNK] for i in range(0, len(records), _CHUNK)]
+    parts = parallel_map(_measure_chunk, [(chunk, size) for chunk in chunks], workers=workers, desc=desc,
+                         quiet=quiet)
+    return {name: np.concatenate([part[name] for part in parts]) for name in parts[0]}
 
 
 def _fmt(pair):
     return f"[{pair[0]:g}, {pair[1]:g}]"
 
 
-def draft_recipe_text(dataset, *, name="draft", seed=0, size=64, quiet=True):
+def draft_recipe_text(dataset, *, name="draft", seed=0, size=64, workers=1, quiet=True):
     """A commented YAML recipe drafted from ``dataset`` (and its field split).
 
     Parameters
@@ -152,20 +191,25 @@ def draft_recipe_text(dataset, *, name="draft", seed=0, size=64, quiet=True):
         Written as the recipe's seed.
     size : int
         Side of the square the images are measured at.
+    workers : int or augplan.parallel.Cluster, default 1
+        Decode and measure the images in parallel; the draft is the same for
+        any value.
+    quiet : bool, default True
+        Hide the progress bar.
 
     Returns
     -------
     str
         Recipe YAML that `augplan.recipe.parse_recipe` accepts.
     """
-    train = load_images(dataset.split("train"), size=size)
-    field_records = dataset.split("field")
-    field = load_images(field_records, size=size) if field_records else None
-    ranges = draft_ranges(train, field)
+    train_records, field_records = dataset.split("train"), dataset.split("field")
+    train = _measure_records(train_records, size, workers, quiet, "measuring train")
+    field = _measure_records(field_records, size, workers, quiet, "measuring field") if field_records else None
+    ranges = _ranges_from_measures(train, field)
     source = (f"the field sample ({len(field_records)} images)" if field is not None
               else "conservative defaults (no field sample was given)")
     lines = [
-        f"# Drafted by augplan from {len(train)} training images; ranges from {source}.",
+        f"# Drafted by augplan from {len(train_records)} training images; ranges from {source}.",
         "# A proposal, not a verdict: run 'augplan check' (or 'augplan vet') before use.",
         f"name: {json.dumps(name)}",
         f"seed: {int(seed)}",

@@ -165,6 +165,26 @@ class Dataset:
             raise ValueError(f"split must be one of {SPLITS}; got {name!r}")
         return [record for record in self.records if record.split == name]
 
+    def missing_classes(self, split="val"):
+        """Training classes without a single image in ``split`` (sorted)."""
+        present = {record.label for record in self.split(split)}
+        return [name for name in self.classes if name not in present]
+
+    def missing_val_message(self):
+        """The warning every command gives when validation lacks a class; None when it has them all.
+
+        Such a class is never scored: no validation image can show a recipe
+        helping or harming it, so the accuracies and gains are over the
+        other classes only.
+        """
+        missing = self.missing_classes("val")
+        if not missing:
+            return None
+        names = ", ".join(repr(name) for name in missing)
+        return (f"validation has no image of class {names} ({len(missing)} of {len(self.classes)} "
+                f"training classes): {'it is' if len(missing) == 1 else 'they are'} never scored, so "
+                "accuracies and gains cover the other classes only; add images to val/<class>/")
+
     def with_image_bytes(self):
         """A copy whose records carry their encoded files (``record.data``).
 

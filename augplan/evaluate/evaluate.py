@@ -566,6 +566,8 @@ def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, 
         warnings.append(f"no val/ folder: scored on a stratified split of train (seed {dataset.split_seed}).")
     else:
         scored_on = "val"
+    if dataset.missing_val_message():
+        warnings.append(dataset.missing_val_message())
     if confirm_source and confirm_source != "test":
         scored_on += f" minus the confirmation part ({confirm_source})"
 

@@ -50,6 +50,7 @@ __all__ = [
     "colourfulness",
     "hue",
     "sharpness",
+    "normalised_sharpness",
     "orientation",
     "coherence",
     "asymmetry",
@@ -318,6 +319,35 @@ def sharpness(images):
     return _sharpness_of(_luminance(images))
 
 
+def normalised_sharpness(images):
+    """Variance of the Laplacian of intensity-normalised luminance: blind to exposure.
+
+    Parameters
+    ----------
+    images : numpy.ndarray of uint8, shape (N, H, W, 3)
+
+    Returns
+    -------
+    numpy.ndarray of float64, shape (N,)
+        `sharpness` of ``Y / mean(Y)``, each image's relative luminance
+        divided by its own mean: ``var(laplace(Y)) / mean(Y) ** 2``. An
+        exposure change multiplies linear-light luminance by a factor, and
+        with it the variance of the Laplacian by the factor squared, so
+        `sharpness` falls as an image darkens; this ratio does not (up to
+        clipping at white and 8-bit rounding) and falls only with blur. 0
+        for a black image.
+
+    References
+    ----------
+    .. [1] J. L. Pech-Pacheco et al., "Diatom autofocusing in brightfield
+       microscopy: a comparative study", ICPR 2000.
+    """
+    lum = _luminance(images)
+    mean = lum.reshape(lum.shape[0], -1).mean(axis=1, dtype=np.float64)
+    safe = np.where(mean > 0, mean, 1.0)
+    return np.where(mean > 0, _sharpness_of(lum) / safe ** 2, 0.0)
+
+
 # -------------------------------------------------------------------- pose
 
 
@@ -551,6 +581,11 @@ class Factor:
         Period in the factor's unit for circular factors (360 or 180).
     unit : str
         What the numbers are, for tables and plot axes.
+    undefined_for : str
+        The images on which the factor has no value (NaN), in words, for the
+        note every output gives when a whole set has none: "grey images"
+        for hue (a grey pixel has no hue). Empty for factors defined on
+        every image.
     """
 
     name: str
@@ -558,6 +593,12 @@ class Factor:
     kind: str = "linear"
     period: float | None = None
     unit: str = ""
+    undefined_for: str = ""
+
+    @property
+    def undefined_note(self):
+        """``"not defined for grey images"``: what outputs say where no image of a set has a value."""
+        return f"not defined for {self.undefined_for or 'these images'}"
 
     @property
     def circular(self):
@@ -570,9 +611,10 @@ FACTORS = {
         Factor("brightness", brightness, unit="mean relative luminance"),
         Factor("contrast", rms_contrast, unit="RMS contrast of luminance"),
         Factor("colourfulness", colourfulness, unit="Hasler-Suesstrunk M"),
-        Factor("hue", hue, "circular", 360.0, unit="degrees"),
+        Factor("hue", hue, "circular", 360.0, unit="degrees", undefined_for="grey images"),
         Factor("sharpness", sharpness, unit="variance of Laplacian"),
-        Factor("orientation", orientation, "circular", 180.0, unit="degrees (axial)"),
+        Factor("orientation", orientation, "circular", 180.0, unit="degrees (axial)",
+               undefined_for="flat images (no dominant direction)"),
         Factor("coherence", coherence, unit="structure-tensor coherence"),
         Factor("asymmetry", asymmetry, unit="left-right asymmetry"),
         Factor("centroid_x", centroid_x, unit="fraction of width"),

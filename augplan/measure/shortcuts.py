@@ -285,6 +285,10 @@ def _audit_row(name, chosen, sets, n_classes, seed, splits):
             row[set_name] = None
             continue
         values, labels, set_groups = sets[set_name]
+        if not any(np.isfinite(values[column]).any() for column in chosen):
+            # No image of the set has a value (hue of grey images): nothing to score.
+            row[set_name] = None
+            continue
         if splits[set_name] is None:
             overall, per_class = None, {}
         else:
@@ -313,6 +317,8 @@ def _audit_row(name, chosen, sets, n_classes, seed, splits):
     row["class"] = driver if (flagged or row["field_confirms"]) else None
     row["by_class"] = by_class
     row["combined"] = combined
+    row["note"] = (FACTORS[name].undefined_note if not combined and "original" in sets
+                   and not np.isfinite(sets["original"][0][name]).any() else None)
     return row
 
 
@@ -336,8 +342,10 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
     list of dict
         Rows with ``factor``, the four scores, ``chance``, ``field_confirms``,
         ``flagged``, ``persists``, ``link``, ``augmented_ci``, ``link_bound``,
-        ``val_shares``, ``class``, ``by_class`` and ``combined``, following
-        `SHORTCUT_RULE`.
+        ``val_shares``, ``class``, ``by_class``, ``combined`` and ``note``
+        (`Factor.undefined_note` when no training image has a value of the
+        factor, such as hue on grey images; else None), following
+        `SHORTCUT_RULE`. A set in which no image has a value scores None.
     """
     names = list(FACTORS)
     if too_few_to_audit(sets) is not None:

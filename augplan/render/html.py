@@ -614,6 +614,10 @@ def _coverage_section(entry, number, base_dir):
         for factor, info in factors.items():
             info = info if isinstance(info, dict) else {}
             unit = f' <span class="note">({_e(info["unit"])})</span>' if info.get("unit") else ""
+            if info.get("note"):
+                # No training image has a value (hue of grey images).
+                rows.append([_e(factor) + unit, _e(info["note"]), _DASH, _DASH, _DASH])
+                continue
             rows.append([_e(factor) + unit, _range_text(info.get("original"), factor), _range_text(info.get("augmented"), factor),
                          _widening(info.get("original"), info.get("augmented")), _field_text(info.get("field"))])
         out.append("<h4>How far the recipe widens each factor</h4>")
@@ -636,6 +640,8 @@ def _coverage_section(entry, number, base_dir):
                 flags.append("broken by the recipe")
             if s.get("combined"):
                 flags.append("all factors together, for information")
+            if s.get("note"):
+                flags.append(s["note"])
             rows.append([_e(s.get("factor", "?")), _score_cell(s.get("original")), _score_cell(s.get("augmented")),
                          _score_cell(s.get("val")), _score_cell(s.get("field")), _score_cell(s.get("chance")),
                          f"<span class=\"flag\">{_e(', '.join(flags))}</span>" if flags else "no"])

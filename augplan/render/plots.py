@@ -61,7 +61,8 @@ def factor_grid(factors, *, title=None):
         The ``factors`` block of a coverage result: per factor ``{"unit",
         "original": {"histogram": {"edges", "counts"}}, "augmented": {...},
         "field": {"summary": {...}}}``. All histograms of one factor share
-        their edges.
+        their edges. A factor with a ``note`` and no values (hue of grey
+        images) gets a panel that shows the note.
     title : str, optional
 
     Returns
@@ -84,8 +85,11 @@ def factor_grid(factors, *, title=None):
             if density is not None:
                 curves.append((source, colour, style, density, int(sum(histogram["counts"]))))
         if curves:
-            panels.append((name, info.get("unit"), curves))
-    if not panels:
+            panels.append((name, info.get("unit"), curves, None))
+        elif info.get("note"):
+            # No image has a value (hue of grey images): the panel says so.
+            panels.append((name, info.get("unit"), [], info["note"]))
+    if not any(curves for _, _, curves, _ in panels):
         return None
     rows = -(-len(panels) // _COLUMNS)
     height = 1.75 * rows + (0.35 if title else 0.0) + 0.3
@@ -95,15 +99,19 @@ def factor_grid(factors, *, title=None):
     axes_grid = figure.subplots(rows, _COLUMNS, squeeze=False, gridspec_kw={
         "left": 0.02, "right": 0.99, "wspace": 0.12, "hspace": 0.75,
         "top": 1 - ((0.35 if title else 0.0) + 0.25) / height, "bottom": 0.55 / height})
-    for axes, (name, unit, curves) in zip(axes_grid.ravel(), panels):
+    for axes, (name, unit, curves, note) in zip(axes_grid.ravel(), panels):
         for source, colour, style, (edges, density), n in curves:
             axes.stairs(density, edges, color=colour, linestyle=style, linewidth=1.4, label=f"{source} (n={n})")
         axes.set_title(f"{name}" + (f" ({unit})" if unit else ""), fontsize=8.5)
+        if note:
+            axes.text(0.5, 0.5, note, ha="center", va="center", fontsize=8, transform=axes.transAxes)
+            axes.set_xticks([])
         axes.tick_params(labelsize=7, length=2)
         axes.set_yticks([])
     for axes in axes_grid.ravel()[len(panels):]:
         axes.set_axis_off()
-    handles, labels = axes_grid.ravel()[0].get_legend_handles_labels()
+    first = next(i for i, (_, _, curves, _) in enumerate(panels) if curves)
+    handles, labels = axes_grid.ravel()[first].get_legend_handles_labels()
     figure.legend(handles, [label.split(" (")[0] for label in labels], loc="lower center", ncol=3, fontsize=8,
                   frameon=False)
     if title:

@@ -16,8 +16,9 @@ Layout (all in pixels, ``PAD`` between and around cells)::
     | row label    [ cell ]      [ cell ]           |
     +-----------------------------------------------+
 
-so ``width = left_margin + PAD + n_columns * (cell + PAD)`` (or the
-title's width, if that is wider) and
+so ``width = left_margin + PAD + n_columns * (column + PAD)``, where a
+column is as wide as the cell or its widest label or caption (small images),
+(or the title's width, if that is wider) and
 ``height = top_margin + PAD + n_rows * (cell + caption_band + PAD)``.
 """
 
@@ -117,6 +118,10 @@ def contact_sheet(rows, row_labels, *, column_labels=None, cell=96, title=None, 
     line = _text_size(font, "Ag")[1] + 4
     label_width = max((_text_size(font, label)[0] for label in row_labels), default=0)
     left = label_width + PAD if label_width else 0
+    # A column is as wide as its widest label or caption when that is wider
+    # than the cell (small images), so no text runs into the next column.
+    texts = list(column_labels or ()) + [_shorten(text) for row in (captions or ()) for text in row if text]
+    slot = max([cell] + [_text_size(font, text)[0] for text in texts])
     top = 0
     if title:
         top += line + PAD
@@ -124,7 +129,7 @@ def contact_sheet(rows, row_labels, *, column_labels=None, cell=96, title=None, 
         top += line
     caption_band = line if captions and any(text for row in captions for text in row) else 0
     row_height = cell + caption_band + PAD
-    width = left + PAD + n_columns * (cell + PAD)
+    width = left + PAD + n_columns * (slot + PAD)
     if title:
         # A narrow grid widens to fit its title rather than cut it off.
         title = _shorten_title(str(title))
@@ -136,7 +141,7 @@ def contact_sheet(rows, row_labels, *, column_labels=None, cell=96, title=None, 
     if title:
         draw.text((PAD, PAD), title, fill=_TEXT, font=font)
     for j, label in enumerate(column_labels or ()):
-        x = left + PAD + j * (cell + PAD)
+        x = left + PAD + j * (slot + PAD) + (slot - _text_size(font, label)[0]) // 2
         draw.text((x, top - line + 1), label, fill=_TEXT, font=font)
     for i, row in enumerate(rows):
         y = top + PAD + i * row_height
@@ -146,10 +151,12 @@ def contact_sheet(rows, row_labels, *, column_labels=None, cell=96, title=None, 
             if image is None:
                 continue
             picture = _as_rgb_cell(image, f"rows[{i}][{j}]", cell)
-            x = left + PAD + j * (cell + PAD)
-            sheet.paste(picture, (x + (cell - picture.width) // 2, y + (cell - picture.height) // 2))
+            x = left + PAD + j * (slot + PAD)
+            sheet.paste(picture, (x + (slot - picture.width) // 2, y + (cell - picture.height) // 2))
             if caption_band and j < len(captions[i]) and captions[i][j]:
-                draw.text((x, y + cell + 2), _shorten(captions[i][j]), fill=_CAPTION, font=font)
+                caption = _shorten(captions[i][j])
+                draw.text((x + (slot - _text_size(font, caption)[0]) // 2, y + cell + 2), caption,
+                          fill=_CAPTION, font=font)
     return sheet
 
 

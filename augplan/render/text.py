@@ -1,4 +1,4 @@
-"""Plain-text tables of the command outputs, sized for an 80-column terminal."""
+"""Plain-text tables of the command outputs, sized for an 80-column terminal (history: the terminal's width)."""
 
 import textwrap
 
@@ -24,10 +24,13 @@ def format_table(header, rows, *, width=80, max_cell=22):
     """Lay out ``rows`` under ``header`` in left-aligned columns.
 
     Cells longer than ``max_cell`` (long class or recipe names) are cut with an
-    ellipsis, and so is any line still longer than ``width``.
+    ellipsis, and so is any line still longer than ``width``. A row shorter
+    than the header ends in a note that spans the remaining columns
+    ("not defined for grey images"); it does not widen them.
     """
-    rows = [[_cut(str(cell), max_cell) for cell in row] for row in rows]
-    widths = [max(len(str(h)), *(len(row[i]) for row in rows)) if rows else len(str(h))
+    rows = [[_cut(str(cell), max_cell if len(row) == len(header) else width) for cell in row] for row in rows]
+    full = [row for row in rows if len(row) == len(header)]
+    widths = [max(len(str(h)), *(len(row[i]) for row in full)) if full else len(str(h))
               for i, h in enumerate(header)]
     lines = []
     for row in [list(map(str, header)), ["-" * w for w in widths], *rows]:
@@ -113,6 +116,10 @@ def check_table(result):
     return "\n".join([wrap(head), table, *(wrap(note) for note in notes), legend])
 
 
+def _std_text(std):
+    return "-" if std is None else f"{std:.3g}"
+
+
 def _score_text(score):
     return "-" if score is None else f"{score:.2f}"
 
@@ -123,10 +130,14 @@ def coverage_table(result):
     for name, factor in result["factors"].items():
         original, augmented = factor["original"], factor["augmented"]
         field = factor.get("field")
-        rows.append([name, f"{original['std']:.3g}", f"{augmented['std']:.3g}",
+        if factor.get("note"):
+            # No training image has a value (hue of grey images): say so in place of numbers.
+            rows.append([name, factor["note"]])
+            continue
+        rows.append([name, _std_text(original['std']), _std_text(augmented['std']),
                      factor_range(name, original['p05'], original['p95']),
                      factor_range(name, augmented['p05'], augmented['p95']),
-                     f"{field['coverage']:.0%}" if field else "-"])
+                     f"{field['coverage']:.0%}" if field and field.get("coverage") is not None else "-"])
     widening = format_table(["factor", "std orig", "std aug", "5-95% orig", "5-95% aug", "field in"], rows)
     rows = []
     for s in result["shortcuts"]:
@@ -134,6 +145,9 @@ def coverage_table(result):
         flag = ("" if not s["flagged"] else "cleared" if link == "broken"
                 else "weakened" if link == "weakened" else "FLAGGED")
         # A score is None where the audit could not be run (a class with one image).
+        if s.get("note"):
+            rows.append([s["factor"], s["note"]])
+            continue
         rows.append([s["factor"], *(_score_text(s.get(key)) for key in ("original", "augmented", "val", "field")),
                      f"{s['chance']:.2f}", flag])
     audit = format_table(["shortcut factor", "train", "augmented", "val", "field", "chance", "status"], rows)
@@ -207,8 +221,13 @@ def _verdict_text(row, model_name):
     return verdict
 
 
-def history_table(rows):
-    """Past comparisons from the results ledger, newest last."""
+def _cell_limit(width):
+    """The longest cell of a table ``width`` columns wide: 22 up to 80 columns, a third of a wider terminal."""
+    return 22 if width <= 80 else width // 3
+
+
+def history_table(rows, *, width=80):
+    """Past comparisons from the results ledger, newest last, laid out for ``width`` columns."""
     if not rows:
         return "no evaluations in the ledger yet"
     table = [[row.get("run", "-"), row["date"][:16], row["fingerprint"], len(row["recipes"]), row["repeats"],
@@ -217,7 +236,8 @@ def history_table(rows):
               "-" if row["best_gain"] is None or row["best_gain"] <= 0 else f"{row['best_gain']:+.3f}",
               "ledger" if row["from_ledger"] else ""]
              for row in rows]
-    return format_table(["run", "date", "data", "recipes", "reps", "best recipe", "gain", "reused"], table)
+    return format_table(["run", "date", "data", "recipes", "reps", "best recipe", "gain", "reused"], table,
+                        width=width, max_cell=_cell_limit(width))
 
 
 def _gain_text(row):
@@ -229,8 +249,8 @@ def _gain_text(row):
     return text
 
 
-def run_table(entry):
-    """One past comparison (``augplan history RUN``): its settings, then a score per recipe."""
+def run_table(entry, *, width=80):
+    """One past comparison (``augplan history RUN``): its settings, then a score per recipe, for ``width`` columns."""
     lines = [f"run {entry['run']}, {entry['date']} UTC: data {entry['data'] or '-'}",
              f"  fingerprint {entry['fingerprint']}", f"  seed {entry['seed']}, {entry['repeats']} repeats, "
              f"settings {entry['settings_key']}" + (", served from the ledger" if entry["from_ledger"] else "")]
@@ -250,6 +270,6 @@ def run_table(entry):
                      "-" if row.get("p_holm") is None else f"{row['p_holm']:.3g}",
                      _gain_text(field) if field else "-", _verdict_text(row, model)])
     lines.append(format_table(["recipe", "accuracy", "gain [95% CI]", "p (Holm)", "field gain", "verdict"], rows,
-                              max_cell=26))
-    lines.extend(wrap(f"warning: {text}") for text in details.get("warnings") or [])
+                              width=width, max_cell=max(26, _cell_limit(width))))
+    lines.extend(wrap(f"warning: {text}", width=width) for text in details.get("warnings") or [])
     return "\n".join(lines)

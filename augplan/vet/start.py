@@ -209,7 +209,8 @@ def draft_from_start(dataset, start, *, name=None, seed=0, sample=None, size=64,
         reach = field_lighting(train, load_images(field_records, size=size))
     widened, widened_changes = widen_lighting(start, reach)
     check = check_recipe(dataset, widened, sample=sample, size=size, seed=seed, workers=workers, quiet=quiet)
-    adapted, checked_changes = vet_transforms(widened, check)
+    adapted, vetting = vet_transforms(widened, check)
+    checked_changes = [change.to_json() for change in vetting]  # plain dicts: the draft rewords some
     recipe = dataclasses.replace(_keep_unverified(adapted, widened, checked_changes), name=_draft_name(start, name))
     changes = _merge(start, widened_changes, checked_changes)
     text = _header(start, len(dataset.split("train")), len(field_records), changes) + dump_recipe(recipe)
