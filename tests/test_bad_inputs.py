@@ -640,7 +640,7 @@ CASES = [
       for value, label in (("-1", "negative"), (str(2**70), "2-to-the-70"))],
     *[pytest.param(_model_for(command, value), ERROR, ["--model", *needles], id=f"{command}-model-{label}")
       for command in ("evaluate", "vet")
-      for value, label, needles in (("svm", "unknown", ["'svm'", "linear (default), cnn, or module:callable"]),
+      for value, label, needles in (("svm", "unknown", ["'svm'", "cnn (default, the network), linear (the quick proxy), or module:callable"]),
                                     ("no_such_team_module:fit", "missing-module", ["cannot import module"]),
                                     ("team_training:returns_no_predictor", "no-predictor",
                                      ["must return an object with predict"]))],
