@@ -79,7 +79,7 @@ def test_history_table_fits_and_marks_reused_results():
              "seed": 0, "repeats": 2, "from_ledger": True}]
     text = history_table(rows)
     assert max(len(line) for line in text.splitlines()) <= 80
-    assert "ledger" in text.splitlines()[-1] and "cautious" in text and "+0.031" in text
+    assert "ledger" in text.splitlines()[-1] and "cautious" in text and "+3.1" in text  # a gain of 0.031 reads +3.1 points
     assert history_table([]) == "no evaluations in the ledger yet"
 
 
@@ -119,3 +119,22 @@ def test_history_never_calls_a_recipe_without_a_gain_best(gain):
            "best_recipe": "a", "best_gain": gain, "seed": 0, "repeats": 2, "from_ledger": False}
     last = history_table([row]).splitlines()[-1]
     assert "none gained" in last and " a " not in last
+
+
+@pytest.mark.parametrize("value, interval, expected", [
+    (0.291, (0.195, 0.386), "+29.1 [+19.5, +38.6]"),
+    (-0.0104, (-0.026, 0.0056), "-1.0 [-2.6, +0.6]"),
+    (0.0, None, "+0.0"),
+    (None, None, "-"),
+], ids=["gain", "loss", "no-interval", "missing"])
+def test_gains_read_in_percentage_points_everywhere(value, interval, expected):
+    # The example: +0.29 [+0.20, +0.39] as a fraction is +29.1 points.
+    from augplan.render.text import format_points, leaderboard_table
+
+    assert format_points(value, interval) == expected
+    result = {"baseline": {"accuracy": 0.7, "accuracy_ci": [0.65, 0.75], "n_images": 300},
+              "model": {"name": "cnn"}, "scored_on": "validation", "repeats": 3,
+              "recipes": [{"name": "relight", "accuracy": 0.99, "gain": 0.291, "gain_ci": [0.195, 0.386],
+                           "p_holm": 0.001, "verdict": "gains", "flagged": False, "n_transforms": 1}]}
+    table = leaderboard_table(result)
+    assert "+29.1 [+19.5, +38.6]" in table and "points" in table

@@ -46,6 +46,21 @@ def format_interval(low, high, digits=2):
     return f"[{low:.{digits}f}, {high:.{digits}f}]"
 
 
+def format_points(value, interval=None):
+    """A gain in percentage points, signed, one decimal, with its interval: ``+2.9 [+1.9, +3.9]``.
+
+    Accuracies are shares; their differences read in points on every page
+    (a gain of 0.029 is +2.9 points), as the report writes them.
+    """
+    if value is None:
+        return "-"
+    text = f"{100 * value:+.1f}"
+    if interval is not None:
+        low, high = interval
+        text += f" [{100 * low:+.1f}, {100 * high:+.1f}]"
+    return text
+
+
 def format_range(value, digits=3):
     """A magnitude range as text: ``-15 to 15`` (`augplan.results.range_text`) or a single value."""
     if value is None:
@@ -163,10 +178,6 @@ def coverage_table(result):
     return "\n".join(part if "\n" in part else wrap(part) for part in parts)
 
 
-def _signed_interval(low, high):
-    return f"[{low:+.2f}, {high:+.2f}]"
-
-
 def _source_table(result, source):
     """Baseline and recipes scored on a second source (confirmation split or field)."""
     block = result.get(source)
@@ -178,10 +189,10 @@ def _source_table(result, source):
         entry = r.get(source)
         if entry:
             rows.append([r["name"], f"{entry['accuracy']:.2f} {format_interval(*entry['accuracy_ci'])}",
-                         f"{entry['gain']:+.2f} {_signed_interval(*entry['gain_ci'])}"])
+                         format_points(entry["gain"], entry["gain_ci"])])
     title = {"field": "labelled field sample", "confirm": "confirmation split, scored once"}[source]
     return ["", f"{title} ({block['n_images']} images, a separate source):",
-            format_table(["recipe", "accuracy [95% CI]", "gain [95% CI]"], rows)]
+            format_table(["recipe", "accuracy [95% CI]", "gain, points [95% CI]"], rows)]
 
 
 def leaderboard_table(result):
@@ -190,13 +201,13 @@ def leaderboard_table(result):
     model = result.get("model") or {"name": "linear"}
     # Recipe accuracies without their intervals (the gain carries the
     # interval that matters), so the verdict fits 80 columns.
-    rows = [[r["name"], f"{r['accuracy']:.2f}", f"{r['gain']:+.2f} {_signed_interval(*r['gain_ci'])}",
+    rows = [[r["name"], f"{r['accuracy']:.2f}", format_points(r["gain"], r["gain_ci"]),
              f"{r['p_holm']:.2g}", _verdict_text(r, model["name"])]
             for r in _ranked(result)]
     head = wrap(f"scored with {model_phrase(model['name'])} on {result['scored_on']} "
                 f"({base.get('n_images', '?')} original images), {result['repeats']} repeats per recipe; "
                 f"no augmentation: accuracy {base['accuracy']:.2f} {format_interval(*base['accuracy_ci'])}")
-    parts = [head, format_table(["recipe", "accuracy", "gain [95% CI]", "Holm p", "verdict"], rows)]
+    parts = [head, format_table(["recipe", "accuracy", "gain, points [95% CI]", "Holm p", "verdict"], rows)]
     parts += _source_table(result, "confirm")
     parts += _source_table(result, "field")
     if "best" in result:
@@ -233,20 +244,15 @@ def history_table(rows, *, width=80):
     table = [[row.get("run", "-"), row["date"][:16], row["fingerprint"], len(row["recipes"]), row["repeats"],
               # Runs recorded before the best rule may hold a best whose gain is not above zero.
               row["best_recipe"] if row["best_gain"] is not None and row["best_gain"] > 0 else "none gained",
-              "-" if row["best_gain"] is None or row["best_gain"] <= 0 else f"{row['best_gain']:+.3f}",
+              "-" if row["best_gain"] is None or row["best_gain"] <= 0 else format_points(row["best_gain"]),
               "ledger" if row["from_ledger"] else ""]
              for row in rows]
-    return format_table(["run", "date", "data", "recipes", "reps", "best recipe", "gain", "reused"], table,
+    return format_table(["run", "date", "data", "recipes", "reps", "best recipe", "points", "reused"], table,
                         width=width, max_cell=_cell_limit(width))
 
 
 def _gain_text(row):
-    if row.get("gain") is None:
-        return "-"
-    text = f"{row['gain']:+.3f}"
-    if row.get("gain_ci"):
-        text += " " + format_interval(*row["gain_ci"], digits=3)
-    return text
+    return format_points(row.get("gain"), row.get("gain_ci") or None)
 
 
 def run_table(entry, *, width=80):
@@ -269,7 +275,7 @@ def run_table(entry, *, width=80):
         rows.append([row["name"], f"{row['accuracy']:.3f}", _gain_text(row),
                      "-" if row.get("p_holm") is None else f"{row['p_holm']:.3g}",
                      _gain_text(field) if field else "-", _verdict_text(row, model)])
-    lines.append(format_table(["recipe", "accuracy", "gain [95% CI]", "p (Holm)", "field gain", "verdict"], rows,
+    lines.append(format_table(["recipe", "accuracy", "gain, points [95% CI]", "p (Holm)", "field gain, points", "verdict"], rows,
                               width=width, max_cell=max(26, _cell_limit(width))))
     lines.extend(wrap(f"warning: {text}", width=width) for text in details.get("warnings") or [])
     return "\n".join(lines)
