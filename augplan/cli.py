@@ -172,7 +172,8 @@ def _build_parser():
     p.add_argument("--sample", type=_count("--sample"), default=None, help="at most N training images per class")
     p.add_argument("--evidence", type=Path, default=None,
                    help="folder for contact sheets of the images that moved")
-    _model_flag(p, what="model trained on replaced images in confirmation (the first witness)")
+    _model_flag(p, what="model trained on replaced images in confirmation (the first witness; "
+                        "default here: linear, the quick proxy)")
 
     p = commands.add_parser("coverage", help="nuisance widening, field coverage, shortcut audit")
     _common(p)
@@ -246,8 +247,8 @@ def _build_parser():
     p.add_argument("-o", "--output", type=Path, default=Path("augplan-demo-output"),
                    help="output folder (default ./augplan-demo-output, replaced)")
     p.add_argument("--model", default=None, metavar="NAME",
-                   help="model the demo's recipes are scored and confirmed with (default: cnn, the network; "
-                        "linear: the quick proxy)")
+                   help="model the demo's recipes are scored with, and confirmed with when named "
+                        "(default: cnn, the network, for scoring and linear for the check; linear: the quick proxy)")
     return parser
 
 

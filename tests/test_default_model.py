@@ -49,9 +49,10 @@ def test_without_torch_the_default_falls_back_to_the_linear_proxy_and_says_so(wi
     assert document["warnings"][0] == FALLBACK_WARNING and "\n" not in FALLBACK_WARNING
     # A flagged loss needs a model other than the linear proxy, fallback included.
     assert not any(row["flagged"] for row in document["recipes"])
+    # The check confirms with the proxy by default, with or without torch.
     checked = check_recipe(dataset, FLIP, size=16)
-    assert checked["model"]["confirmation"] == FALLBACK_NAME
-    assert FALLBACK_WARNING in checked["warnings"]
+    assert checked["model"]["confirmation"] == "linear"
+    assert FALLBACK_WARNING not in checked["warnings"]
 
 
 def test_an_explicit_network_without_torch_is_an_input_error(without_torch):
@@ -147,3 +148,15 @@ def _flip_file(data):
     path = data.parent / "flip.yaml"
     path.write_text("name: flip\ncopies: 1\ntransforms:\n  - op: flip\n    axis: horizontal\n", encoding="utf-8")
     return path
+
+
+@pytest.mark.network_default
+def test_the_check_confirms_with_the_linear_proxy_unless_a_model_is_named(tiny_dataset):
+    # The network as first witness gave wrong verdicts on the outside sets
+    # (CHECK_DEFAULT_MODEL's comment); scoring keeps the network as default.
+    from augplan.measure.models import CHECK_DEFAULT_MODEL, DEFAULT_MODEL
+
+    assert (CHECK_DEFAULT_MODEL, DEFAULT_MODEL) == ("linear", "cnn")
+    dataset = open_dataset(tiny_dataset)
+    assert check_recipe(dataset, FLIP, size=16)["model"]["confirmation"] == "linear"
+    assert check_recipe(dataset, FLIP, size=16, model=TINY_CNN)["model"]["confirmation"] == "cnn"

@@ -1103,9 +1103,10 @@ def check_recipe(dataset, recipe, *, model=None, sample=None, size=64, magnitude
     recipe : augplan.recipe.Recipe
     model : {'cnn', 'linear'} or str or FeatureModel, optional
         The model trained on replaced images in confirmation, the first
-        witness of a break (`augplan.measure.models`): None (the default)
-        or ``'cnn'``, the network (without PyTorch the default falls back to
-        the linear proxy, with a warning); ``'linear'``, the proxy;
+        witness of a break (`augplan.measure.models`): None (the default,
+        `CHECK_DEFAULT_MODEL`, the linear proxy: the network as first witness
+        gave wrong verdicts on the outside sets of the tests) or ``'linear'``,
+        the proxy; ``'cnn'``, the network;
         ``'module:callable'``, the team's training function. The screen,
         the safety test (originals plus copies) and the safe limits use the
         linear proxy in every case; a `FeatureModel` replaces that proxy and
@@ -1201,12 +1202,12 @@ def _check_models(model, seed):
     first witness trains (None for a `FeatureModel` passed in, which then
     serves both stages).
     """
-    from augplan.measure.models import scoring_model
+    from augplan.measure.models import CHECK_DEFAULT_MODEL, scoring_model
     from augplan.measure.model import FeatureModel
 
     if isinstance(model, FeatureModel):
         return model, None
-    return FeatureModel(random_state=seed), scoring_model(model)
+    return FeatureModel(random_state=seed), scoring_model(CHECK_DEFAULT_MODEL if model is None else model)
 
 
 def _network_folds(labels, seed):

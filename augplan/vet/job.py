@@ -269,7 +269,9 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         if recipe.source is not None and _inside(Path(recipe.source), out_dir):
             raise BadInputError(f"{recipe.source}: the recipe lies inside the output folder {out_dir}, "
                                 "whose files vet replaces; choose another output folder.")
-    settings = dict(sample=sample, seed=seed, workers=workers, quiet=quiet, model=scoring, size=size)
+    # The check takes the model as asked: with none named it confirms with its
+    # own default (CHECK_DEFAULT_MODEL), while the scoring uses DEFAULT_MODEL.
+    settings = dict(sample=sample, seed=seed, workers=workers, quiet=quiet, model=model, size=size)
     # One run at a time writes a folder; under the lock its state is checked again.
     with output_lock(out_dir), tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
         prepare_output(out_dir, force=force, replace=replace)
