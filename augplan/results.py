@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import Any
 
 __all__ = [
+    "Record",
     "CheckResult",
     "CoverageResult",
     "EvaluateResult",
@@ -56,13 +57,16 @@ def _optional():
 
 
 @dataclass(frozen=True, eq=False)
-class _Result(dict):
-    """Base of the result types: typed fields, the JSON document, ``flagged``.
+class Record(dict):
+    """Base of every typed result and of the rows inside them.
 
-    A result is also the `dict` of its own JSON document (filled once, when
-    it is made), so ``json.dumps(result)`` and ``result["transforms"]`` work
-    as on the documents the analyses returned before they were typed; two
-    results are equal when their documents are.
+    A record is a frozen dataclass whose fields are the keys of its JSON
+    object, in order, and also the `dict` of that object (filled once, when
+    it is made), so ``json.dumps(record)`` and ``record["verdict"]`` work as
+    well as ``record.verdict``; two records are equal when their documents
+    are. A row type (one transform's verdict, one recipe's score) subclasses
+    it like a command's result does; a field holding rows holds the row
+    objects, which are already dicts of their JSON.
     """
 
     extra: Mapping = field(default_factory=dict, kw_only=True)
@@ -75,14 +79,14 @@ class _Result(dict):
 
     @classmethod
     def from_json(cls, document):
-        """Build the result from its JSON document (unknown keys go to ``extra``)."""
+        """Build the record from its JSON object (unknown keys go to ``extra``)."""
         names = {f.name for f in dataclasses.fields(cls) if f.name != "extra" and f.metadata.get("json", True)}
         known = {key: value for key, value in document.items() if key in names}
         extra = {key: value for key, value in document.items() if key not in names}
         return cls(**known, extra=extra, key_order=tuple(document))
 
     def to_json(self) -> dict[str, Any]:
-        """The command's ``--json`` document: today's keys, in their order."""
+        """The record's JSON object (for a result, the command's ``--json`` document), keys in order."""
         document = {}
         for f in dataclasses.fields(self):
             if f.name == "extra" or not f.metadata.get("json", True):
@@ -95,6 +99,12 @@ class _Result(dict):
             rank = {key: position for position, key in enumerate(self.key_order)}
             document = dict(sorted(document.items(), key=lambda item: rank.get(item[0], len(rank))))
         return document
+
+
+
+@dataclass(frozen=True, eq=False)
+class _Result(Record):
+    """Base of the command results: a `Record` with ``flagged``, the rule behind exit code 1."""
 
     @property
     def flagged(self) -> bool:
