@@ -16,7 +16,7 @@ Data:
 
 - scikit-learn's digits (UCI optdigits), written as 32x32 PNGs: 50 training
   images per class, the other 1,297 for validation;
-- the committed Fashion-MNIST subset (tests/data/, see its README): 100
+- the committed Fashion-MNIST subset (tests/reference/, see its README): 100
   training images per class from the training file, the 50 per class from
   the t10k file for validation, at 32x32.
 
@@ -48,7 +48,7 @@ from augplan.measure.convnet import ConvNetClassifier
 from augplan.recipe.parse import Recipe, Transform
 
 SIZE = 32
-FASHION = Path(__file__).resolve().parents[1] / "tests" / "data" / "fashion-mnist-subset.npz"
+FASHION = Path(__file__).resolve().parents[1] / "tests" / "reference" / "fashion-mnist-subset.npz"
 
 RECIPES = [
     Recipe(name="flip-h", transforms=(Transform("flip", {"axis": "horizontal"}, probability=0.5),)),

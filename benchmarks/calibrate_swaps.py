@@ -65,7 +65,7 @@ def _digits(root):
 
 
 def _fashion(root):
-    with np.load(TESTS / "data" / "fashion-mnist-subset.npz") as subset:
+    with np.load(TESTS / "reference" / "fashion-mnist-subset.npz") as subset:
         images, labels, names = subset["train_images"], subset["train_labels"], subset["class_names"]
     for i, (image, label) in enumerate(zip(images, labels)):
         for split in ("train", "val"):

@@ -6,9 +6,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-DATA = Path(__file__).with_name("data")
-SUBSET = DATA / "fashion-mnist-subset.npz"
-# Folder of the Debian package dataset-fashion-mnist (tests/data/README.md).
+from reference import FASHION_SUBSET as SUBSET
+from reference import FOLDER as DATA
+# Folder of the Debian package dataset-fashion-mnist (tests/reference/README.md).
 DEBIAN_SOURCE = Path("/usr/share/datasets/fashion-mnist")
 
 

@@ -1,6 +1,6 @@
 """The labelled field sample decides when validation shares a shortcut (real images, a planted shortcut).
 
-Four garment classes of the committed Fashion-MNIST subset (tests/data/README.md):
+Four garment classes of the committed Fashion-MNIST subset (tests/reference/README.md):
 T-shirt/top, Pullover, Coat and Shirt, told apart by shape. In training AND
 validation the Pullover photos are darkened and the Coat photos brightened
 (an exposure change, augplan's own brightness op in linear light), so
@@ -22,7 +22,7 @@ from augplan.data.dataset import open_dataset
 from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.recipe.parse import parse_recipe
 
-SUBSET = Path(__file__).with_name("data") / "fashion-mnist-subset.npz"
+from reference import FASHION_SUBSET as SUBSET
 GARMENTS = (0, 2, 4, 6)  # T-shirt/top, Pullover, Coat, Shirt
 DARKENED, BRIGHTENED = 2, 4
 LOW, HIGH = 0.15, 4.0  # exposure factors of the planted shortcut; the field draws between them

@@ -2,7 +2,7 @@
 
 Outside references: scikit-learn's bundled digits (UCI optical recognition of
 handwritten digits, Alpaydin & Kaynak 1998), the committed Fashion-MNIST
-subset (Xiao, Rasul & Vollgraf 2017; tests/data/README.md), printed letters
+subset (Xiao, Rasul & Vollgraf 2017; tests/reference/README.md), printed letters
 from the fonts inside matplotlib's package (tests/printed_letters.py: the
 glyph shapes are the type designers'), scikit-image's ``lfw_subset``
 (Labeled Faces in the Wild), scikit-learn's NearestNeighbors as an
@@ -27,6 +27,7 @@ from augplan.check.confirm import (MIN_EVIDENCE, PAIR_MARGIN, TOO_FEW, PairChang
 from augplan.recipe.parse import Recipe, Transform
 from augplan.recipe.shipped import read_start
 from augplan.thresholds import RELABEL_TYPICAL_SHARE, SWAP_WITNESS_MARGIN
+from reference import FASHION_SUBSET
 from printed_letters import PAIRED_CHARACTERS, PLAIN_CHARACTERS, write_letters_dataset
 
 
@@ -101,7 +102,7 @@ def fashion_root(tmp_path_factory):
     from pathlib import Path
 
     root = tmp_path_factory.mktemp("fashion")
-    with np.load(Path(__file__).with_name("data") / "fashion-mnist-subset.npz") as subset:
+    with np.load(FASHION_SUBSET) as subset:
         images, labels, names = subset["train_images"], subset["train_labels"], subset["class_names"]
     for i, (image, label) in enumerate(zip(images, labels)):
         folder = str(names[label]).replace("/", "-")

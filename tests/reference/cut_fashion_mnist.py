@@ -6,9 +6,9 @@ file order (no randomness), and writes them to one compressed ``.npz``.
 
 Usage::
 
-    python tests/data/cut_fashion_mnist.py \
+    python tests/reference/cut_fashion_mnist.py \
         --source /usr/share/datasets/fashion-mnist \
-        -o tests/data/fashion-mnist-subset.npz
+        -o tests/reference/fashion-mnist-subset.npz
 
 The default source is the folder of the Debian package
 ``dataset-fashion-mnist`` (version 0.0~git20200523.55506a9-1).
