@@ -56,6 +56,23 @@ def _deterministic_one_thread():
         torch.set_num_threads(threads)
 
 
+def _channel_statistics(images):
+    """Mean and standard deviation of each channel of a uint8 batch, on the 0-1 scale.
+
+    Exact, from each channel's 256-bin histogram, so no float copy of the batch
+    is made (a float64 copy of 20,000 images of 64 x 64 x 3 would take 1.6 GB).
+    """
+    values = np.arange(256, dtype=np.float64) / 255.0
+    means, stds = [], []
+    for channel in range(images.shape[-1]):
+        counts = np.bincount(images[..., channel].ravel(), minlength=256).astype(np.float64)
+        total = counts.sum()
+        mean = counts @ values / total
+        means.append(mean)
+        stds.append(np.sqrt(counts @ (values - mean) ** 2 / total))
+    return np.array(means), np.array(stds)
+
+
 def _network(n_channels, widths, n_classes):
     layers, previous = [], n_channels
     for width in widths:
@@ -175,9 +192,9 @@ class ConvNetClassifier:
         self.epochs_, self.steps_ = self.training_epochs(len(images))
         originals = images if images.ndim == 4 else images[..., None]
         # Inputs standardised per channel with the originals' statistics.
-        pixels = originals.reshape(-1, originals.shape[-1]).astype(np.float64) / 255.0
-        self.mean_ = torch.tensor(pixels.mean(axis=0), dtype=torch.float32).view(1, -1, 1, 1)
-        self.std_ = torch.tensor(np.maximum(pixels.std(axis=0), 1e-3), dtype=torch.float32).view(1, -1, 1, 1)
+        mean, std = _channel_statistics(originals)
+        self.mean_ = torch.tensor(mean, dtype=torch.float32).view(1, -1, 1, 1)
+        self.std_ = torch.tensor(np.maximum(std, 1e-3), dtype=torch.float32).view(1, -1, 1, 1)
         index_of = {label: i for i, label in enumerate(self.classes_)}
         with _deterministic_one_thread():
             with torch.random.fork_rng(devices=[]):
@@ -195,15 +212,16 @@ class ConvNetClassifier:
                 else:
                     epoch_images, epoch_labels = draw(images, labels, rng)
                     epoch_targets = np.array([index_of[label] for label in epoch_labels])
-                x = self._to_tensor(epoch_images)
                 y = torch.from_numpy(np.asarray(epoch_targets, dtype=np.int64))
-                order = torch.from_numpy(rng.permutation(len(y)))
+                order = rng.permutation(len(y))
                 for start in range(0, min(len(y), remaining * self.batch_size), self.batch_size):
                     batch = order[start:start + self.batch_size]
                     remaining -= 1
                     optimiser.zero_grad(set_to_none=True)
-                    inputs = x[batch].contiguous(memory_format=torch.channels_last)
-                    loss = nn.functional.cross_entropy(self.network_(inputs), y[batch])
+                    # The epoch stays uint8; only a batch is ever float (4 bytes a
+                    # value), so memory does not grow with the training set.
+                    inputs = self._to_tensor(epoch_images[batch])
+                    loss = nn.functional.cross_entropy(self.network_(inputs), y[torch.from_numpy(batch)])
                     loss.backward()
                     optimiser.step()
                     schedule.step()
