@@ -32,6 +32,7 @@ __all__ = [
     "VetResult",
     "VerifyResult",
     "HistoryResult",
+    "VettingChange",
     "RESULT_TYPES",
     "schema_path",
     "json_number",
@@ -99,6 +100,58 @@ class Record(dict):
             rank = {key: position for position, key in enumerate(self.key_order)}
             document = dict(sorted(document.items(), key=lambda item: rank.get(item[0], len(rank))))
         return document
+
+
+
+# Rows: the parts of a result that are lists of like objects. Each is a
+# `Record`, so it is the dict of its JSON too. Sections per analysis, lowest
+# layer first.
+
+# --- rows of check ---
+
+
+# --- rows of coverage ---
+
+
+# --- rows of evaluate ---
+
+
+# --- rows of vet ---
+
+@dataclass(frozen=True, eq=False)
+class VettingChange(Record):
+    """What vetting did to one transform of a recipe.
+
+    Attributes
+    ----------
+    index : int
+        The transform's position in the recipe as written.
+    op : str
+    verdict : {'safe', 'unverified', 'breaks'}
+        The label-safety verdict it was vetted on.
+    action : {'keep', 'relabel', 'scope', 'clip', 'remove'}
+    detail : str
+        The reason, in words.
+    clipped_to : list of float, optional
+        For ``clip``, the range the step was clipped to (its magnitude field);
+        absent from the JSON otherwise.
+    """
+
+    index: int
+    op: str
+    verdict: str
+    action: str
+    detail: str = ""
+    clipped_to: list = _optional()
+
+    def __post_init__(self):
+        object.__setattr__(self, "index", int(self.index))
+        if self.clipped_to is not _ABSENT:
+            if self.clipped_to is None:
+                object.__setattr__(self, "clipped_to", _ABSENT)
+            else:
+                object.__setattr__(self, "clipped_to", [float(v) for v in self.clipped_to])
+        super().__post_init__()
 
 
 

@@ -17,7 +17,7 @@ PACKAGE = Path(__file__).resolve().parent.parent / "augplan"
 # Lowest first.
 LAYERS = [
     {"errors", "thresholds"},
-    {"atomic", "files", "parallel", "cautions", "workspace", "results"},
+    {"atomic", "files", "parallel", "cautions", "workspace", "results", "seeding"},
     {"imaging"},
     {"recipe", "data"},
     {"augment"},

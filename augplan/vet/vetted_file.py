@@ -9,7 +9,6 @@ edited one.
 
 import dataclasses
 import json
-from dataclasses import dataclass
 import math
 import os
 import time
@@ -20,7 +19,7 @@ import yaml
 from augplan import __version__
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
-from augplan.results import VerifyResult, range_text
+from augplan.results import VerifyResult, VettingChange, range_text
 from augplan.recipe.parse import RecipeError, canonical_json, read_recipe_document, recipe_to_dict, vetted_checksum
 
 __all__ = ["VettingChange", "vet_transforms", "vetted_checksum", "vetted_text", "write_vetted", "read_vetted",
@@ -32,45 +31,6 @@ def creation_date():
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
     seconds = int(epoch) if epoch and epoch.isdigit() else time.time()
     return time.strftime("%Y-%m-%d", time.gmtime(seconds))
-
-
-@dataclass(frozen=True)
-class VettingChange:
-    """What vetting did to one transform of a recipe.
-
-    Attributes
-    ----------
-    index : int
-        The transform's position in the recipe as written.
-    op : str
-    verdict : {'safe', 'unverified', 'breaks'}
-        The label-safety verdict it was vetted on.
-    action : {'keep', 'relabel', 'scope', 'clip', 'remove'}
-    detail : str
-        The reason, in words.
-    clipped_to : tuple of float or None
-        For ``clip``, the range the step was clipped to (its magnitude field).
-
-    ``change["action"]`` reads a field as in the JSON document (`to_json`).
-    """
-
-    index: int
-    op: str
-    verdict: str
-    action: str
-    detail: str = ""
-    clipped_to: tuple | None = None
-
-    def to_json(self):
-        """``{"index", "op", "verdict", "action", "detail"}``, plus ``clipped_to`` for a clip."""
-        document = {"index": int(self.index), "op": self.op, "verdict": self.verdict, "action": self.action,
-                    "detail": self.detail}
-        if self.clipped_to is not None:
-            document["clipped_to"] = [float(v) for v in self.clipped_to]
-        return document
-
-    def __getitem__(self, key):
-        return self.to_json()[key]
 
 
 def clip_change(index, original, clipped, verdict, safe_limit, detail=None):
