@@ -291,10 +291,14 @@ class _Console:
 
 
 def _open_data(args, *, field=None):
-    from augplan.data.dataset import open_dataset
+    import numpy as np
 
-    # open_dataset reads a .csv path as a manifest.
-    dataset = open_dataset(args.data, strict=args.strict, seed=args.split_seed, field=field)
+    from augplan.data import open_dataset
+
+    # open_dataset reads a .csv path as a manifest; the split's generator is
+    # made here from --split-seed, apart from --seed, so the data stay put.
+    dataset = open_dataset(args.data, strict=args.strict, rng=np.random.default_rng(args.split_seed),
+                           split_seed=args.split_seed, field=field)
     return dataset.with_image_bytes() if getattr(args, "ship_images", False) else dataset
 
 

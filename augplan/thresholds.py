@@ -34,6 +34,8 @@ __all__ = [
     "NEAR_DUPLICATE_SSIM",
     "NEAR_DUPLICATE_WINDOW",
     "NEAR_DUPLICATE_LOCAL_DIFFERENCE",
+    "FLAT_SPREAD",
+    "NEAR_DUPLICATE_PREFILTER_CORRELATION",
     "MANY_RECIPES_WARNING_LIMIT",
     "MAX_FOLDS",
 ]
@@ -208,6 +210,15 @@ NEAR_DUPLICATE_SSIM = 0.9
 # scikit-image's sample images (a 64 px silhouette resized).
 NEAR_DUPLICATE_WINDOW = 9
 NEAR_DUPLICATE_LOCAL_DIFFERENCE = 0.13
+# Coefficient spread (grey levels, orthonormal DCT) below which an image is
+# called flat and left out of the near-duplicate search: blank frames would
+# otherwise all share one meaningless hash. Chosen here, no source.
+FLAT_SPREAD = 1.0
+# Candidates whose 16 x 16 luminance thumbnails correlate less than this are
+# called no near duplicates and skip the SSIM confirmation (a cheap,
+# vectorised prefilter; a noised JPEG copy of skimage's camera correlates
+# above 0.99). Chosen here, no source.
+NEAR_DUPLICATE_PREFILTER_CORRELATION = 0.8
 
 # --- evaluation
 # More recipes than this compared on validation alone draws a warning that

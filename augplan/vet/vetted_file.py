@@ -238,9 +238,12 @@ def verify_vetted(path, *, data=None):
         messages.append(f"{path}: checksum does NOT match: the recipe or its evidence was edited "
                         "after vetting. Vet it again.")
     if data is not None:
+        import numpy as np
+
         from augplan.data.dataset import fingerprint, open_dataset
 
-        current = fingerprint(open_dataset(data))
+        # A data set without val/ is split as the default --split-seed (0) splits it.
+        current = fingerprint(open_dataset(data, rng=np.random.default_rng(0), split_seed=0))
         vetted_on = evidence.get("data_fingerprint")
         result["fingerprint_match"] = current == vetted_on
         if result["fingerprint_match"]:
