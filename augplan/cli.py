@@ -425,7 +425,9 @@ def _run_check(args, console):
 
 
 def _run_coverage(args, console):
-    from augplan.coverage.coverage import analyse_coverage
+    import numpy as np
+
+    from augplan.coverage import analyse_coverage
     from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
@@ -433,7 +435,8 @@ def _run_coverage(args, console):
     if args.plots is not None:
         _ensure_parent(args.plots, dataset, folder=True)
     recipe = _read_recipes([args.recipe], dataset)[0]
-    result = analyse_coverage(dataset, recipe, seed=args.seed, workers=_execution(args), quiet=args.quiet)
+    result = analyse_coverage(dataset, recipe, rng=np.random.default_rng(args.seed), workers=_execution(args),
+                              quiet=args.quiet)
     if args.plots is not None:
         from augplan.render.plots import with_factor_plots
 

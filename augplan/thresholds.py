@@ -30,6 +30,7 @@ __all__ = [
     "LINK_BROKEN_SHARE",
     "COVERAGE_NEIGHBOURS",
     "COVERAGE_FLOOR",
+    "BLURRIER_FIELD_RATIO",
     "NEAR_DUPLICATE_BITS",
     "NEAR_DUPLICATE_SSIM",
     "NEAR_DUPLICATE_WINDOW",
@@ -180,6 +181,11 @@ COVERAGE_FLOOR = 0.9
 # than a plausible photo (common practice, no source). A wider gap between
 # classes than the cap is a shortcut no single recipe range should span.
 PLAUSIBLE_FACTOR = {"brightness": 4.0, "contrast": 3.0, "saturation": 3.0, "zoom": 2.0}
+# augplan draft calls the field blurrier than the training images, and
+# proposes a blur, when the field's median normalised sharpness (variance of
+# the Laplacian over squared mean luminance) is below this share of the
+# training median (common practice, no source).
+BLURRIER_FIELD_RATIO = 0.7
 
 # --- near duplicates (augplan.data)
 # Hamming distance (of 64 bits) at or below which two perceptual hashes are

@@ -116,7 +116,7 @@ def main():
                 subset = dataclasses.replace(dataset, records=[r for r in dataset.records if r.relpath in keep])
             start = time.perf_counter()
             result = analyse_coverage(subset, dataclasses.replace(RECIPE, copies=args.draws), size=args.size,
-                                      workers=args.workers)
+                                      workers=args.workers, rng=np.random.default_rng(0))
             times[n] = time.perf_counter() - start
             counts = result["n_images"]
             print(f"analyse_coverage: {counts['train']} train images x (1 + {args.draws} draws) = "

@@ -56,8 +56,8 @@ def main():
 
     measured, sets = _median_time(measure, args.runs)
     n_classes = len(dataset.classes)
-    cheap, shared = _median_time(lambda: val_shared_shortcuts(sets, n_classes, seed=0), args.runs)
-    full, rows = _median_time(lambda: audit_shortcuts(sets, n_classes, seed=0), args.runs)
+    cheap, shared = _median_time(lambda: val_shared_shortcuts(sets, n_classes, rng=np.random.default_rng(0)), args.runs)
+    full, rows = _median_time(lambda: audit_shortcuts(sets, n_classes, rng=np.random.default_rng(0)), args.runs)
     from_rows = [row["factor"] for row in rows if row["flagged"] and row["val_shares"]]
     print(f"images: {', '.join(f'{name} {len(chosen)}' for name, chosen in records.items())}; "
           f"{args.size} px; median of {args.runs} runs")

@@ -79,7 +79,8 @@ def test_coverage_plots_are_one_grid_file(tmp_path):
 
     make_demo_dataset(tmp_path / "data", n_train=3, n_val=2, n_field=2)
     recipe = parse_recipe("name: r\ntransforms:\n  - op: brightness\n    factor: [0.5, 2]\n")
-    result = with_factor_plots(analyse_coverage(open_dataset(tmp_path / "data"), recipe, size=32), tmp_path / "plots")
+    result = with_factor_plots(analyse_coverage(open_dataset(tmp_path / "data"), recipe, size=32,
+                                                        rng=np.random.default_rng(0)), tmp_path / "plots")
     assert result["plots"] == [str(tmp_path / "plots" / "factors.png")]
     assert [p.name for p in (tmp_path / "plots").iterdir()] == ["factors.png"]
     with Image.open(result["plots"][0]) as image:

@@ -1412,7 +1412,7 @@ def _separable_by_structure(images, labels, first, second, seed):
 
     pair = np.isin(labels, [first, second])
     gradients = image_features(images[pair])[:, FEATURE_BLOCKS["orientation"]]
-    overall, _ = shortcut_scores(gradients, labels[pair], seed=seed)
+    overall, _ = shortcut_scores(gradients, labels[pair], rng=np.random.default_rng(seed))
     return overall is not None and overall >= 0.9
 
 
@@ -1423,7 +1423,7 @@ def _singled_out(images, labels, classes, factor, seed):
 
     values = {factor: FACTORS[factor].function(images)}
     names = np.array([classes[c] for c in labels])
-    return shortcut_scores(factor_columns(values, [factor]), names, seed=seed)[1]
+    return shortcut_scores(factor_columns(values, [factor]), names, rng=np.random.default_rng(seed))[1]
 
 
 def _mark_shortcut_moves(report, images, labels, classes, dataset, size, seed):

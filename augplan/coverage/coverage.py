@@ -43,7 +43,7 @@ import numpy as np
 import scipy.spatial
 import scipy.stats
 
-from augplan.data.dataset import Dataset, load_images
+from augplan.data import Dataset, load_images
 from augplan.errors import BadInputError
 from augplan.measure.factors import FACTORS, measure_factors
 # Re-exported: the shortcut audit's home is augplan.measure.shortcuts.
@@ -52,13 +52,12 @@ from augplan.measure.shortcuts import (ALL_FACTORS, SHORTCUT_RULE, audit_shortcu
                                        too_few_to_audit)
 from augplan.results import CoverageResult, json_number as _number
 from augplan.recipe.ops import OP_TABLE
-from augplan.thresholds import COVERAGE_FLOOR, COVERAGE_NEIGHBOURS as K_NEIGHBOURS, PLAUSIBLE_FACTOR
+from augplan.seeding import keyed_generator, require_generator, stream_root
+from augplan.thresholds import COVERAGE_FLOOR, COVERAGE_NEIGHBOURS, PLAUSIBLE_FACTOR
 from augplan.parallel import parallel_map
 from augplan.augment.transforms import apply_op_batch, augment_batch
 
 __all__ = [
-    "K_NEIGHBOURS",
-    "COVERAGE_FLOOR",
     "HISTOGRAM_BINS",
     "circular_mean",
     "circular_wasserstein",
@@ -173,7 +172,7 @@ def factor_wasserstein(u, v, factor):
 # ------------------------------------------------------- density, coverage
 
 
-def naeem_density_coverage(reference, sample, k=K_NEIGHBOURS):
+def naeem_density_coverage(reference, sample, k=COVERAGE_NEIGHBOURS):
     """Naeem et al.'s density and coverage of ``sample`` against ``reference``.
 
     Parameters
@@ -521,11 +520,14 @@ class CoverageSamples:
         return sets
 
 
-def measure_coverage_samples(dataset, recipe, *, field=None, size=64, seed=0, workers=1, quiet=True):
+def measure_coverage_samples(dataset, recipe, *, rng, field=None, size=64, workers=1, quiet=True):
     """Measure every factor on the original, augmented, validation and field images.
 
-    Parameters are those of `analyse_coverage`. The augmented set holds each
-    training image and ``recipe.copies`` augmented copies of it.
+    Parameters are those of `analyse_coverage`; ``rng`` draws the
+    augmentations alone. The augmented set holds each training image and
+    ``recipe.copies`` augmented copies of it; each image's draws come from a
+    stream keyed by its position in the training split, so they do not depend
+    on how the images are chunked or which worker draws them.
 
     Returns
     -------
@@ -535,7 +537,8 @@ def measure_coverage_samples(dataset, recipe, *, field=None, size=64, seed=0, wo
     train = dataset.split("train")
     if not train:
         raise BadInputError(f"{dataset.root}: no training images found (expected train/<class>/*)")
-    generators = np.random.default_rng(seed).spawn(len(train))
+    root = stream_root(rng)
+    generators = [keyed_generator(root, index) for index in range(len(train))]
     items = [(train[i:i + _CHUNK], size, recipe, generators[i:i + _CHUNK], int(copies))
              for i in range(0, len(train), _CHUNK)]
     parts = parallel_map(_measure_augmented, items, workers=workers,
@@ -591,7 +594,7 @@ def _widening(samples, messages):
     return factors_out, poorly_covered
 
 
-def _joint_field_coverage(samples, seed, messages):
+def _joint_field_coverage(samples, knn_rng, messages):
     """Naeem et al.'s density and coverage over all factors, before and after augmentation."""
     if samples.field is None:
         messages.append("No field sample: field coverage was not measured.")
@@ -602,11 +605,10 @@ def _joint_field_coverage(samples, seed, messages):
     scale = train_matrix.std(axis=0)
     scale[scale < 1e-12] = 1.0
     field_matrix = (factor_columns(samples.field, names) - centre) / scale
-    if field_matrix.shape[0] <= K_NEIGHBOURS:
+    if field_matrix.shape[0] <= COVERAGE_NEIGHBOURS:
         messages.append(f"The field sample has {field_matrix.shape[0]} images; density and "
-                        f"coverage need more than k={K_NEIGHBOURS}.")
+                        f"coverage need more than k={COVERAGE_NEIGHBOURS}.")
         return None
-    knn_rng = np.random.default_rng([seed, 1])
     limit = min(len(samples.train), KNN_LIMIT)
     before = (train_matrix - centre) / scale
     if before.shape[0] > limit:
@@ -619,10 +621,10 @@ def _joint_field_coverage(samples, seed, messages):
     messages.append(
         f"Over all factors together, the training set reaches {coverage_before:.0%} of the "
         f"field's neighbourhoods before augmentation and {coverage_after:.0%} after "
-        f"(Naeem coverage, k={K_NEIGHBOURS}).")
+        f"(Naeem coverage, k={COVERAGE_NEIGHBOURS}).")
     return {"density_before": _number(density_before), "coverage_before": _number(coverage_before),
             "density_after": _number(density_after), "coverage_after": _number(coverage_after),
-            "k": K_NEIGHBOURS, "reference": "field", "sample_size": int(limit)}
+            "k": COVERAGE_NEIGHBOURS, "reference": "field", "sample_size": int(limit)}
 
 
 def _suggestions(samples, shortcuts, poorly_covered, size, messages):
@@ -645,7 +647,7 @@ def _suggestions(samples, shortcuts, poorly_covered, size, messages):
     return suggestions
 
 
-def analyse_coverage(dataset, recipe, *, field=None, size=64, seed=0, workers=1, quiet=True):
+def analyse_coverage(dataset, recipe, *, rng, field=None, size=64, workers=1, quiet=True):
     """Widening, field coverage, shortcut audit and suggestions for one recipe.
 
     Parameters
@@ -659,9 +661,10 @@ def analyse_coverage(dataset, recipe, *, field=None, size=64, seed=0, workers=1,
         every record has a label.
     size : int, default 64
         Images are measured at ``size`` x ``size``.
-    seed : int, default 0
-        Seeds the augmentation draws (one child generator per training
-        image), the fold shuffles and the kNN subsample.
+    rng : numpy.random.Generator
+        Split once into three children: the augmentation draws (a keyed
+        stream per training image, `augplan.seeding`), the kNN subsample and
+        the fold shuffles of the shortcut audit.
     workers : int, default 1
     quiet : bool, default True
 
@@ -688,20 +691,21 @@ def analyse_coverage(dataset, recipe, *, field=None, size=64, seed=0, workers=1,
     after compare samples of equal size. For angles the Wasserstein distance
     is the circular one (`circular_wasserstein`).
     """
-    samples = measure_coverage_samples(dataset, recipe, field=field, size=size, seed=seed, workers=workers,
+    draws_rng, knn_rng, folds_rng = require_generator(rng).spawn(3)
+    samples = measure_coverage_samples(dataset, recipe, rng=draws_rng, field=field, size=size, workers=workers,
                                        quiet=quiet)
     messages = []
     if getattr(dataset, "val_from_train", False):
         messages.append(f"No validation split was given: a stratified split of train "
                         f"(seed {dataset.split_seed}) stands in for it.")
     factors_out, poorly_covered = _widening(samples, messages)
-    field_coverage = _joint_field_coverage(samples, seed, messages)
+    field_coverage = _joint_field_coverage(samples, knn_rng, messages)
     n_classes = len(dataset.classes) if dataset.classes else len(set(samples.train_labels))
     audit_sets = samples.audit_sets()
     too_few = too_few_to_audit(audit_sets)
     if too_few is not None:
         messages.append(too_few)
-    shortcuts = audit_shortcuts(audit_sets, n_classes, seed=seed)
+    shortcuts = audit_shortcuts(audit_sets, n_classes, rng=folds_rng)
     messages.extend(shortcut_messages(shortcuts, n_classes))
     suggestions = _suggestions(samples, shortcuts, poorly_covered, size, messages)
     return CoverageResult(

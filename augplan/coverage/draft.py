@@ -10,11 +10,11 @@ import json
 
 import numpy as np
 
-from augplan.data.dataset import load_images
+from augplan.data import load_images
 from augplan.measure.factors import brightness, normalised_sharpness, orientation, rms_contrast
 from augplan.parallel import parallel_map
 from augplan.recipe.parse import parse_recipe
-from augplan.thresholds import PLAUSIBLE_FACTOR
+from augplan.thresholds import BLURRIER_FIELD_RATIO, PLAUSIBLE_FACTOR
 
 __all__ = ["draft_ranges", "draft_recipe_text", "field_lighting", "field_ratio_range"]
 
@@ -131,7 +131,8 @@ def draft_ranges(train_images, field_images=None):
     is the field's extra orientation spread (circular standard deviation of
     the structure-tensor orientation, Mardia & Jupp 2000) beyond the training
     data's, doubled to cover both directions. Blur is proposed when the
-    field's median sharpness is below 0.7 of the training median, both
+    field's median sharpness is below `BLURRIER_FIELD_RATIO` (0.7) of the
+    training median, both
     measured on intensity-normalised images (`normalised_sharpness`: the
     variance of the Laplacian of luminance divided by the squared mean
     luminance), so a field that is only darker or brighter does not read as
@@ -157,7 +158,7 @@ def _ranges_from_measures(train, field):
     # variance of the Laplacian and would read as blur.
     train_sharpness = float(np.median(train["sharpness"]))
     field_sharpness = float(np.median(field["sharpness"]))
-    if train_sharpness > 0 and field_sharpness < 0.7 * train_sharpness:
+    if train_sharpness > 0 and field_sharpness < BLURRIER_FIELD_RATIO * train_sharpness:
         ranges["blur"] = (0.0, 1.0)
     return ranges
 
@@ -188,7 +189,9 @@ def draft_recipe_text(dataset, *, name="draft", seed=0, size=64, workers=1, quie
     name : str
         The recipe's name.
     seed : int
-        Written as the recipe's seed.
+        Written as the recipe's ``seed:`` field, the default seed of the
+        training team's loader (`augplan.torch`). The draft itself draws
+        nothing: it measures the images and writes ranges.
     size : int
         Side of the square the images are measured at.
     workers : int or augplan.parallel.Cluster, default 1

@@ -717,7 +717,7 @@ def _shared_shortcuts(dataset, splits, size, seed, workers, quiet, cache_dir):
                                  desc=f"factors of {name} images", quiet=quiet)
             values = {factor: np.concatenate([part[factor] for part in parts]) for factor in names}
             audit[name] = (values, np.array([r.label for r in records]), None)
-        shared = set(val_shared_shortcuts(audit, len(dataset.classes), seed=seed))
+        shared = set(val_shared_shortcuts(audit, len(dataset.classes), rng=np.random.default_rng(seed)))
         row = np.array([float(name in shared) for name in names], dtype=np.float32)
         cache.put(key, row)
     return [name for name, flag in zip(names, row) if flag > 0.5], cache.damaged

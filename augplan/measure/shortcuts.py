@@ -21,6 +21,7 @@ from augplan.measure.factors import FACTORS
 from augplan.measure.stats import wilson_interval
 from augplan.parallel import single_threaded
 from augplan.results import json_number
+from augplan.seeding import require_generator
 from augplan.thresholds import (CHANCE_GAP_SHARE, CONFIDENCE, LINK_BROKEN_SHARE, MAX_FOLDS, MIN_AUDIT_IMAGES,
                                 ONE_VS_REST_THRESHOLD, beyond_chance)
 
@@ -71,15 +72,38 @@ def shortcut_threshold(n_classes):
     return beyond_chance(1.0 / n_classes)
 
 
-def fold_splits(labels, *, groups=None, seed=0, folds=MAX_FOLDS):
+def _fold_seed(rng):
+    """The integer scikit-learn's fold shuffle takes as ``random_state``, drawn from ``rng``."""
+    # scikit-learn's splitters take an int below 2**32 (or a legacy RandomState), not a Generator.
+    return int(require_generator(rng).integers(2**32))
+
+
+def fold_splits(labels, *, rng, groups=None, folds=MAX_FOLDS):
     """The cross-validation folds `shortcut_scores` uses, as a list of (train, test) index arrays.
 
-    They depend on the labels, groups and seed alone, never on the features,
-    so an audit of many factors on one set computes them once (assigning
-    groups to folds is the costly part on large sets). None when there are
-    fewer than two classes or the smallest class has fewer than two images
-    (or groups).
+    They depend on the labels, groups and ``rng`` alone, never on the
+    features, so an audit of many factors on one set computes them once
+    (assigning groups to folds is the costly part on large sets). None when
+    there are fewer than two classes or the smallest class has fewer than
+    two images (or groups).
+
+    Parameters
+    ----------
+    labels : sequence of str
+    rng : numpy.random.Generator
+        Draws the seed of the fold shuffle.
+    groups : array_like of int, optional
+    folds : int, default MAX_FOLDS
+
+    Returns
+    -------
+    list of (numpy.ndarray, numpy.ndarray) or None
     """
+    return _folds(labels, groups, _fold_seed(rng), folds)
+
+
+def _folds(labels, groups, random_state, folds):
+    """`fold_splits` with the shuffle's integer seed given."""
     from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold
 
     labels = np.asarray(labels)
@@ -95,13 +119,13 @@ def fold_splits(labels, *, groups=None, seed=0, folds=MAX_FOLDS):
     if n_splits < 2:
         return None
     if groups is None:
-        splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=seed)
+        splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=random_state)
     else:
-        splitter = StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=seed)
+        splitter = StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=random_state)
     return list(splitter.split(np.zeros((labels.size, 1)), labels, groups))
 
 
-def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS, splits=None):
+def shortcut_scores(features, labels, *, rng=None, groups=None, folds=MAX_FOLDS, splits=None):
     """Cross-validated balanced accuracy of predicting ``labels`` from ``features``.
 
     Parameters
@@ -111,14 +135,14 @@ def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS, s
     groups : array_like of int, optional
         Source image of each row; rows of one group stay in one fold, so an
         augmented copy is never scored by a model fitted on its original.
-    seed : int
-        Seed of the fold shuffle.
+    rng : numpy.random.Generator
+        Draws the fold shuffle; required unless ``splits`` is given.
     folds : int
         At most this many folds; fewer when the smallest class is smaller.
     splits : list of (train, test) index arrays, optional
-        The folds from `fold_splits` for these labels, groups, seed and
-        folds, computed once for several factors of one set; computed here
-        when not given.
+        The folds from `fold_splits` for these labels, groups and folds,
+        computed once for several factors of one set; computed here (from
+        ``rng``) when not given.
 
     Returns
     -------
@@ -142,7 +166,7 @@ def shortcut_scores(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS, s
     features = np.asarray(features, dtype=np.float64)
     labels = np.asarray(labels)
     if splits is None:
-        splits = fold_splits(labels, groups=groups, seed=seed, folds=folds)
+        splits = fold_splits(labels, rng=rng, groups=groups, folds=folds)
     if splits is None:
         return None, {}
     # Newton steps converge in a handful of iterations on a few columns,
@@ -188,9 +212,9 @@ def _balanced_accuracies(labels, predicted):
     return overall, {str(name): float(value) for name, value in zip(names, one_vs_rest)}
 
 
-def shortcut_score(features, labels, *, groups=None, seed=0, folds=MAX_FOLDS):
+def shortcut_score(features, labels, *, rng, groups=None, folds=MAX_FOLDS):
     """The overall score of `shortcut_scores` (a float, or None when it cannot be scored)."""
-    return shortcut_scores(features, labels, groups=groups, seed=seed, folds=folds)[0]
+    return shortcut_scores(features, labels, rng=rng, groups=groups, folds=folds)[0]
 
 
 def factor_columns(values, names):
@@ -277,7 +301,7 @@ def link_of(row, by_class, driver, chance, n_images):
     return {"link": link, "augmented_ci": [json_number(low), json_number(high)], "link_bound": json_number(bound)}
 
 
-def _audit_row(name, chosen, sets, n_classes, seed, splits):
+def _audit_row(name, chosen, sets, n_classes, splits):
     threshold = shortcut_threshold(max(n_classes, 1))
     row, by_class = {"factor": name}, {}
     for set_name in ("original", "augmented", "val", "field"):
@@ -322,7 +346,7 @@ def _audit_row(name, chosen, sets, n_classes, seed, splits):
     return row
 
 
-def audit_shortcuts(sets, n_classes, *, seed=0):
+def audit_shortcuts(sets, n_classes, *, rng):
     """One audit row per factor (and one for all factors together), as in ``coverage --json``.
 
     Parameters
@@ -334,8 +358,8 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
         scores None.
     n_classes : int
         Number of training classes (chance is ``1 / n_classes``).
-    seed : int, default 0
-        Seed of the fold shuffles.
+    rng : numpy.random.Generator
+        Draws the fold shuffles (one seed, shared by every set).
 
     Returns
     -------
@@ -348,12 +372,13 @@ def audit_shortcuts(sets, n_classes, *, seed=0):
         `SHORTCUT_RULE`. A set in which no image has a value scores None.
     """
     names = list(FACTORS)
+    random_state = _fold_seed(rng)
     if too_few_to_audit(sets) is not None:
         sets = {}  # every score None, at once: nothing to cross-validate
     # One set of folds per set, shared by every factor's row.
-    splits = {set_name: fold_splits(labels, groups=set_groups, seed=seed)
+    splits = {set_name: _folds(labels, set_groups, random_state, MAX_FOLDS)
               for set_name, (_, labels, set_groups) in sets.items()}
-    return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, seed, splits)
+    return [_audit_row(name, names if name == ALL_FACTORS else [name], sets, n_classes, splits)
             for name in names + [ALL_FACTORS]]
 
 
@@ -387,7 +412,7 @@ def too_few_to_audit(sets):
             "was scored.")
 
 
-def val_shared_shortcuts(sets, n_classes, *, seed=0):
+def val_shared_shortcuts(sets, n_classes, *, rng):
     """Flagged shortcut factors that the validation set carries too (``val_shares`` of `audit_shortcuts`).
 
     The same rule and scores as `audit_shortcuts`, without the augmented set
@@ -400,23 +425,25 @@ def val_shared_shortcuts(sets, n_classes, *, seed=0):
     sets : dict
         ``{"original", "val", "field"?: (values, labels, None)}`` as in `audit_shortcuts`.
     n_classes : int
-    seed : int, default 0
+    rng : numpy.random.Generator
+        Draws the fold shuffles, as in `audit_shortcuts`.
 
     Returns
     -------
     list of str
         Factor names, in the order of `FACTORS`.
     """
+    random_state = _fold_seed(rng)
     if too_few_to_audit(sets) is not None:
         return []  # as audit_shortcuts: nothing is scored
     # One set of folds per set, shared by every factor's row, as in `audit_shortcuts`.
-    splits = {set_name: fold_splits(labels, groups=set_groups, seed=seed)
+    splits = {set_name: _folds(labels, set_groups, random_state, MAX_FOLDS)
               for set_name, (_, labels, set_groups) in sets.items()}
     shared = []
     for name in FACTORS:
-        if not _audit_row(name, [name], {"original": sets["original"]}, n_classes, seed, splits)["flagged"]:
+        if not _audit_row(name, [name], {"original": sets["original"]}, n_classes, splits)["flagged"]:
             continue
-        if _audit_row(name, [name], sets, n_classes, seed, splits)["val_shares"]:
+        if _audit_row(name, [name], sets, n_classes, splits)["val_shares"]:
             shared.append(name)
     return shared
 

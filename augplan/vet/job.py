@@ -339,8 +339,8 @@ def _vet_one(dataset, recipe, scratch, number, approve, settings):
     factor histograms stay data, drawn by the report.
     """
     check = check_recipe(dataset, recipe, evidence_dir=scratch / f"evidence-{number}", **settings)
-    coverage = analyse_coverage(dataset, recipe, seed=settings["seed"], workers=settings["workers"],
-                                quiet=settings["quiet"])
+    coverage = analyse_coverage(dataset, recipe, rng=np.random.default_rng(settings["seed"]),
+                                workers=settings["workers"], quiet=settings["quiet"])
     vetted, changes = vet_transforms(recipe, check, approve=approve, coverage_result=coverage)
     rechecked = None
     if any(change["action"] in ("relabel", "scope") for change in changes):
