@@ -44,13 +44,16 @@ class _Parser(argparse.ArgumentParser):
         raise _UsageError(f"{self.prog}: error: {message} (see '{self.prog} --help')")
 
 
-def _common(parser, *, data=True, json_flag=True, data_optional=False, seed_flag=True):
+def _common(parser, *, data=True, json_flag=True, data_optional=False, seed_flag=True, recipe_seed=False):
     if data:
         parser.add_argument("data", metavar="DATA", nargs="?" if data_optional else None,
                             help="data folder (train/<class>/..., val/<class>/...) or a CSV manifest")
         parser.add_argument("--strict", action="store_true",
                             help="stop on the first file that is not a readable image instead of skipping it")
-    if seed_flag:  # verify and history draw nothing: a seed there would mean nothing
+    if seed_flag and recipe_seed:  # the recipe's own seed: says where its draws start
+        parser.add_argument("--seed", type=_seed, default=None,
+                            help="seed of the draws (default: the recipe's own 'seed:')")
+    elif seed_flag:  # verify and history draw nothing: a seed there would mean nothing
         parser.add_argument("--seed", type=_seed, default=0, help="seed of the analysis (default 0)")
     if data:
         parser.add_argument("--split-seed", type=_seed, default=0,
@@ -159,7 +162,7 @@ def _build_parser():
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
     p = commands.add_parser("preview", help="contact sheet of originals and augmented draws per class")
-    _common(p, json_flag=False)
+    _common(p, json_flag=False, recipe_seed=True)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
     p.add_argument("-o", "--output", required=True, type=Path, help="PNG file to write")
     p.add_argument("--per-class", type=_count("--per-class"), default=3, help="images per class (default 3)")
@@ -383,8 +386,9 @@ def _run_preview(args, console):
     _report_dataset(console, dataset)
     _ensure_parent(args.output, dataset, inputs=[args.recipe])
     recipe = _read_recipes([args.recipe], dataset)[0]
+    seed = recipe.seed if args.seed is None else args.seed  # the draws start where the recipe says
     sheet = preview_sheet(dataset, recipe, per_class=args.per_class, draws=args.draws,
-                          rng=np.random.default_rng(args.seed))
+                          rng=np.random.default_rng(seed))
     save_png(sheet, args.output)
     console.say(f"wrote {args.output}")
     return ExitCode.OK

@@ -32,7 +32,8 @@ import numpy as np
 import torch
 from PIL import Image
 
-from augplan.augment.augmenter import Augmenter
+from augplan.augment import Augmenter
+from augplan.seeding import keyed_generator
 
 __all__ = ["TensorAugmenter"]
 
@@ -65,9 +66,9 @@ class TensorAugmenter:
 
     Notes
     -----
-    The adapter holds no generator. Each call builds one from
-    ``SeedSequence([seed, epoch, rank + 1, worker + 1, index, repeat])``
-    (rank slot 0 without a rank), where
+    The adapter holds no generator. Each call builds one keyed by
+    ``(epoch, rank + 1, worker + 1, index, repeat)`` under ``seed``
+    (`augplan.seeding.keyed_generator`; rank slot 0 without a rank), where
     ``worker`` is the loader worker's id (slot 0 is the main process, when
     ``num_workers=0``), ``index`` the dataset index passed by the caller and
     ``repeat`` how often this process already drew that index in this epoch
@@ -176,8 +177,8 @@ class TensorAugmenter:
         Returns
         -------
         numpy.random.Generator
-            Seeded from ``(seed, epoch, rank + 1, worker + 1, index, repeat)``;
-            see the class notes.
+            The stream keyed by ``(epoch, rank + 1, worker + 1, index, repeat)``
+            under ``seed``; see the class notes.
         """
         index = _non_negative_int(index, "index")
         worker, epoch = self._worker_slot(), self.epoch
@@ -186,7 +187,7 @@ class TensorAugmenter:
         repeat = self._repeats.get(index, 0)
         self._repeats[index] = repeat + 1
         rank = 0 if self.rank is None else self.rank + 1
-        return np.random.default_rng(np.random.SeedSequence([self.seed, epoch, rank, worker, index, repeat]))
+        return keyed_generator(self.seed, epoch, rank, worker, index, repeat)
 
     def __call__(self, image, label=None, *, index=None):
         """One augmented draw as a ``(C, H, W)`` float32 tensor with values in [0, 1].

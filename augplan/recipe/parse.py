@@ -11,6 +11,13 @@ A recipe is a small YAML file (README, "Recipe format")::
         degrees: [-15, 15]
         probability: 0.5
 
+The ``seed`` field (default 0) is where the recipe's own draws start: the
+default seed of the training team's loader (`augplan.torch.TensorAugmenter`)
+and of ``augplan preview`` when no ``--seed`` is given. The analyses
+(``check``, ``coverage``, ``evaluate``, ``vet``) take their generator from
+``--seed`` instead, so vetting results do not depend on it; it is part of
+`recipe_hash`, so two recipes that differ only in it are two recipes.
+
 Validation is strict because a typo in a recipe would otherwise cost a long
 training run: unknown keys, misspelled op names, booleans where numbers are
 expected, NaN, inverted ranges, duplicate keys, tabs and YAML aliases are all
@@ -18,7 +25,7 @@ refused with a message that names the file, the line, the field, what is
 allowed and what came. Transforms are numbered from 1 in messages, as a person
 counts them in the file.
 
-The op catalogue itself (the image functions) lives in `augplan.transforms`;
+The op catalogue itself (the image functions) lives in `augplan.augment.transforms`;
 this module keeps the table of which fields each op takes and which values
 they allow, since checking a recipe is the recipe's job.
 
@@ -174,7 +181,7 @@ class Transform:
     ----------
     op : str
         One of the ops in `OP_FIELDS` (the image functions are in
-        ``augplan.transforms.OPS``).
+        ``augplan.augment.transforms.OPS``).
     params : Mapping
         The op's own fields. Magnitude ranges are ``(low, high)`` float tuples
         (a scalar ``v`` becomes ``(v, v)``); flip has ``{"axis": "horizontal"}``
@@ -239,7 +246,9 @@ class Transform:
 class Recipe:
     """A parsed, validated augmentation recipe (README, "Recipe format").
 
-    ``source`` (the file it came from) is not part of equality.
+    ``source`` (the file it came from) is not part of equality. ``seed``
+    is the default seed of the recipe's own draws (the training loader of
+    `augplan.torch`, ``augplan preview``); the analyses never read it.
     """
 
     name: str

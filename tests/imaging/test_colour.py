@@ -1,4 +1,4 @@
-"""Tests for augplan.colour against IEC 61966-2-1, ITU-R BT.709, colorsys and scikit-image."""
+"""Tests for augplan.imaging.colour against IEC 61966-2-1, ITU-R BT.709, colorsys and scikit-image."""
 
 import colorsys
 

@@ -1,4 +1,4 @@
-"""Tests for augplan.factors against published definitions and reference libraries."""
+"""Tests for augplan.measure.factors against published definitions and reference libraries."""
 
 import colorsys
 

@@ -1,4 +1,4 @@
-"""Tests for augplan.recipe: parsing, validation messages, round trip, hash, schema."""
+"""Tests for augplan.recipe.parse: parsing, validation messages, round trip, hash, schema."""
 
 import hashlib
 import json

@@ -23,7 +23,7 @@ from augplan.data.dataset import open_dataset
 from augplan.recipe.parse import RECIPE_SCHEMA_PATH, Recipe, read_recipe
 from augplan.recipe.shipped import find_start, read_start, recipe_purpose, shipped_recipes
 
-CHECKOUT = Path(__file__).resolve().parent.parent
+CHECKOUT = Path(__file__).resolve().parents[2]
 RECIPE_FILES = sorted((CHECKOUT / "recipes").glob("*.yaml"))
 
 

@@ -1,4 +1,4 @@
-"""Tests for augplan.transforms against scikit-image, colorsys, scipy.stats and IEC 61966-2-1."""
+"""Tests for augplan.augment.transforms against scikit-image, colorsys, scipy.stats and IEC 61966-2-1."""
 
 import colorsys
 
