@@ -33,6 +33,7 @@ __all__ = [
     "VerifyResult",
     "HistoryResult",
     "VettingChange",
+    "Suggestion",
     "RESULT_TYPES",
     "schema_path",
     "json_number",
@@ -111,6 +112,34 @@ class Record(dict):
 
 
 # --- rows of coverage ---
+
+@dataclass(frozen=True, eq=False)
+class Suggestion(Record):
+    """A transform and range that coverage proposes for one factor (an item of ``suggestions``).
+
+    Attributes
+    ----------
+    factor : str
+        The factor a shortcut or poor field coverage was found on.
+    op : str
+        The op that moves it (a name of `augplan.recipe.ops.OP_TABLE`).
+    parameter : str
+        The op's magnitude field (``degrees``, ``factor``, ``fraction``, ``sigma``).
+    range : list of float
+        ``[low, high]`` for that field, inside the reader's bounds.
+    reason : str
+        Why, in words.
+    warning : str, optional
+        What to confirm before adopting it (the op may erase a class cue);
+        absent from the JSON otherwise.
+    """
+
+    factor: str
+    op: str
+    parameter: str
+    range: list
+    reason: str
+    warning: str = _optional()
 
 
 # --- rows of evaluate ---

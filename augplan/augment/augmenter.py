@@ -14,7 +14,7 @@ __all__ = ["Augmenter", "load_recipe"]
 
 _GENERATOR = np.random.Generator
 _UINT8 = np.dtype(np.uint8)
-_NO_GENERATOR = ("pass a numpy.random.Generator, e.g. aug(image, rng=np.random.default_rng(seed)), "
+_NO_GENERATOR = ("pass a numpy.random.Generator, e.g. aug(image, rng=np.random.default_rng(1234)), "
                  "so the draws are reproducible; give each data-loader worker its own generator")
 
 

@@ -46,11 +46,9 @@ import scipy.stats
 from augplan.data import Dataset, load_images
 from augplan.errors import BadInputError
 from augplan.measure.factors import FACTORS, measure_factors
-# Re-exported: the shortcut audit's home is augplan.measure.shortcuts.
-from augplan.measure.shortcuts import (ALL_FACTORS, SHORTCUT_RULE, audit_shortcuts, factor_columns,  # noqa: F401
-                                       shortcut_messages, shortcut_score, shortcut_scores, shortcut_threshold,
+from augplan.measure.shortcuts import (SHORTCUT_RULE, audit_shortcuts, factor_columns, shortcut_messages,
                                        too_few_to_audit)
-from augplan.results import CoverageResult, json_number as _number
+from augplan.results import CoverageResult, Suggestion, json_number as _number
 from augplan.recipe.ops import OP_TABLE
 from augplan.seeding import keyed_generator, require_generator, stream_root
 from augplan.thresholds import COVERAGE_FLOOR, COVERAGE_NEIGHBOURS, PLAUSIBLE_FACTOR
@@ -63,9 +61,6 @@ __all__ = [
     "circular_wasserstein",
     "factor_wasserstein",
     "naeem_density_coverage",
-    "shortcut_threshold",
-    "shortcut_scores",
-    "shortcut_score",
     "summarise_factor",
     "histogram_edges",
     "CoverageSamples",
@@ -251,7 +246,7 @@ def summarise_factor(values, factor, edges):
     values : array_like of float
         NaN entries (an undefined angle) are counted as ``undefined`` and
         otherwise left out.
-    factor : augplan.factors.Factor
+    factor : augplan.measure.factors.Factor
     edges : array_like
         Histogram bin edges.
 
@@ -628,7 +623,7 @@ def _joint_field_coverage(samples, knn_rng, messages):
 
 
 def _suggestions(samples, shortcuts, poorly_covered, size, messages):
-    """A transform and range for each persisting shortcut or poorly covered factor."""
+    """The `Suggestion` rows: a transform and range for each persisting shortcut or poorly covered factor."""
     suggestions, sample_images = [], None
     for name in FACTORS:
         # A shortcut the recipe already breaks needs no further suggestion.
@@ -641,7 +636,7 @@ def _suggestions(samples, shortcuts, poorly_covered, size, messages):
             name, samples.original, samples.train_labels, None if samples.field is None else samples.field[name],
             is_flagged, name in poorly_covered, sample_images)
         if suggestion is not None:
-            suggestions.append(suggestion)
+            suggestions.append(Suggestion.from_json(suggestion))
         if note is not None:
             messages.append(note)
     return suggestions
@@ -652,7 +647,7 @@ def analyse_coverage(dataset, recipe, *, rng, field=None, size=64, workers=1, qu
 
     Parameters
     ----------
-    dataset : augplan.data.dataset.Dataset
+    dataset : augplan.data.Dataset
     recipe : augplan.recipe.parse.Recipe
         Its ``copies`` augmented copies of each training image make the
         augmented set, as in training and in ``augplan evaluate``.

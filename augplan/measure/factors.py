@@ -2,7 +2,7 @@
 
 Every factor function takes a uint8 batch ``(N, H, W, 3)`` (RGB, sRGB
 encoded) and returns an ``(N,)`` float64 array, vectorised over the batch
-except where noted. Colour maths comes from `augplan.colour`; nothing here
+except where noted. Colour maths comes from `augplan.imaging.colour`; nothing here
 re-implements it. Luminance means BT.709 relative luminance of linear light
 in [0, 1] throughout.
 
@@ -36,9 +36,8 @@ from typing import Callable
 
 import cv2
 import numpy as np
-from skimage.filters import threshold_otsu
 
-from augplan.imaging.colour import check_rgb_batch, relative_luminance, rgb_to_hsv
+from augplan.imaging.colour import check_rgb_batch, relative_luminance
 
 __all__ = [
     "REDUCE_FROM",
@@ -247,7 +246,7 @@ def hue(images):
     Notes
     -----
     Weighting by saturation keeps near-grey pixels, whose hue is noise, from
-    pulling the mean; the hexcone HSV model comes from `augplan.colour`. At
+    pulling the mean; the hexcone HSV model comes from `augplan.imaging.colour`. At
     sides of `REDUCE_FROM` (64) pixels or more the mean runs over every
     second pixel of every second row (a regular sample of a quarter of the
     pixels); on the 2,000 crops of 128 x 128 of

@@ -18,6 +18,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from augplan.thresholds import CONFIDENCE
+
 __all__ = [
     "wilson_interval",
     "GainTest",
@@ -36,7 +38,7 @@ def _check_confidence(confidence):
     return confidence
 
 
-def wilson_interval(successes, n, confidence=0.95):
+def wilson_interval(successes, n, confidence=CONFIDENCE):
     """Wilson score interval for a binomial proportion.
 
     Parameters
@@ -45,7 +47,7 @@ def wilson_interval(successes, n, confidence=0.95):
         Number of successes, ``0 <= successes <= n``.
     n : int or array_like of int
         Number of trials (broadcast against ``successes``).
-    confidence : float, default 0.95
+    confidence : float, default CONFIDENCE (0.95)
         Two-sided confidence level in (0, 1).
 
     Returns
@@ -240,7 +242,7 @@ def _p_value_and_interval(lows, highs, exact, alpha):
     return p_value, float(np.sort(lows)[needed - 1]), float(np.sort(highs)[::-1][needed - 1])
 
 
-def sign_flip_test(differences, rng, n_resamples=SIGN_FLIP_RESAMPLES, confidence=0.95):
+def sign_flip_test(differences, rng, n_resamples=SIGN_FLIP_RESAMPLES, confidence=CONFIDENCE):
     """Sign-flip permutation test of a mean difference, and the interval it implies.
 
     Parameters
@@ -251,7 +253,7 @@ def sign_flip_test(differences, rng, n_resamples=SIGN_FLIP_RESAMPLES, confidence
         Source of the random sign patterns (unused when ``n <= 13``).
     n_resamples : int, default 9999
         Random sign patterns when ``n > 13``.
-    confidence : float, default 0.95
+    confidence : float, default CONFIDENCE (0.95)
         Level of the interval; the test's level is ``1 - confidence``.
 
     Returns
@@ -320,7 +322,8 @@ def sign_flip_test(differences, rng, n_resamples=SIGN_FLIP_RESAMPLES, confidence
                     n_images=int(n), exact=bool(exact))
 
 
-def paired_gain_test(correct_base, correct_new, rng, n_resamples=SIGN_FLIP_RESAMPLES, confidence=0.95):
+def paired_gain_test(correct_base, correct_new, rng, n_resamples=SIGN_FLIP_RESAMPLES,
+                     confidence=CONFIDENCE):
     """Accuracy gain of a new arm over a base arm, with the image as the unit.
 
     Parameters

@@ -11,6 +11,7 @@ from augplan.coverage import coverage
 from augplan.imaging.colour import encode_linear_to_uint8
 from augplan.data import open_dataset
 from augplan.measure.factors import FACTORS
+from augplan.measure.shortcuts import ALL_FACTORS
 from augplan.recipe.parse import parse_recipe
 
 
@@ -167,7 +168,7 @@ def test_relighting_recipe_breaks_the_shortcut(reports):
     row = _row(reports["relight"], "brightness")
     assert row["flagged"] and not row["persists"]
     assert row["augmented"] < 0.7
-    combined = _row(reports["relight"], coverage.ALL_FACTORS)
+    combined = _row(reports["relight"], ALL_FACTORS)
     assert combined["combined"] and not combined["flagged"]
 
 
@@ -297,3 +298,13 @@ def test_a_suggestion_spanning_a_wide_gap_stays_inside_the_bounds_and_the_cap(na
     cap = PLAUSIBLE_FACTOR[op]
     assert 1.0 / cap <= low < 1.0 < high <= cap
     assert "capped at the plausible" in suggestion["reason"]
+
+
+def test_suggestions_are_typed_rows_whose_json_keeps_its_keys(reports):
+    from augplan.results import Suggestion
+
+    suggestions = reports["none"]["suggestions"]
+    assert suggestions and all(isinstance(s, Suggestion) for s in suggestions)
+    brightness = next(s for s in suggestions if s.factor == "brightness")
+    assert list(json.loads(json.dumps(brightness))) == ["factor", "op", "parameter", "range", "reason"]
+    assert brightness.range == brightness["range"]
