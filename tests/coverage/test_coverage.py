@@ -308,3 +308,18 @@ def test_suggestions_are_typed_rows_whose_json_keeps_its_keys(reports):
     brightness = next(s for s in suggestions if s.factor == "brightness")
     assert list(json.loads(json.dumps(brightness))) == ["factor", "op", "parameter", "range", "reason"]
     assert brightness.range == brightness["range"]
+
+
+def test_each_images_draws_do_not_depend_on_how_the_images_are_chunked(lighting_shortcut, monkeypatch):
+    # Keyed streams (augplan.seeding): an image's draws follow its position alone.
+    def augmented():
+        samples = coverage.measure_coverage_samples(lighting_shortcut, BREAK_LIGHTING, size=16,
+                                                    rng=np.random.default_rng(4))
+        return samples.augmented["brightness"]
+
+    whole = augmented()
+    monkeypatch.setattr(coverage, "_CHUNK", 5)
+    np.testing.assert_array_equal(augmented(), whole)
+    other = coverage.measure_coverage_samples(lighting_shortcut, BREAK_LIGHTING, size=16,
+                                              rng=np.random.default_rng(5)).augmented["brightness"]
+    assert not np.array_equal(other, whole)
