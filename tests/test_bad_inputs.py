@@ -742,7 +742,7 @@ def test_unwritable_cache_place_warns_and_evaluates(tmp_path, run_cli):
 
 def test_exif_orientation_is_applied_on_read(tmp_path):
     # A 24 x 16 (H x W) image tagged Orientation 6 displays as 16 x 24.
-    from augplan.data.dataset import read_image
+    from augplan.data import read_image
 
     exif = Image.Exif()
     exif[0x0112] = 6
@@ -837,7 +837,7 @@ def test_a_large_image_is_decoded_at_the_analysis_side(tmp_path):
     Image.fromarray(rgba).save(path, compress_level=1)
     del rgba
     script = ("import resource, sys\n"
-              "from augplan.data.dataset import load_images\n"
+              "from augplan.data import load_images\n"
               "before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
               "batch = load_images([sys.argv[1]], 64)\n"
               "after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
@@ -851,10 +851,10 @@ def test_a_large_image_is_decoded_at_the_analysis_side(tmp_path):
 
 
 def test_an_image_over_the_pixel_bound_is_listed_and_skipped(tmp_path, monkeypatch, run_cli):
-    import augplan.data.dataset as dataset_module
+    import augplan.data.decoding as decoding_module
 
     ctx = Ctx(tmp_path, monkeypatch)
-    monkeypatch.setattr(dataset_module, "MAX_IMAGE_PIXELS", 30 * 30)
+    monkeypatch.setattr(decoding_module, "MAX_IMAGE_PIXELS", 30 * 30)
     ctx.image("train/alpha/big.png", np.full((40, 40, 3), 90, np.uint8))
     result = run_cli(*ctx.preview())
     assert result.code == 0, result.err
@@ -1166,7 +1166,7 @@ def test_a_reduced_large_image_matches_pillows_full_size_resize(tmp_path):
     # by under 2 levels; 4 allows for rounding at both stages.
     from PIL import ImageOps
 
-    from augplan.data.dataset import REDUCE_ABOVE_PIXELS, load_images
+    from augplan.data.decoding import REDUCE_ABOVE_PIXELS, load_images
 
     side = 2100
     assert side * side > REDUCE_ABOVE_PIXELS

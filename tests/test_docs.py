@@ -19,7 +19,8 @@ def test_readme_limits_list_every_bound_with_its_value():
     from pathlib import Path
 
     from augplan.cli import COUNT_BOUNDS
-    from augplan.data.dataset import MAX_IMAGE_BYTES, MAX_IMAGE_PIXELS, MAX_MANIFEST_BYTES, REDUCE_ABOVE_PIXELS
+    from augplan.data.decoding import MAX_IMAGE_BYTES, MAX_IMAGE_PIXELS, REDUCE_ABOVE_PIXELS
+    from augplan.data.manifest import MAX_MANIFEST_BYTES
     from augplan.parallel import MAX_WORKERS
     from augplan.recipe.parse import MAX_COPIES, MAX_NAME_BYTES, MAX_RECIPE_BYTES, MAX_SEED, MAX_TRANSFORMS
     from augplan.thresholds import MIN_AUDIT_IMAGES
