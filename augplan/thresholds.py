@@ -30,6 +30,7 @@ __all__ = [
     "LINK_BROKEN_SHARE",
     "COVERAGE_NEIGHBOURS",
     "COVERAGE_FLOOR",
+    "COVERAGE_RANGE_PERCENTILES",
     "BLURRIER_FIELD_RATIO",
     "NEAR_DUPLICATE_BITS",
     "NEAR_DUPLICATE_SSIM",
@@ -172,6 +173,10 @@ COVERAGE_NEIGHBOURS = 5
 # Share of field images inside the augmented range below which coverage is
 # reported as short (common practice, no source).
 COVERAGE_FLOOR = 0.9
+# The augmented range a field image must fall in to count as covered: the
+# augmented training set's 1st to 99th percentile, so a few extreme draws do
+# not stretch it (common practice, no source).
+COVERAGE_RANGE_PERCENTILES = (1.0, 99.0)
 # Plausibility caps of the ranges `coverage` and `draft` suggest, on top of
 # the recipe reader's bounds: a multiplicative factor at most this far from 1
 # either way (the range [1/cap, cap]). Brightness multiplies linear light, so

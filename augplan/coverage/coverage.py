@@ -51,7 +51,7 @@ from augplan.measure.shortcuts import (SHORTCUT_RULE, audit_shortcuts, factor_co
 from augplan.results import CoverageResult, Suggestion, json_number as _number
 from augplan.recipe.ops import OP_TABLE
 from augplan.seeding import keyed_generator, require_generator, stream_root
-from augplan.thresholds import COVERAGE_FLOOR, COVERAGE_NEIGHBOURS, PLAUSIBLE_FACTOR
+from augplan.thresholds import COVERAGE_FLOOR, COVERAGE_NEIGHBOURS, COVERAGE_RANGE_PERCENTILES, PLAUSIBLE_FACTOR
 from augplan.parallel import parallel_map
 from augplan.augment.transforms import apply_op_batch, augment_batch
 
@@ -298,7 +298,7 @@ def _in_range_share(field_values, augmented_values, factor):
             return None
         augmented_values = _unwrap(augmented_values, centre, factor.period)
         field_values = _unwrap(field_values, centre, factor.period)
-    low, high = np.percentile(augmented_values, [1, 99])
+    low, high = np.percentile(augmented_values, list(COVERAGE_RANGE_PERCENTILES))
     return float(np.mean((field_values >= low) & (field_values <= high)))
 
 
@@ -558,6 +558,12 @@ def measure_coverage_samples(dataset, recipe, *, rng, field=None, size=64, worke
         copies=int(copies))
 
 
+def _percentile_span():
+    """`COVERAGE_RANGE_PERCENTILES` as the messages write it ("1-99%")."""
+    low, high = COVERAGE_RANGE_PERCENTILES
+    return f"{low:g}-{high:g}%"
+
+
 def _widening(samples, messages):
     """Per-factor summaries (original, augmented, field) and the poorly covered factors."""
     factors_out, poorly_covered = {}, []
@@ -584,7 +590,7 @@ def _widening(samples, messages):
             if share is not None and share < COVERAGE_FLOOR:
                 poorly_covered.append(name)
                 messages.append(f"Only {share:.0%} of field images have a {name} inside the "
-                                f"augmented training set's 1-99% range.")
+                                f"augmented training set's {_percentile_span()} range.")
         factors_out[name] = entry
     return factors_out, poorly_covered
 
