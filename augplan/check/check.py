@@ -48,6 +48,7 @@ from augplan.check.screen import run_screen, screen_transform
 from augplan.check.shortcut import shortcut_findings
 from augplan.check.verdicts import draft, transform_verdict
 from augplan.check.witnesses import confirm_all, network_folds
+from augplan.data.dataset import load_images
 from augplan.errors import BadInputError
 from augplan.measure.models import FALLBACK_NAME, FALLBACK_WARNING
 from augplan.results import CheckResult
@@ -129,6 +130,22 @@ def _baseline_document(baseline, labels, classes):
             for c in range(len(classes))}
 
 
+def _plans(recipe, classes, labels, magnitudes, rng):
+    """Each step's `augplan.check.plan.Plan`, its draws from the stream keyed by its position."""
+    root = stream_root(rng)
+    return [plan_transform(t, classes, labels, magnitudes, keyed_generator(root, i))
+            for i, t in enumerate(recipe.transforms)]
+
+
+def _model_warnings(network, baseline):
+    """Warnings about the models: the network's fallback, a weak proxy."""
+    warnings = [FALLBACK_WARNING] if network is not None and network.name == FALLBACK_NAME else []
+    if baseline.weak:
+        warnings.append(f"the feature model is weak (cross-validated accuracy {baseline.cv_accuracy:.2f}, "
+                        f"chance {baseline.chance:.2f}); nothing is called safe")
+    return warnings
+
+
 def check_recipe(dataset, recipe, *, rng, model=None, sample=None, size=64, magnitudes=7, workers=1, quiet=True,
                  timings=None):
     """Check every transform of a recipe for label safety (screen, then confirmation).
@@ -142,20 +159,16 @@ def check_recipe(dataset, recipe, *, rng, model=None, sample=None, size=64, magn
     rng : numpy.random.Generator
         Split once into one child per purpose (sample, folds, regions,
         draws, screen, bootstrap, network, shortcut pass, evidence); work
-        units take keyed streams of their child, so results depend on
-        neither ``workers`` nor the recipe's other steps. Make it with
-        ``numpy.random.default_rng(0)`` (the command line makes it from ``--seed``).
+        units take keyed streams of their child (keyed by the step's
+        position), so results depend neither on ``workers`` nor on the
+        steps that follow. The command line makes it from ``--seed``.
     model : {'cnn', 'linear'} or str or FeatureModel, optional
-        The model trained on replaced images in confirmation, the first
-        witness of a break (`augplan.measure.models`): None (the default,
-        `CHECK_DEFAULT_MODEL`, the linear proxy: the network as first witness
-        gave wrong verdicts on the outside sets of the tests) or ``'linear'``,
-        the proxy; ``'cnn'``, the network;
-        ``'module:callable'``, the team's training function. The screen,
-        the safety test (originals plus copies) and the safe limits use the
-        linear proxy in every case; a `FeatureModel` replaces that proxy and
-        serves as the first witness too. ``model.confirmation`` in the
-        document names the first witness.
+        The first witness of a break, the model trained on replaced images
+        (`augplan.measure.models`): None (`CHECK_DEFAULT_MODEL`, the linear
+        proxy) or ``'linear'``; ``'cnn'``, the network; ``'module:callable'``,
+        the team's training function. The screen, the safety test and the
+        safe limits use the linear proxy in every case; a `FeatureModel`
+        replaces that proxy and serves as the first witness too.
     sample : int, optional
         At most this many training images per class (drawn from ``rng``).
     size : int, default 64
@@ -169,20 +182,15 @@ def check_recipe(dataset, recipe, *, rng, model=None, sample=None, size=64, magn
         Hide the progress bar.
     timings : dict, optional
         Filled with the wall time in seconds of each stage (``"baseline"``,
-        ``"screen"``, ``"confirmation"``, ``"safe limits"``); kept out of the
-        document so that it stays the same for the same seed.
+        ``"screen"``, ``"confirmation"``, ``"safe limits"``), kept out of the document.
 
     Returns
     -------
     augplan.results.CheckResult
-        The ``check --json`` document; ``decision_rule`` states the rule.
-        ``transforms`` holds one `augplan.results.TransformVerdict` a step,
-        with ``verdict``, ``decided_by`` (``"screen"`` or
-        ``"confirmation"``), ``swaps`` (confirmed, largest first),
-        ``other_swaps``, ``classes``, ``magnitudes`` and ``safe_limit``;
-        ``evidence`` (not in the JSON) the `augplan.results.EvidenceItem`
-        examples of the steps not safe, for
-        `augplan.render.sheets.evidence_sheets` to draw.
+        The ``check --json`` document: ``transforms`` holds one
+        `augplan.results.TransformVerdict` a step; ``evidence`` (not in the
+        JSON) the `augplan.results.EvidenceItem` examples of the steps not
+        safe, for `augplan.render.sheets.evidence_sheets` to draw.
 
     Raises
     ------
@@ -190,23 +198,15 @@ def check_recipe(dataset, recipe, *, rng, model=None, sample=None, size=64, magn
         Fewer than two classes with at least 3 training images, an unusable
         ``sample`` or ``magnitudes``.
     """
-    from augplan.data.dataset import load_images
-
     _options(sample, magnitudes)
     streams, clock, warnings = _Streams.spawn(rng), _Clock(timings), []
     records, labels, classes = sample_ = checked_sample(dataset, sample, streams.sample, warnings)
     images = load_images(records, size=size)
     template, network = check_models(model, streams.model)
-    if network is not None and network.name == FALLBACK_NAME:
-        warnings.append(FALLBACK_WARNING)
     baseline = fit_baseline(images, labels, len(classes), template, (streams.folds, streams.regions), workers, quiet)
-    if baseline.weak:
-        warnings.append(f"the feature model is weak (cross-validated accuracy {baseline.cv_accuracy:.2f}, "
-                        f"chance {baseline.chance:.2f}); nothing is called safe")
+    warnings.extend(_model_warnings(network, baseline))
     clock.lap("baseline")
-    draw_root = stream_root(streams.draws)
-    plans = [plan_transform(t, classes, labels, magnitudes, keyed_generator(draw_root, i))
-             for i, t in enumerate(recipe.transforms)]
+    plans = _plans(recipe, classes, labels, magnitudes, streams.draws)
     context = _context(recipe, sample_, size, plans, baseline, template, network, streams.network_folds)
     screen = run_screen(context, images, plans, baseline, streams.screen, workers, quiet)
     screened = [screen_transform(plan, screen, t, labels, baseline) if len(plan.scope) else None

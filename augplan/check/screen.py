@@ -11,7 +11,7 @@ it witnesses a swap ``A -> B`` when `augplan.check.rules.witness_holds`.
 
 Every (transform, magnitude) is a work unit with its own keyed stream
 (`augplan.seeding.keyed_generator` with the key ``(transform, position)``),
-so a result depends on neither the worker count nor the recipe's other steps.
+so a result depends neither on the worker count nor on the steps that follow.
 """
 
 from __future__ import annotations

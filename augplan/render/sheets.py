@@ -123,11 +123,7 @@ def contact_sheet(rows, row_labels, *, column_labels=None, cell=96, title=None, 
     # than the cell (small images), so no text runs into the next column.
     texts = list(column_labels or ()) + [_shorten(text) for row in (captions or ()) for text in row if text]
     slot = max([cell] + [_text_size(font, text)[0] for text in texts])
-    top = 0
-    if title:
-        top += line + PAD
-    if column_labels is not None:
-        top += line
+    top = (line + PAD if title else 0) + (line if column_labels is not None else 0)
     caption_band = line if captions and any(text for row in captions for text in row) else 0
     row_height = cell + caption_band + PAD
     width = left + PAD + n_columns * (slot + PAD)
