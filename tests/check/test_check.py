@@ -540,7 +540,7 @@ def test_demo_draft_is_flagged_and_gentle_steps_pass():
     # mirror-image chevrons and glazes told apart only by hue.
     from pathlib import Path
 
-    root = Path(__file__).resolve().parent.parent / "demo_images"
+    root = Path(__file__).resolve().parents[2] / "demo_images"
     if not (root / "train").is_dir():
         pytest.skip("demo_images/ is not in this checkout")
     recipe = Recipe(name="demo", transforms=(
