@@ -40,7 +40,7 @@ import numpy as np
 
 from augplan.check.decoded import sample_key
 from augplan.check.evidence import evidence_items
-from augplan.check.folds import check_models, fit_baseline, sklearn_seed
+from augplan.check.folds import check_models, fit_baseline
 from augplan.check.plan import plan_transform
 from augplan.check.rules import DECISION_RULE
 from augplan.check.sample import checked_sample
@@ -216,7 +216,7 @@ def check_recipe(dataset, recipe, *, rng, model=None, sample=None, size=64, magn
                          workers, quiet, clock)
     drafts = [draft(t, step, plans[t], screened[t], judged, classes, warnings)
               for t, step in enumerate(recipe.transforms)]
-    findings = shortcut_findings(drafts, images, labels, classes, dataset, size, sklearn_seed(streams.shortcut))
+    findings = shortcut_findings(drafts, images, labels, classes, dataset, size, streams.shortcut)
     rows = [transform_verdict(fields, findings.get(fields["index"])) for fields in drafts]
     return CheckResult(recipe=recipe.name, model=_model_document(baseline, context, network, size),
                        baseline=_baseline_document(baseline, labels, classes), transforms=rows, warnings=warnings,

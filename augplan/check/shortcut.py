@@ -119,7 +119,7 @@ def _finding(fields, images, labels, classes, field, seed):
     return None
 
 
-def shortcut_findings(drafts, images, labels, classes, dataset, size, seed):
+def shortcut_findings(drafts, images, labels, classes, dataset, size, rng):
     """Findings of the lighting-shortcut pass: ``{transform index: ShortcutFinding}``.
 
     Parameters
@@ -132,16 +132,17 @@ def shortcut_findings(drafts, images, labels, classes, dataset, size, seed):
         Its labelled ``field`` split, if any, can settle a finding.
     size : int
         Side the field images are read at.
-    seed : int
-        ``random_state`` of the cross-validation folds of the scores (from
-        the check's shortcut stream).
+    rng : numpy.random.Generator
+        The check's shortcut stream: the ``random_state`` of the scores'
+        cross-validation folds is drawn from it.
 
     Returns
     -------
     dict
     """
-    field = _Field(dataset, classes, size)
-    findings = {}
+    from augplan.check.folds import sklearn_seed
+
+    field, seed, findings = _Field(dataset, classes, size), sklearn_seed(rng), {}
     for fields in drafts:
         if fields["verdict"] != "safe":
             found = _finding(fields, images, labels, classes, field, seed)

@@ -67,13 +67,13 @@ def test_the_pass_names_a_lighting_move_into_the_class_lighting_singles_out(smal
     from augplan.check.shortcut import shortcut_findings
 
     dataset, images, labels, classes = _sample(small_demo)
-    findings = shortcut_findings([_draft()], images, labels, classes, dataset, 64, 0)
+    findings = shortcut_findings([_draft()], images, labels, classes, dataset, 64, np.random.default_rng(0))
     assert list(findings) == [0]
     assert findings[0].shortcut == {**findings[0].shortcut, "factor": "brightness", "class": "hairline-crack"}
     assert findings[0].shortcut["train_score"] >= 0.9 and "shortcut" in findings[0].note
     # A safe step, and a move no lighting op makes (hue keeps its verdict), are never excused.
     assert shortcut_findings([_draft(verdict="safe"), {**_draft(op="hue"), "index": 1}], images, labels, classes,
-                             dataset, 64, 0) == {}
+                             dataset, 64, np.random.default_rng(0)) == {}
 
 
 def test_the_pass_builds_no_row_and_the_row_is_built_once():
