@@ -41,7 +41,7 @@ import numpy as np
 from augplan.check.decoded import sample_key
 from augplan.check.evidence import evidence_items
 from augplan.check.folds import check_models, fit_baseline
-from augplan.check.plan import plan_transform
+from augplan.check.plan import WorkContext, plan_transform
 from augplan.check.rules import DECISION_RULE
 from augplan.check.sample import checked_sample
 from augplan.check.screen import run_screen, screen_transform
@@ -103,19 +103,18 @@ class _Clock:
 def _context(recipe, sample, size, plans, baseline, template, network, rng):
     """What every work unit of the screen and the confirmation reads (small: records, not images)."""
     records, labels, classes = sample
-    return {"transforms": list(recipe.transforms), "scope": [p.scope for p in plans], "records": records,
-            "size": size, "sample_key": sample_key(records, size), "fill": recipe.fill, "template": template,
-            "models": baseline.models, "n_classes": len(classes), "geometry": baseline.geometry,
-            "expected": [p.expected for p in plans], "labels": labels, "folds": baseline.folds,
-            "features": baseline.features, "n_folds": len(baseline.models), "draws": [p.draws[0] for p in plans],
-            "values": [p.values for p in plans],
-            "network": network if network is not None and not network.uses_features else None,
-            "network_folds": network_folds(labels, rng)}
+    return WorkContext(
+        transforms=list(recipe.transforms), scope=[p.scope for p in plans], records=records, size=size,
+        sample_key=sample_key(records, size), fill=recipe.fill, template=template, models=baseline.models,
+        n_classes=len(classes), geometry=baseline.geometry,
+        expected=[p.expected for p in plans], labels=labels, folds=baseline.folds, features=baseline.features,
+        n_folds=len(baseline.models), draws=[p.draws[0] for p in plans], values=[p.values for p in plans],
+        network=network if network is not None and not network.uses_features else None,
+        network_folds=network_folds(labels, rng))
 
 
-def _model_document(baseline, context, network, size):
-    witness = context["network"].name if context["network"] is not None else (
-        network.name if network is not None else "linear")
+def _model_document(baseline, network, size):
+    witness = network.name if network is not None else "linear"
     return {"cv_accuracy": round(baseline.cv_accuracy, 4), "chance": round(baseline.chance, 4),
             "weak": baseline.weak, "folds": len(baseline.models),
             # The model trained on replaced images (the first witness of a break) and
@@ -218,7 +217,7 @@ def check_recipe(dataset, recipe, *, rng, model=None, sample=None, size=64, magn
               for t, step in enumerate(recipe.transforms)]
     findings = shortcut_findings(drafts, images, labels, classes, dataset, size, streams.shortcut)
     rows = [transform_verdict(fields, findings.get(fields["index"])) for fields in drafts]
-    return CheckResult(recipe=recipe.name, model=_model_document(baseline, context, network, size),
+    return CheckResult(recipe=recipe.name, model=_model_document(baseline, network, size),
                        baseline=_baseline_document(baseline, labels, classes), transforms=rows, warnings=warnings,
                        decision_rule=DECISION_RULE, n_images=int(len(labels)),
                        evidence=evidence_items(rows, screen, plans, list(recipe.transforms), sample_, recipe.fill,

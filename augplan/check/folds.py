@@ -52,10 +52,6 @@ def fit_fold(template, features, labels, folds, fold):
     return model.fit_features(features[train], labels[train])
 
 
-def _fit_fold_unit(context, fold):
-    return fit_fold(context["template"], context["features"], context["labels"], context["folds"], fold)
-
-
 def out_of_fold_proba(models, features, folds, n_classes):
     """Each row's class probabilities from the fold model that did not see its source."""
     proba = np.zeros((len(features), n_classes))
@@ -109,8 +105,7 @@ def fit_baseline(images, labels, n_classes, template, rngs, workers, quiet):
     features = template.featurize(images)
     counts = np.bincount(labels, minlength=n_classes)
     folds = stratified_folds(labels, int(min(MAX_FOLDS, counts.min())), fold_rng)
-    context = {"template": template, "features": features, "labels": labels, "folds": folds}
-    models = parallel_map(functools.partial(_fit_fold_unit, context), range(int(folds.max()) + 1),
+    models = parallel_map(functools.partial(fit_fold, template, features, labels, folds), range(int(folds.max()) + 1),
                           workers=workers, desc="fitting the proxy on folds", quiet=quiet)
     proba = out_of_fold_proba(models, features, folds, n_classes)
     predictions = np.argmax(proba, axis=1)

@@ -1,15 +1,22 @@
-"""What one transform is checked on: its scope, expected classes, magnitude grid and training draws."""
+"""What the checker's work is done on: each transform's plan, and the context every work unit reads.
+
+A `Plan` says what one transform is checked on (its scope, expected
+classes, magnitude grid and training draws); `WorkContext` holds what the
+screen's and the confirmation's work units share. Both are small and
+picklable: the images travel as records (`augplan.check.decoded`).
+"""
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from augplan.check.rules import nested_ranges
 
-__all__ = ["Plan", "plan_transform"]
+__all__ = ["Plan", "WorkContext", "plan_transform", "kept_rows"]
 
 
 @dataclass
@@ -35,6 +42,40 @@ class Plan:
     values: list
     ranges: list
     draws: list
+
+
+@dataclass(frozen=True)
+class WorkContext:
+    """What every work unit of the screen and the confirmation reads.
+
+    Per transform (lists in recipe order): ``transforms``, ``scope``,
+    ``expected``, ``draws`` (the whole range's) and ``values`` of its `Plan`.
+    The sample: ``records``, ``size``, ``sample_key`` (`augplan.check.decoded`),
+    ``labels``, ``n_classes``. The proxy's out-of-fold baseline: ``template``,
+    ``models``, ``folds``, ``n_folds``, ``features``, ``geometry`` (the
+    `augplan.check.regions.Regions`). ``network`` is the first witness when
+    it trains on pixels (else None) and ``network_folds`` its folds.
+    """
+
+    transforms: list
+    scope: list
+    records: list
+    size: int
+    sample_key: str
+    fill: str
+    template: Any
+    models: list
+    n_classes: int
+    geometry: Any
+    expected: list
+    labels: np.ndarray
+    folds: np.ndarray
+    features: np.ndarray
+    n_folds: int
+    draws: list
+    values: list
+    network: Any
+    network_folds: np.ndarray
 
 
 def plan_transform(transform, classes, labels, magnitudes, rng):

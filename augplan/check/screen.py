@@ -66,17 +66,17 @@ def _screen_unit(context, unit):
     from augplan.augment.transforms import apply_op_batch, params_at
 
     transform_index, magnitude, rng, keep_rows = unit
-    transform = context["transforms"][transform_index]
-    sources = context["scope"][transform_index]
-    images = decoded.decoded_sample(context["records"], context["size"], context["sample_key"])
-    params = params_at(transform, 0.0 if magnitude is None else magnitude, context["fill"])
+    transform = context.transforms[transform_index]
+    sources = context.scope[transform_index]
+    images = decoded.decoded_sample(context.records, context.size, context.sample_key)
+    params = params_at(transform, 0.0 if magnitude is None else magnitude, context.fill)
     moved_images = apply_op_batch(images[sources], transform.op, params, rng)
-    features = context["template"].featurize(moved_images)
-    proba = out_of_fold_proba(context["models"], features, context["folds"][sources], context["n_classes"])
-    ratios = context["geometry"].ratios(features, sources)
-    expected = context["expected"][transform_index][context["labels"][sources]]
+    features = context.template.featurize(moved_images)
+    proba = out_of_fold_proba(context.models, features, context.folds[sources], context.n_classes)
+    ratios = context.geometry.ratios(features, sources)
+    expected = context.expected[transform_index][context.labels[sources]]
     destinations = locate(ratios, proba, expected)
-    moves = _moves(destinations, expected, sources, magnitude, context["labels"])
+    moves = _moves(destinations, expected, sources, magnitude, context.labels)
     # Rows the confirmation trains on at this magnitude (one per image).
     kept = np.asarray(features[keep_rows], dtype=np.float32)
     return Outcome(destinations, moves, kept, ratios, np.argmax(proba, axis=1))
@@ -107,7 +107,7 @@ def run_screen(context, images, plans, baseline, rng, workers, quiet):
     for t_index, plan in enumerate(plans):
         if not len(plan.scope):
             continue
-        transform = context["transforms"][t_index]
+        transform = context.transforms[t_index]
         identity = OPS[transform.op].identity
         for position, value in enumerate(plan.values):
             keep = kept_rows(plan, position)
@@ -120,7 +120,7 @@ def run_screen(context, images, plans, baseline, rng, workers, quiet):
                 work.append((t_index, position, keep))
     root = stream_root(rng)
     units = [(t, plans[t].values[p], keyed_generator(root, t, p), keep) for t, p, keep in work]
-    with decoded.holding(context["sample_key"], images):
+    with decoded.holding(context.sample_key, images):
         results = parallel_map(functools.partial(_screen_unit, context), units, workers=workers,
                                desc="screening transforms", quiet=quiet)
     known.update({(t, p): result for (t, p, _), result in zip(work, results)})

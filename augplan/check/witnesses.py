@@ -77,10 +77,10 @@ def _training_set(plan, results, t_index, range_index, baseline, labels, mode):
 def _confirm_unit(context, unit):
     """Out-of-fold predictions of held-out originals by the model trained with the transform."""
     train_features, train_labels, train_folds = unit
-    features, folds = context["features"], context["folds"]
+    features, folds = context.features, context.folds
     predictions = np.empty(len(features), dtype=np.int64)
-    for fold in range(context["n_folds"]):
-        model = fit_fold(context["template"], train_features, train_labels, train_folds, fold)
+    for fold in range(context.n_folds):
+        model = fit_fold(context.template, train_features, train_labels, train_folds, fold)
         rows = folds == fold
         predictions[rows] = model.predict_features(features[rows])
     return predictions
@@ -107,15 +107,15 @@ def _replaced_images(context, images, t_index, rng):
     """
     from augplan.augment.transforms import apply_op_batch, params_at
 
-    transform = context["transforms"][t_index]
-    scope, draws, values = context["scope"][t_index], context["draws"][t_index], context["values"][t_index]
-    replaced, labels = images.copy(), context["labels"].copy()
+    transform = context.transforms[t_index]
+    scope, draws, values = context.scope[t_index], context.draws[t_index], context.values[t_index]
+    replaced, labels = images.copy(), context.labels.copy()
     for position, generator in zip(np.unique(draws), rng.spawn(len(np.unique(draws)))):
         rows = scope[draws == position]
         value = values[position]
-        params = params_at(transform, 0.0 if value is None else value, context["fill"])
+        params = params_at(transform, 0.0 if value is None else value, context.fill)
         replaced[rows] = apply_op_batch(images[rows], transform.op, params, generator)
-    labels[scope] = context["expected"][t_index][labels[scope]]
+    labels[scope] = context.expected[t_index][labels[scope]]
     return replaced, labels
 
 
@@ -130,15 +130,15 @@ def _network_unit(context, unit):
     from augplan.parallel import tick
 
     t_index, fold, rng = unit
-    images = decoded.decoded_sample(context["records"], context["size"], context["sample_key"])
+    images = decoded.decoded_sample(context.records, context.size, context.sample_key)
     draw_rng, model_rng = rng.spawn(2)
     if t_index is None:
-        train_images, train_labels = images, context["labels"]
+        train_images, train_labels = images, context.labels
     else:
         train_images, train_labels = _replaced_images(context, images, t_index, draw_rng)
-    folds = context["network_folds"]
+    folds = context.network_folds
     train = folds != fold
-    predictor = context["network"].train(train_images[train], train_labels[train], model_rng, None,
+    predictor = context.network.train(train_images[train], train_labels[train], model_rng, None,
                                          progress=tick)
     return np.asarray(predictor.predict(images[folds == fold])).astype(np.int64)
 
@@ -149,17 +149,17 @@ def _network_witness(context, images, jobs, rng, workers, quiet):
     Returns ``{None: baseline predictions, t_index: predictions of the
     network trained on replaced images}`` over all checked images.
     """
-    folds = context["network_folds"]
+    folds = context.network_folds
     n_folds = int(folds.max()) + 1
     root = stream_root(rng)
     keys = [None] + sorted({t for t, _ in jobs})
     units = [(t, fold, keyed_generator(root, 0 if t is None else t + 1, fold))
              for t in keys for fold in range(n_folds)]
-    epochs = getattr(context["network"], "epochs", None)
+    epochs = getattr(context.network, "epochs", None)
     ticks = epochs(int(np.sum(folds != 0))) if epochs else None
-    with decoded.holding(context["sample_key"], images):
+    with decoded.holding(context.sample_key, images):
         outputs = parallel_map(functools.partial(_network_unit, context), units, workers=workers, ticks=ticks,
-                               quiet=quiet, desc=f"confirming with the {context['network'].name} model"
+                               quiet=quiet, desc=f"confirming with the {context.network.name} model"
                                                  + (f" ({ticks} epochs a fit)" if ticks else ""))
     predictions = {}
     for (t, fold, _), predicted in zip(units, outputs):
@@ -189,11 +189,11 @@ def confirm_all(context, images, plans, screen, screened, baseline, rngs, worker
         ``{(transform, range): augplan.check.confirm.RangeVerdict}``.
     """
     boot_rng, network_rng = rngs
-    labels, n_classes = context["labels"], context["n_classes"]
+    labels, n_classes = context.labels, context.n_classes
     whole, nested = _jobs(plans, screened)
     boot_root = stream_root(boot_rng)
     witness = (_network_witness(context, images, whole, network_rng, workers, quiet)
-               if context.get("network") is not None and whole else None)
+               if context.network is not None and whole else None)
 
     def judge_jobs(jobs):
         trained = _run_linear(context, jobs, plans, screen, baseline, labels, workers, quiet)
