@@ -54,3 +54,23 @@ def test_relabel_needs_typical_moves_in_both_directions(typical, relabel, only):
     assert suggestion.get("relabel") == relabel
     assert suggestion.get("only", ["a", "b", "c"]) == only
 
+
+
+def test_swap_rows_read_in_the_transforms_direction_and_round_trip_their_json():
+    # A rise of the confusion b -> a on originals: a's transformed images took b's look.
+    import json
+
+    from augplan.check.verdicts import swap_rows
+    from augplan.results import Swap, TransformVerdict
+
+    (row,) = swap_rows([PairChange(1, 0, 40, 0.05, 0.65, 0.6, 0.4, 0.8, 26)], ("a", "b"))
+    assert isinstance(row, Swap) and (row["from"], row["to"], row["confusion"]) == ("a", "b", "b -> a")
+    assert list(row)[:3] == ["from", "to", "confusion"] and "from_" not in row
+    fields = {"index": 0, "op": "flip", "params": {"axis": "horizontal"}, "change_rate": 0.6,
+              "change_rate_ci": [0.5, 0.7], "leave_rate": 0.0, "leave_rate_ci": [0.0, 0.1], "n": 40,
+              "magnitudes": [], "screen_swaps": [], "evidence_sheet": None, "verdict": "breaks",
+              "decided_by": "confirmation", "swaps": [row], "other_swaps": [], "classes": {}, "safe_limit": None,
+              "suggestion": None}
+    document = json.loads(json.dumps(TransformVerdict(**fields)))
+    again = TransformVerdict.from_json(document)
+    assert again == document and isinstance(again.swaps[0], Swap) and again.swaps[0].from_ == "a"
