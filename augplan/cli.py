@@ -414,8 +414,11 @@ def _emit(console, args, result, table):
 
 
 def _run_check(args, console):
-    from augplan.check.check import check_recipe
+    import numpy as np
+
+    from augplan.check import check_recipe
     from augplan.render import text as tables
+    from augplan.render.sheets import write_evidence_sheets
 
     dataset = _open_data(args)
     _report_dataset(console, dataset)
@@ -423,8 +426,10 @@ def _run_check(args, console):
         _ensure_parent(args.evidence, dataset, folder=True)
     leaks = _report_leaks(console, dataset)
     recipe = _read_recipes([args.recipe], dataset)[0]
-    result = check_recipe(dataset, recipe, sample=args.sample, seed=args.seed, workers=_execution(args),
-                          quiet=args.quiet, evidence_dir=args.evidence, model=args.model, size=args.side)
+    result = check_recipe(dataset, recipe, rng=np.random.default_rng(args.seed), sample=args.sample,
+                          workers=_execution(args), quiet=args.quiet, model=args.model, size=args.side)
+    if args.evidence is not None:
+        result = result.with_evidence_sheets(write_evidence_sheets(result.evidence, args.evidence))
     return _emit(console, args, _with_leaks(result, leaks), tables.check_table)
 
 

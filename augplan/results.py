@@ -34,6 +34,10 @@ __all__ = [
     "HistoryResult",
     "VettingChange",
     "Suggestion",
+    "TransformVerdict",
+    "Swap",
+    "ScreenSwap",
+    "EvidenceItem",
     "RESULT_TYPES",
     "schema_path",
     "json_number",
@@ -109,6 +113,136 @@ class Record(dict):
 # layer first.
 
 # --- rows of check ---
+
+class _RenamedKeys(Record):
+    """A row whose JSON keys include a Python keyword (``from``): the field is ``from_``."""
+
+    @classmethod
+    def from_json(cls, document):
+        return super().from_json({("from_" if key == "from" else key): value for key, value in document.items()})
+
+    def to_json(self):
+        return {("from" if key == "from_" else key): value for key, value in super().to_json().items()}
+
+
+@dataclass(frozen=True, eq=False)
+class Swap(_RenamedKeys):
+    """A confusion rise measured by the confirmation: ``from``'s transformed images took ``to``'s look.
+
+    The rise is that of the confusion ``to -> from`` on held-out originals
+    (`confusion`) for the model trained on transformed images; ``witnessed``
+    says whether the screen saw ``from``'s images land in ``to``.
+    """
+
+    from_: str
+    to: str
+    confusion: str
+    rate: float
+    rate_ci: list
+    base_rate: float
+    augmented_rate: float
+    moved: int
+    n: int
+    witnessed: bool
+
+
+@dataclass(frozen=True, eq=False)
+class ScreenSwap(_RenamedKeys):
+    """A swap the screen witnessed: share ``rate`` of ``from``'s transformed images called ``to``.
+
+    ``typical`` is the share of them typical of ``to`` and ``typical_low``
+    its lower Wilson 95% bound (the relabel's bar).
+    """
+
+    from_: str
+    to: str
+    rate: float
+    moved: int
+    n: int
+    typical: float
+    typical_low: float
+
+
+@dataclass(frozen=True, eq=False)
+class TransformVerdict(Record):
+    """One entry of ``check``'s ``transforms[]``: a transform's label-safety verdict and its evidence.
+
+    ``swaps`` and ``other_swaps`` hold `Swap` rows, ``screen_swaps``
+    `ScreenSwap` rows. ``shortcut`` and ``note`` are present only when a
+    lighting move may follow a shortcut of the data.
+    """
+
+    index: int
+    op: str
+    params: Mapping
+    change_rate: float
+    change_rate_ci: list
+    leave_rate: float
+    leave_rate_ci: list
+    n: int
+    magnitudes: list
+    screen_swaps: list
+    evidence_sheet: Any
+    verdict: str
+    decided_by: str
+    swaps: list
+    other_swaps: list
+    classes: Mapping
+    safe_limit: Any
+    suggestion: Any
+    shortcut: Mapping = _optional()
+    note: str = _optional()
+
+    @classmethod
+    def from_json(cls, document):
+        document = dict(document)
+        for key, row in (("swaps", Swap), ("other_swaps", Swap), ("screen_swaps", ScreenSwap)):
+            if key in document:
+                document[key] = [item if isinstance(item, row) else row.from_json(item) for item in document[key]]
+        return super().from_json(document)
+
+
+@dataclass(frozen=True, eq=False)
+class EvidenceItem(Record):
+    """One evidence example of ``check``: an image that a transform moved, as data to draw.
+
+    Attributes
+    ----------
+    index : int
+        The transform's position in the recipe.
+    op : str
+    magnitude : float or None
+        The grid value that moved it (None for a flip).
+    params : dict
+        The op's parameters at that magnitude (what the renderer applies).
+    source : str
+        The image's path relative to the data set.
+    before, after : str
+        Its class, and the class it landed in (or ``"outside"``).
+    title : str
+        Heading of the transform's evidence sheet (its final verdict and
+        confirmed swaps).
+    stream : int
+        Root of the drawing's keyed stream (`augplan.seeding.keyed_generator`
+        with ``(index, position)``), so a sheet draws the same pixels for
+        the same seed.
+    position : int
+        The example's row on its sheet.
+    record : augplan.data.dataset.ImageRecord
+        Where the image's bytes are (not in the JSON).
+    """
+
+    index: int
+    op: str
+    magnitude: Any
+    params: Mapping
+    source: str
+    before: str
+    after: str
+    title: str
+    stream: int
+    position: int
+    record: Any = field(default=None, compare=False, repr=False, metadata={"json": False})
 
 
 # --- rows of coverage ---
@@ -196,7 +330,12 @@ class _Result(Record):
 
 @dataclass(frozen=True, eq=False)
 class CheckResult(_Result):
-    """``augplan check``: label safety of each transform of one recipe."""
+    """``augplan check``: label safety of each transform of one recipe.
+
+    ``transforms`` holds `TransformVerdict` rows. ``evidence`` (not part of
+    the JSON) holds the `EvidenceItem` examples of every transform that is
+    not safe, for `augplan.render.sheets.evidence_sheets` to draw.
+    """
 
     recipe: str
     model: Mapping
@@ -206,6 +345,24 @@ class CheckResult(_Result):
     decision_rule: str
     n_images: int
     leaks: list = _optional()
+    evidence: Any = field(default=(), compare=False, repr=False, metadata={"json": False})
+
+    @classmethod
+    def from_json(cls, document):
+        document = dict(document)
+        if "transforms" in document:
+            document["transforms"] = [row if isinstance(row, TransformVerdict) else TransformVerdict.from_json(row)
+                                      for row in document["transforms"]]
+        return super().from_json(document)
+
+    def with_evidence_sheets(self, paths):
+        """The same result with ``evidence_sheet`` set from ``paths`` (``{transform index: path}``).
+
+        The renderer draws the sheets from `evidence`; this records where they went.
+        """
+        transforms = [dataclasses.replace(row, evidence_sheet=str(paths[row.index])) if row.index in paths else row
+                      for row in self.transforms]
+        return dataclasses.replace(self, transforms=transforms)
 
     @property
     def flagged(self):

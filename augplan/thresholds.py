@@ -13,7 +13,6 @@ __all__ = [
     "REGION_NEIGHBOURS",
     "REGION_REFERENCE_LIMIT",
     "REGION_PERCENTILE",
-    "BREAK_MARGIN",
     "PCA_VARIANCE_KEPT",
     "MIN_IMAGES_PER_CLASS",
     "MIN_AUDIT_IMAGES",
@@ -26,6 +25,8 @@ __all__ = [
     "SWAP_WITNESS_MARGIN",
     "TYPICAL_PERCENTILE",
     "RELABEL_TYPICAL_SHARE",
+    "SHORTCUT_MOVE_SHARE",
+    "STRUCTURE_SEPARABLE",
     "ONE_VS_REST_THRESHOLD",
     "LINK_BROKEN_SHARE",
     "COVERAGE_NEIGHBOURS",
@@ -87,9 +88,6 @@ REGION_REFERENCE_LIMIT = 300
 # Percentile of held-out own-class distances that bounds a class's region
 # (common practice, no source).
 REGION_PERCENTILE = 95.0
-# Excess over the held-out baseline that a rate's lower bound must pass
-# (common practice, no source: a 10-point margin ignores small leaks).
-BREAK_MARGIN = 0.10
 # Share of feature variance the checker's PCA keeps (common practice, no source).
 PCA_VARIANCE_KEPT = 0.95
 # Fewest training images a class needs for the check's leave-one-out regions
@@ -154,6 +152,14 @@ TYPICAL_PERCENTILE = 75.0
 # tests/test_invariance.py); a 120 degree hue turn of drawn discs falls
 # short at one step (0.45), so its classes are scoped out.
 RELABEL_TYPICAL_SHARE = 0.5
+# The lighting-shortcut pass of the check looks at moves (confirmed or seen
+# by the screen) of at least this share of a class (common practice, no
+# source: the same ten points as PAIR_MARGIN).
+SHORTCUT_MOVE_SHARE = 0.10
+# Two classes differ in lighting-blind gradient structure when a
+# cross-validated balanced accuracy from those features alone reaches this
+# (common practice, no source; the same bar as ONE_VS_REST_THRESHOLD).
+STRUCTURE_SEPARABLE = 0.9
 
 # --- shortcut audit (augplan coverage, augplan check)
 # With more than two classes, a factor that tells one class from all the

@@ -1,4 +1,4 @@
-"""Benchmark of the label-safety checker (augplan.check.check.check_recipe).
+"""Benchmark of the label-safety checker (augplan.check.check_recipe).
 
 A 5-transform recipe on 1,000 synthetic 64x64 images in 10 classes, written
 to a temporary folder in the DATA layout. Prints wall time (in all and per
@@ -28,7 +28,7 @@ import numpy as np
 from PIL import Image, ImageDraw
 
 from augplan.data.dataset import open_dataset
-from augplan.check.check import check_recipe
+from augplan.check import check_recipe
 from augplan.recipe.parse import parse_recipe
 
 RECIPE = """
@@ -127,8 +127,8 @@ def main(argv=None):
         recipe = parse_recipe(RECIPE)
         wall, cpu = time.perf_counter(), time.process_time()
         check_stages = {}
-        report = check_recipe(dataset, recipe, workers=args.workers, size=64, timings=check_stages,
-                              model=args.model)
+        report = check_recipe(dataset, recipe, rng=np.random.default_rng(0), workers=args.workers, size=64,
+                              timings=check_stages, model=args.model)
         wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
         stages = stage_times(dataset, recipe)
     # Worker processes are kept alive for reuse; stop them so their CPU time

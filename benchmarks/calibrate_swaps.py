@@ -1,7 +1,7 @@
 """Calibration figures of the check's swap witness and relabel typicality on outside sets.
 
 For each set and each fixed transform, every swap the screen witnessed
-(`augplan.check.check.witness_holds`) is printed with the lower Wilson 95%
+(`augplan.check.rules.witness_holds`) is printed with the lower Wilson 95%
 bound of its share, its typical share (`typical_share`) with that share's
 lower bound, whether the pair is a true partner under the transform, and
 whether the check offered a relabel for it. The margins
@@ -24,7 +24,7 @@ from pathlib import Path
 import numpy as np
 from PIL import Image
 
-from augplan.check.check import check_recipe
+from augplan.check import check_recipe
 from augplan.data.dataset import open_dataset
 from augplan.measure.stats import wilson_interval
 from augplan.recipe.parse import Recipe, Transform
@@ -94,7 +94,8 @@ def main(argv=None):
               f"{'t.low':>6} true relabel verdict")
         for name, root, size, transforms in cases:
             recipe = Recipe(name="calibration", transforms=tuple(t for t, _ in transforms))
-            report = check_recipe(open_dataset(root), recipe, size=size, seed=0, workers=args.workers)
+            report = check_recipe(open_dataset(root), recipe, rng=np.random.default_rng(0), size=size,
+                                      workers=args.workers)
             for entry, (_, partners) in zip(report["transforms"], transforms):
                 relabel = (entry["suggestion"] or {}).get("relabel") or {}
                 typical = {(s["from"], s["to"]): s["typical_low"] for s in entry["screen_swaps"]}

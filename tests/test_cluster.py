@@ -146,14 +146,16 @@ def test_check_with_shipped_images_needs_no_shared_folder(cluster, recipe, tmp_p
     # The checker's units carry records, not decoded images; with the bytes
     # on board the cluster run needs no data folder and gives the local answer.
     from augplan.data.dataset import open_dataset
-    from augplan.check.check import check_recipe
+    from augplan.check import check_recipe
     from augplan.recipe.parse import read_recipe
 
-    options = dict(seed=3, size=16)
-    local = check_recipe(open_dataset(_fresh_data(tmp_path / "local")), read_recipe(recipe), **options)
+    options = dict(size=16)
+    local = check_recipe(open_dataset(_fresh_data(tmp_path / "local")), read_recipe(recipe),
+                         rng=np.random.default_rng(3), **options)
     shipped = open_dataset(_fresh_data(tmp_path / "shipped")).with_image_bytes()
     (tmp_path / "shipped" / "DATA").rename(tmp_path / "out-of-reach")
-    remote = check_recipe(shipped, read_recipe(recipe), workers=Cluster(cluster.scheduler_address), **options)
+    remote = check_recipe(shipped, read_recipe(recipe), rng=np.random.default_rng(3),
+                          workers=Cluster(cluster.scheduler_address), **options)
     assert json.dumps(remote, sort_keys=True) == json.dumps(local, sort_keys=True)
 
 

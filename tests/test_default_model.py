@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from augplan.check.check import check_recipe
+from augplan.check import check_recipe
 from augplan.data.dataset import load_images, open_dataset
 from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.measure.models import (FALLBACK_NAME, FALLBACK_WARNING, ConvNet, LinearProxy, model_phrase,
@@ -50,7 +50,7 @@ def test_without_torch_the_default_falls_back_to_the_linear_proxy_and_says_so(wi
     # A flagged loss needs a model other than the linear proxy, fallback included.
     assert not any(row["flagged"] for row in document["recipes"])
     # The check confirms with the proxy by default, with or without torch.
-    checked = check_recipe(dataset, FLIP, size=16)
+    checked = check_recipe(dataset, FLIP, rng=np.random.default_rng(0), size=16)
     assert checked["model"]["confirmation"] == "linear"
     assert FALLBACK_WARNING not in checked["warnings"]
 
@@ -105,12 +105,13 @@ def test_a_ticked_map_gives_the_plain_results(workers):
 
 def test_check_names_its_first_witness_and_side(tiny_dataset):
     dataset = open_dataset(tiny_dataset)
-    network = check_recipe(dataset, FLIP, size=16, model=TINY_CNN)
-    linear = check_recipe(dataset, FLIP, size=16, model="linear")
+    network = check_recipe(dataset, FLIP, rng=np.random.default_rng(0), size=16, model=TINY_CNN)
+    linear = check_recipe(dataset, FLIP, rng=np.random.default_rng(0), size=16, model="linear")
     assert (network["model"]["confirmation"], network["model"]["side"]) == ("cnn", 16)
     assert linear["model"]["confirmation"] == "linear"
     # The same seed gives the same document with the network as first witness.
-    assert check_recipe(dataset, FLIP, size=16, model=TINY_CNN).to_json() == network.to_json()
+    again = check_recipe(dataset, FLIP, rng=np.random.default_rng(0), size=16, model=TINY_CNN)
+    assert again.to_json() == network.to_json()
 
 
 def test_evaluate_states_the_side(tiny_dataset):
@@ -158,5 +159,6 @@ def test_the_check_confirms_with_the_linear_proxy_unless_a_model_is_named(tiny_d
 
     assert (CHECK_DEFAULT_MODEL, DEFAULT_MODEL) == ("linear", "cnn")
     dataset = open_dataset(tiny_dataset)
-    assert check_recipe(dataset, FLIP, size=16)["model"]["confirmation"] == "linear"
-    assert check_recipe(dataset, FLIP, size=16, model=TINY_CNN)["model"]["confirmation"] == "cnn"
+    assert check_recipe(dataset, FLIP, rng=np.random.default_rng(0), size=16)["model"]["confirmation"] == "linear"
+    network = check_recipe(dataset, FLIP, rng=np.random.default_rng(0), size=16, model=TINY_CNN)
+    assert network["model"]["confirmation"] == "cnn"

@@ -8,9 +8,16 @@ import pytest
 from augplan.results import CheckResult, CoverageResult, VetResult, VerifyResult, json_number
 
 
+def _transform_row(index, verdict):
+    return {"index": index, "op": "flip", "params": {}, "change_rate": 0.0, "change_rate_ci": [0.0, 1.0],
+            "leave_rate": 0.0, "leave_rate_ci": [0.0, 1.0], "n": 0, "magnitudes": [], "screen_swaps": [],
+            "evidence_sheet": None, "verdict": verdict, "decided_by": "screen", "swaps": [], "other_swaps": [],
+            "classes": {}, "safe_limit": None, "suggestion": None}
+
+
 def _check_document(*verdicts):
     return {"recipe": "r", "model": {"cv_accuracy": 0.9, "chance": 0.5, "weak": False}, "baseline": {},
-            "transforms": [{"index": i, "verdict": v} for i, v in enumerate(verdicts)], "warnings": [],
+            "transforms": [_transform_row(i, v) for i, v in enumerate(verdicts)], "warnings": [],
             "decision_rule": "rule", "n_images": 10}
 
 

@@ -1,8 +1,8 @@
 """Confirmation of label safety: does training with a transform teach wrong labels?
 
-The checker's screen (`augplan.check.check`) asks where transformed images
+The checker's screen (`augplan.check.screen`) asks where transformed images
 land; a transform it does not clear is confirmed here by what matters to a
-user. The same proxy model is trained twice on the same cross-validation
+user (the models are trained by `augplan.check.witnesses`). The same proxy model is trained twice on the same cross-validation
 folds with the same seed, once on the original images and once with the
 transform applied to every image in its scope, and both predict the same
 held-out *original* images. Each image is then a paired observation: its
@@ -23,7 +23,7 @@ two one-sided tests).
   confusion (the confusion at least doubles). A class breaks when one of
   its pairs does; the reported swaps are exactly these pairs.
 - A class is **safe** when the upper bounds of its recall fall and of every
-  confusion rise out of it are below ``RECALL_MARGIN`` (0.15; an
+  confusion rise out of it are below ``EQUIVALENCE_MARGIN`` (0.15; an
   equivalence test).
 - Otherwise the class is **unverified**; a class with fewer than
   ``MIN_EVIDENCE`` images is *too few images to judge*.
@@ -48,6 +48,7 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -55,21 +56,19 @@ from augplan.measure.stats import paired_gain_test
 from augplan.thresholds import CONFIRM_CONFIDENCE, EQUIVALENCE_MARGIN, MIN_EVIDENCE, PAIR_MARGIN
 
 __all__ = [
-    "MIN_EVIDENCE",
-    "PAIR_MARGIN",
-    "RECALL_MARGIN",
     "TOO_FEW",
     "ClassChange",
     "PairChange",
+    "RangeVerdict",
     "compare_predictions",
     "pair_breaks",
     "class_verdict",
+    "judge",
 ]
 
-# The numbers of the rule live in augplan.thresholds, with their sources.
-RECALL_MARGIN = EQUIVALENCE_MARGIN
+# Sign patterns of each paired test (the numbers of the rule live in
+# augplan.thresholds, with their sources).
 N_RESAMPLES = 1999
-CONFIDENCE = CONFIRM_CONFIDENCE
 TOO_FEW = "too few images to judge"
 
 
@@ -120,7 +119,7 @@ def _paired(base_hits, new_hits, rng):
     if np.array_equal(base_hits, new_hits):
         value = float(np.mean(new_hits) - np.mean(base_hits))
         return value, value, value
-    result = paired_gain_test(base_hits, new_hits, rng, n_resamples=N_RESAMPLES, confidence=CONFIDENCE)
+    result = paired_gain_test(base_hits, new_hits, rng, n_resamples=N_RESAMPLES, confidence=CONFIRM_CONFIDENCE)
     return result.gain, result.low, result.high
 
 
@@ -190,6 +189,79 @@ def class_verdict(change, pairs):
         return TOO_FEW
     if any(pair_breaks(pair) for pair in pairs):
         return "breaks"
-    if change.high < RECALL_MARGIN and all(pair.high < RECALL_MARGIN for pair in pairs):
+    if change.high < EQUIVALENCE_MARGIN and all(pair.high < EQUIVALENCE_MARGIN for pair in pairs):
         return "safe"
     return "unverified"
+
+
+class RangeVerdict(NamedTuple):
+    """The confirmation's verdict of one range of one transform."""
+
+    overall: str        # 'breaks', 'safe' or 'unverified'
+    entries: dict       # class index -> the JSON's per-class entry
+    passing: list       # PairChange items that break (the confirmed swaps)
+    others: list        # (PairChange, witnessed) for the other rises
+
+
+def _class_entry(change, verdict):
+    return {"verdict": verdict, "n": change.n, "recall_base": round(change.recall_base, 4),
+            "recall_augmented": round(change.recall_augmented, 4), "recall_fall": round(change.fall, 4),
+            "recall_fall_ci": [round(change.low, 4), round(change.high, 4)]}
+
+
+def judge(labels, base_pred, predictions, n_classes, checked, weak, seen, rng):
+    """Confirmation verdict of one range from the witnesses' predictions.
+
+    A pair breaks when the model trained on replaced images shows a rise of
+    the confusion ``B -> A`` that passes `pair_breaks` and the screen
+    witnessed A's transformed images taking B's look (``seen[A, B]``,
+    `augplan.check.rules.witness_holds`): two witnesses, so a proxy that
+    merely fails on a look it was not trained on (a domain shift) cannot
+    call a label changed. Safety is judged on the model trained with the
+    originals plus copies, as a recipe is used.
+
+    Parameters
+    ----------
+    labels, base_pred : numpy.ndarray of int, shape (N,)
+        Classes of the held-out originals and the baseline proxy's predictions.
+    predictions : dict
+        ``{"replace", "add"}`` predictions, and ``"replace_base"`` when the
+        replaced model has a baseline of its own kind (the network's).
+    n_classes : int
+    checked : list of int
+        Classes in the transform's scope.
+    weak : bool
+        The proxy is weak: nothing is called safe.
+    seen : numpy.ndarray of bool, shape (n_classes, n_classes)
+        The screen's witnesses.
+    rng : numpy.random.Generator
+        This range's own stream (sign patterns of the paired tests).
+
+    Returns
+    -------
+    RangeVerdict
+    """
+    rng_replace, rng_add = rng.spawn(2)
+    _, replaced = compare_predictions(labels, predictions.get("replace_base", base_pred), predictions["replace"],
+                                      n_classes, rng_replace)
+    changes, pairs = compare_predictions(labels, base_pred, predictions["add"], n_classes, rng_add)
+    counts = np.bincount(labels, minlength=n_classes)
+    passing = [p for p in replaced if pair_breaks(p) and seen[p.target, p.source]
+               and counts[p.target] >= MIN_EVIDENCE]
+    culprits = {p.target for p in passing}
+    verdicts = {}
+    for change in changes:
+        own = class_verdict(change, [p for p in pairs if p.source == change.index])
+        # Only the two witnesses can say breaks; a weak proxy vouches for nothing.
+        verdicts[change.index] = "unverified" if own == "breaks" or (own == "safe" and weak) else own
+    if passing:
+        overall = "breaks"
+    elif all(v == "safe" for v in verdicts.values()):
+        overall = "safe"
+    else:
+        overall = "unverified"
+    entries = {change.index: _class_entry(change, "breaks" if change.index in culprits else verdicts[change.index])
+               for change in changes if change.index in checked}
+    shown = {(p.source, p.target) for p in passing}
+    others = [(p, bool(seen[p.target, p.source])) for p in replaced if (p.source, p.target) not in shown and p.rise > 0]
+    return RangeVerdict(overall, entries, passing, others)

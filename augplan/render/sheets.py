@@ -32,7 +32,8 @@ from PIL import Image, ImageDraw, ImageFont
 
 from augplan.atomic import write_bytes_atomic
 
-__all__ = ["PAD", "contact_sheet", "preview_sheet", "png_bytes", "save_png"]
+__all__ = ["PAD", "contact_sheet", "preview_sheet", "evidence_sheets", "write_evidence_sheets", "png_bytes",
+           "save_png"]
 
 PAD = 6
 _BACKGROUND = (255, 255, 255)
@@ -122,11 +123,7 @@ def contact_sheet(rows, row_labels, *, column_labels=None, cell=96, title=None, 
     # than the cell (small images), so no text runs into the next column.
     texts = list(column_labels or ()) + [_shorten(text) for row in (captions or ()) for text in row if text]
     slot = max([cell] + [_text_size(font, text)[0] for text in texts])
-    top = 0
-    if title:
-        top += line + PAD
-    if column_labels is not None:
-        top += line
+    top = (line + PAD if title else 0) + (line if column_labels is not None else 0)
     caption_band = line if captions and any(text for row in captions for text in row) else 0
     row_height = cell + caption_band + PAD
     width = left + PAD + n_columns * (slot + PAD)
@@ -258,6 +255,92 @@ def preview_sheet(dataset, recipe, *, per_class=3, draws=5, rng, cell=96):
     title = f"recipe {recipe.name}: {per_class} training image(s) per class, {draws} draws each"
     return contact_sheet(rows, row_labels, column_labels=column_labels, cell=cell,
                          title=title, captions=captions)
+
+
+# Side of an evidence sheet's cells: images are read no larger than this.
+EVIDENCE_CELL = 96
+
+# Short enough to fit under the smallest evidence cell (64 pixels at 12 points).
+_MAGNITUDE_FORMATS = {"degrees": "{:+.3g}\u00b0", "factor": "\u00d7{:.3g}", "sigma": "\u03c3 {:.3g}",
+                      "fraction": "shift {:+.2g}"}
+
+
+def magnitude_caption(op, magnitude):
+    """``+15°``, ``×1.2``, ``σ 0.02``: the magnitude a pair of an evidence sheet shows."""
+    from augplan.augment.transforms import OPS
+
+    field = OPS[op].magnitude
+    if field is None or magnitude is None:
+        return "flipped" if op == "flip" else op
+    return _MAGNITUDE_FORMATS.get(field, field + " {:.3g}").format(magnitude)
+
+
+def _evidence_sheet(items):
+    """One transform's sheet: a row per example, the original then the transformed image.
+
+    The pair is drawn from the image file at its own aspect ratio (the check
+    itself ran on the squares the proxy model reads), with the transform at
+    the magnitude that moved it, captioned with that magnitude.
+    """
+    from augplan.augment.transforms import OPS
+    from augplan.data.dataset import read_record
+    from augplan.seeding import keyed_generator
+
+    function = OPS[items[0].op].function
+    originals = [read_record(item.record, max_side=EVIDENCE_CELL) for item in items]
+    # Never enlarged past the largest image shown: a small image keeps its own pixels.
+    cell = max(8, min(EVIDENCE_CELL, max(max(image.shape[:2]) for image in originals)))
+    rows = [[original, function(original, item.params, keyed_generator(item.stream, item.index, item.position))]
+            for item, original in zip(items, originals)]
+    return contact_sheet(rows, [f"{item.before} -> {item.after}" for item in items],
+                         column_labels=["original", "transformed"], cell=cell, title=items[0].title,
+                         captions=[["", magnitude_caption(item.op, item.magnitude)] for item in items])
+
+
+def evidence_sheets(items):
+    """Contact sheets of the checker's evidence examples, one per transform.
+
+    Parameters
+    ----------
+    items : sequence of augplan.results.EvidenceItem
+        ``CheckResult.evidence``: the examples of every transform that is
+        not safe, each with its record, op parameters, classes and title.
+
+    Returns
+    -------
+    dict of int -> (str, PIL.Image.Image)
+        Per transform index, in order: the sheet's file name
+        (``transform-02-flip.png``) and the sheet. Each transformed image
+        draws from the item's keyed stream, so the same check draws the same
+        pixels.
+    """
+    groups = {}
+    for item in items:
+        groups.setdefault(item.index, []).append(item)
+    return {index: (f"transform-{index:02d}-{group[0].op}.png", _evidence_sheet(group))
+            for index, group in groups.items()}
+
+
+def write_evidence_sheets(items, folder):
+    """Draw `evidence_sheets` and write them as PNG files of ``folder``, whole or not at all.
+
+    Parameters
+    ----------
+    items : sequence of augplan.results.EvidenceItem
+    folder : str or Path
+        Checked by the caller (`augplan.atomic.check_output`); written with
+        `augplan.atomic.publish_folder`.
+
+    Returns
+    -------
+    dict of int -> Path
+        The sheet of each transform index that has one.
+    """
+    from augplan.atomic import publish_folder
+
+    sheets = evidence_sheets(items)
+    publish_folder({name: png_bytes(sheet) for name, sheet in sheets.values()}, folder)
+    return {index: Path(folder) / name for index, (name, _) in sheets.items()}
 
 
 def png_bytes(image):

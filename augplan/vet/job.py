@@ -22,7 +22,7 @@ from augplan.errors import BadInputError, printable
 from augplan.evaluate.evaluate import BEST_RULE, evaluate_recipes
 from augplan.measure.models import is_linear, model_phrase, scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
-from augplan.check.check import check_recipe
+from augplan.check import check_recipe
 from augplan.recipe.parse import recipe_hash, recipe_to_dict
 from augplan.results import VetResult
 
@@ -61,7 +61,7 @@ def _inside(path, folder):
 
 
 def _collect_figures(entries):
-    """The evidence sheets (read from the checker's scratch folder) and draws sheet of every recipe.
+    """The draws sheet of every recipe (the evidence sheets are drawn by `_vet_one`).
 
     The paths in the entries become ``figures/<name>``, relative to the output
     folder, before anything reads them; the report is rendered from a staging
@@ -69,12 +69,6 @@ def _collect_figures(entries):
     """
     figures = {}
     for number, entry in enumerate(entries):
-        for transform in entry["check"]["transforms"]:
-            sheet = transform.get("evidence_sheet")
-            if sheet and Path(sheet).is_file():
-                name = f"{number}-{entry['name']}-transform-{transform['index']}.png"
-                figures[name] = Path(sheet).read_bytes()
-                transform["evidence_sheet"] = f"figures/{name}"
         sheet = entry.get("draws_sheet")
         if sheet and Path(sheet).is_file():
             name = f"{number}-{entry['name']}-draws.jpg"
@@ -276,10 +270,11 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
     with output_lock(out_dir), tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
         prepare_output(out_dir, force=force, replace=replace)
         scratch = Path(scratch)
-        entries, vetted_recipes = [], []
+        entries, vetted_recipes, evidence_figures = [], [], {}
         for number, recipe in enumerate(recipes):
             _stage(quiet, f"[{number + 1}/{len(recipes)}] {recipe.name}: label safety and coverage")
-            entry, vetted = _vet_one(dataset, recipe, scratch, number, approve, settings)
+            entry, vetted, sheets = _vet_one(dataset, recipe, scratch, number, approve, settings)
+            evidence_figures.update(sheets)
             entries.append(entry)
             vetted_recipes.append(vetted)
 
@@ -310,7 +305,7 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
         if best_entry is not None:
             documents["vetted-recipe.yaml"] = documents[f"vetted-{best_entry['name']}.yaml"]
         verdict = _verdict_sentence(entries, evaluation, best_row, top_entry["vetted"]["score"])
-        figures = _collect_figures(entries)
+        figures = {**evidence_figures, **_collect_figures(entries)}
         evidence_document = _evidence_document(dataset, entries, evaluation, best_entry, verdict, header, seed,
                                                ranking)
         html = _render_with_figures(evidence_document, figures, scratch / "staged")
@@ -333,12 +328,19 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
 
 
 def _vet_one(dataset, recipe, scratch, number, approve, settings):
-    """Check, coverage and the vetted form of recipe ``number``: its evidence entry and vetted recipe.
+    """Check, coverage and the vetted form of recipe ``number``: its evidence entry, vetted recipe and sheets.
 
-    Evidence sheets and the draws sheet are written into ``scratch``; the
-    factor histograms stay data, drawn by the report.
+    The evidence sheets are drawn from the check's evidence items and
+    returned as ``{figure name: PNG bytes}``; the draws sheet is written
+    into ``scratch``; the factor histograms stay data, drawn by the report.
     """
-    check = check_recipe(dataset, recipe, evidence_dir=scratch / f"evidence-{number}", **settings)
+    from augplan.render.sheets import evidence_sheets, png_bytes
+
+    check = check_recipe(dataset, recipe, rng=np.random.default_rng(settings["seed"]), **_check_options(settings))
+    # The checker's evidence is data: drawn here, named as the output folder will hold it.
+    sheets = {index: (f"{number}-{recipe.name}-transform-{index}.png", png_bytes(image))
+              for index, (_, image) in evidence_sheets(check.evidence).items()}
+    check = check.with_evidence_sheets({index: f"figures/{name}" for index, (name, _) in sheets.items()})
     coverage = analyse_coverage(dataset, recipe, rng=np.random.default_rng(settings["seed"]),
                                 workers=settings["workers"], quiet=settings["quiet"])
     vetted, changes = vet_transforms(recipe, check, approve=approve, coverage_result=coverage)
@@ -346,7 +348,8 @@ def _vet_one(dataset, recipe, scratch, number, approve, settings):
     if any(change["action"] in ("relabel", "scope") for change in changes):
         # A rewrite was suggested by the checker but not itself measured:
         # measure it, and drop a rewritten step that is still not safe.
-        rechecked = check_recipe(dataset, vetted, **settings).to_json()
+        rechecked = check_recipe(dataset, vetted, rng=np.random.default_rng(settings["seed"]),
+                                 **_check_options(settings)).to_json()
         vetted, changes = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
     changes = [change.to_json() for change in changes]
     unchanged = vetted.transforms == recipe.transforms
@@ -359,7 +362,12 @@ def _vet_one(dataset, recipe, scratch, number, approve, settings):
              "draws_sheet": draws,
              "vetted": {"name": vetted.name, "recipe": recipe_to_dict(vetted),
                         "changes": changes, "signoff": signoff, "unchanged": unchanged, "recheck": rechecked}}
-    return entry, vetted
+    return entry, vetted, dict(sheets.values())
+
+
+def _check_options(settings):
+    """The vet settings ``check_recipe`` takes besides its generator."""
+    return {key: value for key, value in settings.items() if key != "seed"}
 
 
 def _vetted_evidence(entry, vetted, evaluation, header, seed, classes):

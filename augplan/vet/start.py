@@ -23,7 +23,9 @@ transform. A draft is a proposal: ``augplan vet`` decides.
 import dataclasses
 import json
 
-from augplan.check.check import check_recipe
+import numpy as np
+
+from augplan.check import check_recipe
 from augplan.coverage.draft import field_lighting
 from augplan.data.dataset import load_images
 from augplan.recipe.parse import Transform, check_recipe_classes, dump_recipe, parse_recipe, recipe_name_fault
@@ -208,7 +210,8 @@ def draft_from_start(dataset, start, *, name=None, seed=0, sample=None, size=64,
         train = load_images(dataset.split("train"), size=size)
         reach = field_lighting(train, load_images(field_records, size=size))
     widened, widened_changes = widen_lighting(start, reach)
-    check = check_recipe(dataset, widened, sample=sample, size=size, seed=seed, workers=workers, quiet=quiet)
+    check = check_recipe(dataset, widened, rng=np.random.default_rng(seed), sample=sample, size=size,
+                         workers=workers, quiet=quiet)
     adapted, vetting = vet_transforms(widened, check)
     checked_changes = [change.to_json() for change in vetting]  # plain dicts: the draft rewords some
     recipe = dataclasses.replace(_keep_unverified(adapted, widened, checked_changes), name=_draft_name(start, name))

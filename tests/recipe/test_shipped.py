@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from augplan.check.check import check_recipe
+from augplan.check import check_recipe
 from augplan.data.dataset import open_dataset
 from augplan.recipe.parse import RECIPE_SCHEMA_PATH, Recipe, read_recipe
 from augplan.recipe.shipped import find_start, read_start, recipe_purpose, shipped_recipes
@@ -102,7 +102,7 @@ def test_start_finds_a_file_a_shipped_name_and_the_checkouts_path(tmp_path, monk
 
 
 def _checked(root, recipe, size):
-    report = check_recipe(open_dataset(root), recipe, size=size, seed=0, workers=2)
+    report = check_recipe(open_dataset(root), recipe, rng=np.random.default_rng(0), size=size, workers=2)
     return {entry["index"]: entry for entry in report["transforms"]}, report
 
 

@@ -1,4 +1,4 @@
-"""Tests of contact sheets (augplan.sheets).
+"""Tests of contact sheets (augplan/render/sheets.py).
 
 Nearest-neighbour enlargement is checked against numpy's ``repeat`` (an
 independent implementation of block replication) on a sample image that
@@ -16,7 +16,7 @@ from skimage import data as skdata
 
 from augplan import demo
 from augplan.data.dataset import open_dataset
-from augplan.recipe.parse import parse_recipe
+from augplan.recipe.parse import Transform, parse_recipe
 from augplan.render.sheets import PAD, contact_sheet, png_bytes, preview_sheet, save_png
 
 WHITE = 255
@@ -239,3 +239,61 @@ def test_preview_shows_originals_and_marks_relabelled_draws(small_dataset):
 def test_preview_refuses_bad_counts(small_dataset, kwargs):
     with pytest.raises(ValueError, match="positive integer"):
         preview_sheet(small_dataset, parse_recipe(RELABEL_FLIP), rng=np.random.default_rng(0), **kwargs)
+def _evidence_item(record, position, magnitude, after="b"):
+    from augplan.augment.transforms import params_at
+    from augplan.results import EvidenceItem
+
+    params = params_at(Transform("rotate", {"degrees": (-15.0, 15.0)}), magnitude, "reflect")
+    return EvidenceItem(index=0, op="rotate", magnitude=magnitude, params=params,
+                        source=record.relpath, before="a", after=after, title="transform 0 (rotate): breaks",
+                        stream=7, position=position, record=record)
+
+
+def test_evidence_sheet_keeps_the_files_aspect_ratio(tmp_path):
+    from augplan.data.dataset import ImageRecord
+    from augplan.render.sheets import evidence_sheets
+
+    records = []
+    for index, colour in enumerate(((220, 0, 0), (0, 0, 220))):
+        path = tmp_path / f"{index}.png"
+        Image.new("RGB", (40, 20), colour).save(path)  # 40 wide, 20 high
+        records.append(ImageRecord(path, path.name, "a", "train", ""))
+    items = [_evidence_item(records[0], 0, 15.0), _evidence_item(records[1], 1, -15.0, after="outside")]
+    ((name, sheet),) = evidence_sheets(items).values()
+    assert name == "transform-00-rotate.png"
+    pixels = np.asarray(sheet.convert("RGB")).astype(int)
+    red = (pixels[..., 0] > 200) & (pixels[..., 1] < 40) & (pixels[..., 2] < 40)
+    rows, columns = np.nonzero(red)
+    original = columns < columns.min() + 41  # the first column's cell: the original, never enlarged here
+    assert columns[original].max() - columns[original].min() + 1 == 40
+    assert rows[original].max() - rows[original].min() + 1 == 20
+    # The same items draw the same pixels (each image's keyed stream).
+    assert png_bytes(evidence_sheets(items)[0][1]) == png_bytes(sheet)
+
+
+def test_evidence_sheets_are_written_whole_and_named_by_transform(tmp_path):
+    from augplan.data.dataset import ImageRecord
+    from augplan.render.sheets import write_evidence_sheets
+
+    path = tmp_path / "image.png"
+    Image.new("RGB", (16, 16), (0, 120, 0)).save(path)
+    record = ImageRecord(path, path.name, "a", "train", "")
+    written = write_evidence_sheets([_evidence_item(record, 0, 5.0)], tmp_path / "evidence")
+    assert written == {0: tmp_path / "evidence" / "transform-00-rotate.png"}
+    assert sorted(p.name for p in (tmp_path / "evidence").iterdir()) == ["transform-00-rotate.png"]
+    with Image.open(written[0]) as sheet:
+        assert sheet.format == "PNG"
+    assert write_evidence_sheets([], tmp_path / "none") == {}
+
+
+@pytest.mark.parametrize("op,params,magnitude,caption", [
+    ("rotate", {"degrees": (-15.0, 15.0)}, 12.5, "+12.5\u00b0"),
+    ("zoom", {"factor": (0.8, 1.2)}, 1.07, "\u00d71.07"),
+    ("noise", {"sigma": (0.0, 0.05)}, 0.0133, "\u03c3 0.0133"),
+    ("shift", {"fraction": (-0.1, 0.1)}, -0.125, "shift -0.12"),
+    ("flip", {"axis": "horizontal"}, None, "flipped"),
+], ids=["degrees", "factor", "sigma", "fraction", "flip"])
+def test_evidence_captions_name_the_magnitude(op, params, magnitude, caption):
+    from augplan.render.sheets import magnitude_caption
+
+    assert magnitude_caption(op, magnitude) == caption
