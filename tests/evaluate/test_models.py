@@ -1,7 +1,7 @@
 """Tests of the scoring models (augplan/measure/models.py) and of evaluating with each.
 
 Real data: scikit-learn's digits (UCI optdigits) written as 32x32 PNGs, as in
-tests/test_evaluate.py. The team's training functions live in
+tests/evaluate/test_evaluate.py. The team's training functions live in
 tests/team_training.py.
 """
 
