@@ -19,7 +19,7 @@ from PIL import Image
 
 from augplan.augment.transforms import OPS
 from augplan.data.dataset import open_dataset
-from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate import evaluate_recipes
 from augplan.recipe.parse import parse_recipe
 
 from reference import FASHION_SUBSET as SUBSET
@@ -64,7 +64,7 @@ def write_planted_clothing(root, *, field=True):
 @pytest.fixture(scope="module")
 def with_field(tmp_path_factory):
     root = write_planted_clothing(tmp_path_factory.mktemp("clothing") / "DATA")
-    return evaluate_recipes(open_dataset(root), [TILT, RELIGHT], repeats=REPEATS, size=SIZE, seed=0,
+    return evaluate_recipes(open_dataset(root), [TILT, RELIGHT], np.random.default_rng(0), repeats=REPEATS, size=SIZE,
                             cache_dir=False)
 
 
@@ -87,7 +87,7 @@ def test_without_a_field_sample_every_output_names_the_shortcut_and_asks_for_one
     from augplan.render.text import leaderboard_table
 
     root = write_planted_clothing(tmp_path / "DATA", field=False)
-    result = evaluate_recipes(open_dataset(root), [RELIGHT], repeats=1, size=SIZE, seed=0, cache_dir=False)
+    result = evaluate_recipes(open_dataset(root), [RELIGHT], np.random.default_rng(0), repeats=1, size=SIZE, cache_dir=False)
     assert result["decided_on"] == "val" and "brightness" in result["val_shares_shortcut"]
     note = result["decision_note"]
     assert "brightness" in note and "cannot reveal" in note and "Collect a labelled field sample" in note

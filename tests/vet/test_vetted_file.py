@@ -1,12 +1,13 @@
-"""Vetted export: verdict rules, checksum, verify."""
+"""The vetted recipe file: checksum, write, read back, verify."""
 
 import hashlib
 import json
 
 import pytest
 
-from augplan.vet.vetted_file import read_vetted, verify_vetted, vet_transforms, vetted_checksum, write_vetted
+from augplan.vet.vetted_file import read_vetted, verify_vetted, vetted_checksum, vetted_text, write_vetted
 from augplan.recipe.parse import parse_recipe, recipe_to_dict
+from augplan.results import VettingChange
 
 RECIPE = parse_recipe("""
 name: tiles
@@ -22,44 +23,6 @@ transforms:
   - op: noise
     sigma: [0, 0.2]
 """)
-
-
-def _entry(index, op, verdict, safe_limit=None, suggestion=None):
-    return {"index": index, "op": op, "verdict": verdict, "safe_limit": safe_limit,
-            "suggestion": suggestion, "change_rate": 0.0, "change_rate_ci": [0.0, 0.1]}
-
-
-CHECK = {"transforms": [
-    _entry(0, "flip", "breaks", suggestion={"relabel": {"left": "right", "right": "left"}}),
-    _entry(1, "hue", "breaks", safe_limit=[-10.0, 10.0]),
-    _entry(2, "rotate", "safe", safe_limit=[-20.0, 20.0]),
-    _entry(3, "blur", "unverified"),
-    _entry(4, "noise", "breaks"),
-]}
-
-
-def test_vet_rules_relabel_clip_remove():
-    vetted, changes = vet_transforms(RECIPE, CHECK)
-    actions = [change["action"] for change in changes]
-    assert actions == ["relabel", "clip", "clip", "remove", "remove"]
-    ops = [step.op for step in vetted.transforms]
-    assert ops == ["flip", "hue", "rotate"]
-    assert dict(vetted.transforms[0].relabel) == {"left": "right", "right": "left"}
-    assert vetted.transforms[1].params["degrees"] == (-10.0, 10.0)
-    assert vetted.transforms[2].params["degrees"] == (-20.0, 20.0)
-
-
-def test_approved_unverified_transform_is_kept():
-    vetted, changes = vet_transforms(RECIPE, CHECK, approve=(3,))
-    assert "blur" in [step.op for step in vetted.transforms]
-    assert changes[3]["action"] == "keep"
-
-
-def test_safe_recipe_is_unchanged():
-    check = {"transforms": [_entry(i, step.op, "safe") for i, step in enumerate(RECIPE.transforms)]}
-    vetted, changes = vet_transforms(RECIPE, check)
-    assert vetted.transforms == RECIPE.transforms
-    assert {change["action"] for change in changes} == {"keep"}
 
 
 def test_checksum_is_sha256_of_canonical_json():
@@ -99,26 +62,18 @@ def test_plain_recipe_is_not_vetted(tmp_path):
     assert "not a vetted one" in result["messages"][0]
 
 
-def test_unverified_shortcut_move_is_kept_when_the_recipe_breaks_that_shortcut():
-    check = {"transforms": [_entry(0, "flip", "safe"), _entry(1, "hue", "safe"),
-                            _entry(2, "rotate", "safe"), _entry(3, "blur", "safe"),
-                            _entry(4, "noise", "safe")]}
-    check["transforms"][3].update(verdict="unverified", shortcut={"factor": "sharpness", "class": "x"})
-    cleared = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": False, "link": "broken"}]}
-    weakened = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": False, "link": "weakened"}]}
-    persisting = {"shortcuts": [{"factor": "sharpness", "flagged": True, "persists": True, "link": "persists"}]}
-    vetted, changes = vet_transforms(RECIPE, check, coverage_result=cleared)
-    assert changes[3]["action"] == "keep" and "recipe breaks the sharpness shortcut" in changes[3]["detail"]
-    # Weakened, not broken: still kept (removing the step brings the shortcut back), and said so.
-    vetted, changes = vet_transforms(RECIPE, check, coverage_result=weakened)
-    assert changes[3]["action"] == "keep" and "recipe weakens the sharpness shortcut" in changes[3]["detail"]
-    vetted, changes = vet_transforms(RECIPE, check, coverage_result=persisting)
-    assert changes[3]["action"] == "remove"
+def _change_list(*pairs):
+    return [VettingChange(i, "rotate", verdict, action, "") for i, (verdict, action) in enumerate(pairs)]
 
 
-def test_a_safe_limit_of_one_value_removes_the_step():
-    check = {"transforms": [_entry(i, step.op, "safe") for i, step in enumerate(RECIPE.transforms)]}
-    check["transforms"][1].update(verdict="breaks", safe_limit=[0.0, 0.0])
-    vetted, changes = vet_transforms(RECIPE, check)
-    assert changes[1]["action"] == "remove"
-    assert "hue" not in [step.op for step in vetted.transforms]
+@pytest.mark.parametrize("changes, says, never", [
+    (_change_list(("safe", "keep"), ("safe", "keep")), "every transform kept as written", "removed"),
+    (_change_list(("breaks", "remove"), ("safe", "clip")), "2 transforms relabelled, scoped, clipped or removed",
+     "sign-off"),
+    (_change_list(("unverified", "keep")), "1 kept transform is unverified", "clipped or removed"),
+], ids=["nothing-broke", "two-changed", "unverified-kept"])
+def test_vetted_file_header_says_what_vetting_did(changes, says, never):
+    text = vetted_text(parse_recipe("name: v\n"), {"n": 1}, changes=changes)
+    header = "".join(line for line in text.splitlines(keepends=True) if line.startswith("#"))
+    assert says in header and never not in header
+    assert "Transforms that broke labels" not in header
