@@ -416,10 +416,11 @@ def _shared_shortcuts(dataset, splits, size, root, workers, quiet, cache_dir):
     key_text = json.dumps([[[name, r.sha256, r.label] for name, records in sets.items() for r in records],
                            size, root, len(dataset.classes), _file_digest(_factors_module, _shortcuts_module)])
     key = hashlib.sha256(key_text.encode("utf-8")).hexdigest()
-    root = Path(dataset.root).resolve()
-    cache_root = None if cache_dir is False else Path(cache_dir) if cache_dir is not None else default_cache_dir(root)
+    data_root = Path(dataset.root).resolve()
+    cache_root = (None if cache_dir is False else Path(cache_dir) if cache_dir is not None
+                  else default_cache_dir(data_root))
     if cache_root is not None:
-        ensure_outside_data(cache_root, root, what="feature cache")
+        ensure_outside_data(cache_root, data_root, what="feature cache")
     cache = FeatureCache(cache_root, "shortcut-audit", row_length=len(names))
     row = cache.get(key)
     if row is None:

@@ -24,8 +24,12 @@ from augplan.recipe.parse import parse_recipe
 
 from reference import FASHION_SUBSET as SUBSET
 GARMENTS = (0, 2, 4, 6)  # T-shirt/top, Pullover, Coat, Shirt
-DARKENED, BRIGHTENED = 2, 4
+DARKENED, DIMMED, BRIGHTENED = 2, 6, 4
 LOW, HIGH = 0.15, 4.0  # exposure factors of the planted shortcut; the field draws between them
+# Three classes at three exposures (the fourth as taken): the shortcut is plain in every split of
+# folds. With two planted classes alone brightness predicted the class at the audit's threshold
+# itself (balanced accuracy 0.59 to 0.63 against 0.625), flagged or not by the fold split.
+PLANTED = {DARKENED: LOW, DIMMED: 0.4, BRIGHTENED: HIGH}
 PER_CLASS = {"train": 40, "val": 20, "field": 30}
 SIZE, REPEATS = 32, 2
 
@@ -48,7 +52,7 @@ def write_planted_clothing(root, *, field=True):
     for label in GARMENTS:
         folder = str(names[label]).replace("/", "-")
         own = np.flatnonzero(train_labels == label)
-        planted = LOW if label == DARKENED else HIGH if label == BRIGHTENED else 1.0
+        planted = PLANTED.get(label, 1.0)
         splits = {"train": (train, own[:PER_CLASS["train"]]),
                   "val": (train, own[PER_CLASS["train"]:PER_CLASS["train"] + PER_CLASS["val"]])}
         if field:

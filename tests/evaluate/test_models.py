@@ -20,7 +20,7 @@ from augplan.evaluate import evaluate_recipes
 from augplan.measure.models import ConvNet, LinearProxy, TeamTrainer, scoring_model
 from augplan.recipe.parse import Recipe, Transform
 from conftest import write_digits_dataset
-from test_evaluate import FLIPS, PER_CLASS, SIZE, SMALL_AFFINE, _by_name
+from evaluate.test_evaluate import FLIPS, PER_CLASS, SIZE, SMALL_AFFINE, _by_name  # tests/evaluate/
 
 # A network small and short enough for the suite (about a second a fit on
 # 150 digits); the defaults are measured in benchmarks/bench_transfer.py.
