@@ -131,12 +131,12 @@ def test_shipped_images_need_no_shared_folder(cluster, recipe, tmp_path):
     from augplan.recipe.parse import read_recipe
 
     recipes = [read_recipe(recipe)]
-    options = dict(repeats=2, seed=3, size=16)
-    local = evaluate_recipes(open_dataset(_fresh_data(tmp_path / "local")), recipes,
+    options = dict(repeats=2, size=16)
+    local = evaluate_recipes(open_dataset(_fresh_data(tmp_path / "local")), recipes, np.random.default_rng(3),
                              cache_dir=tmp_path / "local-cache", **options)
     shipped = open_dataset(_fresh_data(tmp_path / "shipped")).with_image_bytes()
     (tmp_path / "shipped" / "DATA").rename(tmp_path / "out-of-reach")
-    remote = evaluate_recipes(shipped, recipes, workers=Cluster(cluster.scheduler_address),
+    remote = evaluate_recipes(shipped, recipes, np.random.default_rng(3), workers=Cluster(cluster.scheduler_address),
                               cache_dir=tmp_path / "remote-cache", **options)
     assert json.dumps(remote["recipes"]) == json.dumps(local["recipes"])
     assert remote["baseline"] == local["baseline"]
