@@ -68,14 +68,14 @@ _BASELINE_KEY = int(hashlib.sha256(b"augplan-baseline").hexdigest(), 16)
 
 
 def no_val_warning(dataset):
-    """The warning of a data set without ``val/``: what was scored on instead (None when it has one).
+    """The warning of a data set without ``val/``: what stands in for validation (None when it has one).
 
     Written once here; every command that scores carries it in its result's
     ``warnings`` and the command line prints it from there.
     """
     if not dataset.val_from_train:
         return None
-    return f"no val/ folder: scored on a stratified split of train (seed {dataset.split_seed})."
+    return f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) stands in for validation."
 
 
 # --------------------------------------------------------------------------
