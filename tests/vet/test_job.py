@@ -259,7 +259,7 @@ def test_vet_gives_check_coverage_evaluation_and_sheets_their_own_streams(tmp_pa
     monkeypatch.setattr(job, "check_recipe", spy("check", job.check_recipe))
     monkeypatch.setattr(job, "analyse_coverage", spy("coverage", job.analyse_coverage))
     monkeypatch.setattr(job, "evaluate_recipes", lambda dataset, recipes, rng, **kwargs: spy("evaluate", None)(rng=rng))
-    monkeypatch.setattr(job, "draws_sheet", lambda dataset, recipe, path, rng: firsts.setdefault("sheets", []).append(
+    monkeypatch.setattr(job, "draws_sheet", lambda dataset, recipe, rng: firsts.setdefault("sheets", []).append(
         int(copy.deepcopy(rng).integers(2**63))))
     recipes = [read_recipe(DEMO_RECIPE_DIR / "cautious.yaml"), read_recipe(DEMO_RECIPE_DIR / "light-and-pose.yaml")]
     with pytest.raises(_Stop):
