@@ -160,7 +160,13 @@ def _build_parser():
         "nuisance coverage, shortcut audit and honest validation scores."))
     parser.add_argument("--version", action="version", version=f"augplan {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    _add_analyses(commands)
+    _add_jobs(commands)
+    return parser
 
+
+def _add_analyses(commands):
+    """The commands that look at one side of a recipe: preview, check, coverage, evaluate."""
     p = commands.add_parser("preview", help="contact sheet of originals and augmented draws per class")
     _common(p, json_flag=False, recipe_seed=True)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
@@ -200,6 +206,9 @@ def _build_parser():
     _model_flag(p)
     p.add_argument("--field", type=Path, default=None, help="labelled field sample folder (default DATA/field)")
 
+
+def _add_jobs(commands):
+    """The commands that make or read a recipe: draft, vet, verify, history, demo."""
     p = commands.add_parser("draft", help="propose a candidate recipe from the data, or from a starting recipe")
     _common(p, json_flag=False, data_optional=True)
     _workers(p)
@@ -252,7 +261,6 @@ def _build_parser():
     p.add_argument("--model", default=None, metavar="NAME",
                    help="model the demo's recipes are scored with, and confirmed with when named "
                         "(default: cnn, the network, for scoring and linear for the check; linear: the quick proxy)")
-    return parser
 
 
 def _say_error(text):
@@ -293,6 +301,13 @@ class _Console:
                 sys.stdout = open(os.devnull, "w")
 
 
+def _generator(args):
+    """The run's one `numpy.random.Generator`, made from ``--seed``: the only place the seed becomes one."""
+    import numpy as np
+
+    return np.random.default_rng(args.seed)
+
+
 def _open_data(args, *, field=None):
     import numpy as np
 
@@ -328,8 +343,9 @@ def _report_dataset(console, dataset, *, result_says_val=False):
     for relpath, reason in dataset.skipped:
         console.warn(f"skipped {relpath}: {reason}")
     if dataset.val_from_train and not result_says_val:
-        console.warn(f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) "
-                     "stands in for validation")
+        from augplan.evaluate import no_val_warning
+
+        console.warn(no_val_warning(dataset))
     if dataset.missing_val_message():
         console.warn(dataset.missing_val_message())
 
@@ -414,8 +430,6 @@ def _emit(console, args, result, table):
 
 
 def _run_check(args, console):
-    import numpy as np
-
     from augplan.check import check_recipe
     from augplan.render import text as tables
     from augplan.render.sheets import write_evidence_sheets
@@ -426,7 +440,7 @@ def _run_check(args, console):
         _ensure_parent(args.evidence, dataset, folder=True)
     leaks = _report_leaks(console, dataset)
     recipe = _read_recipes([args.recipe], dataset)[0]
-    result = check_recipe(dataset, recipe, rng=np.random.default_rng(args.seed), sample=args.sample,
+    result = check_recipe(dataset, recipe, rng=_generator(args), sample=args.sample,
                           workers=_execution(args), quiet=args.quiet, model=args.model, size=args.side)
     if args.evidence is not None:
         result = result.with_evidence_sheets(write_evidence_sheets(result.evidence, args.evidence))
@@ -434,8 +448,6 @@ def _run_check(args, console):
 
 
 def _run_coverage(args, console):
-    import numpy as np
-
     from augplan.coverage import analyse_coverage
     from augplan.render import text as tables
 
@@ -444,7 +456,7 @@ def _run_coverage(args, console):
     if args.plots is not None:
         _ensure_parent(args.plots, dataset, folder=True)
     recipe = _read_recipes([args.recipe], dataset)[0]
-    result = analyse_coverage(dataset, recipe, rng=np.random.default_rng(args.seed), workers=_execution(args),
+    result = analyse_coverage(dataset, recipe, rng=_generator(args), workers=_execution(args),
                               quiet=args.quiet)
     if args.plots is not None:
         from augplan.render.plots import with_factor_plots
@@ -454,7 +466,7 @@ def _run_coverage(args, console):
 
 
 def _run_evaluate(args, console):
-    from augplan.evaluate.evaluate import evaluate_recipes
+    from augplan.evaluate import evaluate_recipes
     from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
@@ -462,7 +474,8 @@ def _run_evaluate(args, console):
     leaks = _report_leaks(console, dataset)
     recipes = _read_recipes(args.recipe, dataset)
     ledger, cache = _stores(args, dataset, console)
-    result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
+    result = evaluate_recipes(dataset, recipes, _generator(args), seed=args.seed,
+                              repeats=args.repeats, workers=_execution(args),
                               quiet=args.quiet, ledger_path=ledger, cache_dir=cache,
                               confirm_fraction=args.confirm_fraction, model=args.model, size=args.side)
     return _emit(console, args, _with_leaks(result, leaks), tables.leaderboard_table)
@@ -493,7 +506,7 @@ def _run_draft(args, console):
     else:
         from augplan.vet.start import change_text, draft_from_start
 
-        drafted = draft_from_start(dataset, start, name=args.name, seed=args.seed, sample=args.sample,
+        drafted = draft_from_start(dataset, start, _generator(args), name=args.name, sample=args.sample,
                                    workers=_execution(args), quiet=args.quiet)
         text = drafted.text
         for change in drafted.changes:  # stderr when the draft itself goes to standard output
@@ -517,14 +530,15 @@ def _parse_approve(text):
 
 
 def _run_vet(args, console):
-    from augplan.vet.job import vet_recipes
+    from augplan.vet import vet_recipes
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
     recipes = _read_recipes(args.recipe, dataset)
     ledger, cache = _stores(args, dataset, console)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
-                          repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
+                          repeats=args.repeats, sample=args.sample, rng=_generator(args),
+                          seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, ledger_path=ledger, cache_dir=cache, model=args.model,
                           size=args.side)
     _say_vetted(console, args, summary)
@@ -548,7 +562,7 @@ def _say_vetted(console, args, summary):
 
 
 def _run_verify(args, console):
-    from augplan.vet.vetted_file import verify_vetted
+    from augplan.vet import verify_vetted
 
     result = verify_vetted(args.vetted, data=args.data)
     if args.json:
@@ -564,7 +578,7 @@ def _terminal_width():
 
 
 def _run_history(args, console):
-    from augplan.evaluate.ledger import history, run_details
+    from augplan.evaluate import history, run_details
     from augplan.data.dataset import fingerprint, open_dataset
     from augplan.render import text as tables
     from augplan.results import HistoryResult
@@ -590,7 +604,8 @@ def _run_history(args, console):
 def _run_demo(args, console):
     from augplan.demo import run_demo
 
-    summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet, model=args.model)
+    summary = run_demo(args.output, _generator(args), seed=args.seed, workers=_execution(args),
+                       quiet=args.quiet, model=args.model)
     _say_vetted(console, args, summary)
     return ExitCode.FLAGGED if summary.flagged else ExitCode.OK  # as vet exits
 

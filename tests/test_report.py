@@ -17,7 +17,7 @@ from PIL import Image
 
 from augplan.render.html import embed_png, render_report
 from augplan.recipe.parse import parse_recipe
-from augplan.vet.vetted_file import vet_transforms
+from augplan.vet import vet_transforms
 
 HOSTILE = "<script>alert('x')</script>"
 

@@ -10,7 +10,7 @@ The starting recipe (a file, or one of the recipes that ship with augplan,
 2. the label-safety check (`augplan.check.check_recipe`) measures every
    transform of the widened recipe on the training images;
 3. its verdicts rewrite the recipe by vet's rules
-   (`augplan.vet.vetted_file.vet_transforms`): a transform that breaks one
+   (`augplan.vet.policy.vet_transforms`): a transform that breaks one
    class is scoped away from it (or relabelled), ranges are narrowed to
    their safe limits, and a transform that breaks with no safe range is
    removed. An unverified transform without a safe range is kept as the
@@ -23,14 +23,12 @@ transform. A draft is a proposal: ``augplan vet`` decides.
 import dataclasses
 import json
 
-import numpy as np
-
 from augplan.check import check_recipe
 from augplan.coverage.draft import field_lighting
 from augplan.data.dataset import load_images
 from augplan.recipe.parse import Transform, check_recipe_classes, dump_recipe, parse_recipe, recipe_name_fault
 from augplan.results import range_text
-from augplan.vet.vetted_file import vet_transforms
+from augplan.vet.policy import vet_transforms
 
 __all__ = ["StartedDraft", "draft_from_start", "widen_lighting", "change_text"]
 
@@ -101,24 +99,31 @@ def widen_lighting(recipe, reach):
     return dataclasses.replace(recipe, transforms=tuple(steps)), changes
 
 
-def _keep_unverified(adapted, widened, checked_changes):
+def _keep_unverified(adapted, widened, vetting):
     """Put back the unverified steps vet's rules removed: a draft leaves them to ``vet`` and a person.
 
     Vet removes an unverified transform without a safe limit unless a person
     approves it; a draft is the step before, so it keeps the start's step and
-    says so. ``checked_changes`` is updated in place.
+    says so.
+
+    Returns
+    -------
+    (Recipe, list of dict)
+        The draft's recipe and its change records (the draft's own words;
+        vet's `VettingChange` rows are left as the policy made them).
     """
     vetted_steps = iter(adapted.transforms)
-    steps = []
-    for change, step in zip(checked_changes, widened.transforms):
-        if change["action"] == "remove" and change["verdict"] == "unverified":
-            change["action"] = "keep"
-            change["detail"] = ("unverified, kept: the check could not vouch for it; 'augplan vet' "
-                                "removes it unless a person approves it (--approve)")
+    steps, changes = [], []
+    for change, step in zip(vetting, widened.transforms):
+        record = change.to_json()
+        if change.action == "remove" and change.verdict == "unverified":
+            record.update(action="keep", detail="unverified, kept: the check could not vouch for it; 'augplan vet' "
+                                                "removes it unless a person approves it (--approve)")
             steps.append(step)
-        elif change["action"] != "remove":
+        elif change.action != "remove":
             steps.append(next(vetted_steps))
-    return dataclasses.replace(adapted, transforms=tuple(steps))
+        changes.append(record)
+    return dataclasses.replace(adapted, transforms=tuple(steps)), changes
 
 
 def _draft_name(start, name):
@@ -171,7 +176,7 @@ def change_text(change):
     return f"{where} ({change['op']}) [{change['verdict']}]: {change['detail']}"
 
 
-def draft_from_start(dataset, start, *, name=None, seed=0, sample=None, size=64, workers=1, quiet=True):
+def draft_from_start(dataset, start, rng, *, name=None, sample=None, size=64, workers=1, quiet=True):
     """Adapt a starting recipe to the data and the field sample.
 
     Parameters
@@ -183,8 +188,8 @@ def draft_from_start(dataset, start, *, name=None, seed=0, sample=None, size=64,
         The starting recipe (`augplan.recipe.shipped.read_start`).
     name : str, optional
         The draft's name; default ``<start>-draft``.
-    seed : int
-        Seed of the label-safety check. The draft keeps the start's own
+    rng : numpy.random.Generator
+        The label-safety check's generator. The draft keeps the start's own
         ``seed``, ``copies`` and ``fill``.
     sample : int, optional
         At most this many training images per class for the check.
@@ -210,11 +215,10 @@ def draft_from_start(dataset, start, *, name=None, seed=0, sample=None, size=64,
         train = load_images(dataset.split("train"), size=size)
         reach = field_lighting(train, load_images(field_records, size=size))
     widened, widened_changes = widen_lighting(start, reach)
-    check = check_recipe(dataset, widened, rng=np.random.default_rng(seed), sample=sample, size=size,
-                         workers=workers, quiet=quiet)
+    check = check_recipe(dataset, widened, rng=rng, sample=sample, size=size, workers=workers, quiet=quiet)
     adapted, vetting = vet_transforms(widened, check)
-    checked_changes = [change.to_json() for change in vetting]  # plain dicts: the draft rewords some
-    recipe = dataclasses.replace(_keep_unverified(adapted, widened, checked_changes), name=_draft_name(start, name))
+    kept, checked_changes = _keep_unverified(adapted, widened, vetting)
+    recipe = dataclasses.replace(kept, name=_draft_name(start, name))
     changes = _merge(start, widened_changes, checked_changes)
     text = _header(start, len(dataset.split("train")), len(field_records), changes) + dump_recipe(recipe)
     parse_recipe(text, source=f"draft {json.dumps(recipe.name)}")  # a draft must always be a valid recipe
