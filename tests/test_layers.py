@@ -23,8 +23,10 @@ LAYERS = [
     {"augment"},
     {"measure"},
     {"check", "coverage", "evaluate"},
-    {"vet"},
+    # Below vet, which renders the report and the plots; render reads typed
+    # results (results.py) and draws, and imports no analysis.
     {"render"},
+    {"vet"},
     {"demo", "torch"},
     {"cli"},
     {"__init__", "__main__"},
@@ -35,7 +37,6 @@ LAYER_OF = {unit: rank for rank, units in enumerate(LAYERS) for unit in units}
 # still occur (the test below fails once it is gone, so the list only shrinks).
 KNOWN_VIOLATIONS = {
     ("check", "render"): "the checker draws its evidence sheets",
-    ("vet", "render"): "vet renders the HTML report and the factor plots itself",
 }
 
 
