@@ -308,7 +308,7 @@ def test_grey_images_report_hue_as_not_defined_in_text_json_and_report(tmp_path,
     # (HSV saturation 0), so hue is undefined for every image.
     import jsonschema
 
-    from augplan.render.html import render_report
+    from augplan.render import render_report
     from augplan.results import schema_path
     from conftest import TINY_RECIPE, write_digits_dataset
 

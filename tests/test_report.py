@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from augplan.render.html import embed_png, render_report
+from augplan.render import embed_png, render_report
 from augplan.recipe.parse import parse_recipe
 from augplan.vet.vetted_file import vet_transforms
 
@@ -456,11 +456,11 @@ def test_a_long_leak_list_is_summarised(tmp_path):
 
 def test_plot_captions_name_the_factor_of_vets_figure_files():
     # vet names factor plots <number>-<recipe>-<factor>.png; the caption names the factor alone.
-    from augplan.render.html import _plot_items
+    from augplan.render.coverage import plot_items
 
     plots = ["figures/0-naive-draft-centroid_x.png", "figures/0-naive-draft-hue.png", "plots/area.png"]
     factors = {"centroid_x": {}, "hue": {}, "area": {}}
-    assert [factor for factor, _ in _plot_items(plots, factors)] == ["centroid_x", "hue", "area"]
+    assert [factor for factor, _ in plot_items(plots, factors)] == ["centroid_x", "hue", "area"]
 
 
 # --------------------------------------------------------------------------

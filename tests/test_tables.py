@@ -85,7 +85,7 @@ def test_history_table_fits_and_marks_reused_results():
 
 def test_one_safe_limit_reads_the_same_everywhere():
     # Table, HTML report and vetted-recipe note spell one limit one way.
-    from augplan.render.html import _limit_text
+    from augplan.render.safety import _limit_text
     from augplan.results import range_text
     from augplan.vet.vetted_file import vet_transforms
     from augplan.recipe.parse import parse_recipe

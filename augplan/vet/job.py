@@ -414,7 +414,7 @@ def _evidence_document(dataset, entries, evaluation, best_entry, verdict, header
 
 def _render_with_figures(evidence_document, figures, staging):
     """The HTML report, its figures read from a staging folder laid out like the output folder."""
-    from augplan.render.html import render_report
+    from augplan.render import render_report
 
     (staging / "figures").mkdir(parents=True)
     for name, data in figures.items():
