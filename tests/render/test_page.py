@@ -214,16 +214,6 @@ def test_every_image_is_a_png_data_uri_that_decodes(tmp_path):
     assert sizes == {(6, 4), (8, 5)}
 
 
-def test_embedded_pixels_are_the_files_pixels(tmp_path):
-    rng = np.random.default_rng(3)
-    pixels = rng.integers(0, 256, size=(5, 7, 3), dtype=np.uint8)
-    path = tmp_path / "noise.png"
-    Image.fromarray(pixels).save(path)
-    uri = embed_png(path)
-    with Image.open(io.BytesIO(base64.b64decode(uri.split(",", 1)[1]))) as image:
-        np.testing.assert_array_equal(np.asarray(image.convert("RGB")), pixels)
-
-
 @pytest.mark.parametrize("content", [b"", b"GIF89a not a png", b"\xff\xd8\xff\xe0 jpeg bytes"],
                          ids=["empty", "gif-header", "jpeg-header"])
 def test_a_file_that_is_not_a_png_is_never_embedded(tmp_path, content):
@@ -452,15 +442,6 @@ def test_a_long_leak_list_is_summarised(tmp_path):
     assert len(page.table_with("splits")) == 1 + 25
     assert "60 near pairs across train / val" in page.all_text
     assert "first 25 of 60 pairs" in page.all_text
-
-
-def test_plot_captions_name_the_factor_of_vets_figure_files():
-    # vet names factor plots <number>-<recipe>-<factor>.png; the caption names the factor alone.
-    from augplan.render.coverage import plot_items
-
-    plots = ["figures/0-naive-draft-centroid_x.png", "figures/0-naive-draft-hue.png", "plots/area.png"]
-    factors = {"centroid_x": {}, "hue": {}, "area": {}}
-    assert [factor for factor, _ in plot_items(plots, factors)] == ["centroid_x", "hue", "area"]
 
 
 # --------------------------------------------------------------------------
