@@ -11,7 +11,6 @@ import copy
 import io
 from html.parser import HTMLParser
 
-import numpy as np
 import pytest
 from PIL import Image
 
