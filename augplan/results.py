@@ -32,7 +32,14 @@ __all__ = [
     "VetResult",
     "VerifyResult",
     "HistoryResult",
+    "RecipeScore",
     "VettingChange",
+    "SignoffItem",
+    "VettedForm",
+    "VettedRecipe",
+    "RecipeChanges",
+    "DatasetSummary",
+    "VetReport",
     "RESULT_TYPES",
     "schema_path",
     "json_number",
@@ -103,6 +110,28 @@ class Record(dict):
 
 
 
+def _as_row(value, cls):
+    """``value`` as a ``cls`` record: a plain JSON object (read back from a file) is typed; None stays None."""
+    if value is None or value is _ABSENT or isinstance(value, cls):
+        return value
+    return cls.from_json(value)
+
+
+def _as_rows(values, cls):
+    """A list of ``cls`` records from a list of records or plain JSON objects."""
+    if values is None or values is _ABSENT:
+        return values
+    return [_as_row(value, cls) for value in values]
+
+
+def _type_fields(record, **types):
+    """Type the named fields of a frozen record in place (``name=cls`` for one row, ``name=[cls]`` for a list)."""
+    for name, cls in types.items():
+        value = getattr(record, name)
+        typed = _as_rows(value, cls[0]) if isinstance(cls, list) else _as_row(value, cls)
+        object.__setattr__(record, name, typed)
+
+
 # Rows: the parts of a result that are lists of like objects. Each is a
 # `Record`, so it is the dict of its JSON too. Sections per analysis, lowest
 # layer first.
@@ -114,6 +143,69 @@ class Record(dict):
 
 
 # --- rows of evaluate ---
+
+@dataclass(frozen=True, eq=False)
+class RecipeScore(Record):
+    """One recipe scored against no augmentation: a row of ``evaluate``'s ``recipes``.
+
+    Validation figures are at the top level; ``field`` and ``confirm`` hold
+    the short blocks (``n_images``, ``accuracy``, ``accuracy_ci``, ``gain``,
+    ``gain_ci``, ``p_value``) of the labelled field sample and of the
+    confirmation split (only the top-ranked recipe has one), else None.
+
+    Attributes
+    ----------
+    name, recipe_hash : str
+    n_transforms : int
+    accuracy : float
+        Mean validation accuracy over the repeats.
+    accuracy_ci : list of float
+        Its 95% Wilson interval.
+    balanced_accuracy, macro_f1 : float
+    per_class_recall, per_class_gain : dict
+        Class -> recall, and -> recall minus the baseline's.
+    repeat_accuracy : list of float
+    gain : float
+        Accuracy gain over no augmentation (fraction, not points).
+    gain_ci : list of float
+        Its 95% interval (paired sign-flip test inverted).
+    p_value, p_holm : float
+        The test's p and Holm's adjusted p across the run.
+    confusion : dict or None
+        ``classes``, ``counts`` (summed over repeats), ``repeats``.
+    verdict : {'gains', 'no difference', 'loses'}
+        `VERDICT_RULE` of ``augplan.evaluate.evaluate``.
+    flagged : bool
+        It loses on a model that learns from pixels.
+    augmented_training_images : int
+    confirm, field : dict or None
+    """
+
+    name: str
+    recipe_hash: str
+    n_transforms: int
+    accuracy: float
+    accuracy_ci: list
+    balanced_accuracy: float
+    macro_f1: float
+    per_class_recall: Mapping
+    repeat_accuracy: list
+    gain: float
+    gain_ci: list
+    p_value: float
+    confusion: Any
+    p_holm: float
+    per_class_gain: Mapping
+    verdict: str
+    flagged: bool
+    augmented_training_images: int
+    confirm: Any = None
+    field: Any = None
+
+    def primary(self, decided_on):
+        """The score block of the primary evidence: the field block for ``'field'``, else this row."""
+        return (self.field or {}) if decided_on == "field" else self
+
 
 
 # --- rows of vet ---
@@ -152,6 +244,186 @@ class VettingChange(Record):
             else:
                 object.__setattr__(self, "clipped_to", [float(v) for v in self.clipped_to])
         super().__post_init__()
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class SignoffItem(Record):
+    """A transform a person must approve: unverified, and kept by vetting.
+
+    Inside a `VettedForm` it names the step (``index``, ``op``, ``detail``);
+    in `VetResult.signoff` it also names the ``recipe`` and the path of its
+    ``evidence_sheet`` (None when the checker drew none).
+    """
+
+    recipe: str = _optional()
+    index: int
+    op: str
+    detail: str
+    evidence_sheet: Any = _optional()
+
+
+@dataclass(frozen=True, eq=False)
+class VettedForm(Record):
+    """The vetted form of one recipe, as the vetting policy made it.
+
+    Attributes
+    ----------
+    name : str
+        The vetted recipe's name (``<name>-vetted`` when vetting changed it).
+    recipe : dict
+        Its body (`augplan.recipe.parse.recipe_to_dict`).
+    changes : list of VettingChange
+        One per transform of the original, in order.
+    signoff : list of SignoffItem
+    unchanged : bool
+        Every transform kept as written.
+    recheck : CheckResult or None
+        The label-safety check of the rewritten steps, when a step was
+        relabelled or scoped.
+    score : RecipeScore, optional
+        Its row of the evaluation (absent until it is scored).
+    """
+
+    name: str
+    recipe: Mapping
+    changes: list
+    signoff: list
+    unchanged: bool
+    recheck: Any = None
+    score: Any = _optional()
+
+    def __post_init__(self):
+        _type_fields(self, changes=[VettingChange], signoff=[SignoffItem], recheck=CheckResult,
+                     score=RecipeScore)
+        super().__post_init__()
+
+
+@dataclass(frozen=True, eq=False)
+class VettedRecipe(Record):
+    """What ``vet`` produced for one recipe: its check, coverage and vetted form.
+
+    Attributes
+    ----------
+    name : str
+    source : str or None
+        The file it was read from.
+    recipe : dict
+        The recipe as written (`augplan.recipe.parse.recipe_to_dict`).
+    recipe_hash : str
+    check : CheckResult
+        Its ``evidence_sheet`` paths are relative to the output folder
+        (``figures/...``) once the job has collected them.
+    coverage : CoverageResult
+    draws_sheet : str or None
+        Contact sheet of draws of the vetted form, relative to the output folder.
+    vetted : VettedForm
+    """
+
+    name: str
+    source: Any
+    recipe: Mapping
+    recipe_hash: str
+    check: Any
+    coverage: Any
+    draws_sheet: Any
+    vetted: Any
+
+    def __post_init__(self):
+        _type_fields(self, check=CheckResult, coverage=CoverageResult, vetted=VettedForm)
+        super().__post_init__()
+
+
+@dataclass(frozen=True, eq=False)
+class RecipeChanges(Record):
+    """One item of `VetResult.changes`: what vetting did to each transform of one recipe."""
+
+    recipe: str
+    vetted: str
+    unchanged: bool
+    transforms: list
+
+    def __post_init__(self):
+        _type_fields(self, transforms=[VettingChange])
+        super().__post_init__()
+
+
+@dataclass(frozen=True, eq=False)
+class DatasetSummary(Record):
+    """The data a vetting run read, as the report describes it (``evidence.json``'s ``data``).
+
+    Attributes
+    ----------
+    root, fingerprint : str
+    classes : list of str
+    counts : dict
+        Split -> images (``train``, ``val``, ``test``, ``field``).
+    class_counts : dict
+        Class -> split -> images.
+    val_from_train : bool
+        Validation was split off train (no ``val/`` folder).
+    split_seed : int or None
+    skipped : list of [str, str]
+        Files skipped and why.
+    leaks : list of dict
+        Near-duplicates across splits.
+    """
+
+    root: str
+    fingerprint: str
+    classes: list
+    counts: Mapping
+    class_counts: Mapping
+    val_from_train: bool
+    split_seed: Any
+    skipped: list
+    leaks: list
+
+
+@dataclass(frozen=True, eq=False)
+class VetReport(Record):
+    """Everything the report is rendered from; its JSON is ``evidence.json``.
+
+    Attributes
+    ----------
+    augplan_version, created : str
+    verdict : str
+        The report's first line.
+    data : DatasetSummary
+    recipes : list of VettedRecipe
+        In the order given.
+    evaluation : EvaluateResult
+        Every recipe and every changed vetted form scored; its ``ranking``
+        and ``best`` are the one decision (`augplan.evaluate.ranking`).
+    best : str or None
+        The recommended recipe's (original) name; None when no recipe clearly
+        beat no augmentation.
+    ranking : list of str
+        The evaluation's ranking, best first.
+    ranking_rule : str
+    cautions : list of str
+    seed : int
+        The analysis seed the command line was given (provenance).
+    """
+
+    augplan_version: str
+    created: str
+    verdict: str
+    data: Any
+    recipes: list
+    evaluation: Any
+    best: Any
+    ranking: list
+    ranking_rule: str
+    cautions: list
+    seed: Any
+
+    def __post_init__(self):
+        _type_fields(self, data=DatasetSummary, recipes=[VettedRecipe], evaluation=EvaluateResult)
+        super().__post_init__()
+
+    def recommended(self):
+        """The `VettedRecipe` recommended, or None."""
+        return next((entry for entry in self.recipes if entry.name == self.best), None)
 
 
 
@@ -241,6 +513,25 @@ class EvaluateResult(_Result):
     reused_from_ledger: list = _optional()
     leaks: list = _optional()
 
+    def __post_init__(self):
+        _type_fields(self, recipes=[RecipeScore])
+        super().__post_init__()
+
+    def score(self, name):
+        """The `RecipeScore` of the recipe called ``name`` (KeyError when it was not scored)."""
+        for row in self.recipes:
+            if row.name == name:
+                return row
+        raise KeyError(name)
+
+    def ranked(self):
+        """The recipe rows in ``ranking`` order, best first (the evaluator's order; never re-sorted)."""
+        return [self.score(name) for name in self.ranking]
+
+    def best_score(self):
+        """The recommended recipe's `RecipeScore`, or None when no recipe clearly beat no augmentation."""
+        return None if self.best is None else self.score(self.best)
+
     @property
     def flagged(self):
         """Some recipe is flagged: its gain interval lies below zero on a model that learns from
@@ -262,6 +553,10 @@ class VetResult(_Result):
     decision_note: str = _optional()
     changes: list = _optional()
     signoff: list = _optional()
+
+    def __post_init__(self):
+        _type_fields(self, changes=[RecipeChanges], signoff=[SignoffItem])
+        super().__post_init__()
 
     @property
     def flagged(self):

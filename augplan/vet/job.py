@@ -24,7 +24,7 @@ from augplan.measure.models import is_linear, model_phrase, scoring_model
 from augplan.vet.vetted_file import creation_date, vet_transforms, vetted_text
 from augplan.check.check import check_recipe
 from augplan.recipe.parse import recipe_hash, recipe_to_dict
-from augplan.results import VetResult
+from augplan.results import VetReport, VetResult
 
 __all__ = ["vet_recipes", "prepare_output"]
 
@@ -311,8 +311,8 @@ def vet_recipes(dataset, recipes, out_dir, *, force=False, approve=(), repeats=5
             documents["vetted-recipe.yaml"] = documents[f"vetted-{best_entry['name']}.yaml"]
         verdict = _verdict_sentence(entries, evaluation, best_row, top_entry["vetted"]["score"])
         figures = _collect_figures(entries)
-        evidence_document = _evidence_document(dataset, entries, evaluation, best_entry, verdict, header, seed,
-                                               ranking)
+        evidence_document = VetReport.from_json(_evidence_document(dataset, entries, evaluation, best_entry,
+                                                                   verdict, header, seed, ranking))
         html = _render_with_figures(evidence_document, figures, scratch / "staged")
         # Everything is computed: now write, all files or none.
         publish_folder(_output_files(documents, figures, evidence_document, html), out_dir, replace=replace,
