@@ -8,17 +8,22 @@ The page loads nothing: every figure is a PNG embedded as a base64 data URI,
 the style sheet is inline, there are no scripts, and the only links are
 in-page anchors. Every piece of text that comes from the user (class names,
 recipe names, paths) goes through `html.escape`.
+
+The page reads a typed `augplan.results.VetReport` by attribute; the rows
+the analyses leave as JSON objects (a transform's verdict, a factor's
+summary) are read by the keys their schemas require.
 """
 
 from __future__ import annotations
 
 from augplan.render.coverage import coverage_section
 from augplan.render.figures import figure_html
-from augplan.render.formatting import DASH, escape, anchor_id
+from augplan.render.formatting import escape, anchor_id
 from augplan.render.leaderboard import leaderboard_section, per_class_section, confusion_section
 from augplan.render.notes import data_notes_section, appendix_section
 from augplan.render.safety import safety_section
 from augplan.render.summary import summary_section
+from augplan.results import VetReport
 
 __all__ = ["recipe_details", "draws_block", "render_report"]
 
@@ -97,63 +102,71 @@ code { font-size: .88em; background: var(--soft); padding: 0 .2rem; word-break: 
 """
 
 
-def _head(evidence):
-    data = evidence.get("data") or {}
-    fp = str(data.get("fingerprint") or "")
-    fp_short = fp.split(":")[-1][:12] if fp else DASH
-    verdict = evidence.get("verdict") or "No verdict was recorded for this run."
+def _head(report):
+    fingerprint = report.data.fingerprint
     meta = [
-        f"<span>data fingerprint <code title=\"{escape(fp)}\">{escape(fp_short)}</code></span>",
-        f"<span>created {escape(evidence.get('created') or DASH)}</span>",
-        f"<span>augplan {escape(evidence.get('augplan_version') or DASH)}</span>",
+        f"<span>data fingerprint <code title=\"{escape(fingerprint)}\">"
+        f"{escape(fingerprint.split(':')[-1][:12])}</code></span>",
+        f"<span>created {escape(report.created)}</span>",
+        f"<span>augplan {escape(report.augplan_version)}</span>",
+        f"<span>seed {escape(report.seed)}</span>",
+        f"<span>data <code>{escape(report.data.root)}</code></span>",
     ]
-    if evidence.get("seed") is not None:
-        meta.append(f"<span>seed {escape(evidence.get('seed'))}</span>")
-    if data.get("root"):
-        meta.append(f"<span>data <code>{escape(data.get('root'))}</code></span>")
-    if evidence.get("best"):
-        meta.append(f"<span>recommended: <strong>{escape(evidence.get('best'))}</strong> (vetted)</span>")
-    del verdict  # the verdict opens the summary
+    if report.best is not None:
+        meta.append(f"<span>recommended: <strong>{escape(report.best)}</strong> (vetted)</span>")
     return ("<header><h1>augplan vet: augmentation recipe report</h1>"
             f'<p class="meta">{" ".join(meta)}</p></header>')
 
 
 def recipe_details(entry, number, base_dir):
-    name = entry.get("name", f"recipe {number + 1}")
-    transforms = [t for t in ((entry.get("check") or {}).get("transforms") or []) if isinstance(t, dict)]
+    """One recipe's collapsible section: label safety, augmented draws, coverage and shortcuts.
+
+    Parameters
+    ----------
+    entry : augplan.results.VettedRecipe
+    number : int
+        Its position in the report (makes its ids unique).
+    base_dir : str or Path or None
+        Folder that relative figure paths are resolved against.
+
+    Returns
+    -------
+    str
+        A ``<details>`` element.
+    """
+    transforms = entry.check.transforms
     tally = {}
-    for t in transforms:
-        tally[t.get("verdict") or "unknown"] = tally.get(t.get("verdict") or "unknown", 0) + 1
-    status = ", ".join(f"{n} {v}" for v, n in sorted(tally.items()))
-    vetted = entry.get("vetted") or {}
-    after = ("kept as written" if vetted.get("unchanged")
-             else f"vetted as {vetted['name']}" if vetted.get("name") else "")
-    summary = (f"<summary>Recipe <strong>{escape(name)}</strong>: {len(transforms)} transforms"
-               + (f" ({escape(status)})" if status else "") + (f"; {escape(after)}" if after else "") + "</summary>")
+    for transform in transforms:
+        tally[transform["verdict"]] = tally.get(transform["verdict"], 0) + 1
+    status = ", ".join(f"{n} {verdict}" for verdict, n in sorted(tally.items()))
+    after = "kept as written" if entry.vetted.unchanged else f"vetted as {entry.vetted.name}"
+    summary = (f"<summary>Recipe <strong>{escape(entry.name)}</strong>: {len(transforms)} transforms"
+               + (f" ({escape(status)})" if status else "") + f"; {escape(after)}</summary>")
     body = [safety_section(entry, number, base_dir), draws_block(entry, base_dir),
             coverage_section(entry, number, base_dir)]
-    return (f'<details class="recipe" id="{anchor_id("recipe", name, number)}">{summary}'
+    return (f'<details class="recipe" id="{anchor_id("recipe", entry.name, number)}">{summary}'
             + "".join(body) + "</details>")
 
 
 def draws_block(entry, base_dir):
-    sheet = entry.get("draws_sheet")
-    if not sheet:
+    """The contact sheet of draws of a recipe's vetted form, or "" when none was drawn."""
+    if not entry.draws_sheet:
         return ""
-    name = (entry.get("vetted") or {}).get("name") or entry.get("name", "?")
+    name = entry.vetted.name
     return ("<h3>Augmented draws</h3>"
-            + figure_html(sheet, f"recipe {name} (as vetted): an original of each class, then independent draws",
-                      f"contact sheet of augmented draws of {name}", base_dir))
+            + figure_html(entry.draws_sheet,
+                          f"recipe {name} (as vetted): an original of each class, then independent draws",
+                          f"contact sheet of augmented draws of {name}", base_dir))
 
 
-def render_report(evidence, *, base_dir=None):
-    """Render the evidence document of ``augplan vet`` as one self-contained HTML page.
+def render_report(report, *, base_dir=None):
+    """Render the evidence of ``augplan vet`` as one self-contained HTML page.
 
     Parameters
     ----------
-    evidence : dict
-        The evidence document built by `augplan.vet.vet_recipes` (the same
-        content as ``evidence.json``). Optional keys may be missing.
+    report : augplan.results.VetReport
+        What `augplan.vet.vet_recipes` produced (its JSON is
+        ``evidence.json``; ``VetReport.from_json`` reads one back).
     base_dir : str or Path, optional
         Folder that relative figure paths (such as ``figures/x.png`` in a
         written ``evidence.json``) are resolved against.
@@ -163,21 +176,26 @@ def render_report(evidence, *, base_dir=None):
     str
         The HTML page. Figures are embedded as PNG data URIs; a figure whose
         file is missing is named in a note instead.
+
+    Raises
+    ------
+    TypeError
+        When ``report`` is not a `VetReport`.
     """
-    if not isinstance(evidence, dict):
-        raise TypeError(f"render_report expects the evidence document as a dict; got {type(evidence).__name__}.")
-    recipes = [r for r in (evidence.get("recipes") or []) if isinstance(r, dict)]
+    if not isinstance(report, VetReport):
+        raise TypeError("render_report expects an augplan.results.VetReport (VetReport.from_json reads "
+                        f"evidence.json); got {type(report).__name__}.")
     title = "augplan report"
-    if recipes:
-        title += ": " + ", ".join(str(r.get("name", "?")) for r in recipes)
-    body = [_head(evidence), summary_section(evidence, recipes), leaderboard_section(evidence), per_class_section(evidence),
-            confusion_section(evidence)]
-    if recipes:
+    if report.recipes:
+        title += ": " + ", ".join(entry.name for entry in report.recipes)
+    body = [_head(report), summary_section(report), leaderboard_section(report), per_class_section(report),
+            confusion_section(report)]
+    if report.recipes:
         body.append('<h2 id="recipes">Recipes</h2><p class="note">Open a recipe for its label-safety table, '
                     "evidence sheets, augmented draws, coverage and shortcut audit.</p>")
-    body.extend(recipe_details(entry, number, base_dir) for number, entry in enumerate(recipes))
-    body.append(appendix_section(evidence, recipes))
-    body.append(data_notes_section(evidence))
+    body.extend(recipe_details(entry, number, base_dir) for number, entry in enumerate(report.recipes))
+    body.append(appendix_section(report))
+    body.append(data_notes_section(report.data))
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
             f"<title>{escape(title)}</title><style>{_STYLE}</style></head>"

@@ -5,7 +5,7 @@ from __future__ import annotations
 from augplan.render.changes import vetting_text
 from augplan.render.figures import EVIDENCE_COLOURS, figure_html
 from augplan.render.formatting import (
-    DASH, escape, is_number, percent, rate_ci, points_ci, value_text, verdict_badge, table_html,
+    DASH, escape, percent, rate_ci, points_ci, value_text, verdict_badge, table_html,
     evidence_anchor,
 )
 from augplan.results import range_text
@@ -13,13 +13,10 @@ from augplan.results import range_text
 __all__ = ["safety_section"]
 
 
-def _transform_text(step, fallback):
-    """``rotate degrees=[-8, 8], probability=0.5``, from the recipe step or the check params."""
-    source = step if isinstance(step, dict) else {}
-    op = source.get("op") or fallback.get("op") or "?"
-    params = {k: v for k, v in source.items() if k != "op"} or dict(fallback.get("params") or {})
-    text = ", ".join(f"{k}={value_text(v)}" for k, v in params.items())
-    return f"<strong>{escape(op)}</strong>" + (f" <span class=\"note\">{escape(text)}</span>" if text else "")
+def _transform_text(step):
+    """``rotate degrees=[-8, 8], probability=0.5``: a recipe step as written."""
+    text = ", ".join(f"{key}={value_text(value)}" for key, value in step.items() if key != "op")
+    return f"<strong>{escape(step['op'])}</strong>" + (f" <span class=\"note\">{escape(text)}</span>" if text else "")
 
 
 def _stage_text(stage):
@@ -28,127 +25,133 @@ def _stage_text(stage):
 
 
 def _swaps_text(swaps, limit=2):
-    swaps = [s for s in (swaps or []) if isinstance(s, dict)]
+    """The first ``limit`` swaps of a transform (``a -> b 93%, 37 of 40 images moved``), then a count."""
     if not swaps:
         return DASH
     parts = []
     for swap in swaps[:limit]:
         # The count that moved, of the class's images checked (not the class size alone).
-        n = (f", {swap['moved']} of {swap['n']} images moved" if is_number(swap.get("moved"))
-             and is_number(swap.get("n")) else "")
-        parts.append(f"<span class=\"swap\">{escape(swap.get('from', '?'))} \u2192 {escape(swap.get('to', '?'))} "
-                     f"{percent(swap.get('rate'))}{n}</span>")
+        parts.append(f"<span class=\"swap\">{escape(swap['from'])} \u2192 {escape(swap['to'])} "
+                     f"{percent(swap['rate'])}, {swap['moved']} of {swap['n']} images moved</span>")
     more = f"<br><span class=\"note\">and {len(swaps) - limit} more</span>" if len(swaps) > limit else ""
     return "<br>".join(parts) + more
 
 
 def _limit_text(transform):
-    pair = transform.get("safe_limit")
-    if isinstance(pair, (list, tuple)) and len(pair) == 2:
+    """The safe limit of a transform (`augplan.results.range_text`), or why there is none."""
+    pair = transform["safe_limit"]
+    if pair is not None:
         if pair[0] == pair[1]:
             return f"{range_text(pair)} only (no change is safe)"
         return range_text(pair)
-    if transform.get("magnitudes"):
+    if transform["magnitudes"]:
         return "no safe magnitude"
     return DASH
 
 
-def safety_section(entry, number, base_dir):
-    check = entry.get("check") or {}
-    vetted = entry.get("vetted") or {}
-    steps = (entry.get("recipe") or {}).get("transforms") or []
-    changes = {c.get("index"): c for c in (vetted.get("changes") or []) if isinstance(c, dict)}
-    out = ["<section><h3>Label safety</h3>"]
+def _facts(entry):
+    """The line above the table: file, recipe hash and the checking model's accuracy."""
+    model = entry.check.model
     facts = []
-    if entry.get("source"):
-        facts.append(f"file <code>{escape(entry['source'])}</code>")
-    if entry.get("recipe_hash"):
-        facts.append(f"recipe hash <code>{escape(str(entry['recipe_hash'])[:12])}</code>")
-    model = check.get("model") or {}
-    if is_number(model.get("cv_accuracy")):
-        facts.append(f"checking model: cross-validated accuracy {percent(model['cv_accuracy'], 1)}"
-                     + (f" against chance {percent(model.get('chance'), 1)}" if is_number(model.get("chance"))
-                        else ""))
-    if is_number(check.get("n_images")):
-        facts.append(f"{check['n_images']} training images checked")
-    if facts:
-        out.append(f"<p class=\"note\">{'; '.join(facts)}.</p>")
-    if model.get("weak"):
+    if entry.source:
+        facts.append(f"file <code>{escape(entry.source)}</code>")
+    facts.append(f"recipe hash <code>{escape(entry.recipe_hash[:12])}</code>")
+    facts.append(f"checking model: cross-validated accuracy {percent(model['cv_accuracy'], 1)} "
+                 f"against chance {percent(model['chance'], 1)}")
+    facts.append(f"{entry.check.n_images} training images checked")
+    out = [f"<p class=\"note\">{'; '.join(facts)}.</p>"]
+    if model["weak"]:
         out.append('<p class="warn">The checking model is weak on this data: its verdicts say little. '
                    "Treat every verdict as unverified and look at the images.</p>")
+    return "".join(out)
 
-    transforms = [t for t in (check.get("transforms") or []) if isinstance(t, dict)]
+
+def _verdict_table(entry):
+    """One row per transform: its verdict, the screen's rates, swaps, safe limit and what vetting did."""
+    steps = entry.recipe["transforms"]
+    changes = {change.index: change for change in entry.vetted.changes}
     rows = []
-    row_classes = []
-    for position, transform in enumerate(transforms):
-        index = transform.get("index", position)
-        step = steps[index] if isinstance(index, int) and 0 <= index < len(steps) else None
+    for transform in entry.check.transforms:
+        index = transform["index"]
         rows.append([
             escape(index),
-            _transform_text(step, transform),
-            verdict_badge(transform.get("verdict")) + _stage_text(transform.get("decided_by")),
-            rate_ci(transform.get("change_rate"), transform.get("change_rate_ci")),
-            rate_ci(transform.get("leave_rate"), transform.get("leave_rate_ci")),
-            _swaps_text(transform.get("swaps")),
+            _transform_text(steps[index]),
+            verdict_badge(transform["verdict"]) + _stage_text(transform["decided_by"]),
+            rate_ci(transform["change_rate"], transform["change_rate_ci"]),
+            rate_ci(transform["leave_rate"], transform["leave_rate_ci"]),
+            _swaps_text(transform["swaps"]),
             _limit_text(transform),
-            vetting_text(changes.get(index), transform.get("suggestion")),
+            vetting_text(changes.get(index), transform["suggestion"]),
         ])
-        row_classes.append("")
-    if rows:
-        out.append(table_html(
-            ["#", "transform", "verdict", "moved to another class<br>(screen, 95% CI)",
-             "outside every class<br>(screen, 95% CI)", "confirmed swaps", "safe limit", "what vetting did"],
-            rows, numeric=(0, 3, 4), row_classes=row_classes, wide=True))
-    else:
-        out.append('<p class="note">The check recorded no transforms.</p>')
-    if check.get("decision_rule"):
-        out.append('<p class="note">Verdicts follow the label-safety rule in the '
-                   '<a href="#appendix">appendix</a>.</p>')
-    for warning in check.get("warnings") or []:
-        out.append(f'<p class="warn">{escape(warning)}</p>')
+    if not rows:
+        return '<p class="note">The check recorded no transforms.</p>'
+    return table_html(["#", "transform", "verdict", "moved to another class<br>(screen, 95% CI)",
+                       "outside every class<br>(screen, 95% CI)", "confirmed swaps", "safe limit",
+                       "what vetting did"], rows, numeric=(0, 3, 4), wide=True)
 
-    sheets = [t for t in transforms if t.get("evidence_sheet")]
-    if sheets:
-        out.append("<h3>Images that moved</h3>"
-                   '<p class="note">Each pair shows an original at its own aspect ratio and the transformed '
-                   "image, captioned with the magnitude; the row label says its class and where the "
-                   "transformed image landed (another class, or outside every class).</p>")
-        out.append('<div class="plots">')
-        for transform in sheets:
-            caption = (f"transform {transform.get('index', '?')} ({transform.get('op', '?')}): "
-                       f"{transform.get('verdict', 'unknown')}; shown in {EVIDENCE_COLOURS} colours, "
-                       f"the full-colour sheet is {transform['evidence_sheet']}")
-            out.append(figure_html(transform["evidence_sheet"], caption, f"evidence sheet, {caption}", base_dir,
-                               anchor=evidence_anchor(number, transform.get("index", "x")),
-                               colours=EVIDENCE_COLOURS))
-        out.append("</div>")
 
-    out.append(_vetted_block(vetted))
+def _evidence_sheets(transforms, number, base_dir):
+    """The evidence sheet of every transform that has one, each anchored for the sign-off links."""
+    sheets = [transform for transform in transforms if transform["evidence_sheet"]]
+    if not sheets:
+        return ""
+    out = ["<h3>Images that moved</h3>"
+           '<p class="note">Each pair shows an original at its own aspect ratio and the transformed '
+           "image, captioned with the magnitude; the row label says its class and where the "
+           "transformed image landed (another class, or outside every class).</p>",
+           '<div class="plots">']
+    for transform in sheets:
+        caption = (f"transform {transform['index']} ({transform['op']}): {transform['verdict']}; shown in "
+                   f"{EVIDENCE_COLOURS} colours, the full-colour sheet is {transform['evidence_sheet']}")
+        out.append(figure_html(transform["evidence_sheet"], caption, f"evidence sheet, {caption}", base_dir,
+                               anchor=evidence_anchor(number, transform["index"]), colours=EVIDENCE_COLOURS))
+    out.append("</div>")
+    return "".join(out)
+
+
+def safety_section(entry, number, base_dir):
+    """The label-safety section of one recipe.
+
+    Parameters
+    ----------
+    entry : augplan.results.VettedRecipe
+    number : int
+        Its position in the report (makes the evidence sheets' ids unique).
+    base_dir : str or Path or None
+        Folder that relative figure paths are resolved against.
+
+    Returns
+    -------
+    str
+        A ``<section>``: the checking model, the verdict table, the check's
+        warnings, the evidence sheets and the vetted recipe.
+    """
+    out = ["<section><h3>Label safety</h3>", _facts(entry), _verdict_table(entry),
+           '<p class="note">Verdicts follow the label-safety rule in the <a href="#appendix">appendix</a>.</p>']
+    out.extend(f'<p class="warn">{escape(warning)}</p>' for warning in entry.check.warnings)
+    out.append(_evidence_sheets(entry.check.transforms, number, base_dir))
+    out.append(_vetted_block(entry.vetted))
     out.append("</section>")
     return "".join(out)
 
 
 def _vetted_block(vetted):
-    if not vetted:
-        return ""
+    """The vetted form: its name, its score and, when steps were rewritten, their re-check."""
     out = ["<h4>The vetted recipe</h4>"]
-    name = vetted.get("name")
-    if vetted.get("unchanged"):
-        out.append(f"<p>Every transform is kept as written; the vetted recipe is <strong>{escape(name)}</strong>.</p>")
+    if vetted.unchanged:
+        out.append("<p>Every transform is kept as written; the vetted recipe is "
+                   f"<strong>{escape(vetted.name)}</strong>.</p>")
     else:
-        out.append(f"<p>Vetting changed the recipe; the result is <strong>{escape(name)}</strong>.</p>")
-    score = vetted.get("score") or {}
+        out.append(f"<p>Vetting changed the recipe; the result is <strong>{escape(vetted.name)}</strong>.</p>")
+    score = vetted.get("score")  # absent until the vetted form is scored
     if score:
-        out.append(f"<p>Validation accuracy {percent(score.get('accuracy'), 1)}, gain over no augmentation "
-                   f"{points_ci(score.get('gain'), score.get('gain_ci'))} percentage points "
-                   "(95% CI).</p>")
-    recheck = vetted.get("recheck") or {}
-    transforms = [t for t in (recheck.get("transforms") or []) if isinstance(t, dict)]
-    if transforms:
-        rows = [[escape(t.get("index", i)), f"<strong>{escape(t.get('op', '?'))}</strong>", verdict_badge(t.get("verdict")),
-                 rate_ci(t.get("change_rate"), t.get("change_rate_ci")), _swaps_text(t.get("swaps"))]
-                for i, t in enumerate(transforms)]
+        out.append(f"<p>Validation accuracy {percent(score.accuracy, 1)}, gain over no augmentation "
+                   f"{points_ci(score.gain, score.gain_ci)} percentage points (95% CI).</p>")
+    if vetted.recheck is not None and vetted.recheck.transforms:
+        rows = [[escape(t["index"]), f"<strong>{escape(t['op'])}</strong>", verdict_badge(t["verdict"]),
+                 rate_ci(t["change_rate"], t["change_rate_ci"]), _swaps_text(t["swaps"])]
+                for t in vetted.recheck.transforms]
         out.append("<p>The rewritten transforms were checked again:</p>")
         out.append(table_html(["#", "transform", "verdict", "moved to another class (95% CI)", "main swaps"],
-                          rows, numeric=(0, 3)))
+                              rows, numeric=(0, 3)))
     return "".join(out)

@@ -5,91 +5,107 @@ from __future__ import annotations
 from augplan.measure.models import model_phrase
 from augplan.render.changes import change_phrase
 from augplan.render.formatting import escape, is_number, bullet_list, anchor_id, evidence_anchor
-from augplan.render.leaderboard import recommended_row, ranked_rows
 
 __all__ = ["summary_section", "changes_list", "signoff_list"]
 
 
-def summary_section(evidence, recipes):
-    verdict = evidence.get("verdict") or "No verdict was recorded for this run."
-    cautions = [c for c in (evidence.get("cautions") or []) if c]
+def summary_section(report):
+    """The first screen: the verdict, the decision note, the evidence, changes, sign-off and cautions.
+
+    Parameters
+    ----------
+    report : augplan.results.VetReport
+
+    Returns
+    -------
+    str
+        A ``<section id="summary">``.
+    """
+    evaluation = report.evaluation
     out = ['<section id="summary" class="summary">',
-           f'<p class="verdict" id="verdict">{escape(verdict)}</p>']
-    note = (evidence.get("evaluation") or {}).get("decision_note")
-    if note:
+           f'<p class="verdict" id="verdict">{escape(report.verdict)}</p>']
+    if evaluation.decision_note:
         # Which evidence decides and what validation can show: beside the recommendation, never collapsed.
-        shared = (evidence.get("evaluation") or {}).get("val_shares_shortcut")
-        out.append(f'<p class="decision{" shortcut" if shared else ""}" id="decision">{escape(note)}</p>')
-    if evidence.get("evaluation"):
-        out.append(f'<p class="source">{_evidence_source(evidence)}</p>')
-    out.append('<div class="cols">' + changes_list(recipes) + signoff_list(recipes) + "</div>")
-    if cautions:
-        out.append('<div class="cautions" id="cautions"><h2>Cautions</h2>' + bullet_list(cautions) + "</div>")
+        shortcut = " shortcut" if evaluation.val_shares_shortcut else ""
+        out.append(f'<p class="decision{shortcut}" id="decision">{escape(evaluation.decision_note)}</p>')
+    out.append(f'<p class="source">{_evidence_source(report)}</p>')
+    out.append('<div class="cols">' + changes_list(report.recipes) + signoff_list(report.recipes) + "</div>")
+    if report.cautions:
+        out.append('<div class="cautions" id="cautions"><h2>Cautions</h2>' + bullet_list(report.cautions)
+                   + "</div>")
     out.append("</section>")
     return "".join(out)
 
 
-def _evidence_source(evidence):
+def _evidence_source(report):
     """Which model and which images the recommendation rests on, in one line."""
-    evaluation = evidence.get("evaluation") or {}
-    model = evaluation.get("model")
-    model_text = model_phrase((model.get("name") if isinstance(model, dict) else model) or "linear")
+    evaluation = report.evaluation
     # The recommended row, else the top-ranked one: the field sample is named whether or not one is recommended.
-    recommended = recommended_row(evidence) or next(iter(ranked_rows(evidence)), None) or {}
+    ranked = evaluation.ranked()
+    row = evaluation.best_score() or (ranked[0] if ranked else None)
     parts = []
-    field = recommended.get("field") or {}
+    field = row.field if row is not None and row.field else {}
     if is_number(field.get("gain")):
-        n = field.get("n_images")
-        parts.append("the labelled field sample" + (f" ({n} images)" if is_number(n) else ""))
-    baseline = evaluation.get("baseline") or {}
-    n_val = baseline.get("n_images")
-    scored_on = str(evaluation.get("scored_on") or "val")
+        parts.append(f"the labelled field sample ({field['n_images']} images)")
+    scored_on = evaluation.scored_on
     scored_on = "validation" + scored_on[3:] if scored_on.startswith("val") else scored_on
-    parts.append(scored_on + (f" ({n_val} images)" if is_number(n_val) else ""))
-    repeats = evaluation.get("repeats")
-    tail = f", {repeats} training repeat{'s' if repeats != 1 else ''}" if is_number(repeats) else ""
-    return (f"Evidence: the accuracy gain of {escape(model_text)}, trained with each recipe, over the "
-            f"same model trained without augmentation, scored on {escape(' and '.join(parts))}{escape(tail)}; "
+    parts.append(f"{scored_on} ({evaluation.baseline['n_images']} images)")
+    repeats = evaluation.repeats
+    return (f"Evidence: the accuracy gain of {escape(model_phrase(evaluation.model['name']))}, trained with "
+            "each recipe, over the same model trained without augmentation, scored on "
+            f"{escape(' and '.join(parts))}, {repeats} training repeat{'s' if repeats != 1 else ''}; "
             "validation images are never augmented.")
 
 
 def changes_list(recipes):
+    """"What vetting changed": one line per recipe, its changes said by `change_phrase`.
+
+    Parameters
+    ----------
+    recipes : list of augplan.results.VettedRecipe
+
+    Returns
+    -------
+    str
+        A box with the list, or "" when there are no recipes.
+    """
     items = []
     for number, entry in enumerate(recipes):
-        name = entry.get("name", f"recipe {number + 1}")
-        vetted = entry.get("vetted") or {}
-        changes = [c for c in (vetted.get("changes") or []) if isinstance(c, dict)]
-        link = f'<a href="#{anchor_id("recipe", name, number)}"><strong>{escape(name)}</strong></a>'
-        if vetted.get("unchanged") or not changes:
+        changes = entry.vetted.changes
+        link = f'<a href="#{anchor_id("recipe", entry.name, number)}"><strong>{escape(entry.name)}</strong></a>'
+        if entry.vetted.unchanged:
             kept = f"{len(changes)} transform{'s' if len(changes) != 1 else ''}" if changes else "as written"
             items.append(f"<li>{link}: kept ({escape(kept)} unchanged)</li>")
             continue
-        changed = [c for c in changes if c.get("action") != "keep"]
-        phrases = [change_phrase(c) for c in changed]
-        kept = len(changes) - len(changed)
-        if kept:
-            phrases.append(f"{kept} kept")
-        target = f" \u2192 {escape(vetted['name'])}" if vetted.get("name") else ""
-        items.append(f"<li>{link}{target}: {escape('; '.join(phrases))}</li>")
+        changed = [change for change in changes if change.action != "keep"]
+        phrases = [change_phrase(change) for change in changed]
+        if len(changes) > len(changed):
+            phrases.append(f"{len(changes) - len(changed)} kept")
+        items.append(f"<li>{link} \u2192 {escape(entry.vetted.name)}: {escape('; '.join(phrases))}</li>")
     if not items:
         return ""
     return f'<div class="box"><h2>What vetting changed</h2><ul>{"".join(items)}</ul></div>'
 
 
 def signoff_list(recipes):
+    """"Sign-off needed": every unverified transform vetting kept, linked to its evidence sheet.
+
+    Parameters
+    ----------
+    recipes : list of augplan.results.VettedRecipe
+
+    Returns
+    -------
+    str
+    """
     items = []
     for number, entry in enumerate(recipes):
-        name = entry.get("name", f"recipe {number + 1}")
-        sheets = {t.get("index"): t.get("evidence_sheet") for t in ((entry.get("check") or {}).get("transforms")
-                                                                   or []) if isinstance(t, dict)}
-        for item in (entry.get("vetted") or {}).get("signoff") or []:
-            if not isinstance(item, dict):
-                continue
-            index = item.get("index")
-            where = (evidence_anchor(number, index) if sheets.get(index)
-                     else anchor_id("recipe", name, number))
-            items.append(f'<li><a href="#{where}">{escape(name)}, transform {escape(index)} ({escape(item.get("op", "?"))})'
-                         f"</a>: {escape(item.get('detail') or 'unverified, kept')}</li>")
+        sheets = {t["index"]: t["evidence_sheet"] for t in entry.check.transforms}
+        for item in entry.vetted.signoff:
+            where = (evidence_anchor(number, item.index) if sheets.get(item.index)
+                     else anchor_id("recipe", entry.name, number))
+            items.append(f'<li><a href="#{where}">{escape(entry.name)}, transform {escape(item.index)} '
+                         f"({escape(item.op)})</a>: {escape(item.detail)}</li>")
     if not items:
         body = "<p>None: every transform kept is verified safe, rewritten, clipped or removed.</p>"
     else:
