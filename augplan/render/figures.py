@@ -15,7 +15,7 @@ from pathlib import Path
 from augplan.render.formatting import escape
 from augplan.render.plots import palette_png
 
-__all__ = ["EVIDENCE_COLOURS", "embed_png", "embed_image", "data_uri", "inline_figure", "figure_html"]
+__all__ = ["EVIDENCE_COLOURS", "embed_png", "embed_image", "inline_figure", "figure_html"]
 
 _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
@@ -72,10 +72,10 @@ def _read_figure(path, base_dir):
 def embed_image(path, *, base_dir=None):
     """A data URI for a PNG or JPEG file that decodes (told by its signature), or None; see `embed_png`."""
     data = _read_figure(path, base_dir)
-    return None if data is None else data_uri(data)
+    return None if data is None else _data_uri(data)
 
 
-def data_uri(data):
+def _data_uri(data):
     """``data:`` URI of PNG or JPEG bytes that decode, else None.
 
     The type is told by the signature (PNG section 5.2; JPEG's start-of-image
@@ -107,7 +107,8 @@ def _as_palette(uri, colours):
 
 
 def inline_figure(data, caption, alt, *, css=""):
-    uri = data_uri(data) if data else None
+    """A ``<figure>`` of PNG or JPEG bytes drawn for the page, or "" when they do not decode."""
+    uri = _data_uri(data) if data else None
     if uri is None:
         return ""
     return (f'<figure class="{css}"><img src="{uri}" alt="{escape(alt)}">'
@@ -115,9 +116,10 @@ def inline_figure(data, caption, alt, *, css=""):
 
 
 def figure_html(path, caption, alt, base_dir, *, anchor=None, colours=None):
+    """A ``<figure>`` of an image file, or a note naming the file when it cannot be embedded."""
     uri = embed_image(path, base_dir=base_dir)
     if uri is not None and colours:
-        uri = data_uri(_as_palette(uri, colours)) or uri
+        uri = _data_uri(_as_palette(uri, colours)) or uri
     if uri is None:
         if not path:
             return ""

@@ -34,6 +34,7 @@ def escape(value):
 
 
 def is_number(value):
+    """True for a finite int or float (not a bool); None, NaN and infinity are not numbers to print."""
     return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
 
 
@@ -45,6 +46,7 @@ def number_pair(value):
 
 
 def percent(value, digits=0):
+    """``81%``: a share as a percentage with ``digits`` decimals, a dash when not a number."""
     return f"{100 * value:.{digits}f}%" if is_number(value) else DASH
 
 
@@ -58,12 +60,14 @@ def rate_ci(value, interval, digits=0):
 
 
 def points_text(value, signed=True):
+    """``+2.0``: a share as percentage points (signed by default), a dash when not a number."""
     if not is_number(value):
         return DASH
     return f"{100 * value:+.1f}" if signed else f"{100 * value:.1f}"
 
 
 def points_ci(value, interval, signed=True):
+    """``+2.0 [+0.5, +3.5]``: percentage points with their interval."""
     text = points_text(value, signed)
     pair = number_pair(interval)
     if pair is not None:
@@ -72,12 +76,14 @@ def points_ci(value, interval, signed=True):
 
 
 def p_text(value):
+    """``0.020`` or ``<0.001``: a p-value, a dash when not a number."""
     if not is_number(value):
         return DASH
     return "<0.001" if value < 0.001 else f"{value:.3f}"
 
 
 def number_text(value, digits=3):
+    """A number to three significant digits (an int as it is); a dash for None."""
     if is_number(value):
         return f"{value:.{digits}g}" if isinstance(value, float) else str(value)
     return DASH if value is None else escape(value)
@@ -95,6 +101,7 @@ def value_text(value):
 
 
 def verdict_badge(verdict):
+    """The coloured badge of a label-safety verdict, its word printed beside the mark."""
     word, mark = _BADGE.get(verdict, (str(verdict) if verdict else "unknown", "\u2022"))
     css = verdict if verdict in _BADGE else "other"
     return f'<span class="badge {css}">{escape(mark)} {escape(word)}</span>'
@@ -122,6 +129,7 @@ def table_html(header, rows, *, numeric=(), row_classes=None, caption=None, wide
 
 
 def bullet_list(items):
+    """An escaped ``<ul>`` of the non-empty items, or ""."""
     items = [item for item in (items or []) if item]
     if not items:
         return ""
@@ -135,20 +143,21 @@ def anchor_id(prefix, name, number):
 
 
 def evidence_anchor(number, index):
+    """The id of the evidence sheet of transform ``index`` of recipe ``number``."""
     return f"evidence-{number}-{index}"
 
 
 def ci_text(value, interval, signed=True):
+    """Percentage points with their interval, a dash when the value is not a number."""
     if not is_number(value):
         return DASH
     return points_ci(value, interval, signed)
 
 
 def accuracy_text(block):
-    if not isinstance(block, dict):
-        return DASH
-    text = percent(block.get("accuracy"), 1)
-    pair = number_pair(block.get("accuracy_ci"))
-    if pair and is_number(block.get("accuracy")):
+    """``93.0% [90.0%, 95.0%]``: a score block's accuracy with its interval (a dash when not finite)."""
+    text = percent(block["accuracy"], 1)
+    pair = number_pair(block["accuracy_ci"])
+    if pair and is_number(block["accuracy"]):
         text += f" [{percent(pair[0], 1)}, {percent(pair[1], 1)}]"
     return text

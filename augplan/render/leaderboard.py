@@ -56,14 +56,14 @@ def leaderboard_section(report):
     best_name = evaluation.best
     field = evaluation.field or {}
     rows = [["", "no augmentation (baseline)", accuracy_text(evaluation.baseline), DASH, DASH,
-             accuracy_text(field.get("baseline")), DASH, "reference"]]
+             accuracy_text(field["baseline"]) if field else DASH, DASH, "reference"]]
     row_classes = ["baseline"]
     ranked = evaluation.ranked()
     for rank, row in enumerate(ranked, start=1):
-        row_field = row.field or {}
+        row_field = row.field  # the labelled field sample's block, None without one
         rows.append([str(rank), escape(row.name), accuracy_text(row), ci_text(row.gain, row.gain_ci),
                      p_text(row.p_holm), accuracy_text(row_field) if row_field else DASH,
-                     ci_text(row_field.get("gain"), row_field.get("gain_ci")),
+                     ci_text(row_field["gain"], row_field["gain_ci"]) if row_field else DASH,
                      escape(", ".join(_flags(row, best_name, vetted_names))) or DASH])
         row_classes.append("best" if row.name == best_name else "")
     out = ['<section id="leaderboard"><h2>Leaderboard</h2>', _model_note(evaluation.model),
@@ -74,7 +74,7 @@ def leaderboard_section(report):
     facts = [f"Scored on {escape(evaluation.scored_on)}",
              f"augmented validation images: {escape(evaluation.augmented_validation_images)}",
              f"repeats per recipe: {escape(evaluation.repeats)}"]
-    if field.get("n_images") is not None:
+    if field:
         facts.append(f"field sample: {escape(field['n_images'])} labelled images")
     out.append(f"<p class=\"note\">{'; '.join(facts)}.</p>")
     out.append(_per_class_table(ranked))

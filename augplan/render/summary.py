@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from augplan.measure.models import model_phrase
 from augplan.render.changes import change_phrase
-from augplan.render.formatting import escape, is_number, bullet_list, anchor_id, evidence_anchor
+from augplan.render.formatting import escape, bullet_list, anchor_id, evidence_anchor
 
 __all__ = ["summary_section", "changes_list", "signoff_list"]
 
@@ -44,9 +44,8 @@ def _evidence_source(report):
     ranked = evaluation.ranked()
     row = evaluation.best_score() or (ranked[0] if ranked else None)
     parts = []
-    field = row.field if row is not None and row.field else {}
-    if is_number(field.get("gain")):
-        parts.append(f"the labelled field sample ({field['n_images']} images)")
+    if row is not None and row.field:
+        parts.append(f"the labelled field sample ({row.field['n_images']} images)")
     scored_on = evaluation.scored_on
     scored_on = "validation" + scored_on[3:] if scored_on.startswith("val") else scored_on
     parts.append(f"{scored_on} ({evaluation.baseline['n_images']} images)")
