@@ -290,6 +290,13 @@ class _Console:
                 sys.stdout = open(os.devnull, "w")
 
 
+def _generator(args):
+    """The run's one `numpy.random.Generator`, made from ``--seed``: the only place the seed becomes one."""
+    import numpy as np
+
+    return np.random.default_rng(args.seed)
+
+
 def _open_data(args, *, field=None):
     from augplan.data.dataset import open_dataset
 
@@ -321,8 +328,9 @@ def _report_dataset(console, dataset, *, result_says_val=False):
     for relpath, reason in dataset.skipped:
         console.warn(f"skipped {relpath}: {reason}")
     if dataset.val_from_train and not result_says_val:
-        console.warn(f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) "
-                     "stands in for validation")
+        from augplan.evaluate import no_val_warning
+
+        console.warn(no_val_warning(dataset))
     if dataset.missing_val_message():
         console.warn(dataset.missing_val_message())
 
@@ -380,7 +388,7 @@ def _run_preview(args, console):
     _ensure_parent(args.output, dataset, inputs=[args.recipe])
     recipe = _read_recipes([args.recipe], dataset)[0]
     sheet = preview_sheet(dataset, recipe, per_class=args.per_class, draws=args.draws,
-                          rng=np.random.default_rng(args.seed))
+                          rng=_generator(args))
     save_png(sheet, args.output)
     console.say(f"wrote {args.output}")
     return ExitCode.OK
@@ -438,7 +446,7 @@ def _run_coverage(args, console):
 
 
 def _run_evaluate(args, console):
-    from augplan.evaluate.evaluate import evaluate_recipes
+    from augplan.evaluate import evaluate_recipes
     from augplan.render import text as tables
 
     dataset = _open_data(args, field=args.field)
@@ -446,7 +454,8 @@ def _run_evaluate(args, console):
     leaks = _report_leaks(console, dataset)
     recipes = _read_recipes(args.recipe, dataset)
     ledger, cache = _stores(args, dataset, console)
-    result = evaluate_recipes(dataset, recipes, repeats=args.repeats, seed=args.seed, workers=_execution(args),
+    result = evaluate_recipes(dataset, recipes, _generator(args), seed=args.seed,
+                              repeats=args.repeats, workers=_execution(args),
                               quiet=args.quiet, ledger_path=ledger, cache_dir=cache,
                               confirm_fraction=args.confirm_fraction, model=args.model, size=args.side)
     return _emit(console, args, _with_leaks(result, leaks), tables.leaderboard_table)
@@ -477,7 +486,7 @@ def _run_draft(args, console):
     else:
         from augplan.vet.start import change_text, draft_from_start
 
-        drafted = draft_from_start(dataset, start, name=args.name, seed=args.seed, sample=args.sample,
+        drafted = draft_from_start(dataset, start, _generator(args), name=args.name, sample=args.sample,
                                    workers=_execution(args), quiet=args.quiet)
         text = drafted.text
         for change in drafted.changes:  # stderr when the draft itself goes to standard output
@@ -501,14 +510,15 @@ def _parse_approve(text):
 
 
 def _run_vet(args, console):
-    from augplan.vet.job import vet_recipes
+    from augplan.vet import vet_recipes
 
     dataset = _open_data(args, field=args.field)
     _report_dataset(console, dataset)
     recipes = _read_recipes(args.recipe, dataset)
     ledger, cache = _stores(args, dataset, console)
     summary = vet_recipes(dataset, recipes, args.output, force=args.force, approve=_parse_approve(args.approve),
-                          repeats=args.repeats, sample=args.sample, seed=args.seed, workers=_execution(args),
+                          repeats=args.repeats, sample=args.sample, rng=_generator(args),
+                          seed=args.seed, workers=_execution(args),
                           quiet=args.quiet, ledger_path=ledger, cache_dir=cache, model=args.model,
                           size=args.side)
     _say_vetted(console, args, summary)
@@ -532,7 +542,7 @@ def _say_vetted(console, args, summary):
 
 
 def _run_verify(args, console):
-    from augplan.vet.vetted_file import verify_vetted
+    from augplan.vet import verify_vetted
 
     result = verify_vetted(args.vetted, data=args.data)
     if args.json:
@@ -548,7 +558,7 @@ def _terminal_width():
 
 
 def _run_history(args, console):
-    from augplan.evaluate.ledger import history, run_details
+    from augplan.evaluate import history, run_details
     from augplan.data.dataset import fingerprint, open_dataset
     from augplan.render import text as tables
     from augplan.results import HistoryResult
@@ -574,7 +584,8 @@ def _run_history(args, console):
 def _run_demo(args, console):
     from augplan.demo import run_demo
 
-    summary = run_demo(args.output, seed=args.seed, workers=_execution(args), quiet=args.quiet, model=args.model)
+    summary = run_demo(args.output, _generator(args), seed=args.seed, workers=_execution(args),
+                       quiet=args.quiet, model=args.model)
     _say_vetted(console, args, summary)
     return ExitCode.FLAGGED if summary.flagged else ExitCode.OK  # as vet exits
 

@@ -48,6 +48,7 @@ from scipy.ndimage import gaussian_filter
 
 from augplan.atomic import write_bytes_atomic
 from augplan.imaging.colour import linear_to_srgb, srgb_to_linear, unit_to_uint8
+from augplan.seeding import require_generator
 
 __all__ = [
     "CLASSES",
@@ -242,7 +243,7 @@ def _draws(conditions, rng, index, count):
     return exposure, rotation
 
 
-def make_demo_dataset(root, *, seed=DEMO_SEED, n_train=36, n_val=15, n_field=18):
+def make_demo_dataset(root, *, rng=None, n_train=36, n_val=15, n_field=18):
     """Write the demo data set under ``root``.
 
     Parameters
@@ -252,8 +253,10 @@ def make_demo_dataset(root, *, seed=DEMO_SEED, n_train=36, n_val=15, n_field=18)
         folder per class are created inside it. PNGs in those class folders
         that this call did not write are removed, so a smaller run leaves no
         stale images behind.
-    seed : int, optional
-        Seed of the one generator everything is drawn from.
+    rng : numpy.random.Generator, optional
+        The one generator everything is drawn from; default the demo's own
+        scenario, ``numpy.random.default_rng(DEMO_SEED)`` (the images of
+        ``demo_images/``).
     n_train, n_val, n_field : int, optional
         Images per class in each split.
 
@@ -273,7 +276,8 @@ def make_demo_dataset(root, *, seed=DEMO_SEED, n_train=36, n_val=15, n_field=18)
         if isinstance(count, bool) or not isinstance(count, (int, np.integer)) or count < 1:
             raise ValueError(f"n_{split} must be a positive integer; got {count!r}")
     root = Path(root)
-    rng = np.random.default_rng(seed)
+    # The shipped scenario is one fixed draw: the demo's images are data, not an analysis.
+    rng = np.random.default_rng(DEMO_SEED) if rng is None else require_generator(rng)
     written = []
     for (split, count), split_rng in zip(counts.items(), rng.spawn(len(counts))):
         for label, class_rng in zip(CLASSES, split_rng.spawn(len(CLASSES))):
@@ -322,7 +326,7 @@ def read_demo_recipes():
     return recipes
 
 
-def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5, model=None):
+def run_demo(out_dir, rng, *, seed=None, workers=1, quiet=True, repeats=5, model=None):
     """Vet the demo recipes on the demo scenario; the output folder is replaced.
 
     Uses the checkout's ``demo_images/`` when it is there; otherwise (an
@@ -331,13 +335,23 @@ def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5, model=None):
     the package (`read_demo_recipes`). ``model`` is `augplan.vet.vet_recipes`'s
     (None: the default model).
 
+    Parameters
+    ----------
+    out_dir : str or Path
+        The output folder (replaced).
+    rng : numpy.random.Generator
+        The vetting run's generator (`augplan.vet.vet_recipes`).
+    seed : int, optional
+        The seed ``rng`` was made from, recorded as provenance.
+    workers, quiet, repeats, model
+        As `augplan.vet.vet_recipes` takes them.
+
     Returns
     -------
-    dict
-        The summary of `augplan.vet.vet_recipes`.
+    augplan.results.VetResult
     """
     from augplan.data.dataset import open_dataset
-    from augplan.vet.job import vet_recipes
+    from augplan.vet import vet_recipes
     from augplan.workspace import default_ledger
 
     recipes = read_demo_recipes()
@@ -349,7 +363,7 @@ def run_demo(out_dir, *, seed=0, workers=1, quiet=True, repeats=5, model=None):
         if not root.is_dir():
             root = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="augplan-demo-"))) / "demo_images"
             make_demo_dataset(root)
-        return vet_recipes(open_dataset(root), recipes, out_dir, replace=True, repeats=repeats, seed=seed,
+        return vet_recipes(open_dataset(root), recipes, out_dir, rng=rng, seed=seed, replace=True, repeats=repeats,
                            workers=workers, quiet=quiet, ledger_path=ledger, cache_dir=ledger.parent / "features",
                            model=model)
 

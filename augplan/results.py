@@ -174,7 +174,7 @@ class RecipeScore(Record):
     confusion : dict or None
         ``classes``, ``counts`` (summed over repeats), ``repeats``.
     verdict : {'gains', 'no difference', 'loses'}
-        `VERDICT_RULE` of ``augplan.evaluate.evaluate``.
+        `VERDICT_RULE` of ``augplan.evaluate.scoring``.
     flagged : bool
         It loses on a model that learns from pixels.
     augmented_training_images : int

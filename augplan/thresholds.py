@@ -35,6 +35,7 @@ __all__ = [
     "NEAR_DUPLICATE_WINDOW",
     "NEAR_DUPLICATE_LOCAL_DIFFERENCE",
     "MANY_RECIPES_WARNING_LIMIT",
+    "SATURATED_ACCURACY",
     "MAX_FOLDS",
 ]
 
@@ -213,3 +214,9 @@ NEAR_DUPLICATE_LOCAL_DIFFERENCE = 0.13
 # More recipes than this compared on validation alone draws a warning that
 # choosing the best overfits validation (common practice, no source).
 MANY_RECIPES_WARNING_LIMIT = 3
+
+# --- vetting
+# A validation accuracy without augmentation at or above this is called
+# saturated in the verdict: little room is left for any recipe to show a gain
+# (common practice, no source).
+SATURATED_ACCURACY = 0.99

@@ -20,9 +20,10 @@ import tempfile
 import time
 from pathlib import Path
 
+import numpy as np
 from bench_evaluate import RECIPES, _peak_mb, write_dataset
 
-from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate import evaluate_recipes
 from augplan.measure.convnet import ConvNetClassifier
 
 REPEATS = 3
@@ -77,7 +78,7 @@ def main(argv=None):
             dataset = write_dataset(Path(scratch) / "DATA", n_train, 500, size=side)
             for model in ([None] + (["linear"] if args.linear else [])):
                 start = time.perf_counter()
-                document = evaluate_recipes(dataset, RECIPES, repeats=REPEATS, size=side, seed=0,
+                document = evaluate_recipes(dataset, RECIPES, np.random.default_rng(0), repeats=REPEATS, size=side,
                                             workers=args.workers, cache_dir=False, model=model)
                 seconds = time.perf_counter() - start
                 own, worker = _peak_mb()

@@ -26,7 +26,7 @@ import numpy as np
 from PIL import Image
 
 from augplan.data.dataset import open_dataset
-from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate import evaluate_recipes
 from augplan.recipe.parse import Recipe, Transform
 
 SIZE = 64
@@ -152,9 +152,9 @@ def breakdown(dataset, sizes=(500, 2000), copies=4):
               f"({totals[large][stage] / max(totals[small][stage], 1e-9):.2f}x)")
 
 
-def timed(label, **kwargs):
+def timed(label, *, seed=0, **kwargs):
     started = time.perf_counter()
-    document = evaluate_recipes(**kwargs)
+    document = evaluate_recipes(rng=np.random.default_rng(seed), seed=seed, **kwargs)
     elapsed = time.perf_counter() - started
     print(f"{label:<52s} {elapsed:8.1f} s   from_ledger={document['from_ledger']}", flush=True)
     return elapsed, document

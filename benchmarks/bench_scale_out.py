@@ -25,8 +25,9 @@ import tempfile
 import time
 from pathlib import Path
 
+import numpy as np
 
-from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate import evaluate_recipes
 from augplan.parallel import Cluster
 from augplan.recipe.parse import Recipe, Transform
 from bench_evaluate import write_dataset  # the same invented bar-angle images
@@ -49,7 +50,7 @@ RECIPES = [
 
 def _timed(dataset, workers, cache_dir):
     start = time.perf_counter()
-    result = evaluate_recipes(dataset, RECIPES, repeats=REPEATS, seed=SEED, workers=workers, quiet=True,
+    result = evaluate_recipes(dataset, RECIPES, np.random.default_rng(SEED), repeats=REPEATS, workers=workers, quiet=True,
                               ledger_path=None, cache_dir=cache_dir)
     return time.perf_counter() - start, json.dumps(result, sort_keys=True)
 

@@ -42,7 +42,7 @@ from PIL import Image
 from scipy.stats import spearmanr
 
 from augplan.data.dataset import open_dataset
-from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate import evaluate_recipes
 from augplan.measure.models import ConvNet
 from augplan.measure.convnet import ConvNetClassifier
 from augplan.recipe.parse import Recipe, Transform
@@ -165,7 +165,7 @@ def main(argv=None):
                         documents[name] = json.loads(stored.read_text())
                     continue
                 start = time.perf_counter()
-                documents[name] = evaluate_recipes(dataset, RECIPES, repeats=repeats, size=SIZE, seed=0,
+                documents[name] = evaluate_recipes(dataset, RECIPES, np.random.default_rng(0), repeats=repeats, size=SIZE,
                                                    workers=args.workers, cache_dir=False, model=model).to_json()
                 print(_table(f"{name} ({repeats} repeats, {time.perf_counter() - start:.0f} s)", documents[name]),
                       flush=True)

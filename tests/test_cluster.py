@@ -109,14 +109,14 @@ def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path):
 
 def test_the_network_scores_the_same_on_cluster(cluster, recipe, tmp_path):
     from augplan.data.dataset import open_dataset
-    from augplan.evaluate.evaluate import evaluate_recipes
+    from augplan.evaluate import evaluate_recipes
     from augplan.measure.models import ConvNet
     from augplan.recipe.parse import read_recipe
 
     # A short network: the point is the execution layer, not the network's accuracy.
     model = ConvNet(params=(("widths", (4, 8)), ("steps", 20), ("min_epochs", 5)))
     dataset = open_dataset(_fresh_data(tmp_path))
-    runs = [evaluate_recipes(dataset, [read_recipe(recipe)], repeats=2, seed=3, size=16, cache_dir=False,
+    runs = [evaluate_recipes(dataset, [read_recipe(recipe)], np.random.default_rng(3), repeats=2, size=16, cache_dir=False,
                              model=model, workers=workers)
             for workers in (1, Cluster(cluster.scheduler_address))]
     assert runs[0]["model"]["name"] == "cnn"
@@ -127,16 +127,16 @@ def test_shipped_images_need_no_shared_folder(cluster, recipe, tmp_path):
     # --ship-images: the records carry their files' bytes, so the run on the
     # cluster gives the local answer even after the data folder is gone.
     from augplan.data.dataset import open_dataset
-    from augplan.evaluate.evaluate import evaluate_recipes
+    from augplan.evaluate import evaluate_recipes
     from augplan.recipe.parse import read_recipe
 
     recipes = [read_recipe(recipe)]
-    options = dict(repeats=2, seed=3, size=16)
-    local = evaluate_recipes(open_dataset(_fresh_data(tmp_path / "local")), recipes,
+    options = dict(repeats=2, size=16)
+    local = evaluate_recipes(open_dataset(_fresh_data(tmp_path / "local")), recipes, np.random.default_rng(3),
                              cache_dir=tmp_path / "local-cache", **options)
     shipped = open_dataset(_fresh_data(tmp_path / "shipped")).with_image_bytes()
     (tmp_path / "shipped" / "DATA").rename(tmp_path / "out-of-reach")
-    remote = evaluate_recipes(shipped, recipes, workers=Cluster(cluster.scheduler_address),
+    remote = evaluate_recipes(shipped, recipes, np.random.default_rng(3), workers=Cluster(cluster.scheduler_address),
                               cache_dir=tmp_path / "remote-cache", **options)
     assert json.dumps(remote["recipes"]) == json.dumps(local["recipes"])
     assert remote["baseline"] == local["baseline"]

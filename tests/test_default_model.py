@@ -14,7 +14,7 @@ from PIL import Image
 
 from augplan.check.check import check_recipe
 from augplan.data.dataset import load_images, open_dataset
-from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate import evaluate_recipes
 from augplan.measure.models import (FALLBACK_NAME, FALLBACK_WARNING, ConvNet, LinearProxy, model_phrase,
                                     scoring_model)
 from augplan.parallel import parallel_map, tick
@@ -44,7 +44,7 @@ def test_without_torch_the_default_falls_back_to_the_linear_proxy_and_says_so(wi
     assert isinstance(scoring, LinearProxy) and scoring.name == FALLBACK_NAME == "linear (network not installed)"
     assert model_phrase(scoring.name) == "the linear proxy (network not installed)"
     dataset = open_dataset(tiny_dataset)
-    document = evaluate_recipes(dataset, [FLIP], repeats=1, size=16, cache_dir=False)
+    document = evaluate_recipes(dataset, [FLIP], np.random.default_rng(0), repeats=1, size=16, cache_dir=False)
     assert document["model"]["name"] == FALLBACK_NAME
     assert document["warnings"][0] == FALLBACK_WARNING and "\n" not in FALLBACK_WARNING
     # A flagged loss needs a model other than the linear proxy, fallback included.
@@ -114,7 +114,7 @@ def test_check_names_its_first_witness_and_side(tiny_dataset):
 
 
 def test_evaluate_states_the_side(tiny_dataset):
-    document = evaluate_recipes(open_dataset(tiny_dataset), [FLIP], repeats=1, size=24, cache_dir=False,
+    document = evaluate_recipes(open_dataset(tiny_dataset), [FLIP], np.random.default_rng(0), repeats=1, size=24, cache_dir=False,
                                 model=TINY_CNN)
     assert document["model"]["side"] == 24 and document["model"]["name"] == "cnn"
 

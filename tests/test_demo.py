@@ -46,7 +46,7 @@ def test_same_seed_gives_byte_identical_files(small_demo, tmp_path):
 
 
 def test_other_seed_gives_other_images(small_demo, tmp_path):
-    demo.make_demo_dataset(tmp_path, seed=demo.DEMO_SEED + 1, **SMALL)
+    demo.make_demo_dataset(tmp_path, rng=np.random.default_rng(demo.DEMO_SEED + 1), **SMALL)
     first, second = _hashes(small_demo), _hashes(tmp_path)
     assert first.keys() == second.keys()
     assert all(first[k] != second[k] for k in first)

@@ -145,7 +145,7 @@ def test_start_draft_applies_the_checks_scope_and_safe_limit(tiny_dataset, monke
                 {"index": 2, "verdict": "unverified", "safe_limit": None},
                 {"index": 3, "verdict": "breaks", "safe_limit": None}]
     monkeypatch.setattr(start_module, "check_recipe", lambda *args, **kwargs: {"transforms": verdicts})
-    drafted = start_module.draft_from_start(open_dataset(tiny_dataset), start)
+    drafted = start_module.draft_from_start(open_dataset(tiny_dataset), start, np.random.default_rng(0))
     steps = drafted.recipe.transforms
     assert [s.op for s in steps] == ["flip", "rotate", "blur"]  # the noise that breaks is removed
     assert steps[0].only == ("beta",) and steps[1].params["degrees"] == (-10.0, 10.0)

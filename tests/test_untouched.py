@@ -12,6 +12,7 @@ import io
 from pathlib import Path
 from types import SimpleNamespace
 
+import numpy as np
 import pytest
 
 from augplan.cli import main
@@ -239,7 +240,7 @@ def test_replace_swaps_an_earlier_output_whole(space, tmp_path):
     out.mkdir()
     (out / "report.html").write_text("old\n")
     (out / "vetted-stale.yaml").write_text("old\n")
-    vet_recipes(open_dataset(space.data), [read_recipe(space.recipe)], out, replace=True, repeats=2, sample=3)
+    vet_recipes(open_dataset(space.data), [read_recipe(space.recipe)], out, replace=True, repeats=2, sample=3, rng=np.random.default_rng(0))
     assert not (out / "vetted-stale.yaml").exists()
     assert (out / "report.html").read_text() != "old\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["demo-output"]
@@ -255,7 +256,7 @@ def test_replace_refuses_a_folder_that_is_no_earlier_output(space, tmp_path):
     out.mkdir()
     (out / "notes.txt").write_text("mine\n")
     with pytest.raises(BadInputError, match="not an earlier augplan output"):
-        vet_recipes(open_dataset(space.data), [read_recipe(space.recipe)], out, replace=True, repeats=2, sample=3)
+        vet_recipes(open_dataset(space.data), [read_recipe(space.recipe)], out, replace=True, repeats=2, sample=3, rng=np.random.default_rng(0))
     assert sorted(p.name for p in out.iterdir()) == ["notes.txt"]
 
 

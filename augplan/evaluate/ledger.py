@@ -10,13 +10,16 @@ closes its own connection, so a crash never leaves the database locked.
 
 import json
 import sqlite3
+from collections.abc import Mapping
 from contextlib import contextmanager
+from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
 
 from augplan.errors import BadInputError
+from augplan.results import Record
 
-__all__ = ["lookup_stored", "lookup_results", "store_results", "record_run", "list_history", "history",
+__all__ = ["StoredResult", "lookup_stored", "lookup_results", "store_results", "record_run", "list_history", "history",
            "run_details"]
 
 _SCHEMA = """
@@ -56,6 +59,48 @@ CREATE TABLE IF NOT EXISTS run_details (
 #: version (or another program's database) is refused, never altered.
 LEDGER_VERSION = 1
 _TABLES = {"evaluations", "runs", "run_details"}
+
+
+def _migrate_score(score):
+    """One split's score as this version reads it: rows stored before confusions were kept get None."""
+    return {**score, "confusion": score.get("confusion")}
+
+
+@dataclass(frozen=True, eq=False)
+class StoredResult(Record):
+    """One recipe's result as the ledger stores it (the ``result_json`` of an ``evaluations`` row).
+
+    Attributes
+    ----------
+    recipe_hash, name : str
+    copies : int
+    augmented_training_images : int
+    scores : dict
+        Split (``val``, ``confirm``, ``field``) -> its score: accuracy and its
+        interval, per-class recall, the confusion, and the gain over the
+        baseline with its interval and p.
+    """
+
+    recipe_hash: str
+    name: str
+    copies: int
+    augmented_training_images: int
+    scores: Mapping
+
+    @classmethod
+    def from_json(cls, document):
+        """Read a stored row, migrating the shapes older versions stored (the one place that accepts them).
+
+        Rows stored before the confusion of each split was kept lack its
+        ``confusion``: it reads as None.
+        """
+        scores = {split: _migrate_score(score) for split, score in document["scores"].items()}
+        return super().from_json({**document, "scores": scores})
+
+    @staticmethod
+    def baseline_from_json(document):
+        """The stored baseline (split -> score), migrated like a recipe's scores."""
+        return {split: _migrate_score(score) for split, score in document.items()}
 
 
 def _unusable(path, problem):
@@ -144,7 +189,7 @@ def lookup_stored(ledger_path, *, fingerprint, settings_key, seed, repeats, reci
     baseline : dict or None
         The baseline stored with any of them (it depends only on the keys).
     results : dict
-        ``{recipe_hash: result}`` for the recipes found.
+        ``{recipe_hash: StoredResult}`` for the recipes found.
     """
     baseline, results = None, {}
     with _session(ledger_path, create=False) as connection:
@@ -157,8 +202,9 @@ def lookup_stored(ledger_path, *, fingerprint, settings_key, seed, repeats, reci
                 (recipe_hash, fingerprint, settings_key, int(seed), int(repeats)),
             ).fetchone()
             if row is not None:
-                results[recipe_hash] = json.loads(row[0])
-                baseline = baseline if baseline is not None else json.loads(row[1])
+                results[recipe_hash] = StoredResult.from_json(json.loads(row[0]))
+                if baseline is None:
+                    baseline = StoredResult.baseline_from_json(json.loads(row[1]))
     return baseline, results
 
 

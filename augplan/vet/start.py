@@ -10,7 +10,7 @@ The starting recipe (a file, or one of the recipes that ship with augplan,
 2. the label-safety check (`augplan.check.check_recipe`) measures every
    transform of the widened recipe on the training images;
 3. its verdicts rewrite the recipe by vet's rules
-   (`augplan.vet.vetted_file.vet_transforms`): a transform that breaks one
+   (`augplan.vet.policy.vet_transforms`): a transform that breaks one
    class is scoped away from it (or relabelled), ranges are narrowed to
    their safe limits, and a transform that breaks with no safe range is
    removed. An unverified transform without a safe range is kept as the
@@ -28,7 +28,8 @@ from augplan.coverage.draft import field_lighting
 from augplan.data.dataset import load_images
 from augplan.recipe.parse import Transform, check_recipe_classes, dump_recipe, parse_recipe, recipe_name_fault
 from augplan.results import range_text
-from augplan.vet.vetted_file import vet_transforms
+from augplan.vet.policy import vet_transforms
+from augplan.vet.streams import with_generator
 
 __all__ = ["StartedDraft", "draft_from_start", "widen_lighting", "change_text"]
 
@@ -169,7 +170,7 @@ def change_text(change):
     return f"{where} ({change['op']}) [{change['verdict']}]: {change['detail']}"
 
 
-def draft_from_start(dataset, start, *, name=None, seed=0, sample=None, size=64, workers=1, quiet=True):
+def draft_from_start(dataset, start, rng, *, name=None, sample=None, size=64, workers=1, quiet=True):
     """Adapt a starting recipe to the data and the field sample.
 
     Parameters
@@ -181,8 +182,8 @@ def draft_from_start(dataset, start, *, name=None, seed=0, sample=None, size=64,
         The starting recipe (`augplan.recipe.shipped.read_start`).
     name : str, optional
         The draft's name; default ``<start>-draft``.
-    seed : int
-        Seed of the label-safety check. The draft keeps the start's own
+    rng : numpy.random.Generator
+        The label-safety check's generator. The draft keeps the start's own
         ``seed``, ``copies`` and ``fill``.
     sample : int, optional
         At most this many training images per class for the check.
@@ -208,7 +209,8 @@ def draft_from_start(dataset, start, *, name=None, seed=0, sample=None, size=64,
         train = load_images(dataset.split("train"), size=size)
         reach = field_lighting(train, load_images(field_records, size=size))
     widened, widened_changes = widen_lighting(start, reach)
-    check = check_recipe(dataset, widened, sample=sample, size=size, seed=seed, workers=workers, quiet=quiet)
+    check = with_generator(check_recipe, rng, dataset, widened, sample=sample, size=size, workers=workers,
+                           quiet=quiet)
     adapted, vetting = vet_transforms(widened, check)
     checked_changes = [change.to_json() for change in vetting]  # plain dicts: the draft rewords some
     recipe = dataclasses.replace(_keep_unverified(adapted, widened, checked_changes), name=_draft_name(start, name))

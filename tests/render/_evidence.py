@@ -14,7 +14,7 @@ from PIL import Image
 
 from augplan.recipe.parse import parse_recipe, recipe_to_dict
 from augplan.results import VetReport
-from augplan.vet.vetted_file import vet_transforms
+from augplan.vet import vet_transforms
 
 RECIPE = "name: {name}\ntransforms:\n  - op: flip\n    axis: horizontal\n    probability: 0.5\n" \
          "  - op: rotate\n    degrees: [-10, 10]\n"

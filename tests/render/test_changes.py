@@ -10,7 +10,7 @@ from augplan.recipe.parse import parse_recipe
 from augplan.render import render_report
 from augplan.render.changes import change_phrase, vetting_text
 from augplan.results import VettingChange, range_text
-from augplan.vet.vetted_file import vet_transforms
+from augplan.vet import vet_transforms
 from render._evidence import document, report, transform
 
 RECIPE = ("name: mixed\ntransforms:\n  - op: flip\n    axis: horizontal\n"

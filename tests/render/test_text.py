@@ -87,7 +87,7 @@ def test_one_safe_limit_reads_the_same_everywhere():
     # Table, HTML report and vetted-recipe note spell one limit one way.
     from augplan.render.safety import _limit_text
     from augplan.results import range_text
-    from augplan.vet.vetted_file import vet_transforms
+    from augplan.vet import vet_transforms
     from augplan.recipe.parse import parse_recipe
 
     limit = [-6.6667, 6.6667]

@@ -13,21 +13,34 @@ KEYS = dict(fingerprint="f" * 64, settings_key="s" * 24, seed=0, repeats=5)
 
 
 def _entry(name, digest, gain):
-    return {"recipe_hash": digest, "name": name, "scores": {"val": {"gain": gain}}}
+    return {"recipe_hash": digest, "name": name, "copies": 2, "augmented_training_images": 10,
+            "scores": {"val": {"gain": gain, "confusion": {"classes": ["a", "b"], "counts": [[1, 0], [0, 1]]}}}}
 
 
 def test_stored_results_come_back_only_when_every_key_matches(tmp_path):
     path = tmp_path / "sub" / "ledger.sqlite"
-    baseline = {"val": {"accuracy": 0.8}}
+    baseline = {"val": {"accuracy": 0.8, "confusion": None}}
     results = [_entry("a", "1" * 64, 0.02), _entry("b", "2" * 64, -0.01)]
     ledger.store_results(path, baseline=baseline, results=results, **KEYS)
 
     stored = ledger.lookup_results(path, recipe_hashes=["2" * 64, "1" * 64], **KEYS)
     assert stored == (baseline, [results[1], results[0]])
+    assert all(isinstance(row, ledger.StoredResult) for row in stored[1])
     for changed in ({"seed": 1}, {"repeats": 3}, {"fingerprint": "e" * 64}, {"settings_key": "t" * 24}):
         assert ledger.lookup_results(path, recipe_hashes=["1" * 64], **{**KEYS, **changed}) is None
     # One recipe missing: the whole comparison is recomputed.
     assert ledger.lookup_results(path, recipe_hashes=["1" * 64, "3" * 64], **KEYS) is None
+
+
+def test_rows_of_older_versions_are_migrated_when_read(tmp_path):
+    # Rows stored before each split's confusion was kept lack it: read back, it is None, the one migration.
+    path = tmp_path / "old.sqlite"
+    old = _entry("a", "1" * 64, 0.02)
+    del old["scores"]["val"]["confusion"]
+    ledger.store_results(path, baseline={"val": {"accuracy": 0.8}}, results=[old], **KEYS)
+    baseline, (row,) = ledger.lookup_results(path, recipe_hashes=["1" * 64], **KEYS)
+    assert row.scores["val"] == {"gain": 0.02, "confusion": None} and row.name == "a"
+    assert baseline == {"val": {"accuracy": 0.8, "confusion": None}}
 
 
 def test_missing_ledger_is_empty(tmp_path):

@@ -18,7 +18,7 @@ import augplan.augment.transforms as transforms
 from augplan.evaluate import ledger
 from augplan.data.dataset import load_images, open_dataset
 from augplan.errors import BadInputError
-from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate import evaluate_recipes
 from augplan.measure.features import image_features
 from augplan.measure.model import FeatureModel
 from augplan.recipe.parse import Recipe, Transform
@@ -51,7 +51,7 @@ def cache_dir(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def comparison(digits_data, cache_dir):
-    return evaluate_recipes(digits_data, [FLIPS, SMALL_AFFINE], repeats=3, size=SIZE, seed=0,
+    return evaluate_recipes(digits_data, [FLIPS, SMALL_AFFINE], np.random.default_rng(0), repeats=3, size=SIZE,
                             cache_dir=cache_dir)
 
 
@@ -137,7 +137,7 @@ def test_p_value_and_interval_agree_on_every_demo_recipe(tmp_path):
     if not DEFAULT_DEMO_DIR.is_dir():
         pytest.skip("demo_images/ is not part of this installation")
     recipes = read_demo_recipes()
-    document = evaluate_recipes(open_dataset(DEFAULT_DEMO_DIR), recipes, repeats=2, cache_dir=tmp_path)
+    document = evaluate_recipes(open_dataset(DEFAULT_DEMO_DIR), recipes, np.random.default_rng(0), repeats=2, cache_dir=tmp_path)
     assert [e["name"] for e in document["recipes"]] == ["naive-draft", "cautious", "light-and-pose"]
     for entry in document["recipes"]:
         assert _tells_one_story(entry), entry["name"]
@@ -162,7 +162,7 @@ def test_validation_images_never_reach_a_transform(digits_data, cache_dir, monke
     monkeypatch.setitem(transforms.OPS, "rotate", dataclasses.replace(
         real, function=recording_rotate, kernel=recording_kernel))
     recipe = Recipe(name="recorded", copies=1, transforms=(Transform("rotate", {"degrees": (-5.0, 5.0)}),))
-    document = evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, cache_dir=cache_dir)
+    document = evaluate_recipes(digits_data, [recipe], np.random.default_rng(0), repeats=1, size=SIZE, cache_dir=cache_dir)
 
     def hashes(split):
         images = load_images(digits_data.split(split), SIZE)
@@ -178,11 +178,11 @@ def test_validation_images_never_reach_a_transform(digits_data, cache_dir, monke
 
 def test_same_seed_gives_identical_json_across_worker_counts(digits_data, cache_dir):
     recipe = Recipe(name="affine-2", copies=2, transforms=SMALL_AFFINE.transforms)
-    texts = [json.dumps(evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=3,
+    texts = [json.dumps(evaluate_recipes(digits_data, [recipe], np.random.default_rng(3), repeats=2, size=SIZE,
                                          workers=workers, cache_dir=cache_dir), sort_keys=True)
              for workers in (1, 1, 2)]
     assert texts[0] == texts[1] == texts[2]
-    other_seed = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=4,
+    other_seed = evaluate_recipes(digits_data, [recipe], np.random.default_rng(4), repeats=2, size=SIZE,
                                   cache_dir=cache_dir)
     assert json.dumps(other_seed, sort_keys=True) != texts[0]
 
@@ -191,18 +191,18 @@ def test_ledger_reuses_stored_results_and_lists_history(digits_data, cache_dir, 
     path = tmp_path / "ledger.sqlite"
     recipe = Recipe(name="affine-ledger", copies=2, transforms=SMALL_AFFINE.transforms)
     started = time.perf_counter()
-    first = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, cache_dir=cache_dir,
+    first = evaluate_recipes(digits_data, [recipe], np.random.default_rng(0), repeats=2, size=SIZE, cache_dir=cache_dir,
                              ledger_path=path)
     computed = time.perf_counter() - started
     started = time.perf_counter()
-    second = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, cache_dir=cache_dir,
+    second = evaluate_recipes(digits_data, [recipe], np.random.default_rng(0), repeats=2, size=SIZE, cache_dir=cache_dir,
                               ledger_path=path)
     reused = time.perf_counter() - started
     assert first["from_ledger"] is False and second["from_ledger"] is True
     assert {**first, "from_ledger": True, "reused_from_ledger": ["affine-ledger"]} == second
     assert reused < computed / 5
     # A different seed is a different key: computed afresh.
-    third = evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=1,
+    third = evaluate_recipes(digits_data, [recipe], np.random.default_rng(1), repeats=2, size=SIZE,
                              cache_dir=cache_dir, ledger_path=path)
     assert third["from_ledger"] is False
     from augplan.data.dataset import fingerprint
@@ -231,10 +231,10 @@ def test_feature_cache_spares_originals_on_rerun(digits_data, tmp_path):
     n_augmented = 10 * PER_CLASS["train"]
 
     _featurised_rows.clear()
-    evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, model=model, cache_dir=tmp_path)
+    evaluate_recipes(digits_data, [recipe], np.random.default_rng(0), repeats=1, size=SIZE, model=model, cache_dir=tmp_path)
     assert sum(_featurised_rows) == n_originals + n_augmented
     _featurised_rows.clear()
-    evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, model=model, cache_dir=tmp_path)
+    evaluate_recipes(digits_data, [recipe], np.random.default_rng(0), repeats=1, size=SIZE, model=model, cache_dir=tmp_path)
     # Only the augmented draws are featurised again.
     assert sum(_featurised_rows) == n_augmented
 
@@ -242,11 +242,11 @@ def test_feature_cache_spares_originals_on_rerun(digits_data, tmp_path):
 def test_many_recipes_without_confirmation_warn(digits_data, cache_dir):
     # Recipes without transforms train on originals only: cheap stand-ins.
     plain = [Recipe(name=f"plain-{i}", seed=i) for i in range(4)]
-    document = evaluate_recipes(digits_data, plain, repeats=1, size=SIZE, cache_dir=cache_dir)
+    document = evaluate_recipes(digits_data, plain, np.random.default_rng(0), repeats=1, size=SIZE, cache_dir=cache_dir)
     assert any("overfits the validation set" in w for w in document["warnings"])
     assert document["confirm"] is None
 
-    confirmed = evaluate_recipes(digits_data, plain, repeats=1, size=SIZE, cache_dir=cache_dir,
+    confirmed = evaluate_recipes(digits_data, plain, np.random.default_rng(0), repeats=1, size=SIZE, cache_dir=cache_dir,
                                  confirm_fraction=0.3)
     assert not any("overfits" in w for w in confirmed["warnings"])
     confirm = confirmed["confirm"]
@@ -265,19 +265,19 @@ def test_many_recipes_without_confirmation_warn(digits_data, cache_dir):
 ], ids=["no-repeats", "fraction-above-one", "no-workers"])
 def test_bad_settings_are_named(digits_data, cache_dir, kwargs, fault):
     with pytest.raises(BadInputError, match=fault):
-        evaluate_recipes(digits_data, [FLIPS], size=SIZE, cache_dir=cache_dir, **kwargs)
+        evaluate_recipes(digits_data, [FLIPS], np.random.default_rng(0), size=SIZE, cache_dir=cache_dir, **kwargs)
 
 
 def test_bad_recipe_lists_are_refused(digits_data, cache_dir):
     with pytest.raises(BadInputError, match="no recipe"):
-        evaluate_recipes(digits_data, [], cache_dir=cache_dir)
+        evaluate_recipes(digits_data, [], np.random.default_rng(0), cache_dir=cache_dir)
     with pytest.raises(BadInputError, match="unique"):
-        evaluate_recipes(digits_data, [FLIPS, FLIPS], cache_dir=cache_dir)
+        evaluate_recipes(digits_data, [FLIPS, FLIPS], np.random.default_rng(0), cache_dir=cache_dir)
 
 
 def test_cache_inside_data_folder_is_refused(digits_data):
     with pytest.raises(BadInputError, match="inside the data folder"):
-        evaluate_recipes(digits_data, [FLIPS], size=SIZE, repeats=1,
+        evaluate_recipes(digits_data, [FLIPS], np.random.default_rng(0), size=SIZE, repeats=1,
                          cache_dir=digits_data.root / ".cache")
 
 
@@ -285,10 +285,10 @@ def test_ledger_reuses_the_recipes_it_has_and_trains_only_the_new_one(digits_dat
     path = tmp_path / "partial.sqlite"
     kept = Recipe(name="affine-kept", copies=2, transforms=SMALL_AFFINE.transforms)
     added = Recipe(name="flips-added", copies=2, transforms=FLIPS.transforms)
-    evaluate_recipes(digits_data, [kept], repeats=2, size=SIZE, cache_dir=cache_dir, ledger_path=path)
-    partial = evaluate_recipes(digits_data, [kept, added], repeats=2, size=SIZE, cache_dir=cache_dir,
+    evaluate_recipes(digits_data, [kept], np.random.default_rng(0), repeats=2, size=SIZE, cache_dir=cache_dir, ledger_path=path)
+    partial = evaluate_recipes(digits_data, [kept, added], np.random.default_rng(0), repeats=2, size=SIZE, cache_dir=cache_dir,
                                ledger_path=path)
-    fresh = evaluate_recipes(digits_data, [kept, added], repeats=2, size=SIZE, cache_dir=cache_dir)
+    fresh = evaluate_recipes(digits_data, [kept, added], np.random.default_rng(0), repeats=2, size=SIZE, cache_dir=cache_dir)
     assert partial["from_ledger"] is False and partial["reused_from_ledger"] == ["affine-kept"]
     # Reused and newly trained results are exactly those of a run without a ledger.
     assert partial["recipes"] == fresh["recipes"] and partial["baseline"] == fresh["baseline"]
@@ -360,7 +360,7 @@ def test_history_records_no_best_when_no_recipe_gains(digits_data, cache_dir, tm
     from augplan.render.text import history_table
 
     ledger_path = tmp_path / "ledger.sqlite"
-    document = evaluate_recipes(digits_data, [FLIPS], repeats=1, size=SIZE, cache_dir=cache_dir,
+    document = evaluate_recipes(digits_data, [FLIPS], np.random.default_rng(0), repeats=1, size=SIZE, cache_dir=cache_dir,
                                 ledger_path=ledger_path)
     assert document["recipes"][0]["gain"] < 0 and document["best"] is None
     row = ledger.history(ledger_path)["evaluations"][-1]

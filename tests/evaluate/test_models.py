@@ -1,7 +1,7 @@
 """Tests of the scoring models (augplan/measure/models.py) and of evaluating with each.
 
 Real data: scikit-learn's digits (UCI optdigits) written as 32x32 PNGs, as in
-tests/test_evaluate.py. The team's training functions live in
+tests/evaluate/test_evaluate.py. The team's training functions live in
 tests/team_training.py.
 """
 
@@ -16,11 +16,11 @@ import augplan.augment.transforms as transforms
 import team_training
 from augplan.data.dataset import load_images, open_dataset
 from augplan.errors import BadInputError
-from augplan.evaluate.evaluate import evaluate_recipes
+from augplan.evaluate import evaluate_recipes
 from augplan.measure.models import ConvNet, LinearProxy, TeamTrainer, scoring_model
 from augplan.recipe.parse import Recipe, Transform
 from conftest import write_digits_dataset
-from test_evaluate import FLIPS, PER_CLASS, SIZE, SMALL_AFFINE, _by_name
+from evaluate.test_evaluate import FLIPS, PER_CLASS, SIZE, SMALL_AFFINE, _by_name  # tests/evaluate/
 
 # A network small and short enough for the suite (about a second a fit on
 # 150 digits); the defaults are measured in benchmarks/bench_transfer.py.
@@ -87,7 +87,7 @@ def _recording_rotate(monkeypatch):
 def test_validation_images_never_reach_a_transform_for_any_model(digits_data, monkeypatch, model):
     seen = _recording_rotate(monkeypatch)
     recipe = Recipe(name="recorded", copies=1, transforms=(Transform("rotate", {"degrees": (-5.0, 5.0)}),))
-    document = evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, cache_dir=False, model=model)
+    document = evaluate_recipes(digits_data, [recipe], np.random.default_rng(0), repeats=1, size=SIZE, cache_dir=False, model=model)
 
     def digests(split):
         return {hashlib.sha256(np.ascontiguousarray(im).tobytes()).hexdigest()
@@ -104,7 +104,7 @@ def test_the_team_function_gets_augmented_training_data_and_predicts_originals(d
     team_training.CALLS.clear()
     team_training.PREDICTED.clear()
     recipe = Recipe(name="affine-2", copies=2, transforms=SMALL_AFFINE.transforms)
-    evaluate_recipes(digits_data, [recipe], repeats=1, size=SIZE, cache_dir=False, model=TEAM)
+    evaluate_recipes(digits_data, [recipe], np.random.default_rng(0), repeats=1, size=SIZE, cache_dir=False, model=TEAM)
     n_train = 10 * PER_CLASS["train"]
     baseline, augmented = team_training.CALLS  # the baseline arm trains first
     assert baseline["shape"] == (n_train, SIZE, SIZE, 3) and baseline["dtype"] == np.uint8
@@ -127,12 +127,12 @@ def test_the_team_function_gets_augmented_training_data_and_predicts_originals(d
 ], ids=["no-predictor", "names-not-indices"])
 def test_a_team_function_that_breaks_the_contract_is_named(digits_data, spec, fault):
     with pytest.raises(BadInputError, match=fault):
-        evaluate_recipes(digits_data, [SMALL_AFFINE], repeats=1, size=SIZE, cache_dir=False, model=spec)
+        evaluate_recipes(digits_data, [SMALL_AFFINE], np.random.default_rng(0), repeats=1, size=SIZE, cache_dir=False, model=spec)
 
 
 @pytest.fixture(scope="module")
 def cnn_comparison(digits_data):
-    return evaluate_recipes(digits_data, [FLIPS, SMALL_AFFINE], repeats=2, size=SIZE, seed=0,
+    return evaluate_recipes(digits_data, [FLIPS, SMALL_AFFINE], np.random.default_rng(0), repeats=2, size=SIZE,
                             cache_dir=False, model=SMALL_CNN)
 
 
@@ -158,7 +158,7 @@ def test_the_network_gives_the_same_json_for_one_seed_across_worker_counts(digit
     recipe = Recipe(name="affine-1", copies=1, transforms=SMALL_AFFINE.transforms)
     # Shorter still: the point is the determinism, not the accuracy.
     model = ConvNet(params=(("widths", (4, 8)), ("steps", 10), ("min_epochs", 3)))
-    texts = [json.dumps(evaluate_recipes(digits_data, [recipe], repeats=2, size=SIZE, seed=5,
+    texts = [json.dumps(evaluate_recipes(digits_data, [recipe], np.random.default_rng(5), repeats=2, size=SIZE,
                                          workers=workers, cache_dir=False, model=model), sort_keys=True)
              for workers in (1, 2)]
     assert texts[0] == texts[1]

@@ -2,6 +2,7 @@
 mirror-image chevrons, glazes told apart only by hue, a dim-light class)."""
 
 import contextlib
+import copy
 import io
 import json
 import pickle
@@ -118,133 +119,6 @@ def test_load_recipe_on_the_vetted_recipe(vetted):
     assert labels == {"chevron-left", "chevron-right"}  # the flip's relabel, applied with probability 0.5
 
 
-_LINEAR = {"name": "linear", "description": "the linear proxy", "note": "biased against augmentation"}
-_CNN = {"name": "cnn", "description": "a small network", "note": None}
-
-
-def _evaluation(model=_LINEAR):
-    return {"baseline": {"accuracy": 0.9}, "model": model}
-
-
-@pytest.mark.parametrize("gain_ci,field_ci,start", [
-    ((0.01, 0.05), None, "Use best-one (scored with the linear proxy): validation gain over no augmentation "
-                         "+3.5 points [95% CI +1.0, +5.0]"),
-    ((-0.02, 0.03), None, "No recipe clearly beat no augmentation on validation, scored with the linear proxy"),
-    ((0.0, 0.0), (0.2, 0.4), "Use best-one (scored with the linear proxy): gain over no augmentation "
-                             "+30.0 points [95% CI +20.0, +40.0] on the labelled field sample, which decides"),
-], ids=["val-gain", "unclear", "field-gain"])
-def test_verdict_sentence_leads_with_what_to_do(gain_ci, field_ci, start):
-    # The recommendation comes from the one rule (augplan.evaluate.ranking), gains in percentage points.
-    from augplan.evaluate.ranking import decide
-    from augplan.vet.job import _verdict_sentence
-
-    row = {"name": "best-one", "gain": sum(gain_ci) / 2 + 0.005, "gain_ci": list(gain_ci), "n_transforms": 2}
-    if field_ci:
-        row["field"] = {"gain": sum(field_ci) / 2, "gain_ci": list(field_ci)}
-    decision = decide([row])
-    entries = [{"name": "draft", "vetted": {"unchanged": False}}]
-    evaluation = {**_evaluation(), "decided_on": decision.decided_on}
-    sentence = _verdict_sentence(entries, evaluation, row if decision.best else None, row)
-    assert sentence.startswith(start) and "augplan changed draft" in sentence
-    # One voice: without a recommendation nothing is "used" or recommended.
-    assert ("Use " in sentence) == (decision.best is not None)
-    assert ("none recommended" in sentence) == (decision.best is None)
-
-
-@pytest.mark.parametrize("model, says", [
-    (_LINEAR, "(whose gains are biased against augmentation: this is not evidence of harm; its order puts "
-              "least-bad first"),
-    (_CNN, "scored with the cnn model; the highest-ranked is least-bad"),
-], ids=["linear", "cnn"])
-def test_verdict_sentence_names_no_best_when_none_gains(model, says):
-    from augplan.vet.job import _verdict_sentence
-
-    top = {"name": "least-bad", "gain": -0.015, "gain_ci": [-0.03, -0.002]}
-    entries = [{"name": "draft", "vetted": {"unchanged": True}}]
-    sentence = _verdict_sentence(entries, _evaluation(model), None, top)
-    assert sentence.startswith("No recipe clearly beat no augmentation on validation")
-    assert says in sentence
-    assert "Use " not in sentence and "best" not in sentence
-
-
-def _change_list(*pairs):
-    return [{"index": i, "op": "rotate", "verdict": verdict, "action": action, "detail": ""}
-            for i, (verdict, action) in enumerate(pairs)]
-
-
-@pytest.mark.parametrize("changes, unchanged, says, never", [
-    (_change_list(("safe", "keep"), ("unverified", "keep"), ("unverified", "keep")), True,
-     "2 kept transforms are unverified and need a person's sign-off", "kept its labels"),
-    (_change_list(("breaks", "remove"), ("unverified", "keep")), False,
-     "1 kept transform is unverified", "label-safe"),
-    (_change_list(("safe", "keep"), ("safe", "keep")), True, "every transform kept its labels", "sign-off"),
-], ids=["approved-unverified", "changed-and-unverified", "all-safe"])
-def test_verdict_sentence_claims_no_more_than_the_verdicts(changes, unchanged, says, never):
-    from augplan.vet.job import _verdict_sentence
-
-    best = {"name": "r", "gain": 0.02, "gain_ci": [0.01, 0.03]}
-    entries = [{"name": "r", "vetted": {"unchanged": unchanged, "changes": changes}}]
-    sentence = _verdict_sentence(entries, _evaluation(), best, best)
-    assert says in sentence and never not in sentence
-
-
-@pytest.mark.parametrize("changes, says, never", [
-    (_change_list(("safe", "keep"), ("safe", "keep")), "every transform kept as written", "removed"),
-    (_change_list(("breaks", "remove"), ("safe", "clip")), "2 transforms relabelled, scoped, clipped or removed",
-     "sign-off"),
-    (_change_list(("unverified", "keep")), "1 kept transform is unverified", "clipped or removed"),
-], ids=["nothing-broke", "two-changed", "unverified-kept"])
-def test_vetted_file_header_says_what_vetting_did(changes, says, never):
-    from augplan.recipe.parse import parse_recipe
-    from augplan.vet.vetted_file import vetted_text
-
-    text = vetted_text(parse_recipe("name: v\n"), {"n": 1}, changes=changes)
-    header = "".join(line for line in text.splitlines(keepends=True) if line.startswith("#"))
-    assert says in header and never not in header
-    assert "Transforms that broke labels" not in header
-
-
-_ORIGINAL = ("name: o\ntransforms:\n  - op: hue\n    degrees: [-90, 90]\n  - op: rotate\n"
-             "    degrees: [-30, 30]\n  - op: rotate\n    degrees: [-5, 5]\n")
-_REWRITTEN = ("name: v\ntransforms:\n  - op: rotate\n    degrees: [-30, 30]\n    only: [a]\n"
-              "  - op: rotate\n    degrees: [-5, 5]\n")
-
-
-def _rewrite_case(limit):
-    from augplan.recipe.parse import parse_recipe
-
-    changes = [{"index": 0, "op": "hue", "action": "remove", "detail": "removed: breaks", "verdict": "breaks"},
-               {"index": 1, "op": "rotate", "action": "scope", "detail": "applied only to a",
-                "verdict": "breaks"},
-               {"index": 2, "op": "rotate", "action": "keep", "detail": "", "verdict": "safe"}]
-    check = {"transforms": [{"index": 0, "verdict": "breaks", "safe_limit": None},
-                            {"index": 1, "verdict": "breaks", "safe_limit": limit},
-                            {"index": 2, "verdict": "safe", "safe_limit": [-5.0, 5.0]}]}
-    rechecked = {"transforms": [{"index": 0, "verdict": "breaks"}, {"index": 1, "verdict": "safe"}]}
-    return parse_recipe(_REWRITTEN), changes, rechecked, parse_recipe(_ORIGINAL), check
-
-
-def test_a_rewrite_that_still_breaks_and_has_no_safe_limit_is_removed():
-    from augplan.vet.job import _drop_unsafe_rewrites
-
-    vetted, changes, rechecked, recipe, check = _rewrite_case(None)
-    result, changes = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
-    assert [step.params for step in result.transforms] == [{"degrees": (-5.0, 5.0)}]
-    assert changes[1]["action"] == "remove" and "still breaks" in changes[1]["detail"]
-
-
-def test_a_rejected_rewrite_falls_back_to_the_safe_limit():
-    # Issue: vet removed a transform it could clip when the re-check rejected its rewrite.
-    from augplan.vet.job import _drop_unsafe_rewrites
-
-    vetted, changes, rechecked, recipe, check = _rewrite_case([-10.0, 10.0])
-    result, changes = _drop_unsafe_rewrites(vetted, changes, rechecked, recipe, check)
-    assert [step.params["degrees"] for step in result.transforms] == [(-10.0, 10.0), (-5.0, 5.0)]
-    assert result.transforms[0].only is None  # the original step, clipped; not the rejected scope
-    assert changes[1]["action"] == "clip" and "safe limit" in changes[1]["detail"]
-    assert changes[1].to_json()["clipped_to"] == [-10.0, 10.0]  # typed: the report formats the range
-
-
 def test_vetted_recipe_validates_against_the_shipped_schema(vetted):
     import jsonschema
     import yaml
@@ -341,3 +215,57 @@ def test_every_output_of_vet_says_which_evidence_decided(vetted):
     assert vetted_file["evidence"]["decided_on"] == "field"
     assert (vetted_file["evidence"].get("validation_note") == note) == bool(
         evidence["evaluation"]["val_shares_shortcut"])
+
+
+def test_evidence_reads_back_as_a_typed_report_with_the_evaluations_decision(vetted):
+    from augplan.results import RecipeScore, VetReport, VettedRecipe, VettingChange
+
+    _, out, _ = vetted
+    report = VetReport.from_json(json.loads((out / "evidence.json").read_text()))
+    entry = report.recipes[0]
+    assert isinstance(entry, VettedRecipe) and isinstance(entry.vetted.score, RecipeScore)
+    assert all(isinstance(change, VettingChange) for change in entry.vetted.changes)
+    # A clip carries its range as data, for the report to format.
+    assert all(change.clipped_to == [float(v) for v in change.clipped_to] and len(change.clipped_to) == 2
+               for change in entry.vetted.changes if change.action == "clip")
+    # The ranking and the recommendation are the evaluation's, carried, never re-sorted.
+    assert report.ranking == report.evaluation.ranking
+    assert [row.name for row in report.evaluation.ranked()] == report.ranking
+    assert report.best is None or report.recommended().vetted.name == report.evaluation.best
+
+
+class _Stop(Exception):
+    pass
+
+
+def test_vet_gives_check_coverage_evaluation_and_sheets_their_own_streams(tmp_path, monkeypatch):
+    # Issue 27: check and coverage spawned their children from the same integer, so their streams coincided.
+    import augplan.vet.job as job
+    from augplan.data.dataset import open_dataset
+    from augplan.recipe.parse import read_recipe
+
+    make_demo_dataset(tmp_path / "data", n_train=4, n_val=2, n_field=2)
+    firsts = {}
+
+    def spy(name, real):
+        def wrapper(*args, rng, **kwargs):
+            # The first draw of a copy: equal only when two purposes share a stream.
+            firsts.setdefault(name, []).append(int(copy.deepcopy(rng).integers(2**63)))
+            if name == "evaluate":
+                raise _Stop
+            return job.with_generator(real, rng, *args, **kwargs)
+        return wrapper
+
+    monkeypatch.setattr(job, "check_recipe", spy("check", job.check_recipe))
+    monkeypatch.setattr(job, "analyse_coverage", spy("coverage", job.analyse_coverage))
+    monkeypatch.setattr(job, "evaluate_recipes", lambda dataset, recipes, rng, **kwargs: spy("evaluate", None)(rng=rng))
+    monkeypatch.setattr(job, "draws_sheet", lambda dataset, recipe, path, rng: firsts.setdefault("sheets", []).append(
+        int(copy.deepcopy(rng).integers(2**63))))
+    recipes = [read_recipe(DEMO_RECIPE_DIR / "cautious.yaml"), read_recipe(DEMO_RECIPE_DIR / "light-and-pose.yaml")]
+    with pytest.raises(_Stop):
+        job.vet_recipes(open_dataset(tmp_path / "data"), recipes, tmp_path / "out", rng=np.random.default_rng(0),
+                        repeats=1, sample=3, model="linear", size=16)
+    assert {name: len(draws) for name, draws in firsts.items()} == {"check": 2, "coverage": 2, "sheets": 2,
+                                                                     "evaluate": 1}
+    every = [draw for draws in firsts.values() for draw in draws]
+    assert len(set(every)) == len(every)

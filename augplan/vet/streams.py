@@ -1,0 +1,53 @@
+"""The random streams of a vetting run: one child of the run's generator per purpose.
+
+``vet`` splits its `numpy.random.Generator` once (`augplan.seeding`): the
+label-safety checks, the coverage analyses, the evaluation and the draws
+sheets each get their own child, so no two of them share a stream; each
+recipe then gets a child of each.
+"""
+
+import inspect
+from dataclasses import dataclass
+
+from augplan.seeding import require_generator
+
+__all__ = ["VetStreams", "vet_streams", "with_generator"]
+
+
+@dataclass(frozen=True)
+class VetStreams:
+    """The generators of one vetting run.
+
+    Attributes
+    ----------
+    check, recheck, coverage, sheets : list of numpy.random.Generator
+        One per recipe, in the order given: its label-safety check, the
+        re-check of its rewritten steps, its coverage, its draws sheet.
+    evaluate : numpy.random.Generator
+        The evaluation of every recipe together (its own per-recipe streams
+        are keyed, `augplan.evaluate.evaluate_recipes`).
+    """
+
+    check: list
+    recheck: list
+    coverage: list
+    evaluate: object
+    sheets: list
+
+
+def vet_streams(rng, n_recipes):
+    """Split ``rng`` once into the `VetStreams` of a run of ``n_recipes`` recipes."""
+    check, recheck, coverage, evaluate, sheets = require_generator(rng).spawn(5)
+    return VetStreams(check=check.spawn(n_recipes), recheck=recheck.spawn(n_recipes),
+                      coverage=coverage.spawn(n_recipes), evaluate=evaluate, sheets=sheets.spawn(n_recipes))
+
+
+def with_generator(function, rng, *args, **kwargs):
+    """Call an analysis with its generator.
+
+    An analysis that still takes an integer ``seed`` instead of ``rng`` gets
+    one integer drawn from its own generator, so its stream stays its own.
+    """
+    if "rng" in inspect.signature(function).parameters:
+        return function(*args, rng=rng, **kwargs)
+    return function(*args, seed=int(require_generator(rng).integers(2**31)), **kwargs)
