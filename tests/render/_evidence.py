@@ -51,7 +51,8 @@ def transform(index, op, params, verdict, *, change_rate=0.03, change_rate_ci=(0
 
 def check(name, transforms):
     """A ``check`` result of ``transforms``."""
-    return {"recipe": name, "model": {"cv_accuracy": 0.97, "chance": 0.5, "weak": False}, "baseline": {},
+    return {"recipe": name, "model": {"cv_accuracy": 0.97, "chance": 0.5, "weak": False, "folds": 5,
+                                     "confirmation": "linear", "side": 64}, "baseline": {},
             "transforms": transforms, "warnings": ["classes with fewer than 20 training images give wide intervals"],
             "decision_rule": "A class breaks when the lower bound exceeds its baseline by 0.10.", "n_images": 80}
 
