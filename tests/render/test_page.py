@@ -1,4 +1,4 @@
-"""Tests of the HTML report of ``augplan vet`` (augplan.report).
+"""Tests of the HTML report of ``augplan vet`` (augplan.render.page and the sections it assembles).
 
 The page is parsed with the standard library's `html.parser` (an outside
 HTML tokenizer, not ours) and every embedded image is decoded with `base64`
