@@ -201,7 +201,7 @@ def leaderboard_table(result):
     # interval that matters), so the verdict fits 80 columns; rows in the
     # evaluator's ranking, never re-sorted here.
     rows = [[r.name, f"{r.accuracy:.2f}", format_points(r.gain, r.gain_ci),
-             f"{r.p_holm:.2g}", _verdict_text(r, model["name"])]
+             f"{r.p_holm:.2g}", _verdict_text(r.verdict, r.flagged, model["name"])]
             for r in result.ranked()]
     head = wrap(f"scored with {model_phrase(model['name'])} on {result.scored_on} "
                 f"({base['n_images']} original images), {result.repeats} repeats per recipe; "
@@ -216,11 +216,10 @@ def leaderboard_table(result):
     return "\n".join(parts)
 
 
-def _verdict_text(row, model_name):
+def _verdict_text(verdict, flagged, model_name):
     """The verdict column (`VERDICT_RULE`'s word); the linear proxy's loss is not called harm."""
-    verdict = row.verdict
     if verdict == "loses":
-        return "LOSES" if row.flagged else "lower (proxy)" if is_linear(model_name) else "loses"
+        return "LOSES" if flagged else "lower (proxy)" if is_linear(model_name) else "loses"
     return verdict
 
 
@@ -266,7 +265,9 @@ def run_table(entry, *, width=80):
         field = row.get("field") or {}
         rows.append([row["name"], f"{row['accuracy']:.3f}", _gain_text(row),
                      "-" if row.get("p_holm") is None else f"{row['p_holm']:.3g}",
-                     _gain_text(field) if field else "-", _verdict_text(row, model)])
+                     _gain_text(field) if field else "-",
+                     # A ledger row of an older version may lack the verdict.
+                     _verdict_text(row.get("verdict", ""), row.get("flagged", False), model)])
     lines.append(format_table(["recipe", "accuracy", "gain, points [95% CI]", "p (Holm)", "field gain, points", "verdict"], rows,
                               width=width, max_cell=max(26, _cell_limit(width))))
     lines.extend(wrap(f"warning: {text}", width=width) for text in details.get("warnings") or [])
