@@ -121,7 +121,7 @@ def test_known_violation_still_exists(edge):
     ("from .check import check_recipe", ["augplan", "check"], True, [["augplan", "check", "check"]]),
     ("from augplan import __version__", ["augplan", "vet", "job"], False, []),
     ("from augplan import parallel", ["augplan", "cli"], False, [["augplan", "parallel"]]),
-    ("def f():\n    import augplan.render.html", ["augplan", "vet", "job"], False, [["augplan", "render", "html"]]),
+    ("def f():\n    import augplan.render.page", ["augplan", "vet", "job"], False, [["augplan", "render", "page"]]),
     ("import numpy", ["augplan", "vet", "job"], False, []),
 ])
 def test_import_reader(source, here, is_init, expected):
