@@ -157,7 +157,13 @@ def _build_parser():
         "nuisance coverage, shortcut audit and honest validation scores."))
     parser.add_argument("--version", action="version", version=f"augplan {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    _add_analyses(commands)
+    _add_jobs(commands)
+    return parser
 
+
+def _add_analyses(commands):
+    """The commands that look at one side of a recipe: preview, check, coverage, evaluate."""
     p = commands.add_parser("preview", help="contact sheet of originals and augmented draws per class")
     _common(p, json_flag=False)
     p.add_argument("--recipe", required=True, type=Path, help="recipe YAML ('-': standard input)")
@@ -197,6 +203,9 @@ def _build_parser():
     _model_flag(p)
     p.add_argument("--field", type=Path, default=None, help="labelled field sample folder (default DATA/field)")
 
+
+def _add_jobs(commands):
+    """The commands that make or read a recipe: draft, vet, verify, history, demo."""
     p = commands.add_parser("draft", help="propose a candidate recipe from the data, or from a starting recipe")
     _common(p, json_flag=False, data_optional=True)
     _workers(p)
@@ -249,7 +258,6 @@ def _build_parser():
     p.add_argument("--model", default=None, metavar="NAME",
                    help="model the demo's recipes are scored with, and confirmed with when named "
                         "(default: cnn, the network, for scoring and linear for the check; linear: the quick proxy)")
-    return parser
 
 
 def _say_error(text):

@@ -33,6 +33,7 @@ __all__ = [
     "VerifyResult",
     "HistoryResult",
     "RecipeScore",
+    "HistoryRun",
     "VettingChange",
     "SignoffItem",
     "VettedForm",
@@ -205,6 +206,50 @@ class RecipeScore(Record):
     def primary(self, decided_on):
         """The score block of the primary evidence: the field block for ``'field'``, else this row."""
         return (self.field or {}) if decided_on == "field" else self
+
+
+@dataclass(frozen=True, eq=False)
+class HistoryRun(Record):
+    """One past comparison in the results ledger: an item of `HistoryResult.evaluations`.
+
+    Attributes
+    ----------
+    run : int
+        Its number (``augplan history RUN`` shows it).
+    date : str
+        UTC, ``YYYY-MM-DD HH:MM:SS``.
+    fingerprint : str
+        The data's fingerprint (its first 12 characters in the list).
+    data : str or None
+        The data folder.
+    recipes : list of str
+    best_recipe : str or None
+    best_gain : float or None
+        On the primary evidence.
+    seed : int
+        The seed the run was asked for.
+    repeats : int
+    from_ledger : bool
+        Every result was read from the ledger.
+    settings_key : str, optional
+        With one run's details only.
+    details : dict or None, optional
+        With one run's details only: its scores (None for runs recorded
+        before runs kept them).
+    """
+
+    run: int
+    date: str
+    fingerprint: str
+    data: Any
+    recipes: list
+    best_recipe: Any
+    best_gain: Any
+    seed: Any
+    repeats: int
+    from_ledger: bool
+    settings_key: str = _optional()
+    details: Any = _optional()
 
 
 
@@ -587,6 +632,10 @@ class HistoryResult(_Result):
 
     ledger: str
     evaluations: list
+
+    def __post_init__(self):
+        _type_fields(self, evaluations=[HistoryRun])
+        super().__post_init__()
 
 
 RESULT_TYPES = {"check": CheckResult, "coverage": CoverageResult, "evaluate": EvaluateResult,

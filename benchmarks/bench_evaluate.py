@@ -46,8 +46,8 @@ def _synthetic_image(label, rng, size=SIZE):
     return np.clip(image, 0, 255).astype(np.uint8)
 
 
-def write_dataset(root, n_train, n_val, seed=0, size=SIZE):
-    rng = np.random.default_rng(seed)
+def write_dataset(root, n_train, n_val, rng=None, size=SIZE):
+    rng = np.random.default_rng(0) if rng is None else rng
     for split, total in (("train", n_train), ("val", n_val)):
         for index in range(total):
             label = index % CLASSES
@@ -152,9 +152,10 @@ def breakdown(dataset, sizes=(500, 2000), copies=4):
               f"({totals[large][stage] / max(totals[small][stage], 1e-9):.2f}x)")
 
 
-def timed(label, *, seed=0, **kwargs):
+def timed(label, **kwargs):
     started = time.perf_counter()
-    document = evaluate_recipes(rng=np.random.default_rng(seed), seed=seed, **kwargs)
+    # Seed 0 every run, so a rerun finds its results in the ledger.
+    document = evaluate_recipes(rng=np.random.default_rng(0), seed=0, **kwargs)
     elapsed = time.perf_counter() - started
     print(f"{label:<52s} {elapsed:8.1f} s   from_ledger={document['from_ledger']}", flush=True)
     return elapsed, document
@@ -174,7 +175,7 @@ def main(argv=None):
         if args.breakdown:
             breakdown(write_dataset(tmp / "DATA", 2000, 10))
             return 0
-        common = dict(recipes=RECIPES, repeats=args.repeats, size=SIZE, seed=0, workers=args.workers)
+        common = dict(recipes=RECIPES, repeats=args.repeats, size=SIZE, workers=args.workers)
 
         full = write_dataset(tmp / "full" / "DATA", 2000, 500)
         t_cold, document = timed("2000 train + 500 val, cold cache", dataset=full,

@@ -68,14 +68,14 @@ _BASELINE_KEY = int(hashlib.sha256(b"augplan-baseline").hexdigest(), 16)
 
 
 def no_val_warning(dataset):
-    """The warning of a data set without ``val/``: what was scored on instead (None when it has one).
+    """The warning of a data set without ``val/``: what stands in for validation (None when it has one).
 
     Written once here; every command that scores carries it in its result's
     ``warnings`` and the command line prints it from there.
     """
     if not dataset.val_from_train:
         return None
-    return f"no val/ folder: scored on a stratified split of train (seed {dataset.split_seed})."
+    return f"no val/ folder: a stratified split of train (seed {dataset.split_seed}) stands in for validation."
 
 
 # --------------------------------------------------------------------------
@@ -449,96 +449,10 @@ def _run_summary(document):
             "warnings": list(document["warnings"])}
 
 
-def evaluate_recipes(dataset, recipes, rng, *, seed=None, repeats=5, model=None, size=64, workers=1,
-                     quiet=True, ledger_path=None, cache_dir=None, confirm_fraction=None,
-                     val_shares_shortcut=None, candidates=None):
-    """Score recipes by their accuracy gain over a no-augmentation baseline.
-
-    Parameters
-    ----------
-    dataset : augplan.data.Dataset
-        Opened data set with train and val splits; optional test (the
-        confirmation split) and labelled field images.
-    recipes : sequence of augplan.recipe.Recipe
-        Recipes to compare; names must be unique.
-    rng : numpy.random.Generator
-        One root is drawn from it (`augplan.seeding.stream_root`); every
-        draw of the run is keyed under that root by purpose, recipe hash and
-        repeat, so a recipe's result does not depend on the other recipes,
-        and results stored in the ledger under the same root are reused.
-    seed : int, optional
-        The seed ``rng`` was made from, recorded in the result's ``seed`` as
-        provenance (the command line passes ``--seed``); default the root.
-    repeats : int, default 5
-        Training repeats per recipe, each with fresh augmentation draws and
-        a fresh model seed.
-    model : {'cnn', 'linear'} or str or FeatureModel, optional
-        The model each arm trains (`augplan.measure.models`): None (the
-        default) or ``'cnn'``, a small convolutional network (the ``cnn``
-        extra; without PyTorch the default falls back to the linear proxy,
-        named ``linear (network not installed)``, with a warning);
-        ``'linear'``, the quick proxy; ``'module:callable'``, the team's own
-        training function; a `FeatureModel` is the linear proxy with that
-        template (picklable when ``workers != 1``). Every result names it.
-    size : int, default 64
-        The side images are read, augmented and trained at (``--side``);
-        larger images are reduced by area averaging. The document's
-        ``model.side`` says it.
-    workers : int, default 1
-        Processes for featurising and training (-1: every core).
-    quiet : bool, default True
-        Hide progress bars.
-    ledger_path : str or Path, optional
-        SQLite results ledger; results stored under the same keys are reused.
-        ``None``: no ledger.
-    cache_dir : str or Path or False, optional
-        ``False`` turns the disk cache off. Folder of the feature cache of original images; default
-        ``<data parent>/.augplan/features``. Never inside the data folder.
-    confirm_fraction : float, optional
-        Without ``DATA/test/``, the share of each validation class set aside
-        (stratified, seeded) as a confirmation split.
-    val_shares_shortcut : sequence of str, optional
-        Flagged shortcut factors the validation split shares, when the
-        caller has audited them already (``vet`` passes coverage's); default:
-        audited here on the original train, validation and field images.
-    candidates : collection of str, optional
-        Names of the recipes that may be recommended (``vet`` passes its
-        vetted recipes); default every recipe.
-
-    Returns
-    -------
-    EvaluateResult
-        The ``evaluate --json`` document (docs/architecture.md, "Results").
-        ``ranking``, ``best``, ``decided_on`` and ``decision_note`` follow
-        `BEST_RULE` (`augplan.evaluate.ranking`): a labelled field sample is
-        the primary evidence; without one, a shortcut that validation shares
-        is named and a field sample asked for.
-
-    Raises
-    ------
-    BadInputError
-        Empty or duplicate recipes, bad numbers, missing splits, a cache
-        folder inside the data folder, an unusable ledger file.
-
-    Notes
-    -----
-    The image is the unit: gain p-values are paired sign-flip permutation
-    tests over per-image differences (each image's correctness averaged over
-    repeats) and gain intervals invert the same test [1]_, so ``p < 0.05``
-    exactly when the 95% interval excludes zero; p-values are Holm-adjusted
-    across the recipes of the run [2]_.
-
-    References
-    ----------
-    .. [1] M. D. Ernst, Statistical Science 19(4), 676-685, 2004.
-    .. [2] S. Holm, Scandinavian Journal of Statistics 6(2), 65-70, 1979.
-    """
-    recipes = _check_inputs(dataset, recipes, repeats, size, seed, workers, confirm_fraction)
-    root = stream_root(require_generator(rng))
-    scoring = scoring_model(model)
-    repeats, size = int(repeats), int(size)
-    seed = root if seed is None else int(seed)
-
+def _evaluate(dataset, recipes, root, *, seed, repeats, model, size, workers, quiet, ledger_path, cache_dir,
+              confirm_fraction, val_shares_shortcut, candidates):
+    """The body of `evaluate_recipes` on checked inputs: streams keyed under ``root``, ``model`` resolved."""
+    scoring = model
     splits, confirm_source, confirm_ignored, n_unlabelled = _scoring_splits(dataset, confirm_fraction, root, seed)
 
     hashes = [recipe_hash(r) for r in recipes]
@@ -573,3 +487,85 @@ def evaluate_recipes(dataset, recipes, rng, *, seed=None, repeats=5, model=None,
                            # History shows the seed the run was asked for; results stay keyed by the root.
                            **{**ledger_keys, "seed": seed})
     return result
+
+
+def evaluate_recipes(dataset, recipes, rng, *, seed=None, repeats=5, model=None, size=64, workers=1,
+                     quiet=True, ledger_path=None, cache_dir=None, confirm_fraction=None,
+                     val_shares_shortcut=None, candidates=None):
+    """Score recipes by their accuracy gain over a no-augmentation baseline.
+
+    Parameters
+    ----------
+    dataset : augplan.data.Dataset
+        Opened data set with train and val splits; optional test (the
+        confirmation split) and labelled field images.
+    recipes : sequence of augplan.recipe.Recipe
+        Recipes to compare; names must be unique.
+    rng : numpy.random.Generator
+        One root is drawn from it (`augplan.seeding.stream_root`); every
+        draw of the run is keyed under that root by purpose, recipe hash and
+        repeat, so a recipe's result does not depend on the other recipes,
+        and results stored in the ledger under the same root are reused.
+    seed : int, optional
+        The seed ``rng`` was made from, recorded in the result's ``seed`` as
+        provenance (the command line passes ``--seed``); default the root.
+    repeats : int, default 5
+        Training repeats per recipe, each with fresh augmentation draws and
+        a fresh model seed.
+    model : {'cnn', 'linear'} or str or FeatureModel, optional
+        The model each arm trains (`augplan.measure.models.scoring_model`):
+        None or ``'cnn'`` (the small network; the linear proxy, with a
+        warning, without PyTorch), ``'linear'``, ``'module:callable'`` (the
+        team's function) or a `FeatureModel`. Every result names it.
+    size : int, default 64
+        The side images are read, augmented and trained at (``--side``).
+    workers : int, default 1
+        Processes for featurising and training (-1: every core).
+    quiet : bool, default True
+        Hide progress bars.
+    ledger_path : str or Path, optional
+        SQLite results ledger; results stored under the same keys are reused.
+    cache_dir : str or Path or False, optional
+        Folder of the feature cache of original images (never inside the
+        data folder); default ``<data parent>/.augplan/features``; False: none.
+    confirm_fraction : float, optional
+        Without ``DATA/test/``, the share of each validation class set aside
+        (stratified, seeded) as a confirmation split.
+    val_shares_shortcut : sequence of str, optional
+        Flagged shortcut factors the validation split shares, when the
+        caller has audited them already (``vet`` passes coverage's); default:
+        audited here on the original train, validation and field images.
+    candidates : collection of str, optional
+        Names of the recipes that may be recommended (``vet`` passes its
+        vetted recipes); default every recipe.
+
+    Returns
+    -------
+    EvaluateResult
+        The ``evaluate --json`` document; its ``recipes`` are `RecipeScore`
+        rows; ``ranking``, ``best``, ``decided_on`` and ``decision_note``
+        follow `BEST_RULE` (`augplan.evaluate.ranking`), decided once.
+
+    Raises
+    ------
+    BadInputError
+        Empty or duplicate recipes, bad numbers, missing splits, a cache
+        folder inside the data folder, an unusable ledger file.
+
+    Notes
+    -----
+    The image is the unit: paired sign-flip tests over per-image differences
+    give each gain's p and interval [1]_, Holm-adjusted across the run [2]_
+    (`augplan.evaluate.scoring`).
+
+    References
+    ----------
+    .. [1] M. D. Ernst, Statistical Science 19(4), 676-685, 2004.
+    .. [2] S. Holm, Scandinavian Journal of Statistics 6(2), 65-70, 1979.
+    """
+    recipes = _check_inputs(dataset, recipes, repeats, size, seed, workers, confirm_fraction)
+    root = stream_root(require_generator(rng))
+    return _evaluate(dataset, recipes, root, seed=root if seed is None else int(seed), repeats=int(repeats),
+                     model=scoring_model(model), size=int(size), workers=workers, quiet=quiet,
+                     ledger_path=ledger_path, cache_dir=cache_dir, confirm_fraction=confirm_fraction,
+                     val_shares_shortcut=val_shares_shortcut, candidates=candidates)

@@ -70,10 +70,12 @@ def _stage(quiet, text):
 
 
 def _vet_one(dataset, recipe, scratch, number, approve, streams, settings):
-    """Check, coverage and the vetted form of recipe ``number``: its `VettedRecipe` (unscored) and vetted recipe.
+    """Check, coverage and the vetted form of recipe ``number``.
 
-    Evidence sheets and the draws sheet are written into ``scratch``; the
-    factor histograms stay data, drawn by the report.
+    Returns its `VettedRecipe` (unscored), the vetted recipe and its figures
+    (``{name: bytes}``: the draws sheet, whose path in the entry is already
+    the output folder's). The checker writes its evidence sheets into
+    ``scratch``; the factor histograms stay data, drawn by the report.
     """
     check = with_generator(check_recipe, streams.check[number], dataset, recipe,
                            evidence_dir=scratch / f"evidence-{number}", **settings)
@@ -85,11 +87,12 @@ def _vet_one(dataset, recipe, scratch, number, approve, streams, settings):
         return with_generator(check_recipe, streams.recheck[number], dataset, rewritten, **settings)
 
     vetted, form = vet_recipe(recipe, check, approve=approve, coverage=coverage, recheck=recheck)
-    draws = draws_sheet(dataset, vetted, scratch / f"draws-{number}.jpg", streams.sheets[number])
+    draws = draws_sheet(dataset, vetted, streams.sheets[number])
+    figures = {} if draws is None else {f"{number}-{recipe.name}-draws.jpg": draws}
     entry = VettedRecipe(name=recipe.name, source=recipe.source, recipe=recipe_to_dict(recipe),
-                         recipe_hash=recipe_hash(recipe), check=check, coverage=coverage, draws_sheet=draws,
-                         vetted=form)
-    return entry, vetted
+                         recipe_hash=recipe_hash(recipe), check=check, coverage=coverage,
+                         draws_sheet=next((f"figures/{name}" for name in figures), None), vetted=form)
+    return entry, vetted, figures
 
 
 def _evaluate(dataset, recipes, entries, vetted_recipes, rng, *, seed, options):
@@ -208,19 +211,21 @@ def vet_recipes(dataset, recipes, out_dir, *, rng, seed=None, force=False, appro
     with output_lock(out_dir), tempfile.TemporaryDirectory(prefix="augplan-vet-") as scratch:
         prepare_output(out_dir, force=force, replace=replace)
         scratch = Path(scratch)
-        entries, vetted_recipes = [], []
+        entries, vetted_recipes, figures = [], [], {}
         for number, recipe in enumerate(recipes):
             _stage(quiet, f"[{number + 1}/{len(recipes)}] {recipe.name}: label safety and coverage")
-            entry, vetted = _vet_one(dataset, recipe, scratch, number, approve, streams, settings)
+            entry, vetted, drawn = _vet_one(dataset, recipe, scratch, number, approve, streams, settings)
             entries.append(entry)
             vetted_recipes.append(vetted)
+            figures.update(drawn)
         _stage(quiet, "scoring every recipe and its vetted form against no augmentation")
         evaluation, entries = _evaluate(dataset, recipes, entries, vetted_recipes, streams.evaluate, seed=seed,
                                         options=options)
         seed = evaluation.seed  # the provenance the evaluation recorded (the root when none was given)
         header = {"augplan_version": __version__, "created": creation_date(), "data_fingerprint": fingerprint(dataset)}
         documents = _documents(entries, vetted_recipes, evaluation, header, seed, dataset.classes)
-        entries, figures = collect_figures(entries)
+        entries, evidence_figures = collect_figures(entries)
+        figures = {**evidence_figures, **figures}
         report = vet_report(dataset, entries, evaluation, verdict=_verdict(entries, evaluation), header=header,
                             seed=seed)
         html = render_with_figures(report, figures, scratch / "staged")

@@ -8,7 +8,6 @@ import dataclasses
 import json
 from pathlib import Path
 
-from augplan.atomic import write_bytes_atomic
 
 __all__ = ["draws_sheet", "collect_figures", "render_with_figures", "output_files"]
 
@@ -17,8 +16,8 @@ __all__ = ["draws_sheet", "collect_figures", "render_with_figures", "output_file
 _DRAWS_SHEET = {"per_class": 1, "draws": 5, "cell": 64}
 
 
-def draws_sheet(dataset, recipe, path, rng):
-    """A contact sheet of augmented draws of ``recipe`` (as `preview` draws it), written as JPEG; its path or None.
+def draws_sheet(dataset, recipe, rng):
+    """A contact sheet of augmented draws of ``recipe`` (as `preview` draws it), as JPEG bytes; None without training images.
 
     ``rng`` is the sheet's own `numpy.random.Generator`.
     """
@@ -27,9 +26,7 @@ def draws_sheet(dataset, recipe, path, rng):
 
     if not dataset.split("train"):
         return None
-    sheet = preview_sheet(dataset, recipe, rng=rng, **_DRAWS_SHEET)
-    write_bytes_atomic(path, jpeg_bytes(sheet))
-    return str(path)
+    return jpeg_bytes(preview_sheet(dataset, recipe, rng=rng, **_DRAWS_SHEET))
 
 
 def _with_sheet(row, path):
@@ -39,7 +36,7 @@ def _with_sheet(row, path):
 
 
 def _collect_one(number, entry, figures):
-    """``entry`` with its figure paths made relative to the output folder; their bytes go into ``figures``."""
+    """``entry`` with its evidence sheets' paths made relative to the output folder; their bytes go into ``figures``."""
     transforms = []
     for transform in entry.check["transforms"]:
         sheet = transform.get("evidence_sheet")
@@ -48,17 +45,11 @@ def _collect_one(number, entry, figures):
             figures[name] = Path(sheet).read_bytes()
             transform = _with_sheet(transform, f"figures/{name}")
         transforms.append(transform)
-    draws = entry.draws_sheet
-    if draws and Path(draws).is_file():
-        name = f"{number}-{entry.name}-draws.jpg"
-        figures[name] = Path(draws).read_bytes()
-        draws = f"figures/{name}"
-    return dataclasses.replace(entry, check=dataclasses.replace(entry.check, transforms=transforms),
-                               draws_sheet=draws)
+    return dataclasses.replace(entry, check=dataclasses.replace(entry.check, transforms=transforms))
 
 
 def collect_figures(entries):
-    """The evidence sheets (from the checker's scratch folder) and draws sheet of every recipe.
+    """The evidence sheets of every recipe, read from the checker's scratch folder.
 
     Returns
     -------

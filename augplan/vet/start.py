@@ -100,24 +100,31 @@ def widen_lighting(recipe, reach):
     return dataclasses.replace(recipe, transforms=tuple(steps)), changes
 
 
-def _keep_unverified(adapted, widened, checked_changes):
+def _keep_unverified(adapted, widened, vetting):
     """Put back the unverified steps vet's rules removed: a draft leaves them to ``vet`` and a person.
 
     Vet removes an unverified transform without a safe limit unless a person
     approves it; a draft is the step before, so it keeps the start's step and
-    says so. ``checked_changes`` is updated in place.
+    says so.
+
+    Returns
+    -------
+    (Recipe, list of dict)
+        The draft's recipe and its change records (the draft's own words;
+        vet's `VettingChange` rows are left as the policy made them).
     """
     vetted_steps = iter(adapted.transforms)
-    steps = []
-    for change, step in zip(checked_changes, widened.transforms):
-        if change["action"] == "remove" and change["verdict"] == "unverified":
-            change["action"] = "keep"
-            change["detail"] = ("unverified, kept: the check could not vouch for it; 'augplan vet' "
-                                "removes it unless a person approves it (--approve)")
+    steps, changes = [], []
+    for change, step in zip(vetting, widened.transforms):
+        record = change.to_json()
+        if change.action == "remove" and change.verdict == "unverified":
+            record.update(action="keep", detail="unverified, kept: the check could not vouch for it; 'augplan vet' "
+                                                "removes it unless a person approves it (--approve)")
             steps.append(step)
-        elif change["action"] != "remove":
+        elif change.action != "remove":
             steps.append(next(vetted_steps))
-    return dataclasses.replace(adapted, transforms=tuple(steps))
+        changes.append(record)
+    return dataclasses.replace(adapted, transforms=tuple(steps)), changes
 
 
 def _draft_name(start, name):
@@ -212,8 +219,8 @@ def draft_from_start(dataset, start, rng, *, name=None, sample=None, size=64, wo
     check = with_generator(check_recipe, rng, dataset, widened, sample=sample, size=size, workers=workers,
                            quiet=quiet)
     adapted, vetting = vet_transforms(widened, check)
-    checked_changes = [change.to_json() for change in vetting]  # plain dicts: the draft rewords some
-    recipe = dataclasses.replace(_keep_unverified(adapted, widened, checked_changes), name=_draft_name(start, name))
+    kept, checked_changes = _keep_unverified(adapted, widened, vetting)
+    recipe = dataclasses.replace(kept, name=_draft_name(start, name))
     changes = _merge(start, widened_changes, checked_changes)
     text = _header(start, len(dataset.split("train")), len(field_records), changes) + dump_recipe(recipe)
     parse_recipe(text, source=f"draft {json.dumps(recipe.name)}")  # a draft must always be a valid recipe

@@ -259,7 +259,7 @@ def test_vet_gives_check_coverage_evaluation_and_sheets_their_own_streams(tmp_pa
     monkeypatch.setattr(job, "check_recipe", spy("check", job.check_recipe))
     monkeypatch.setattr(job, "analyse_coverage", spy("coverage", job.analyse_coverage))
     monkeypatch.setattr(job, "evaluate_recipes", lambda dataset, recipes, rng, **kwargs: spy("evaluate", None)(rng=rng))
-    monkeypatch.setattr(job, "draws_sheet", lambda dataset, recipe, path, rng: firsts.setdefault("sheets", []).append(
+    monkeypatch.setattr(job, "draws_sheet", lambda dataset, recipe, rng: firsts.setdefault("sheets", []).append(
         int(copy.deepcopy(rng).integers(2**63))))
     recipes = [read_recipe(DEMO_RECIPE_DIR / "cautious.yaml"), read_recipe(DEMO_RECIPE_DIR / "light-and-pose.yaml")]
     with pytest.raises(_Stop):
@@ -269,3 +269,19 @@ def test_vet_gives_check_coverage_evaluation_and_sheets_their_own_streams(tmp_pa
                                                                      "evaluate": 1}
     every = [draw for draws in firsts.values() for draw in draws]
     assert len(set(every)) == len(every)
+
+
+def test_the_missing_val_folder_is_said_once_by_vet(tmp_path, tiny_recipe, run_cli):
+    # Issue 27: the warning has one home (augplan.evaluate.no_val_warning); vet prints it once.
+    import shutil
+
+    from conftest import write_tiny_dataset
+
+    root = write_tiny_dataset(tmp_path / "DATA", train=10)
+    shutil.rmtree(root / "val")
+    result = run_cli("vet", root, "--recipe", tiny_recipe, "-o", tmp_path / "out", "--repeats", "1",
+                     "--model", "linear", "--side", "16")
+    assert result.code in (0, 1), result.err
+    assert result.err.count("no val/ folder") == 1
+    evaluation = json.loads((tmp_path / "out" / "evidence.json").read_text())["evaluation"]
+    assert sum("no val/ folder" in warning for warning in evaluation["warnings"]) == 1
