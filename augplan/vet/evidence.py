@@ -47,10 +47,10 @@ def vetted_evidence(entry, vetted, evaluation, header, seed, classes):
     evidence = {
         **header,
         "vetted_from": {"name": entry.name, "recipe_hash": entry.recipe_hash},
-        "model": {"cv_accuracy": entry.check["model"]["cv_accuracy"]},
-        "verdicts": [{"index": t["index"], "op": t["op"], "verdict": t["verdict"],
-                      "change_rate": t["change_rate"], "change_rate_ci": t["change_rate_ci"]}
-                     for t in entry.check["transforms"]],
+        "model": {"cv_accuracy": entry.check.model["cv_accuracy"]},
+        "verdicts": [{"index": t.index, "op": t.op, "verdict": t.verdict,
+                      "change_rate": t.change_rate, "change_rate_ci": t.change_rate_ci}
+                     for t in entry.check.transforms],
         "changes": [f"{c.index} {c.op}: {c.action}" + (f" ({c.detail})" if c.detail else "")
                     for c in entry.vetted.changes],
         "validation": {"scored_with": evaluation.model["name"], "scored_on": evaluation.scored_on,

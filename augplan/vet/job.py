@@ -102,7 +102,7 @@ def _evaluate(dataset, recipes, entries, vetted_recipes, rng, *, seed, options):
     to_score = list(recipes) + [v for v, e in zip(vetted_recipes, entries) if not e.vetted.unchanged]
     # The shortcut audit of the original images is the same in every recipe's coverage.
     evaluation = evaluate_recipes(dataset, to_score, rng, seed=seed,
-                                  val_shares_shortcut=entries[0].coverage["val_shares_shortcut"],
+                                  val_shares_shortcut=entries[0].coverage.val_shares_shortcut,
                                   candidates={v.name for v in vetted_recipes}, **options)
     entries = [dataclasses.replace(entry, vetted=dataclasses.replace(entry.vetted,
                                                                      score=evaluation.score(vetted.name)))
@@ -136,7 +136,7 @@ def _result(report, out_dir):
     evaluation, best = report.evaluation, report.best
     signoff = []
     for entry in report.recipes:
-        sheets = {t["index"]: t.get("evidence_sheet") for t in entry.check["transforms"]}
+        sheets = {t.index: t.evidence_sheet for t in entry.check.transforms}
         signoff += [{"recipe": entry.name, **item,
                      "evidence_sheet": str(out_dir / sheets[item.index]) if sheets.get(item.index) else None}
                     for item in entry.vetted.signoff]
