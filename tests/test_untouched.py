@@ -139,11 +139,11 @@ def _left_over(folder):
 
 @pytest.mark.parametrize("step", ["evaluate_recipes", "render_report"])
 def test_interrupted_vet_keeps_no_partial_files(space, tmp_path, monkeypatch, step):
-    import augplan.render.html
+    import augplan.render
     import augplan.vet.job
 
     # vet imports evaluate_recipes at module level and render_report on call.
-    monkeypatch.setattr(augplan.vet.job if step == "evaluate_recipes" else augplan.render.html, step, _interrupt)
+    monkeypatch.setattr(augplan.vet.job if step == "evaluate_recipes" else augplan.render, step, _interrupt)
     out = tmp_path / "vet"
     before = _snapshot(space)
     code, _, err = _run(["vet", space.data, "--recipe", space.recipe, "-o", out, "--repeats", "2",

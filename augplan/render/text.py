@@ -88,7 +88,6 @@ def _params_text(params):
 def _swaps_text(swaps, limit=3):
     # "moved of n": the count behind each rate and the images it is a share of.
     return "; ".join(f"{s['from']} -> {s['to']} {s['rate']:+.0%} ({s['moved']} moved of {s['n']} images)"
-                     if "moved" in s else f"{s['from']} -> {s['to']} {s['rate']:+.0%} (of {s['n']} images)"
                      for s in swaps[:limit])
 
 
@@ -98,30 +97,29 @@ _STAGE = {"screen": "screen", "confirmation": "training"}
 def check_table(result):
     """The label-safety table of a ``check`` result, then its swaps and suggestions."""
     rows = []
-    for t in result["transforms"]:
+    for t in result.transforms:
         rows.append([t["index"], f"{t['op']} {_params_text(t['params'])}", t["verdict"],
-                     _STAGE.get(t.get("decided_by"), "-"),
+                     _STAGE.get(t["decided_by"], "-"),
                      f"{t['change_rate']:.2f} {format_interval(*t['change_rate_ci'])}",
-                     format_range(t.get("safe_limit"))])
-    model = result["model"]
-    head = (f"recipe {result['recipe']}: proxy model cross-validated accuracy "
-            f"{model['cv_accuracy']:.2f} (chance {model.get('chance', float('nan')):.2f})")
-    if model.get("confirmation"):
-        head += (f"; swaps confirmed by {model_phrase(model['confirmation'])} trained on replaced images, "
-                 f"at {model.get('side', '?')} px")
+                     format_range(t["safe_limit"])])
+    model = result.model
+    head = (f"recipe {result.recipe}: proxy model cross-validated accuracy "
+            f"{model['cv_accuracy']:.2f} (chance {model['chance']:.2f})")
+    head += (f"; swaps confirmed by {model_phrase(model['confirmation'])} trained on replaced images, "
+             f"at {model['side']} px")
     table = format_table(["#", "transform", "verdict", "decided by", "moved [95% CI]", "safe limit"], rows)
     notes = []
-    for t in result["transforms"]:
+    for t in result.transforms:
         if t["swaps"] and t["verdict"] != "safe":
             notes.append(f"#{t['index']} {t['op']} confirmed swaps: {_swaps_text(t['swaps'])}")
-        if t.get("suggestion"):
+        if t["suggestion"]:
             suggestion = t["suggestion"]
             if "relabel" in suggestion:
                 pairs = ", ".join(f"{a} -> {b}" for a, b in suggestion["relabel"].items())
                 notes.append(f"#{t['index']} {t['op']}: usable with relabel: {{{pairs}}}")
             if suggestion.get("only"):
                 notes.append(f"#{t['index']} {t['op']}: safe only for: {', '.join(suggestion['only'])}")
-        if t.get("note"):
+        if t.get("note"):  # only where a lighting move may follow a shortcut of the data
             notes.append(f"#{t['index']} {t['op']}: {t['note']}")
     legend = ("decided by: screen (where transformed images land, out-of-fold) or training\n"
               "(the proxy trained with the transform against it trained without, compared on\n"
@@ -142,7 +140,7 @@ def _score_text(score):
 def coverage_table(result):
     """Factor widening and the shortcut audit of a ``coverage`` result."""
     rows = []
-    for name, factor in result["factors"].items():
+    for name, factor in result.factors.items():
         original, augmented = factor["original"], factor["augmented"]
         field = factor.get("field")
         if factor.get("note"):
@@ -152,43 +150,43 @@ def coverage_table(result):
         rows.append([name, _std_text(original['std']), _std_text(augmented['std']),
                      factor_range(name, original['p05'], original['p95']),
                      factor_range(name, augmented['p05'], augmented['p95']),
-                     f"{field['coverage']:.0%}" if field and field.get("coverage") is not None else "-"])
+                     f"{field['coverage']:.0%}" if field else "-"])
     widening = format_table(["factor", "std orig", "std aug", "5-95% orig", "5-95% aug", "field in"], rows)
     rows = []
-    for s in result["shortcuts"]:
-        link = s.get("link")
+    for s in result.shortcuts:
+        link = s["link"]
         flag = ("" if not s["flagged"] else "cleared" if link == "broken"
                 else "weakened" if link == "weakened" else "FLAGGED")
         # A score is None where the audit could not be run (a class with one image).
         if s.get("note"):
             rows.append([s["factor"], s["note"]])
             continue
-        rows.append([s["factor"], *(_score_text(s.get(key)) for key in ("original", "augmented", "val", "field")),
+        rows.append([s["factor"], *(_score_text(s[key]) for key in ("original", "augmented", "val", "field")),
                      f"{s['chance']:.2f}", flag])
     audit = format_table(["shortcut factor", "train", "augmented", "val", "field", "chance", "status"], rows)
-    parts = [f"recipe {result['recipe']}: nuisance factors", widening, "", "shortcut audit "
+    parts = [f"recipe {result.recipe}: nuisance factors", widening, "", "shortcut audit "
              "(cross-validated balanced accuracy of the class from the factor alone)", audit]
-    coverage = result.get("field_coverage")
+    coverage = result.field_coverage
     if coverage:
         parts.append(f"field coverage (Naeem et al. 2020, k={coverage['k']}): "
                      f"{coverage['coverage_before']:.2f} before, {coverage['coverage_after']:.2f} after augmentation")
-    parts.extend(result.get("messages", []))
-    for s in result.get("suggestions", []):
+    parts.extend(result.messages)
+    for s in result.suggestions:
         parts.append(f"suggestion: {s['op']} {format_range(s['range'])} ({s['reason']})")
     return "\n".join(part if "\n" in part else wrap(part) for part in parts)
 
 
 def _source_table(result, source):
     """Baseline and recipes scored on a second source (confirmation split or field)."""
-    block = result.get(source)
+    block = getattr(result, source)
     if not block:
         return []
     base = block["baseline"]
     rows = [["baseline", f"{base['accuracy']:.2f} {format_interval(*base['accuracy_ci'])}", "-"]]
-    for r in result["recipes"]:
-        entry = r.get(source)
+    for r in result.recipes:
+        entry = getattr(r, source)
         if entry:
-            rows.append([r["name"], f"{entry['accuracy']:.2f} {format_interval(*entry['accuracy_ci'])}",
+            rows.append([r.name, f"{entry['accuracy']:.2f} {format_interval(*entry['accuracy_ci'])}",
                          format_points(entry["gain"], entry["gain_ci"])])
     title = {"field": "labelled field sample", "confirm": "confirmation split, scored once"}[source]
     return ["", f"{title} ({block['n_images']} images, a separate source):",
@@ -197,38 +195,31 @@ def _source_table(result, source):
 
 def leaderboard_table(result):
     """The leaderboard of an ``evaluate`` result, baseline first, then other sources."""
-    base = result["baseline"]
-    model = result.get("model") or {"name": "linear"}
+    base = result.baseline
+    model = result.model
     # Recipe accuracies without their intervals (the gain carries the
-    # interval that matters), so the verdict fits 80 columns.
-    rows = [[r["name"], f"{r['accuracy']:.2f}", format_points(r["gain"], r["gain_ci"]),
-             f"{r['p_holm']:.2g}", _verdict_text(r, model["name"])]
-            for r in _ranked(result)]
-    head = wrap(f"scored with {model_phrase(model['name'])} on {result['scored_on']} "
-                f"({base.get('n_images', '?')} original images), {result['repeats']} repeats per recipe; "
+    # interval that matters), so the verdict fits 80 columns; rows in the
+    # evaluator's ranking, never re-sorted here.
+    rows = [[r.name, f"{r.accuracy:.2f}", format_points(r.gain, r.gain_ci),
+             f"{r.p_holm:.2g}", _verdict_text(r.verdict, r.flagged, model["name"])]
+            for r in result.ranked()]
+    head = wrap(f"scored with {model_phrase(model['name'])} on {result.scored_on} "
+                f"({base['n_images']} original images), {result.repeats} repeats per recipe; "
                 f"no augmentation: accuracy {base['accuracy']:.2f} {format_interval(*base['accuracy_ci'])}")
     parts = [head, format_table(["recipe", "accuracy", "gain, points [95% CI]", "Holm p", "verdict"], rows)]
     parts += _source_table(result, "confirm")
     parts += _source_table(result, "field")
-    if "best" in result:
-        parts.append(f"best: {result['best']}" if result["best"] else
-                     f"best: none (no recipe clearly beat no augmentation, by {model_phrase(model['name'])})")
-    if result.get("decision_note"):
-        parts.append(wrap(result["decision_note"]))
+    parts.append(f"best: {result.best}" if result.best else
+                 f"best: none (no recipe clearly beat no augmentation, by {model_phrase(model['name'])})")
+    if result.decision_note:
+        parts.append(wrap(result.decision_note))
     return "\n".join(parts)
 
 
-def _ranked(result):
-    """Recipe rows in the order of the result's ``ranking`` (the recommendation rule); never re-sorted here."""
-    position = {name: i for i, name in enumerate(result.get("ranking") or ())}
-    return sorted(result["recipes"], key=lambda r: position.get(r["name"], len(position)))
-
-
-def _verdict_text(row, model_name):
+def _verdict_text(verdict, flagged, model_name):
     """The verdict column (`VERDICT_RULE`'s word); the linear proxy's loss is not called harm."""
-    verdict = row.get("verdict", "")
     if verdict == "loses":
-        return "LOSES" if row["flagged"] else "lower (proxy)" if is_linear(model_name) else "loses"
+        return "LOSES" if flagged else "lower (proxy)" if is_linear(model_name) else "loses"
     return verdict
 
 
@@ -274,7 +265,9 @@ def run_table(entry, *, width=80):
         field = row.get("field") or {}
         rows.append([row["name"], f"{row['accuracy']:.3f}", _gain_text(row),
                      "-" if row.get("p_holm") is None else f"{row['p_holm']:.3g}",
-                     _gain_text(field) if field else "-", _verdict_text(row, model)])
+                     _gain_text(field) if field else "-",
+                     # A ledger row of an older version may lack the verdict.
+                     _verdict_text(row.get("verdict", ""), row.get("flagged", False), model)])
     lines.append(format_table(["recipe", "accuracy", "gain, points [95% CI]", "p (Holm)", "field gain, points", "verdict"], rows,
                               width=width, max_cell=max(26, _cell_limit(width))))
     lines.extend(wrap(f"warning: {text}", width=width) for text in details.get("warnings") or [])

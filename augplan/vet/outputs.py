@@ -55,7 +55,7 @@ def evidence_figures(check, number, recipe_name):
 
 def render_with_figures(report, figures, staging):
     """The HTML report of a `VetReport`, its figures read from a staging folder laid out like the output folder."""
-    from augplan.render.html import render_report
+    from augplan.render import render_report
 
     (staging / "figures").mkdir(parents=True)
     for name, data in figures.items():

@@ -253,8 +253,10 @@ def test_grey_images_report_hue_as_not_defined_in_text_json_and_report(tmp_path,
     # (HSV saturation 0), so hue is undefined for every image.
     import jsonschema
 
-    from augplan.render.html import render_report
-    from augplan.results import schema_path
+    from types import SimpleNamespace
+
+    from augplan.render.coverage import coverage_section
+    from augplan.results import CoverageResult, schema_path
     from conftest import TINY_RECIPE, write_digits_dataset
 
     data = write_digits_dataset(tmp_path / "DATA", {"train": 6, "val": 3}, size=16)
@@ -275,9 +277,9 @@ def test_grey_images_report_hue_as_not_defined_in_text_json_and_report(tmp_path,
     assert hue_row["original"] is None and hue_row["val"] is None and not hue_row["flagged"]
     assert "note" not in document["factors"]["brightness"]
 
-    evidence = {"recipes": [{"name": "tiny", "coverage": document}]}
-    page = render_report(evidence)
-    assert page.count("not defined for grey images") >= 2
+    # The report's coverage section of a recipe holding this result (the factor table and the audit).
+    section = coverage_section(SimpleNamespace(name="tiny", coverage=CoverageResult.from_json(document)), 0, None)
+    assert section.count("not defined for grey images") >= 2
 
 
 # --------------------------------- suggestions within the reader's bounds

@@ -3,36 +3,53 @@
 import pytest
 
 from augplan.render.text import check_table, coverage_table, format_range, format_table, leaderboard_table
+from augplan.results import CheckResult, CoverageResult, EvaluateResult
+from render._evidence import check, coverage, evaluation, swap, transform
 
 LONG = "a-rather-long-class-name"
 
-CHECK = {
-    "recipe": "tiles", "model": {"cv_accuracy": 0.97, "chance": 0.2},
-    "transforms": [{"index": 0, "op": "brightness", "params": {"factor": [0.3, 1.3]},
-                    "verdict": "unverified", "change_rate": 0.25, "change_rate_ci": [0.22, 0.28],
-                    "leave_rate": 0.01, "safe_limit": [0.625, 1.3],
-                    "swaps": [{"from": LONG, "to": LONG + "-2", "rate": 0.35, "n": 89}] * 3,
-                    "suggestion": {"only": [LONG, LONG + "-3"]}, "note": "a person must look"}],
-}
-EVALUATION = {
-    "model": {"name": "cnn", "description": "a small network", "note": None},
-    "scored_on": "val", "repeats": 5,
-    "baseline": {"n_images": 75, "accuracy": 1.0, "accuracy_ci": [0.951, 1.0]},
-    "recipes": [{"name": LONG, "accuracy": 0.867, "accuracy_ci": [0.77, 0.93], "gain": -0.133,
-                 "gain_ci": [-0.207, -0.067], "p_holm": 3.8e-6, "verdict": "loses", "flagged": True,
-                 "field": {"accuracy": 0.57, "accuracy_ci": [0.46, 0.66], "gain": -0.13,
-                           "gain_ci": [-0.22, -0.05]}}],
-    "field": {"n_images": 90, "baseline": {"accuracy": 0.7, "accuracy_ci": [0.6, 0.78]}},
-}
-COVERAGE = {
-    "recipe": "tiles",
-    "factors": {"brightness": {"original": {"std": 0.101, "p05": 0.177, "p95": 0.501},
-                               "augmented": {"std": 0.128, "p05": 0.139, "p95": 0.517},
-                               "field": {"coverage": 1.0}}},
-    "shortcuts": [{"factor": "brightness", "original": 0.44, "augmented": 0.24, "val": 0.44,
-                   "field": 0.14, "chance": 0.2, "flagged": True, "persists": False}],
-    "field_coverage": {"k": 5, "coverage_before": 0.89, "coverage_after": 0.96},
-}
+def _check():
+    swaps = [swap(LONG, LONG + "-2", 0.35, 31, 89)] * 3
+    entry = transform(0, "brightness", {"factor": [0.3, 1.3]}, "unverified", change_rate=0.25,
+                      change_rate_ci=(0.22, 0.28), swaps=swaps, safe_limit=[0.625, 1.3],
+                      suggestion={"only": [LONG, LONG + "-3"]})
+    return CheckResult.from_json({**check("tiles", [{**entry, "note": "a person must look"}]),
+                                  "model": {"cv_accuracy": 0.97, "chance": 0.2, "weak": False, "folds": 5,
+                                            "confirmation": "cnn", "side": 32}})
+
+
+def _evaluation(**changes):
+    document = evaluation("x", LONG, "a", "b")
+    row = {**document["recipes"][1], "accuracy": 0.867, "accuracy_ci": [0.77, 0.93], "gain": -0.133,
+           "gain_ci": [-0.207, -0.067], "p_holm": 3.8e-6, "verdict": "loses", "flagged": True,
+           "field": {"n_images": 90, "accuracy": 0.57, "accuracy_ci": [0.46, 0.66], "gain": -0.13,
+                     "gain_ci": [-0.22, -0.05], "p_value": 0.01}}
+    document.update(model={"name": "cnn", "description": "a small network", "note": None}, recipes=[row],
+                    ranking=[LONG], best=None,
+                    baseline={"n_images": 75, "accuracy": 1.0, "accuracy_ci": [0.951, 1.0]},
+                    field={"source": "field", "n_images": 90, "note": "labelled field sample",
+                           "baseline": {"n_images": 90, "accuracy": 0.7, "accuracy_ci": [0.6, 0.78]}})
+    for key, value in changes.items():
+        if key == "row":
+            document["recipes"] = [{**row, **value}]
+        else:
+            document[key] = value
+    return EvaluateResult.from_json(document)
+
+
+def _coverage():
+    document = coverage("tiles", None)
+    document.pop("plots")
+    factor = document["factors"]["brightness"]
+    factor["original"].update(std=0.101, p05=0.177, p95=0.501)
+    factor["augmented"].update(std=0.128, p05=0.139, p95=0.517)
+    factor["field"]["coverage"] = 1.0
+    document["shortcuts"][0].update(original=0.44, augmented=0.24, val=0.44, field=0.14, chance=0.2)
+    document["field_coverage"].update(coverage_before=0.89, coverage_after=0.96)
+    return CoverageResult.from_json(document)
+
+
+CHECK, EVALUATION, COVERAGE = _check(), _evaluation(), _coverage()
 
 
 @pytest.mark.parametrize("text", [check_table(CHECK), leaderboard_table(EVALUATION),
@@ -48,8 +65,8 @@ def test_leaderboard_flags_a_losing_recipe_and_shows_the_field():
 
 
 def test_leaderboard_names_its_model_and_never_calls_a_proxy_loss_harm():
-    linear = {**EVALUATION, "model": {"name": "linear", "description": "proxy", "note": "biased"},
-              "recipes": [{**EVALUATION["recipes"][0], "flagged": False}], "best": None}
+    linear = _evaluation(model={"name": "linear", "description": "proxy", "note": "biased"},
+                         row={"flagged": False})
     text = leaderboard_table(linear)
     assert text.startswith("scored with the linear proxy on val")
     assert "no augmentation: accuracy 1.00 [0.95, 1.00]" in text
@@ -85,7 +102,7 @@ def test_history_table_fits_and_marks_reused_results():
 
 def test_one_safe_limit_reads_the_same_everywhere():
     # Table, HTML report and vetted-recipe note spell one limit one way.
-    from augplan.render.html import _limit_text
+    from augplan.render.safety import _limit_text
     from augplan.results import range_text
     from augplan.vet import vet_transforms
     from augplan.recipe.parse import parse_recipe
@@ -132,9 +149,8 @@ def test_gains_read_in_percentage_points_everywhere(value, interval, expected):
     from augplan.render.text import format_points, leaderboard_table
 
     assert format_points(value, interval) == expected
-    result = {"baseline": {"accuracy": 0.7, "accuracy_ci": [0.65, 0.75], "n_images": 300},
-              "model": {"name": "cnn"}, "scored_on": "validation", "repeats": 3,
-              "recipes": [{"name": "relight", "accuracy": 0.99, "gain": 0.291, "gain_ci": [0.195, 0.386],
-                           "p_holm": 0.001, "verdict": "gains", "flagged": False, "n_transforms": 1}]}
+    result = _evaluation(row={"name": "relight", "accuracy": 0.99, "gain": 0.291, "gain_ci": [0.195, 0.386],
+                              "p_holm": 0.001, "verdict": "gains", "flagged": False, "field": None},
+                         ranking=["relight"], field=None)
     table = leaderboard_table(result)
     assert "+29.1 [+19.5, +38.6]" in table and "points" in table

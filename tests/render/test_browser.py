@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from _chromium import Browser, find_chromium
+from render._chromium import Browser, find_chromium
 from augplan.cli import main
 from augplan.demo import DEMO_RECIPE_DIR, make_demo_dataset
 
