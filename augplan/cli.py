@@ -579,7 +579,9 @@ def _terminal_width():
 
 def _run_history(args, console):
     from augplan.evaluate import history, run_details
-    from augplan.data.dataset import fingerprint, open_dataset
+    import numpy as np
+
+    from augplan.data import fingerprint, open_dataset
     from augplan.render import text as tables
     from augplan.results import HistoryResult
 
@@ -591,7 +593,9 @@ def _run_history(args, console):
         else:
             console.say(tables.run_table(entry, width=_terminal_width()))
         return ExitCode.OK
-    dataset = open_dataset(args.data) if args.data else None
+    # A data set without val/ is split as the default --split-seed (0) splits it, so its
+    # fingerprint is the one the analyses stored.
+    dataset = open_dataset(args.data, rng=np.random.default_rng(0), split_seed=0) if args.data else None
     ledger = args.ledger or default_ledger(dataset.root if dataset else None)
     result = history(ledger, fingerprint=fingerprint(dataset) if dataset else None)
     if args.json:

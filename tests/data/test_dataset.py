@@ -1,6 +1,7 @@
 """Tests for augplan.data.dataset: the stand-in validation split, a data folder never written."""
 
 import numpy as np
+import pytest
 from sklearn.model_selection import StratifiedShuffleSplit
 
 from augplan.data import (
@@ -45,3 +46,12 @@ def test_data_folder_is_never_written(tmp_path):
     find_duplicates(dataset)
     fingerprint(dataset)
     assert snapshot() == before
+
+
+def test_every_command_that_reads_data_without_val_draws_the_split_itself(tmp_path, run_cli):
+    # history has no --split-seed: it splits as the default does, and finds what evaluate stored.
+    _make_layout(tmp_path / "DATA", splits=("train",))
+    result = run_cli("history", tmp_path / "DATA", "--ledger", tmp_path / "ledger.sqlite")
+    assert result.code == 0, result.err
+    with pytest.raises(TypeError, match="no val split"):
+        open_dataset(tmp_path / "DATA")
