@@ -27,7 +27,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from augplan.seeding import keyed_generator
+from augplan.seeding import keyed_generator, stream_root
 from augplan.thresholds import ONE_VS_REST_THRESHOLD, SHORTCUT_MOVE_SHARE, STRUCTURE_SEPARABLE
 
 __all__ = ["LIGHTING_OP_FACTORS", "ShortcutFinding", "shortcut_findings"]
@@ -46,7 +46,7 @@ class ShortcutFinding(NamedTuple):
     note: str
 
 
-def _separable_by_structure(images, labels, first, second, seed):
+def _separable_by_structure(images, labels, first, second, root):
     """Whether two classes differ in lighting-blind gradient structure alone.
 
     Uses only the block-normalised oriented-gradient histograms of
@@ -59,18 +59,18 @@ def _separable_by_structure(images, labels, first, second, seed):
 
     pair = np.isin(labels, [first, second])
     gradients = image_features(images[pair])[:, FEATURE_BLOCKS["orientation"]]
-    overall, _ = shortcut_scores(gradients, labels[pair], rng=keyed_generator(seed))
+    overall, _ = shortcut_scores(gradients, labels[pair], rng=keyed_generator(root))
     return overall is not None and overall >= STRUCTURE_SEPARABLE
 
 
-def _singled_out(images, labels, classes, factor, seed):
+def _singled_out(images, labels, classes, factor, root):
     """One-vs-rest cross-validated balanced accuracy of each class from one factor."""
     from augplan.measure.factors import FACTORS
     from augplan.measure.shortcuts import factor_columns, shortcut_scores
 
     values = {factor: FACTORS[factor].function(images)}
     names = np.array([classes[c] for c in labels])
-    return shortcut_scores(factor_columns(values, [factor]), names, rng=keyed_generator(seed))[1]
+    return shortcut_scores(factor_columns(values, [factor]), names, rng=keyed_generator(root))[1]
 
 
 class _Field:
@@ -80,7 +80,7 @@ class _Field:
         self.records = [r for r in dataset.split("field") if r.label in classes]
         self.classes, self.size, self._loaded = classes, size, None
 
-    def scores(self, factor, seed):
+    def scores(self, factor, root):
         if not self.records or len({r.label for r in self.records}) < 2:
             return {}
         if self._loaded is None:
@@ -88,23 +88,23 @@ class _Field:
 
             self._loaded = (load_images(self.records, size=self.size),
                             np.array([self.classes.index(r.label) for r in self.records]))
-        return _singled_out(*self._loaded, self.classes, factor, seed)
+        return _singled_out(*self._loaded, self.classes, factor, root)
 
 
-def _finding(fields, images, labels, classes, field, seed):
+def _finding(fields, images, labels, classes, field, root):
     """The finding of one draft row that is not safe, or None."""
     moves = [swap for swap in list(fields["swaps"]) + list(fields["screen_swaps"])
              if swap["rate"] >= SHORTCUT_MOVE_SHARE]
     destinations = {swap["to"] for swap in moves}
     for factor in LIGHTING_OP_FACTORS.get(fields["op"], ()):
-        train_scores = _singled_out(images, labels, classes, factor, seed)
+        train_scores = _singled_out(images, labels, classes, factor, root)
         hits = sorted(b for b in destinations if (train_scores.get(b) or 0.0) >= ONE_VS_REST_THRESHOLD
                       and all(_separable_by_structure(images, labels, classes.index(swap["from"]),
-                                                      classes.index(b), seed)
+                                                      classes.index(b), root)
                               for swap in moves if swap["to"] == b))
         if not hits:
             continue
-        field_scores = field.scores(factor, seed)
+        field_scores = field.scores(factor, root)
         unconfirmed = [b for b in hits if (field_scores.get(b) or 0.0) < ONE_VS_REST_THRESHOLD]
         if not unconfirmed:
             continue
@@ -134,19 +134,17 @@ def shortcut_findings(drafts, images, labels, classes, dataset, size, rng):
     size : int
         Side the field images are read at.
     rng : numpy.random.Generator
-        The check's shortcut stream: the ``random_state`` of the scores'
-        cross-validation folds is drawn from it.
+        The check's shortcut stream: every score's cross-validation folds
+        come from the stream keyed under its root (`augplan.seeding`).
 
     Returns
     -------
     dict
     """
-    from augplan.check.folds import sklearn_seed
-
-    field, seed, findings = _Field(dataset, classes, size), sklearn_seed(rng), {}
+    field, root, findings = _Field(dataset, classes, size), stream_root(rng), {}
     for fields in drafts:
         if fields["verdict"] != "safe":
-            found = _finding(fields, images, labels, classes, field, seed)
+            found = _finding(fields, images, labels, classes, field, root)
             if found is not None:
                 findings[fields["index"]] = found
     return findings
