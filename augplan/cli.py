@@ -352,7 +352,7 @@ def _report_dataset(console, dataset, *, result_says_val=False):
 
 def _report_leaks(console, dataset):
     """Duplicates across splits; they are listed once, as one warning of the result (see `_with_leaks`)."""
-    from augplan.data.dataset import find_duplicates
+    from augplan.data import find_duplicates
 
     return find_duplicates(dataset)
 

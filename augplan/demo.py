@@ -350,7 +350,7 @@ def run_demo(out_dir, rng, *, seed=None, workers=1, quiet=True, repeats=5, model
     -------
     augplan.results.VetResult
     """
-    from augplan.data.dataset import open_dataset
+    from augplan.data import open_dataset
     from augplan.vet import vet_recipes
     from augplan.workspace import default_ledger
 

@@ -258,7 +258,7 @@ class EvidenceItem(Record):
         the same seed.
     position : int
         The example's row on its sheet.
-    record : augplan.data.dataset.ImageRecord
+    record : augplan.data.ImageRecord
         Where the image's bytes are (not in the JSON).
     """
 

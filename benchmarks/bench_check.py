@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 from PIL import Image, ImageDraw
 
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.check import check_recipe
 from augplan.recipe.parse import parse_recipe
 
@@ -79,7 +79,7 @@ def peak_rss_mb(who):
 def stage_times(dataset, recipe, size=64, magnitudes=7):
     """Seconds of each stage of a check, done directly in this process."""
     from augplan.augment.transforms import apply_op_batch, magnitude_grid, params_at
-    from augplan.data.dataset import load_images
+    from augplan.data import load_images
     from augplan.measure.model import FeatureModel
 
     records = dataset.split("train")

@@ -35,7 +35,7 @@ def one_fit(sides, n_train=2000):
     import numpy as np
 
     from augplan.augment.transforms import augment_batch
-    from augplan.data.dataset import load_images
+    from augplan.data import load_images
 
     recipe = RECIPES[-1]
     for side in sides:

@@ -24,11 +24,11 @@ import skimage.data
 from PIL import Image
 
 from augplan.coverage.coverage import analyse_coverage
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.measure.factors import FACTORS, measure_factors
 from augplan.recipe.parse import parse_recipe
 from augplan.augment.transforms import augment_batch
-from augplan.data.dataset import load_images
+from augplan.data import load_images
 from augplan.parallel import parallel_map
 from bench_evaluate import _worker_peak_mb  # live worker processes' peak RSS
 

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 from PIL import Image
 
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.evaluate import evaluate_recipes
 from augplan.recipe.parse import Recipe, Transform
 
@@ -105,7 +105,7 @@ def breakdown(dataset, sizes=(500, 2000), copies=4):
     flat figure); the fit prints its seconds and the solver's iterations,
     which grow with the training set when the augmented classes overlap.
     """
-    from augplan.data.dataset import load_images
+    from augplan.data import load_images
     from augplan.measure.features import image_features
     from augplan.measure.model import FeatureModel
     from augplan.augment.transforms import apply_recipe

@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-from augplan.data.dataset import load_images, open_dataset
+from augplan.data import load_images, open_dataset
 from augplan.measure.factors import measure_factors
 from augplan.measure.shortcuts import audit_shortcuts, val_shared_shortcuts
 

@@ -41,7 +41,7 @@ import numpy as np
 from PIL import Image
 from scipy.stats import spearmanr
 
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.evaluate import evaluate_recipes
 from augplan.measure.models import ConvNet
 from augplan.measure.convnet import ConvNetClassifier

@@ -25,7 +25,7 @@ import numpy as np
 from PIL import Image
 
 from augplan.check import check_recipe
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.measure.stats import wilson_interval
 from augplan.recipe.parse import Recipe, Transform
 from augplan.thresholds import RELABEL_TYPICAL_SHARE, SWAP_WITNESS_MARGIN

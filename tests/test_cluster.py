@@ -108,7 +108,7 @@ def test_evaluate_json_same_on_cluster(cluster, recipe, tmp_path):
 
 
 def test_the_network_scores_the_same_on_cluster(cluster, recipe, tmp_path):
-    from augplan.data.dataset import open_dataset
+    from augplan.data import open_dataset
     from augplan.evaluate import evaluate_recipes
     from augplan.measure.models import ConvNet
     from augplan.recipe.parse import read_recipe
@@ -126,7 +126,7 @@ def test_the_network_scores_the_same_on_cluster(cluster, recipe, tmp_path):
 def test_shipped_images_need_no_shared_folder(cluster, recipe, tmp_path):
     # --ship-images: the records carry their files' bytes, so the run on the
     # cluster gives the local answer even after the data folder is gone.
-    from augplan.data.dataset import open_dataset
+    from augplan.data import open_dataset
     from augplan.evaluate import evaluate_recipes
     from augplan.recipe.parse import read_recipe
 
@@ -145,7 +145,7 @@ def test_shipped_images_need_no_shared_folder(cluster, recipe, tmp_path):
 def test_check_with_shipped_images_needs_no_shared_folder(cluster, recipe, tmp_path):
     # The checker's units carry records, not decoded images; with the bytes
     # on board the cluster run needs no data folder and gives the local answer.
-    from augplan.data.dataset import open_dataset
+    from augplan.data import open_dataset
     from augplan.check import check_recipe
     from augplan.recipe.parse import read_recipe
 

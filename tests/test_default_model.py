@@ -13,7 +13,7 @@ import pytest
 from PIL import Image
 
 from augplan.check import check_recipe
-from augplan.data.dataset import load_images, open_dataset
+from augplan.data import load_images, open_dataset
 from augplan.evaluate import evaluate_recipes
 from augplan.measure.models import (FALLBACK_NAME, FALLBACK_WARNING, ConvNet, LinearProxy, model_phrase,
                                     scoring_model)

@@ -232,7 +232,7 @@ def test_full_disk_during_vet_names_the_file_and_leaves_nothing(space, tmp_path,
 
 
 def test_replace_swaps_an_earlier_output_whole(space, tmp_path):
-    from augplan.data.dataset import open_dataset
+    from augplan.data import open_dataset
     from augplan.recipe.parse import read_recipe
     from augplan.vet.job import vet_recipes
 
@@ -247,7 +247,7 @@ def test_replace_swaps_an_earlier_output_whole(space, tmp_path):
 
 
 def test_replace_refuses_a_folder_that_is_no_earlier_output(space, tmp_path):
-    from augplan.data.dataset import open_dataset
+    from augplan.data import open_dataset
     from augplan.errors import BadInputError
     from augplan.recipe.parse import read_recipe
     from augplan.vet.job import vet_recipes

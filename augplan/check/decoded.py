@@ -38,7 +38,7 @@ def sample_key(records, size):
 
 def decoded_sample(records, size, key):
     """The images of ``records`` at side ``size``, from the cache when ``key`` is there."""
-    from augplan.data.dataset import load_images
+    from augplan.data import load_images
 
     images = _DECODED_SAMPLE.get(key)
     if images is None:

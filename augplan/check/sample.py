@@ -39,7 +39,7 @@ def checked_sample(dataset, sample, rng, warnings):
 
     Parameters
     ----------
-    dataset : augplan.data.dataset.Dataset
+    dataset : augplan.data.Dataset
     sample : int or None
         At most this many images a class.
     rng : numpy.random.Generator

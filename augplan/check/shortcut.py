@@ -84,7 +84,7 @@ class _Field:
         if not self.records or len({r.label for r in self.records}) < 2:
             return {}
         if self._loaded is None:
-            from augplan.data.dataset import load_images
+            from augplan.data import load_images
 
             self._loaded = (load_images(self.records, size=self.size),
                             np.array([self.classes.index(r.label) for r in self.records]))
@@ -129,7 +129,7 @@ def shortcut_findings(drafts, images, labels, classes, dataset, size, rng):
         The draft rows (`augplan.check.verdicts.draft`).
     images, labels, classes
         The checked sample, decoded.
-    dataset : augplan.data.dataset.Dataset
+    dataset : augplan.data.Dataset
         Its labelled ``field`` split, if any, can settle a finding.
     size : int
         Side the field images are read at.

@@ -250,12 +250,3 @@ def open_dataset(root, *, strict=False, manifest=None, val_fraction=0.2, rng=Non
     return Dataset(root=root, records=records, skipped=scanner.skipped, classes=classes,
                    val_from_train=not has_val, split_seed=None if has_val or split_seed is None else int(split_seed),
                    field_root=field)
-
-
-# Modules that imported these names from here before the package was split
-# keep working; new code imports them from `augplan.data`.
-from augplan.data.decoding import (  # noqa: E402,F401
-    MAX_IMAGE_BYTES, MAX_IMAGE_PIXELS, REDUCE_ABOVE_PIXELS, load_images, read_image, read_record)
-from augplan.data.duplicates import find_duplicates, hamming_matrix, local_difference, perceptual_hash  # noqa: E402,F401
-from augplan.data.manifest import MAX_MANIFEST_BYTES  # noqa: E402,F401
-from augplan.data.records import fingerprint  # noqa: E402,F401

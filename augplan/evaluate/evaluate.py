@@ -35,7 +35,7 @@ from pathlib import Path
 import numpy as np
 
 from augplan.augment import transforms as _transforms_module
-from augplan.data.dataset import Dataset, fingerprint, load_images, stratified_choice
+from augplan.data import Dataset, fingerprint, load_images, stratified_choice
 from augplan.errors import BadInputError
 from augplan.evaluate import ledger as _ledger
 from augplan.evaluate import scoring as _scoring_module
@@ -134,12 +134,12 @@ def _file_digest(*modules):
 
 def _settings_key(scoring, size, confirm_fraction, dataset):
     """Key of everything besides data, seed and repeats that shapes a result."""
-    import augplan.augment.transforms as transforms_module
     import sys
 
     settings = {"model": scoring.settings(), "size": size, "confirm_fraction": confirm_fraction,
                 "split_seed": dataset.split_seed, "val_from_train": dataset.val_from_train}
-    code = [sys.modules[__name__], transforms_module, stats]
+    # Since the evaluator is split, its training and scoring modules are part of its code.
+    code = [sys.modules[__name__], _training_module, _scoring_module, _transforms_module, stats]
     if scoring.uses_features:
         settings["features"] = feature_settings_key(scoring.feature_fn, size)
         code.append(sys.modules[type(scoring.template).__module__])
@@ -271,7 +271,7 @@ def _assemble(dataset, base_scores, results, *, n_transforms, scoring, repeats, 
               n_unlabelled_field, confirm_ignored, from_ledger, val_shares_shortcut=(), candidates=None, size=64):
     """Build the ``evaluate --json`` document from per-arm scores; `BEST_RULE` (via `decide`) ranks them."""
     # The side every image is read, augmented and trained at (larger images
-    # reduced by area averaging; see augplan.data.dataset.load_images).
+    # reduced by area averaging; see augplan.data.decoding.load_images).
     model = {**scoring.describe(), "side": int(size)}
     rows = _recipe_rows(results, n_transforms, scoring, "field" in base_scores)
     decision = decide(rows, val_shares_shortcut=val_shares_shortcut,

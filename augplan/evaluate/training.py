@@ -22,7 +22,7 @@ from collections import Counter
 import numpy as np
 
 from augplan.augment.transforms import augment_batch
-from augplan.data.dataset import load_images
+from augplan.data import load_images
 from augplan.parallel import parallel_map, single_threaded, tick
 
 __all__ = ["CHUNK", "featurize_originals", "train_linear", "train_on_images", "load_originals"]

@@ -219,7 +219,7 @@ def preview_sheet(dataset, recipe, *, per_class=3, draws=5, rng, cell=96):
         downsized as they are read, smaller ones are augmented at their own
         size and enlarged only for display.
     """
-    from augplan.data.dataset import Dataset, open_dataset, read_image
+    from augplan.data import Dataset, open_dataset, read_image
     from augplan.augment.transforms import apply_recipe
 
     for name, value in (("per_class", per_class), ("draws", draws)):
@@ -283,7 +283,7 @@ def _evidence_sheet(items):
     the magnitude that moved it, captioned with that magnitude.
     """
     from augplan.augment.transforms import OPS
-    from augplan.data.dataset import read_record
+    from augplan.data import read_record
     from augplan.seeding import keyed_generator
 
     function = OPS[items[0].op].function

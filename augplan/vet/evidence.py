@@ -6,7 +6,7 @@ file's block is covered by its checksum.
 """
 
 from augplan.cautions import CAUTIONS
-from augplan.data.dataset import find_duplicates
+from augplan.data import find_duplicates
 from augplan.evaluate.ranking import BEST_RULE
 from augplan.results import DatasetSummary, VetReport
 

@@ -17,7 +17,7 @@ from augplan import __version__
 from augplan.atomic import check_output, output_lock, publish_folder
 from augplan.check import check_recipe
 from augplan.coverage.coverage import analyse_coverage
-from augplan.data.dataset import fingerprint
+from augplan.data import fingerprint
 from augplan.errors import BadInputError, printable
 from augplan.evaluate.evaluate import evaluate_recipes
 from augplan.measure.models import scoring_model

@@ -25,7 +25,7 @@ import json
 
 from augplan.check import check_recipe
 from augplan.coverage.draft import field_lighting
-from augplan.data.dataset import load_images
+from augplan.data import load_images
 from augplan.recipe.parse import Transform, check_recipe_classes, dump_recipe, parse_recipe, recipe_name_fault
 from augplan.results import range_text
 from augplan.vet.policy import vet_transforms

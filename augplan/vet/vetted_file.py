@@ -129,7 +129,7 @@ def verify_vetted(path, *, data=None):
     if data is not None:
         import numpy as np
 
-        from augplan.data.dataset import fingerprint, open_dataset
+        from augplan.data import fingerprint, open_dataset
 
         # A data set without val/ is split as the default --split-seed (0) splits it.
         current = fingerprint(open_dataset(data, rng=np.random.default_rng(0), split_seed=0))

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 from PIL import Image, ImageDraw
 
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.errors import BadInputError
 from augplan.check import DECISION_RULE, check_recipe
 from augplan.check.confirm import TOO_FEW

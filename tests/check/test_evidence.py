@@ -35,7 +35,7 @@ def test_items_carry_the_final_verdict_and_the_image_that_moved(tmp_path):
     from augplan.check.shortcut import ShortcutFinding
     from augplan.check.evidence import evidence_items
     from augplan.check.verdicts import transform_verdict
-    from augplan.data.dataset import ImageRecord
+    from augplan.data import ImageRecord
 
     fields = {"index": 0, "op": "brightness", "params": {"factor": 0.35}, "change_rate": 0.8,
               "change_rate_ci": [0.7, 0.9], "leave_rate": 0.0, "leave_rate_ci": [0.0, 0.1], "n": 2,

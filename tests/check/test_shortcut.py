@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from augplan.check import check_recipe
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.recipe.parse import Recipe, Transform
 
 
@@ -48,7 +48,7 @@ def test_move_along_a_lighting_shortcut_never_breaks(darkened):
 
 
 def _sample(root):
-    from augplan.data.dataset import load_images
+    from augplan.data import load_images
 
     dataset = open_dataset(root)
     records = sorted(dataset.split("train"), key=lambda r: r.relpath)

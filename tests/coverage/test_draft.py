@@ -6,7 +6,7 @@ import pytest
 from augplan.coverage.draft import DEFAULTS, draft_ranges
 from augplan.measure.factors import brightness
 from augplan.augment.transforms import OPS
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 
 
 def _tiles(level, n, rng):

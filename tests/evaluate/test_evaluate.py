@@ -16,7 +16,7 @@ import pytest
 
 import augplan.augment.transforms as transforms
 from augplan.evaluate import ledger
-from augplan.data.dataset import load_images, open_dataset
+from augplan.data import load_images, open_dataset
 from augplan.errors import BadInputError
 from augplan.evaluate import evaluate_recipes
 from augplan.measure.features import image_features
@@ -205,7 +205,7 @@ def test_ledger_reuses_stored_results_and_lists_history(digits_data, cache_dir, 
     third = evaluate_recipes(digits_data, [recipe], np.random.default_rng(1), repeats=2, size=SIZE,
                              cache_dir=cache_dir, ledger_path=path)
     assert third["from_ledger"] is False
-    from augplan.data.dataset import fingerprint
+    from augplan.data import fingerprint
 
     history = ledger.list_history(path, fingerprint=fingerprint(digits_data))
     assert [row["recipes"] for row in history] == [["affine-ledger"]] * 3

@@ -18,7 +18,7 @@ import pytest
 from PIL import Image
 
 from augplan.augment.transforms import OPS
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.evaluate import evaluate_recipes
 from augplan.recipe.parse import parse_recipe
 

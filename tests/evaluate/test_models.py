@@ -14,7 +14,7 @@ import pytest
 
 import augplan.augment.transforms as transforms
 import team_training
-from augplan.data.dataset import load_images, open_dataset
+from augplan.data import load_images, open_dataset
 from augplan.errors import BadInputError
 from augplan.evaluate import evaluate_recipes
 from augplan.measure.models import ConvNet, LinearProxy, TeamTrainer, scoring_model

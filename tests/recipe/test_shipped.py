@@ -19,7 +19,7 @@ import pytest
 from PIL import Image
 
 from augplan.check import check_recipe
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.recipe.parse import RECIPE_SCHEMA_PATH, Recipe, read_recipe
 from augplan.recipe.shipped import find_start, read_start, recipe_purpose, shipped_recipes
 

@@ -72,7 +72,7 @@ def test_only_images_are_encoded(encode):
 
 def test_coverage_plots_are_one_grid_file(tmp_path):
     from augplan.coverage.coverage import analyse_coverage
-    from augplan.data.dataset import open_dataset
+    from augplan.data import open_dataset
     from augplan.demo import make_demo_dataset
     from augplan.recipe.parse import parse_recipe
     from augplan.render.plots import with_factor_plots

@@ -15,7 +15,7 @@ from PIL import Image
 from skimage import data as skdata
 
 from augplan import demo
-from augplan.data.dataset import open_dataset
+from augplan.data import open_dataset
 from augplan.recipe.parse import Transform, parse_recipe
 from augplan.render.sheets import PAD, contact_sheet, png_bytes, preview_sheet, save_png
 
@@ -250,7 +250,7 @@ def _evidence_item(record, position, magnitude, after="b"):
 
 
 def test_evidence_sheet_keeps_the_files_aspect_ratio(tmp_path):
-    from augplan.data.dataset import ImageRecord
+    from augplan.data import ImageRecord
     from augplan.render.sheets import evidence_sheets
 
     records = []
@@ -272,7 +272,7 @@ def test_evidence_sheet_keeps_the_files_aspect_ratio(tmp_path):
 
 
 def test_evidence_sheets_are_written_whole_and_named_by_transform(tmp_path):
-    from augplan.data.dataset import ImageRecord
+    from augplan.data import ImageRecord
     from augplan.render.sheets import write_evidence_sheets
 
     path = tmp_path / "image.png"

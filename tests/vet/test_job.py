@@ -241,7 +241,7 @@ class _Stop(Exception):
 def test_vet_gives_check_coverage_evaluation_and_sheets_their_own_streams(tmp_path, monkeypatch):
     # Issue 27: check and coverage spawned their children from the same integer, so their streams coincided.
     import augplan.vet.job as job
-    from augplan.data.dataset import open_dataset
+    from augplan.data import open_dataset
     from augplan.recipe.parse import read_recipe
 
     make_demo_dataset(tmp_path / "data", n_train=4, n_val=2, n_field=2)
