@@ -8,7 +8,7 @@ other models). Evaluation images (val, test, field) are read by
 `featurize_originals` or `_load_originals`, which take no recipe, and go
 only to the trained model's ``predict``. So the count of augmented
 validation images in ``evaluate``'s output is zero by construction, and
-``tests/evaluate/test_evaluate.py`` proves it for every model with a
+``tests/evaluate/test_models.py`` proves it for every model with a
 transform that records every image it sees.
 
 Randomness: each work unit (one recipe, one repeat) carries its own

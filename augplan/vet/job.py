@@ -174,8 +174,8 @@ def vet_recipes(dataset, recipes, out_dir, *, rng, seed=None, force=False, appro
         is swapped out whole).
     rng : numpy.random.Generator
         Split once (`augplan.vet.streams.vet_streams`): the checks, the
-        coverage analyses, the evaluation and the draws sheets each get
-        their own child.
+        re-checks, the coverage analyses, the evaluation and the draws
+        sheets each get their own child.
     seed : int, optional
         The seed ``rng`` was made from, recorded as provenance (the report,
         the evaluation, each vetted file's ``seeds``).

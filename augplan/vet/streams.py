@@ -1,8 +1,8 @@
 """The random streams of a vetting run: one child of the run's generator per purpose.
 
 ``vet`` splits its `numpy.random.Generator` once (`augplan.seeding`): the
-label-safety checks, the coverage analyses, the evaluation and the draws
-sheets each get their own child, so no two of them share a stream; each
+label-safety checks, the re-checks of rewritten steps, the coverage
+analyses, the evaluation and the draws sheets each get their own child, so no two of them share a stream; each
 recipe then gets a child of each.
 """
 

@@ -6,7 +6,7 @@ validation) for the document recipe; tiles of three scikit-image sample
 images for the quarter turns of the aerial and microscopy recipes. The
 digits recipe is checked on scikit-learn's digits and the object recipe's
 garment-safe transforms on the committed Fashion-MNIST subset in
-tests/test_invariance.py, which builds its recipes from these files.
+tests/check/test_check.py, which builds its recipes from these files.
 """
 
 import json
@@ -29,7 +29,7 @@ RECIPE_FILES = sorted((CHECKOUT / "recipes").glob("*.yaml"))
 
 @pytest.fixture(scope="module", autouse=True)
 def one_blas_thread():
-    # The machine is shared: one BLAS thread per process (as in test_invariance).
+    # The machine is shared: one BLAS thread per process (as in tests/check/test_check.py).
     from threadpoolctl import threadpool_limits
 
     with threadpool_limits(limits=1):
