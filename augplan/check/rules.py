@@ -16,8 +16,9 @@ from __future__ import annotations
 import numpy as np
 
 from augplan.measure.stats import wilson_interval
-from augplan.thresholds import (EQUIVALENCE_MARGIN, MIN_EVIDENCE, PAIR_MARGIN, RELABEL_TYPICAL_SHARE,
-                                SCREEN_MARGIN, SWAP_WITNESS_MARGIN, TURN_DEGREES, TYPICAL_PERCENTILE)
+from augplan.thresholds import (CONFIDENCE, CONFIRM_CONFIDENCE, EQUIVALENCE_MARGIN, MIN_EVIDENCE, PAIR_MARGIN,
+                                RELABEL_TYPICAL_SHARE, SCREEN_MARGIN, SWAP_WITNESS_MARGIN, TURN_DEGREES,
+                                TYPICAL_PERCENTILE)
 
 __all__ = ["DECISION_RULE", "SWAPPING_OPS", "screen_clears", "witness_holds", "typical_share", "nested_ranges",
            "can_swap_classes"]
@@ -30,7 +31,7 @@ SWAPPING_OPS = ("flip", "hue")
 DECISION_RULE = (
     "Two stages. Screen: with out-of-fold predictions of the proxy model, the transform is "
     "cleared (safe) when at every magnitude every class in its scope has at least "
-    f"{MIN_EVIDENCE} images and the upper Wilson 95% bounds of the shares of its transformed "
+    f"{MIN_EVIDENCE} images and the upper Wilson {CONFIDENCE:.0%} bounds of the shares of its transformed "
     "images that land in another class or outside every class stay within "
     f"{SCREEN_MARGIN:.2f} of the same shares for its held-out originals. Confirmation, for every "
     "transform the screen does not clear: the proxy is trained on the same folds without the "
@@ -40,7 +41,8 @@ DECISION_RULE = (
     f"rises by more than {PAIR_MARGIN:.2f} with its sign-flip test interval over images above "
     "zero and by more than "
     "the pair's own baseline confusion (a label change is specific; a capacity loss is spread "
-    "over pairs the model already confuses), and the screen witnessed it: the lower Wilson 95% "
+    "over pairs the model already confuses), and the screen witnessed it: the lower Wilson "
+    f"{CONFIDENCE:.0%} "
     "bound of the share of A's transformed images that the proxy calls B exceeds the share of A's "
     f"held-out originals it calls B by more than {SWAP_WITNESS_MARGIN:.2f} (a real share, never "
     "one image). A transform is safe when, for the originals-plus-copies model, the upper bound of every "
@@ -48,10 +50,10 @@ DECISION_RULE = (
     "equivalence test); otherwise it is unverified. A relabel is offered only for a mirror or a "
     "fixed turn (of the image or of hue) whose confirmed swaps close a cycle and, at every step, "
     "most of A's transformed images are typical of B (no farther from B's originals than the "
-    f"{TYPICAL_PERCENTILE:.0f}th percentile of B's own held-out originals; the lower Wilson 95% "
+    f"{TYPICAL_PERCENTILE:.0f}th percentile of B's own held-out originals; the lower Wilson {CONFIDENCE:.0%} "
     f"bound of their share at least {RELABEL_TYPICAL_SHARE:.2f}), in both directions of a pair; "
-    "otherwise the class is scoped out. Bounds are one-sided "
-    f"95% bounds. A class with fewer than {MIN_EVIDENCE} "
+    "otherwise the class is scoped out. The confirmation's bounds are one-sided "
+    f"{(1 + CONFIRM_CONFIDENCE) / 2:.0%} bounds. A class with fewer than {MIN_EVIDENCE} "
     "images is too few images to judge, never breaks; nothing is safe when the proxy is weak. "
     "A lighting move into a class that lighting alone singles out in the training data, while "
     "structure also separates the classes, is unverified (a possible shortcut) unless a "
