@@ -14,7 +14,6 @@ from pathlib import Path
 
 import yaml
 
-from augplan import __version__
 from augplan.atomic import write_text_atomic
 from augplan.errors import BadInputError
 from augplan.results import VerifyResult
