@@ -44,14 +44,24 @@ __all__ = ["ConvNetClassifier"]
 
 @contextlib.contextmanager
 def _deterministic_one_thread():
-    """One torch thread and deterministic kernels inside the block; restored after."""
+    """One torch thread and deterministic kernels inside the block; restored after.
+
+    Deterministic mode also fills every new buffer with NaN by default, a
+    guard for kernels that read memory they never wrote. No kernel of this
+    network does (its weights come out the same with the fill off), and the
+    fill took 29% of a fit's CPU time (5,986 fills in 60 steps at 64 px,
+    torch's profiler), so it is off inside the block.
+    """
     threads = torch.get_num_threads()
     deterministic = torch.are_deterministic_algorithms_enabled()
+    fill = torch.utils.deterministic.fill_uninitialized_memory
     torch.set_num_threads(1)
     torch.use_deterministic_algorithms(True)
+    torch.utils.deterministic.fill_uninitialized_memory = False
     try:
         yield
     finally:
+        torch.utils.deterministic.fill_uninitialized_memory = fill
         torch.use_deterministic_algorithms(deterministic)
         torch.set_num_threads(threads)
 
@@ -76,8 +86,12 @@ def _channel_statistics(images):
 def _network(n_channels, widths, n_classes):
     layers, previous = [], n_channels
     for width in widths:
-        layers += [nn.Conv2d(previous, width, 3, padding=1, bias=False), nn.BatchNorm2d(width), nn.ReLU(),
-                   nn.MaxPool2d(2)]
+        # ReLU in place: batch normalisation's backward pass reads its input,
+        # not its output, so overwriting the output changes no gradient, and
+        # a fit takes about a third less CPU time without the extra buffer
+        # (60 steps at 64 px: 2.6-3.0 s against 1.9 s, same weights).
+        layers += [nn.Conv2d(previous, width, 3, padding=1, bias=False), nn.BatchNorm2d(width),
+                   nn.ReLU(inplace=True), nn.MaxPool2d(2)]
         previous = width
     return nn.Sequential(*layers, nn.AdaptiveAvgPool2d(4), nn.Flatten(), nn.Linear(previous * 16, n_classes))
 

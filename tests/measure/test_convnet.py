@@ -26,3 +26,38 @@ def test_channel_statistics_of_a_flat_channel_are_its_value_and_zero():
     # 51 / 255 = 0.2 exactly in decimal; float64 division is correctly rounded.
     np.testing.assert_array_equal(mean, np.full(3, 51 / 255.0))
     np.testing.assert_array_equal(std, np.zeros(3))
+
+
+def _weights(model):
+    return [value.detach().numpy().copy() for value in model.network_.state_dict().values()]
+
+
+def test_a_fit_without_the_nan_fill_learns_the_same_weights_and_restores_torch_settings(monkeypatch):
+    # Deterministic mode's NaN fill of new buffers exists to expose kernels
+    # that read memory they never wrote: with it on, such a read would turn
+    # the weights to NaN or change them. Equal weights bit for bit, fill on
+    # and off, show that no kernel of this network reads unwritten memory.
+    import torch
+
+    import augplan.measure.convnet as convnet
+
+    images = np.random.default_rng(0).integers(0, 256, size=(40, 16, 16, 3), dtype=np.uint8)
+    labels = np.arange(40) % 4
+    fill_before = torch.utils.deterministic.fill_uninitialized_memory
+    deterministic_before = torch.are_deterministic_algorithms_enabled()
+    without_fill = convnet.ConvNetClassifier(steps=4).fit(images, labels, np.random.default_rng(1))
+    assert torch.utils.deterministic.fill_uninitialized_memory == fill_before
+    assert torch.are_deterministic_algorithms_enabled() == deterministic_before
+
+    @convnet.contextlib.contextmanager
+    def filling_block():
+        with original_block():
+            torch.utils.deterministic.fill_uninitialized_memory = True
+            yield
+
+    original_block = convnet._deterministic_one_thread
+    monkeypatch.setattr(convnet, "_deterministic_one_thread", filling_block)
+    with_nan_fill = convnet.ConvNetClassifier(steps=4).fit(images, labels, np.random.default_rng(1))
+    for a, b in zip(_weights(without_fill), _weights(with_nan_fill)):
+        np.testing.assert_array_equal(a, b)
+    assert all(np.all(np.isfinite(w)) for w in _weights(with_nan_fill))
