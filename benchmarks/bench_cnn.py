@@ -21,7 +21,7 @@ import time
 from pathlib import Path
 
 import numpy as np
-from bench_evaluate import RECIPES, _peak_mb, write_dataset
+from bench_evaluate import RECIPES, _peak_mb, _worker_peak_mb, write_dataset
 
 from augplan.evaluate import evaluate_recipes
 from augplan.measure.convnet import ConvNetClassifier
@@ -81,7 +81,9 @@ def main(argv=None):
                 document = evaluate_recipes(dataset, RECIPES, np.random.default_rng(0), repeats=REPEATS, size=side,
                                             workers=args.workers, cache_dir=False, model=model)
                 seconds = time.perf_counter() - start
-                own, worker = _peak_mb()
+                # The pool's workers outlive the call: RUSAGE_CHILDREN alone misses them.
+                own, reaped = _peak_mb()
+                worker = max(reaped, _worker_peak_mb())
                 per_fit = seconds * args.workers / fits
                 line = (f"{side} px, {document['model']['name']}: {seconds:.1f} s for {fits} fits "
                         f"({per_fit:.1f} s a fit per worker")

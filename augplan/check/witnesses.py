@@ -12,8 +12,11 @@ With a network as the first witness (``check --model cnn``), the replaced
 model over the whole range is the network, trained on `NETWORK_FOLDS` folds
 and compared with the network's own baseline; safety (originals plus
 copies) and the nested ranges of the safe limit stay with the linear proxy.
-Each network fit draws from its own keyed stream (key: transform, fold), so
-no prediction depends on the worker count.
+The transformed copies of each fit come from a stream keyed by (transform,
+fold); the network's weights and batch order from a stream keyed by the
+fold alone, the same for the baseline and every transform (common random
+numbers), so no prediction depends on the worker count and a rise is not a
+difference of two fits' luck.
 """
 
 from __future__ import annotations
@@ -122,16 +125,15 @@ def _replaced_images(context, images, t_index, rng):
 def _network_unit(context, unit):
     """Held-out originals of one network fold, predicted by the network trained on the other folds.
 
-    ``unit`` is ``(t_index, fold, rng)``: ``t_index`` None trains on the
+    ``unit`` is ``(t_index, fold, draw_rng, model_rng)``: ``t_index`` None trains on the
     originals (the one baseline every transform shares), otherwise on the
     originals with transform ``t_index``'s scope replaced (the first
     witness). Only original images are ever predicted.
     """
     from augplan.parallel import tick
 
-    t_index, fold, rng = unit
+    t_index, fold, draw_rng, model_rng = unit
     images = decoded.decoded_sample(context.records, context.size, context.sample_key)
-    draw_rng, model_rng = rng.spawn(2)
     if t_index is None:
         train_images, train_labels = images, context.labels
     else:
@@ -153,7 +155,11 @@ def _network_witness(context, images, jobs, rng, workers, quiet):
     n_folds = int(folds.max()) + 1
     root = stream_root(rng)
     keys = [None] + sorted({t for t, _ in jobs})
-    units = [(t, fold, keyed_generator(root, 0 if t is None else t + 1, fold))
+    # Common random numbers: every network of a fold starts from the same
+    # weights and sees its batches in the same order (the model stream is
+    # keyed by the fold alone), so the baseline and a replaced network differ
+    # only by the transformed images, not by a fit's luck of the draw.
+    units = [(t, fold, keyed_generator(root, 1, 0 if t is None else t + 1, fold), keyed_generator(root, 0, fold))
              for t in keys for fold in range(n_folds)]
     epochs = getattr(context.network, "epochs", None)
     ticks = epochs(int(np.sum(folds != 0))) if epochs else None
@@ -162,7 +168,7 @@ def _network_witness(context, images, jobs, rng, workers, quiet):
                                quiet=quiet, desc=f"confirming with the {context.network.name} model"
                                                  + (f" ({ticks} epochs a fit)" if ticks else ""))
     predictions = {}
-    for (t, fold, _), predicted in zip(units, outputs):
+    for (t, fold, _, _), predicted in zip(units, outputs):
         predictions.setdefault(t, np.empty(len(folds), dtype=np.int64))[folds == fold] = predicted
     return predictions
 
