@@ -63,7 +63,7 @@ __all__ = ["evaluate_recipes", "no_val_warning"]
 
 # Purposes that key the streams of a run, so streams for different jobs never
 # coincide.
-_PURPOSE_TRAIN, _PURPOSE_VAL, _PURPOSE_CONFIRM, _PURPOSE_FIELD, _PURPOSE_SPLIT, _PURPOSE_AUDIT = range(6)
+_PURPOSE_TRAIN, _PURPOSE_VAL, _PURPOSE_CONFIRM, _PURPOSE_FIELD, _PURPOSE_SPLIT, _PURPOSE_AUDIT, _PURPOSE_MODEL = range(7)
 _BASELINE_KEY = int(hashlib.sha256(b"augplan-baseline").hexdigest(), 16)
 
 
@@ -172,7 +172,11 @@ def _compute(dataset, recipes, hashes, scoring, *, repeats, size, root, workers,
         train_unit, shared = train_linear, (train_features, eval_features)
     else:
         train_unit, shared = train_on_images, (classes, splits)
-    units = [(scoring, recipe, train, *shared, size, keyed_generator(root, _PURPOSE_TRAIN, key, r))
+    # Common random numbers: the model's stream is keyed by the repeat alone,
+    # so every arm of a repeat starts from the same weights and batch order;
+    # the recipe's draws have a stream of their own per (recipe, repeat).
+    units = [(scoring, recipe, train, *shared, size, keyed_generator(root, _PURPOSE_MODEL, r),
+              keyed_generator(root, _PURPOSE_TRAIN, key, r))
              for recipe, key in arms for r in range(repeats)]
     # The network's bar counts epochs within each fit, not whole fits.
     epochs = scoring.epochs(len(train)) if hasattr(scoring, "epochs") else None

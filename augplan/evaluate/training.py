@@ -11,10 +11,13 @@ validation images in ``evaluate``'s output is zero by construction, and
 ``tests/evaluate/test_models.py`` proves it for every model with a
 transform that records every image it sees.
 
-Randomness: each work unit (one recipe, one repeat) carries its own
-`numpy.random.Generator`, keyed by recipe and repeat
-(`augplan.seeding.keyed_generator`), and spawns it once into the model's
-stream and the draws' stream; the draws give one child per image.
+Randomness: each work unit (one recipe, one repeat) carries two
+`numpy.random.Generator` objects (`augplan.seeding.keyed_generator`): the
+model's, keyed by the repeat alone, and the draws', keyed by recipe and
+repeat; the draws give one child per image. Every arm of one repeat, the
+baseline included, so starts from the same weights and sees its batches in
+the same order (common random numbers): a gain is the recipe's, not the
+difference of two fits' luck.
 """
 
 from collections import Counter
@@ -144,8 +147,8 @@ def _train_one(unit):
     """Train the linear proxy once (one recipe, one repeat) and predict evaluation features.
 
     ``unit`` holds the training records and their original feature rows, the
-    recipe (``None`` for the baseline), the unit's generator, and the feature rows
-    of the evaluation splits. Augmented draws are made and featurised chunk by
+    recipe (``None`` for the baseline), the model's and the draws' generators,
+    and the feature rows of the evaluation splits. Augmented draws are made and featurised chunk by
     chunk; only their feature rows are kept.
 
     Returns
@@ -153,9 +156,8 @@ def _train_one(unit):
     dict
         ``{"predictions": {split: labels}, "augmented": n augmented rows}``.
     """
-    (scoring, recipe, train_records, train_features, eval_features, size, rng) = unit
+    (scoring, recipe, train_records, train_features, eval_features, size, model_rng, draws_rng) = unit
     model = scoring.template
-    model_rng, draws_rng = rng.spawn(2)
     blocks = [train_features]
     block_labels = [np.array([r.label for r in train_records]).astype(str)]
     if _adds_draws(recipe):
@@ -214,8 +216,7 @@ def _train_one_on_images(unit):
     dict
         ``{"predictions": {split: labels}, "augmented": n augmented images trained on}``.
     """
-    (scoring, recipe, train_records, classes, eval_records, size, rng) = unit
-    model_rng, draws_rng = rng.spawn(2)
+    (scoring, recipe, train_records, classes, eval_records, size, model_rng, draws_rng) = unit
     images = load_images(train_records, size)
     labels = np.array([r.label for r in train_records]).astype(str)
     draw = None

@@ -164,6 +164,33 @@ def test_the_network_gives_the_same_json_for_one_seed_across_worker_counts(digit
     assert texts[0] == texts[1]
 
 
+def test_every_arm_of_a_repeat_starts_from_the_same_network(digits_data, monkeypatch):
+    # Common random numbers: the baseline and each recipe of one repeat share
+    # the network's starting weights and batch order (the fit's generator
+    # state); repeats differ. A recipe whose draws change no pixel therefore
+    # trains the baseline's network exactly, and its gain is exactly zero.
+    from augplan.measure.convnet import ConvNetClassifier
+
+    starts, fit = [], ConvNetClassifier.fit
+
+    def recording_fit(self, images, labels, rng, *args, **kwargs):
+        starts.append(rng.bit_generator.state["state"]["state"])
+        return fit(self, images, labels, rng, *args, **kwargs)
+
+    monkeypatch.setattr(ConvNetClassifier, "fit", recording_fit)
+    unchanged = Recipe(name="unchanged", copies=1, transforms=(Transform("brightness", {"factor": (1.0, 1.0)}),))
+    model = ConvNet(params=(("widths", (4, 8)), ("steps", 10), ("min_epochs", 1)))
+    document = evaluate_recipes(digits_data, [unchanged, FLIPS], np.random.default_rng(5), repeats=2, size=SIZE,
+                                workers=1, cache_dir=False, model=model)
+    # Fits in order: baseline, unchanged, flips; two repeats each.
+    assert len(starts) == 6
+    assert starts[0] == starts[2] == starts[4] and starts[1] == starts[3] == starts[5]
+    assert starts[0] != starts[1]
+    row = _by_name(document)["unchanged"]
+    assert row["augmented_training_images"] > 0
+    assert row["gain"] == 0.0 and row["gain_ci"] == [0.0, 0.0]
+
+
 def test_an_edited_team_module_is_not_served_from_the_ledger(tmp_path, monkeypatch):
     # The ledger's key carries the module's bytes (hashlib's sha256 as the reference).
     module = tmp_path / "edited_team.py"
