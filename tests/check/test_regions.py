@@ -7,7 +7,7 @@ k-nearest-neighbour search; `locate`'s cases are ground truth by construction.
 import numpy as np
 import pytest
 
-from augplan.check.regions import OUTSIDE, class_distances, locate, reference_rows
+from augplan.check.regions import class_distances, locate, reference_rows
 
 
 def test_class_distances_match_sklearn_nearest_neighbors():

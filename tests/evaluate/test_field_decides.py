@@ -11,8 +11,6 @@ every class. Scored with the linear proxy at 32 px, 2 repeats: the effect
 shows there because its colour histogram and thumbnail carry brightness.
 """
 
-from pathlib import Path
-
 import numpy as np
 import pytest
 from PIL import Image
