@@ -18,7 +18,10 @@ Data:
   images per class, the other 1,297 for validation;
 - the committed Fashion-MNIST subset (tests/reference/, see its README): 100
   training images per class from the training file, the 50 per class from
-  the t10k file for validation, at 32x32.
+  the t10k file for validation, at 32x32. With ``--fashion-t10k N`` (and
+  Debian's ``dataset-fashion-mnist`` installed) validation takes the first N
+  per class of the whole t10k file instead: 500 validation images leave
+  intervals of about +-0.02, wider than most gains compared here.
 
 Printed per data set: the three gain tables, the Spearman rank correlation
 of the gains between each pair (`scipy.stats.spearmanr`), and two
@@ -27,7 +30,8 @@ verdict (``gains`` / ``no difference`` / ``loses``, by the evaluator's
 VERDICT_RULE on Holm-adjusted p-values). Targets: default vs reference
 Spearman >= 0.9, signs and verdicts agree on at least 5 of the 6 recipes.
 
-Run: ``.venv/bin/python benchmarks/bench_transfer.py [--workers 2] [--data digits fashion]``.
+Run: ``.venv/bin/python benchmarks/bench_transfer.py [--workers 2] [--data digits fashion]
+[--reference-repeats 2] [--fashion-t10k 500]``.
 """
 
 import argparse
@@ -49,6 +53,8 @@ from augplan.recipe.parse import Recipe, Transform
 
 SIZE = 32
 FASHION = Path(__file__).resolve().parents[1] / "tests" / "reference" / "fashion-mnist-subset.npz"
+# Where Debian's dataset-fashion-mnist package puts the original IDX files.
+DEBIAN_FASHION = Path("/usr/share/datasets/fashion-mnist")
 
 RECIPES = [
     Recipe(name="flip-h", transforms=(Transform("flip", {"axis": "horizontal"}, probability=0.5),)),
@@ -84,12 +90,29 @@ def write_digits(root, per_class=50):
     return open_dataset(root)
 
 
-def write_fashion(root):
+def _t10k(per_class):
+    """The first ``per_class`` images of each class of Fashion-MNIST's t10k file, from Debian's package."""
+    sys.path.insert(0, str(FASHION.parent))
+    from cut_fashion_mnist import first_per_class, read_idx
+
+    if not DEBIAN_FASHION.is_dir():
+        raise SystemExit(f"--fashion-t10k needs Debian's dataset-fashion-mnist package ({DEBIAN_FASHION} is missing): "
+                         f"apt-get install dataset-fashion-mnist")
+    images = read_idx(DEBIAN_FASHION / "t10k-images-idx3-ubyte.gz")
+    labels = read_idx(DEBIAN_FASHION / "t10k-labels-idx1-ubyte.gz")
+    keep = first_per_class(labels, per_class)
+    return images[keep], labels[keep]
+
+
+def write_fashion(root, t10k_per_class=None):
     with np.load(FASHION) as arrays:
         names = [str(n).replace("/", "-").replace(" ", "-").lower() for n in arrays["class_names"]]
-        for split, key in (("train", "train"), ("val", "test")):
-            for index, (image, label) in enumerate(zip(arrays[f"{key}_images"], arrays[f"{key}_labels"])):
-                _save(image, root / split / names[label], f"{index:04d}.png")
+        splits = {"train": (arrays["train_images"], arrays["train_labels"]),
+                  "val": (arrays["test_images"], arrays["test_labels"]) if t10k_per_class is None
+                  else _t10k(t10k_per_class)}
+        for split, (images, labels) in splits.items():
+            for index, (image, label) in enumerate(zip(images, labels)):
+                _save(image, root / split / names[label], f"{index:05d}.png")
     return open_dataset(root)
 
 
@@ -146,11 +169,16 @@ def main(argv=None):
     parser.add_argument("--models", nargs="+", choices=("default", "linear", "reference"),
                         default=["default", "linear", "reference"])
     parser.add_argument("--reference-repeats", type=int, default=2)
+    parser.add_argument("--fashion-t10k", type=int, default=None, metavar="PER_CLASS",
+                        help="validate the clothing set on the first PER_CLASS images of each class of the full "
+                             "t10k file (Debian's dataset-fashion-mnist) instead of the committed 50, for "
+                             "narrower intervals; at most 1000")
     parser.add_argument("--store", type=Path, default=None,
                         help="folder keeping each run's JSON (DATA-MODEL.json); the comparison uses the stored "
                              "runs of models not run now, so the three can run as separate processes")
     args = parser.parse_args(argv)
-    writers = {"digits": write_digits, "fashion": write_fashion}
+    writers = {"digits": write_digits,
+               "fashion": lambda root: write_fashion(root, args.fashion_t10k)}
     for data_name in args.data:
         with tempfile.TemporaryDirectory() as scratch:
             dataset = writers[data_name](Path(scratch) / "DATA")
