@@ -61,3 +61,32 @@ def test_a_fit_without_the_nan_fill_learns_the_same_weights_and_restores_torch_s
     for a, b in zip(_weights(without_fill), _weights(with_nan_fill)):
         np.testing.assert_array_equal(a, b)
     assert all(np.all(np.isfinite(w)) for w in _weights(with_nan_fill))
+
+
+def test_pooling_before_relu_learns_the_weights_of_the_textbook_order(monkeypatch):
+    # Reference: the textbook block built from torch's own layers, ReLU
+    # before max pooling. ReLU is monotone, so it commutes with max pooling
+    # forward and backward; the product's block pools first, and a fit must
+    # learn the same weights bit for bit (same float operations, reordered
+    # only where no arithmetic happens).
+    from torch import nn
+
+    import augplan.measure.convnet as convnet
+
+    def textbook(n_channels, widths, n_classes):
+        layers, previous = [], n_channels
+        for width in widths:
+            layers += [nn.Conv2d(previous, width, 3, padding=1, bias=False), nn.BatchNorm2d(width),
+                       nn.ReLU(inplace=True), nn.MaxPool2d(2)]
+            previous = width
+        return nn.Sequential(*layers, nn.AdaptiveAvgPool2d(4), nn.Flatten(), nn.Linear(previous * 16, n_classes))
+
+    images = np.random.default_rng(2).integers(0, 256, size=(48, 16, 16, 3), dtype=np.uint8)
+    labels = np.arange(48) % 3
+    product = convnet.ConvNetClassifier(steps=6).fit(images, labels, np.random.default_rng(3))
+    assert isinstance(product.network_[2], nn.MaxPool2d) and isinstance(product.network_[3], nn.ReLU)
+    monkeypatch.setattr(convnet, "_network", textbook)
+    reference = convnet.ConvNetClassifier(steps=6).fit(images, labels, np.random.default_rng(3))
+    for a, b in zip(_weights(product), _weights(reference)):
+        np.testing.assert_array_equal(a, b)
+    np.testing.assert_array_equal(product.predict(images), reference.predict(images))
