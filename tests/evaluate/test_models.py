@@ -146,6 +146,25 @@ def test_the_network_finds_flipped_digits_harmful(cnn_comparison):
     assert flips["gain"] < _by_name(cnn_comparison)["small-affine"]["gain"]
 
 
+@pytest.fixture(scope="module")
+def default_comparison(digits_data):
+    # The default network with its documented settings (300 optimiser steps),
+    # as a user gets it: about 6 CPU s a fit at 32 px.
+    return evaluate_recipes(digits_data, [FLIPS, SMALL_AFFINE], np.random.default_rng(0), repeats=2, size=SIZE,
+                            cache_dir=False, model="cnn", workers=2)
+
+
+def test_the_default_network_finds_flips_harmful_and_small_affine_not(default_comparison):
+    # UCI optdigits via scikit-learn, 15 training images a class: mirrored
+    # digits are not handwriting, so the flip recipe's interval lies below
+    # zero; small affine distortions help on handwritten digits (Simard,
+    # Steinkraus & Platt, ICDAR 2003), so they must at least not lose.
+    recipes = _by_name(default_comparison)
+    assert default_comparison["model"]["name"] == "cnn"
+    assert recipes["flips"]["gain_ci"][1] < 0 and recipes["flips"]["verdict"] == "loses"
+    assert recipes["small-affine"]["gain_ci"][1] > 0 and recipes["small-affine"]["verdict"] != "loses"
+
+
 def test_the_network_sees_fresh_draws_every_epoch(cnn_comparison):
     # Every image once per epoch, per repeat: the epochs of SMALL_CNN on 150
     # images (3 batches) take 60 optimiser steps, i.e. 20 epochs.
